@@ -1,0 +1,308 @@
+"""The DecisionSet every consumer sees: validation of inputs, then dispatch.
+
+Batching follows NumPy's generalized-ufunc rule: trailing axes match
+``K.shape``, leading axes are a batch.
+"""
+from __future__ import annotations
+
+import threading
+import time
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from .errors import InputError, UnsupportedOperationError
+from .routing import plan
+
+
+@dataclass(frozen=True)
+class Details:
+    """A detailed operator result.
+
+    ``point`` has the shape of the answer; the other fields are scalars for a
+    single input and arrays (one entry per batch element) for a batch.
+    ``residual`` is the measured largest constraint violation of the answer
+    (NaN where the set offers no independent check), ``certificate`` the
+    Frank-Wolfe gap support(y - p) - <y - p, p>, which bounds (1/2)||p - p*||^2.
+    """
+
+    point: Any
+    status: Any
+    route: str
+    residual: Any
+    certificate: Any
+    iterations: Any
+    seconds: float
+    backend_status: Any
+
+
+def _flat_info(info, key, b, default):
+    v = info.get(key)
+    if v is None:
+        return [default] * b
+    return list(v)
+
+
+class DecisionSet:
+    """A compiled convex set with its operators.
+
+    Build one with :func:`setkit.compile` or :func:`setkit.load`.
+    """
+
+    def __init__(self, node, overrides: dict | None = None, *, loose: bool = False):
+        self.node = node
+        self._overrides = dict(overrides or {})
+        self._loose = loose
+        self._routes = plan(node, self._overrides)
+        self._local = threading.local()
+        self._parts = None
+        self._form_cache = None
+
+    # -- pickling: workspaces are rebuilt lazily on the other side -------------------------
+    def __getstate__(self):
+        return {"node": self.node, "overrides": self._overrides, "loose": self._loose}
+
+    def __setstate__(self, state):
+        self.__init__(state["node"], state["overrides"], loose=state["loose"])
+
+    # -- description --------------------------------------------------------------------------
+    @property
+    def shape(self) -> tuple:
+        return tuple(self.node.shape)
+
+    @property
+    def dim(self) -> int:
+        return int(self.node.dim)
+
+    @property
+    def kind(self) -> str:
+        return self.node.kind
+
+    @property
+    def parts(self) -> tuple:
+        """The compiled parts of a combinator (empty for a family)."""
+        if self._parts is None:
+            self._parts = tuple(DecisionSet(c, loose=self._loose) for c in self.node.children())
+        return self._parts
+
+    def __repr__(self):
+        return f"<DecisionSet {self.node.label} shape={self.shape}>"
+
+    def routes(self) -> dict:
+        return dict(self._routes)
+
+    def explain(self) -> str:
+        """Which algorithm or backend serves each operator, and why."""
+        lines = [f"{self.node.label}: shape {self.shape}, dim {self.dim}"]
+        for op, r in self._routes.items():
+            lines.append("  " + r.describe())
+        for i, p in enumerate(self.parts):
+            sub = p.explain().splitlines()
+            lines.append(f"  part {i}: " + sub[0])
+            lines.extend("    " + s for s in sub[1:])
+        return "\n".join(lines)
+
+    def with_backends(self, **choices) -> "DecisionSet":
+        """The same set with other implementations, e.g. ``with_backends(project="osqp")``.
+
+        Values are a backend name, ``"native"``, ``"derived"``, or None (default route).
+        """
+        merged = dict(self._overrides)
+        for k, v in choices.items():
+            if v is None:
+                merged.pop(k, None)
+            else:
+                merged[k] = v
+        loose = merged.pop("loose", self._loose)
+        return DecisionSet(self.node, merged, loose=bool(loose))
+
+    # -- input handling -------------------------------------------------------------------------
+    def _batch(self, arr, argname: str, op: str):
+        try:
+            a = np.asarray(arr, dtype=float)
+        except (TypeError, ValueError):
+            raise InputError(f"{op} on {self.node.label}: argument {argname} must be numeric with trailing "
+                             f"shape {self.shape}; got {type(arr).__name__}.") from None
+        k = len(self.shape)
+        if a.ndim < k or tuple(a.shape[a.ndim - k:]) != self.shape:
+            raise InputError(f"{op} on {self.node.label}: argument {argname} must have trailing shape "
+                             f"{self.shape} (leading axes are a batch); got shape {a.shape}.")
+        if not np.all(np.isfinite(a)):
+            bad = np.argwhere(~np.isfinite(a))[0]
+            raise InputError(f"{op} on {self.node.label}: argument {argname} must be finite; got "
+                             f"{a[tuple(bad)]} at index {tuple(int(i) for i in bad)}.")
+        lead = a.shape[: a.ndim - k]
+        return np.ascontiguousarray(a.reshape(-1, self.dim)), lead
+
+    def _out_points(self, P, lead):
+        return P.reshape(lead + self.shape)
+
+    @staticmethod
+    def _out_values(v, lead):
+        v = np.asarray(v)
+        return v.reshape(lead)[()] if lead == () else v.reshape(lead)
+
+    # -- dispatch -------------------------------------------------------------------------------
+    def _workspace(self, name):
+        from .backends import get_backend
+        cache = getattr(self._local, "ws", None)
+        if cache is None:
+            cache = self._local.ws = {}
+        if name not in cache:
+            cache[name] = get_backend(name)(self.node, loose=self._loose)
+        return cache[name]
+
+    def _form(self):
+        if self._form_cache is None:
+            self._form_cache = self.node.linear_form()
+        return self._form_cache
+
+    def _run(self, op, X, tol=None):
+        """Run operator ``op`` on a flat batch; returns (out, info)."""
+        r = self._routes[op]
+        p = r.provider
+        if p == "native":
+            fn = getattr(self.node, self.node.kernels[op])
+            args = (X, tol) if op == "contains" else (X,)
+            if self.node.children():
+                args = args + (self.parts,)
+            return fn(*args), {}
+        if p == "derived":
+            if op == "distance":
+                P, info = self._run("project", X)
+                return np.linalg.norm(X - P, axis=1), info
+            if op == "support":
+                L, info = self._run("lmo", -X)   # max <c, x> = <c, argmin <-c, x>>
+                return np.einsum("ij,ij->i", X, L), info
+            if op == "contains":
+                d, info = self._run("distance", X)
+                return d <= tol, info
+        if p == "form":
+            return self._form().violation_x(X), {}
+        if p == "none":
+            raise UnsupportedOperationError(f"{op} on {self.node.label}: {r.reason}.")
+        ws = self._workspace(p)
+        if op == "contains":
+            return getattr(ws, op)(X, tol)
+        return getattr(ws, op)(X)
+
+    def _default_tol(self, X):
+        return 1e-7 * np.maximum(1.0, np.maximum(np.abs(X).max(axis=1), self.node.scale()))
+
+    # -- operators ------------------------------------------------------------------------------
+    def project(self, y, details: bool = False):
+        """Euclidean projection onto the set: argmin_{x in K} ||x - y||."""
+        Y, lead = self._batch(y, "y", "project")
+        t0 = time.perf_counter()
+        P, info = self._run("project", Y)
+        secs = time.perf_counter() - t0
+        if not details:
+            return self._out_points(P, lead)
+        return self._details("project", Y, P, lead, info, secs, certificate=True)
+
+    def distance(self, y):
+        """Euclidean distance to the set: ||y - project(y)||."""
+        Y, lead = self._batch(y, "y", "distance")
+        d, _ = self._run("distance", Y)
+        return self._out_values(d, lead)
+
+    def lmo(self, c, details: bool = False):
+        """Linear minimization oracle: a minimizer of <c, x> over the set."""
+        C, lead = self._batch(c, "c", "lmo")
+        t0 = time.perf_counter()
+        L, info = self._run("lmo", C)
+        secs = time.perf_counter() - t0
+        if not details:
+            return self._out_points(L, lead)
+        return self._details("lmo", C, L, lead, info, secs, certificate=False)
+
+    def support(self, c):
+        """Support function: max over the set of <c, x>."""
+        C, lead = self._batch(c, "c", "support")
+        # sigma(c) = -min <-c, x>
+        v, _ = self._run("support", C)
+        return self._out_values(v, lead)
+
+    def contains(self, x, tol=None):
+        """Membership within tolerance: dist(x, K) <= tol.
+
+        ``tol`` is absolute; by default 1e-7 * max(1, ||x||_inf, scale of the set's data).
+        """
+        X, lead = self._batch(x, "x", "contains")
+        if tol is None:
+            t = self._default_tol(X)
+        else:
+            try:
+                t = np.broadcast_to(np.asarray(tol, dtype=float), (X.shape[0],))
+            except ValueError:
+                raise InputError(f"contains on {self.node.label}: tol must be a number or one per point; "
+                                 f"got shape {np.shape(tol)}.") from None
+            if np.any(~np.isfinite(t)) or np.any(t < 0):
+                raise InputError(f"contains on {self.node.label}: tol must be a finite number >= 0; got {tol}.")
+        v, _ = self._run("contains", X, tol=t)
+        return self._out_values(np.asarray(v, dtype=bool), lead)
+
+    def violation(self, x):
+        """Largest violated defining constraint of each point (0 inside), NaN if the set has no such check."""
+        X, lead = self._batch(x, "x", "violation")
+        if self._routes["violation"].provider == "none":
+            return self._out_values(np.full(X.shape[0], np.nan), lead)
+        v, _ = self._run("violation", X)
+        return self._out_values(v, lead)
+
+    def certificate(self, y, p):
+        """Frank-Wolfe gap of p as a projection of y: support(y - p) - <y - p, p> >= (1/2)||p - p*||^2."""
+        Y, lead = self._batch(y, "y", "certificate")
+        P, _ = self._batch(p, "p", "certificate")
+        return self._out_values(self._gap(Y, P), lead)
+
+    def _gap(self, Y, P):
+        R = Y - P
+        s, _ = self._run("support", R)
+        return s - np.einsum("ij,ij->i", R, P)
+
+    def _details(self, op, X, P, lead, info, secs, certificate):
+        b = X.shape[0]
+        if self._routes["violation"].provider != "none":
+            resid, _ = self._run("violation", P)
+        else:
+            resid = np.full(b, np.nan)
+        cert = self._gap(X, P) if certificate else np.full(b, np.nan)
+        status = _flat_info(info, "status", b, "solved")
+        iters = _flat_info(info, "iterations", b, 0)
+        bstat = _flat_info(info, "backend_status", b, "exact")
+
+        def pack(v, dtype=None):
+            arr = np.asarray(v, dtype=dtype)
+            return arr.reshape(lead)[()] if lead == () else arr.reshape(lead)
+
+        r = self._routes[op]
+        return Details(point=self._out_points(P, lead), status=pack(status, object), route=r.provider,
+                       residual=pack(resid, float), certificate=pack(cert, float),
+                       iterations=pack(iters, object), seconds=secs, backend_status=pack(bstat, object))
+
+    # -- modeling --------------------------------------------------------------------------------
+    def to_cvxpy(self, x) -> list:
+        """The set as a list of cvxpy constraints on ``x`` (a cvxpy expression of shape ``K.shape``)."""
+        shp = tuple(getattr(x, "shape", ()))
+        if shp != self.shape:
+            raise InputError(f"to_cvxpy on {self.node.label}: x must be a cvxpy expression of shape "
+                             f"{self.shape}; got shape {shp}.")
+        return list(self.node.cvxpy_constraints(x))
+
+    # -- measures and penalties are served by their own modules ----------------------------------
+    def centroid(self, measure: str = "volume", **kw):
+        """Centroid of the set under ``measure`` ("volume", "vertices", "directions")."""
+        from . import measures
+        return measures.centroid(self, measure, **kw)
+
+    def sample(self, k: int, measure: str = "volume", rng=None, **kw):
+        """k points of the set drawn from ``measure``; shape (k, *K.shape)."""
+        from . import measures
+        return measures.sample(self, k, measure, rng, **kw)
+
+    def penalty(self, G: float, smoothing: str | None = None, width: float | None = None, **kw):
+        """The distance penalty G·dist(x, K), optionally smoothed ("moreau" or "ball")."""
+        from . import penalty
+        return penalty.make_penalty(self, G, smoothing, width, **kw)

@@ -1,0 +1,106 @@
+"""The box {x : lower <= x <= upper} (bounds may be infinite)."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import UnboundedDirectionError
+from ..forms import LinearForm
+from . import Family, kernel, register
+
+
+@register("box")
+@dataclass(frozen=True, eq=False, kw_only=True)
+class Box(Family):
+    """K = {x in R^n : lower_i <= x_i <= upper_i}.
+
+    >>> import setkit
+    >>> setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}).project([2.0, -1.0]).tolist()
+    [1.0, 0.0]
+    """
+
+    lower: np.ndarray
+    upper: np.ndarray
+    traits = frozenset({"polyhedral", "separable", "permutation_invariant_if_uniform"})
+
+    @classmethod
+    def from_spec(cls, r):
+        n = None
+        if r.has("dim"):
+            n = r.integer("dim", min=1)
+        else:
+            for key in ("lower", "upper"):
+                v = r.spec.get(key)
+                if isinstance(v, (list, tuple)) or (isinstance(v, str) and "." in v and not v.startswith(("inf", "-inf"))):
+                    n = len(r.array(key, ndim=1, allow_inf=True))
+                    break
+            if n is None:
+                r.fail("dim", "dim is required when both bounds are scalars.")
+        lo = r.vector_or_scalar("lower", n, default=-np.inf, allow_inf=True)
+        hi = r.vector_or_scalar("upper", n, default=np.inf, allow_inf=True)
+        if lo is None:
+            lo = np.full(n, -np.inf)
+        if hi is None:
+            hi = np.full(n, np.inf)
+        bad = np.flatnonzero(lo > hi)
+        if bad.size:
+            i = int(bad[0])
+            r.fail("lower", f"lower must not exceed upper; at index {i} lower is {lo[i]} and upper {hi[i]}.")
+        if np.any(lo == np.inf) or np.any(hi == -np.inf):
+            r.fail("lower", "lower cannot be +inf and upper cannot be -inf.")
+        return cls(lower=lo, upper=hi, name=r.name)
+
+    @property
+    def shape(self):
+        return (self.lower.size,)
+
+    def scale(self):
+        v = np.concatenate([self.lower, self.upper])
+        v = v[np.isfinite(v)]
+        return float(np.abs(v).max(initial=1.0))
+
+    def cvxpy_constraints(self, x):
+        cons = []
+        flo, fhi = np.isfinite(self.lower), np.isfinite(self.upper)
+        if flo.all():
+            cons.append(x >= self.lower)
+        elif flo.any():
+            cons.append(x[np.flatnonzero(flo)] >= self.lower[flo])
+        if fhi.all():
+            cons.append(x <= self.upper)
+        elif fhi.any():
+            cons.append(x[np.flatnonzero(fhi)] <= self.upper[fhi])
+        return cons
+
+    def linear_form(self):
+        return LinearForm.build(self.dim, lo=self.lower, hi=self.upper)
+
+    @kernel("project")
+    def project(self, Y):
+        """Clipping to the bounds, O(n)."""
+        return np.clip(Y, self.lower, self.upper)
+
+    @kernel("distance")
+    def distance(self, Y):
+        """Norm of the clipped-off part, O(n)."""
+        return np.linalg.norm(Y - np.clip(Y, self.lower, self.upper), axis=1)
+
+    @kernel("lmo")
+    def lmo(self, C):
+        """Lower bound where c > 0, upper bound where c < 0 (lower, else upper, where c = 0), O(n)."""
+        lo = np.broadcast_to(self.lower, C.shape)
+        hi = np.broadcast_to(self.upper, C.shape)
+        tie = np.where(np.isfinite(lo), lo, np.where(np.isfinite(hi), hi, 0.0))
+        X = np.where(C > 0, lo, np.where(C < 0, hi, tie))
+        if not np.all(np.isfinite(X)):
+            i, j = np.argwhere(~np.isfinite(X))[0]
+            raise UnboundedDirectionError(
+                f"{self.label}: lmo(c) has no minimizer: coordinate {j} is unbounded and c[{j}] = {C[i, j]} "
+                f"(batch row {i}).")
+        return X
+
+    @kernel("violation")
+    def violation(self, X):
+        """Largest bound violation, O(n)."""
+        return np.maximum((self.lower - X).max(axis=1), (X - self.upper).max(axis=1)).clip(min=0.0)

@@ -1,0 +1,85 @@
+"""The simplex {x >= 0, sum x = total} (mode equal) or {x >= 0, sum x <= total} (mode at_most)."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..forms import LinearForm
+from ..kernels.simplex import project_simplex_rows
+from . import Family, kernel, register
+
+
+@register("simplex")
+@dataclass(frozen=True, eq=False, kw_only=True)
+class Simplex(Family):
+    """K = {x in R^n : x >= 0, sum x = total} (mode equal) or sum x <= total (mode at_most).
+
+    >>> import setkit
+    >>> setkit.compile({"kind": "simplex", "dim": 3}).project([1.0, 0.0, 0.0]).tolist()
+    [1.0, 0.0, 0.0]
+    """
+
+    n: int
+    total: float = 1.0
+    mode: str = "equal"
+    traits = frozenset({"polyhedral", "bounded", "permutation_invariant"})
+
+    @classmethod
+    def from_spec(cls, r):
+        n = r.integer("dim", min=1)
+        total = r.number("total", 1.0, min=0.0)
+        mode = r.choice("mode", ("equal", "at_most"), "equal")
+        return cls(n=n, total=total, mode=mode, name=r.name)
+
+    @property
+    def shape(self):
+        return (self.n,)
+
+    def scale(self):
+        return max(1.0, self.total)
+
+    def cvxpy_constraints(self, x):
+        import cvxpy as cp
+        s = cp.sum(x)
+        return [x >= 0, s == self.total if self.mode == "equal" else s <= self.total]
+
+    def linear_form(self):
+        ones = np.ones((1, self.n))
+        if self.mode == "equal":
+            return LinearForm.build(self.n, A_eq=ones, b_eq=[self.total], lo=0.0)
+        return LinearForm.build(self.n, A_ub=ones, b_ub=[self.total], lo=0.0)
+
+    @kernel("project")
+    def project(self, Y):
+        """Sorted-threshold projection (pivot search for long single vectors), O(n log n)."""
+        if self.mode == "equal":
+            return project_simplex_rows(Y, self.total)
+        X = np.maximum(Y, 0.0)
+        over = X.sum(axis=1) > self.total
+        if over.any():
+            X[over] = project_simplex_rows(Y[over], self.total)
+        return X
+
+    @kernel("lmo")
+    def lmo(self, C):
+        """The vertex total * e_i at the smallest c_i (the origin when at_most and min c >= 0), O(n)."""
+        b = C.shape[0]
+        X = np.zeros_like(C)
+        j = np.argmin(C, axis=1)
+        take = np.ones(b, bool) if self.mode == "equal" else C[np.arange(b), j] < 0
+        X[np.arange(b)[take], j[take]] = self.total
+        return X
+
+    @kernel("support")
+    def support(self, C):
+        """total * max(c) (and at least 0 when at_most), O(n)."""
+        m = C.max(axis=1)
+        return self.total * (m if self.mode == "equal" else np.maximum(m, 0.0))
+
+    @kernel("violation")
+    def violation(self, X):
+        """Largest violation of x >= 0 and of the sum constraint, O(n)."""
+        s = X.sum(axis=1) - self.total
+        sv = np.abs(s) if self.mode == "equal" else np.maximum(s, 0.0)
+        return np.maximum((-X).max(axis=1).clip(min=0.0), sv)

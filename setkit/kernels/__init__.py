@@ -1,0 +1,1 @@
+"""Pure array algorithms shared by families (no set objects here)."""
