@@ -181,13 +181,18 @@ def op_error(op, out, ref, X, K) -> float:
     return float((np.abs(np.ravel(out) - np.ravel(ref)) / cs).max())
 
 
-def timed_calls(fn, mode: Mode, budget: float):
+def timed_calls(fn, mode: Mode, budget: float, jit_warmup: bool = False):
     """One warm-up call (kept as the answer), then repeats; returns (out, first, median, reps)."""
     t0 = time.perf_counter()
     out = fn()
     first = time.perf_counter() - t0
     times = []
-    if first <= budget:
+    if first > budget and jit_warmup:
+        # a compiled kernel pays its JIT compilation on the first call: time one more call
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    elif first <= budget:
         spent = 0.0
         while len(times) < mode.repeats and (len(times) < 3 or spent < mode.min_seconds):
             t0 = time.perf_counter()
@@ -289,7 +294,7 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
                 if key in last:
                     n0, t0 = last[key]
                     guess = t0 * (n / n0) ** 1.2
-                    if guess > 5 * budget:
+                    if guess > 2 * budget:
                         row.status = stopped[key] = (f"skipped: predicted {guess:.3g} s per call from n={n0}, "
                                                      f"over the {budget:g} s budget")
                         continue
@@ -298,7 +303,8 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
                     row.route = Kb.routes()[op].provider
                     with warnings.catch_warnings():
                         warnings.simplefilter("ignore")
-                        out, first, med, reps = timed_calls(lambda: call(Kb, op, X), mode, budget)
+                        out, first, med, reps = timed_calls(lambda: call(Kb, op, X), mode, budget,
+                                                            jit_warmup=_base(label) == "native")
                         if med < mode.memory_limit:
                             row.peak_bytes = peak_memory(lambda: call(Kb, op, X))
                 except (SetkitError, ValueError, RuntimeError, ImportError) as exc:
@@ -307,12 +313,14 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
                     continue
                 outs[label] = out
                 row.seconds, row.setup, row.repeats = med, max(0.0, first - med), reps
-                last[key] = (n, first)
-                if first > budget:
-                    stopped[key] = f"skipped: one call took {first:.3g} s at n={n}, over the {budget:g} s budget"
+                last[key] = (n, med if _base(label) == "native" else first)
+                if med > budget:
+                    stopped[key] = f"skipped: one call took {med:.3g} s at n={n}, over the {budget:g} s budget"
             jl, jout = _judge(outs)
             ref_label = next((lb for lb in outs if _base(lb) == "reference" and outs[lb] is not None), None)
-            fname = wl.floor(op)
+            # a membership test answered through a projection has the projection's floor
+            via_project = any(r.ran and r.backend == "native (via project)" for r in op_rows)
+            fname = wl.floor("project") if op == "contains" and via_project else wl.floor(op)
             fsec = time_floor(fname, X, mode) if any(r.ran and _base(r.backend) == "native" for r in op_rows) else None
             ref_sec = next((r.seconds for r in op_rows if r.backend == ref_label), None)
             for row in op_rows:

@@ -48,6 +48,11 @@ def _fmt_ratio(r):
     return f"{r:.3g}x"
 
 
+def ms(seconds):
+    """Milliseconds with three significant digits."""
+    return f"{1e3 * seconds:.3g} ms"
+
+
 def median_time(fn, repeats=7, min_seconds=0.3):
     fn()
     times, spent = [], 0.0
@@ -124,7 +129,7 @@ def check_targets(mode, rows, log=print, seed=7) -> list:
         def f(t):
             w = rng.uniform(0.0, 10.0, N)
             K, tk, tf = floor_vs_sort({"kind": "permutahedron", "weights": w}, N, rng, with_isotonic=True)
-            t.finish(tk / tf, 2.0, "<=", f"{1e3 * tk:.1f} ms vs floor {1e3 * tf:.1f} ms", note_q)
+            t.finish(tk / tf, 2.0, "<=", f"{ms(tk)} vs floor {ms(tf)}", note_q)
         _guard(t, f)
     out.append(t)
 
@@ -144,7 +149,7 @@ def check_targets(mode, rows, log=print, seed=7) -> list:
                 from ._workloads import budget
                 desc = budget(N, rng)
             K, tk, tf = floor_vs_sort(desc, N, rng)
-            t.finish(tk / tf, 2.0, "<=", f"{1e3 * tk:.1f} ms vs np.sort {1e3 * tf:.1f} ms", note_q)
+            t.finish(tk / tf, 2.0, "<=", f"{ms(tk)} vs np.sort {ms(tf)}", note_q)
         out.append(_guard(t, f))
 
     # 3. a batch of 10,000 simplex projections of dim 100 within 3x of np.sort along the axis
@@ -155,7 +160,7 @@ def check_targets(mode, rows, log=print, seed=7) -> list:
         K = setkit.compile({"kind": "simplex", "dim": 100})
         Y = rng.standard_normal((B, 100))
         tk, tf = side_by_side(lambda: K.project(Y), lambda: np.sort(Y, axis=1))
-        t.finish(tk / tf, 3.0, "<=", f"{1e3 * tk:.1f} ms vs np.sort {1e3 * tf:.1f} ms", note_q)
+        t.finish(tk / tf, 3.0, "<=", f"{ms(tk)} vs np.sort {ms(tf)}", note_q)
     out.append(_guard(t, f3) if "simplex" in kinds else Target(t.name, t.goal, verdict=_need(kinds, "simplex")))
 
     # 4. product of 10,000 simplices of dim 50 within 3x of one np.sort over the data
@@ -169,9 +174,9 @@ def check_targets(mode, rows, log=print, seed=7) -> list:
             y = rng.standard_normal(K.shape)
             tk, tf = side_by_side(lambda: K.project(y), lambda: np.sort(y, axis=None))
             tb = median_time(lambda: np.sort(y.reshape(B, 50), axis=1))
-            t.finish(tk / tf, 3.0, "<=", f"{1e3 * tk:.1f} ms vs np.sort {1e3 * tf:.1f} ms",
+            t.finish(tk / tf, 3.0, "<=", f"{ms(tk)} vs np.sort {ms(tf)}",
                      (note_q + "; " if note_q else "") +
-                     f"against a per-block sort ({1e3 * tb:.1f} ms) the ratio is {tk / tb:.2f}x")
+                     f"against a per-block sort ({ms(tb)}) the ratio is {tk / tb:.2f}x")
         _guard(t, f4)
     out.append(t)
 
@@ -282,7 +287,7 @@ def flow_targets(kinds, quick, rng, log):
             tb, eb = results[best]
             t = Target(f"{name}: fastest setkit backend ({best})", ">= 20x faster per call than warm cvxpy+OSQP, "
                                                                  "equal or better accuracy")
-            t.finish(t_cv / tb, 20.0, ">=", f"{1e3 * tb:.3f} ms vs cvxpy {1e3 * t_cv:.3f} ms per call; "
+            t.finish(t_cv / tb, 20.0, ">=", f"{ms(tb)} vs cvxpy {ms(t_cv)} per call; "
                      f"max error vs Clarabel {eb:.1e} vs cvxpy {e_cv:.1e}", note_q,
                      extra_ok=eb <= tol, extra_why=f"fast enough but less accurate ({eb:.1e} > {tol:.1e})")
             out.append(t)
@@ -290,7 +295,7 @@ def flow_targets(kinds, quick, rng, log):
                                                     "equal or better accuracy")
         if "osqp" in results:
             to, eo = results["osqp"]
-            t.finish(t_cv / to, 1.5, ">=", f"{1e3 * to:.3f} ms vs cvxpy {1e3 * t_cv:.3f} ms per call; "
+            t.finish(t_cv / to, 1.5, ">=", f"{ms(to)} vs cvxpy {ms(t_cv)} per call; "
                      f"max error vs Clarabel {eo:.1e} vs cvxpy {e_cv:.1e}", note_q,
                      extra_ok=eo <= tol, extra_why=f"fast enough but less accurate ({eo:.1e} > {tol:.1e})")
         else:
@@ -318,7 +323,7 @@ def intersection_target(kinds, quick, rng):
         tk, P = _per_call(K.project, Y)
         tr, Pr = _per_call(ref.project, Y)
         err = float((np.abs(P - Pr).max(axis=1) / np.maximum(1.0, np.abs(Y).max(axis=1))).max())
-        t.finish(tr / tk, 50.0, ">=", f"{1e3 * tk:.2f} ms vs reference {1e3 * tr:.2f} ms per call; "
+        t.finish(tr / tk, 50.0, ">=", f"{ms(tk)} vs reference {ms(tr)} per call; "
                  f"max relative difference {err:.1e} (route {K.routes()['project'].provider})",
                  "quick mode: reduced sizes, not a verdict" if quick else "",
                  extra_ok=err <= 2e-5, extra_why=f"fast enough but disagrees with the reference by {err:.1e}")
@@ -336,8 +341,8 @@ def native_vs_reference(rows, quick):
         r = min(rs, key=lambda r: abs(np.log(r.n / 1000.0)))
         t = Target(f"native {op} on {wl}, n={r.n:,}", ">= 1000x faster than the cvxpy reference")
         if r.ratio_ref == r.ratio_ref:
-            t.finish(r.ratio_ref, 1000.0, ">=", f"{1e3 * r.seconds:.4f} ms vs reference "
-                     f"{1e3 * r.seconds * r.ratio_ref:.2f} ms per call",
+            t.finish(r.ratio_ref, 1000.0, ">=", f"{ms(r.seconds)} vs reference "
+                     f"{ms(r.seconds * r.ratio_ref)} per call",
                      "quick mode: reduced sizes, not a verdict" if quick or not 300 <= r.n <= 3000 else "")
         else:
             t.verdict = "not available: the reference did not run at this size"
