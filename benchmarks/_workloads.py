@@ -43,6 +43,7 @@ class Workload:
     floors: dict = field(default_factory=dict)
     batch: int = 1          # points per call
     size_name: str = "n"    # what the size counts (coordinates unless said otherwise)
+    needs: tuple = ()       # other kinds the instance is built from
 
     def floor(self, op: str) -> str:
         return {**DEFAULT_FLOORS, **self.floors}.get(op, "pass")
@@ -190,7 +191,7 @@ def permutahedron_with_cuts(n, rng, k=3):
 
 
 @workload("intersection", "permutahedron(n) with 3 halfspaces", sizes_full=(100, 1_000, 10_000),
-          sizes_quick=(12,), floors={"project": "sort+isotonic", "distance": "sort+isotonic"})
+          sizes_quick=(12,), needs=("permutahedron", "polyhedron"), floors={"project": "sort+isotonic", "distance": "sort+isotonic"})
 def intersection(n, rng):
     return permutahedron_with_cuts(n, rng)
 
@@ -199,7 +200,7 @@ def intersection(n, rng):
           sizes_quick=(100,))
 def product(n, rng):
     k = max(1, n // 50)
-    return {"kind": "product", "of": [{"kind": "simplex", "dim": 50}] * k}
+    return {"kind": "product", "of": [{"kind": "simplex", "dim": 50}], "copies": k}
 
 
 @workload("affine", "affine image 2 x + 1 of a simplex, dim n")

@@ -263,6 +263,10 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
     sizes = getattr(wl, mode.sizes)
     stopped = {}      # (op, label) -> reason larger sizes are skipped
     last = {}         # (op, label) -> (n, first-call seconds)
+    missing = [k for k in wl.needs if k not in known_kinds()]
+    if missing:
+        return [Row(wl.kind, wl.label, "-", "-", 0, status=f"not available: needs the kind(s) "
+                                                           f"{', '.join(missing)}, not registered yet")]
     for n in sizes:
         rng = np.random.default_rng([seed, n])
         try:

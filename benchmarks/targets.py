@@ -170,7 +170,7 @@ def check_targets(mode, rows, log=print, seed=7) -> list:
         t.verdict = miss
     else:
         def f4(t):
-            K = setkit.compile({"kind": "product", "of": [{"kind": "simplex", "dim": 50}] * B})
+            K = setkit.compile({"kind": "product", "of": [{"kind": "simplex", "dim": 50}], "copies": B})
             y = rng.standard_normal(K.shape)
             tk, tf = side_by_side(lambda: K.project(y), lambda: np.sort(y, axis=None))
             tb = median_time(lambda: np.sort(y.reshape(B, 50), axis=1))

@@ -26,16 +26,21 @@ def test_every_registered_kind_has_rows(quick):
 
 def test_every_row_ran(quick):
     res, _ = quick
-    failed = [f"{r.workload} {r.op} {r.backend} n={r.n}: {r.status}" for r in res.rows if not r.ran]
+    # a workload built from kinds that are not registered says so (and only then may skip)
+    from benchmarks._workloads import WORKLOADS
+    kinds = set(known_kinds())
+    excused = {w.label for ws in WORKLOADS.values() for w in ws if any(k not in kinds for k in w.needs)}
+    failed = [f"{r.workload} {r.op} {r.backend} n={r.n}: {r.status}" for r in res.rows
+              if not r.ran and not (r.workload in excused and r.status.startswith("not available: needs"))]
     assert not failed, "\n".join(failed)
 
 
 def test_every_row_agrees_with_the_reference(quick):
     res, _ = quick
-    for r in res.rows:
+    for r in (r for r in res.rows if r.ran):
         # in quick mode the reference runs at every size, so every row has a verdict
         assert r.agrees is True, f"{r.workload} {r.op} {r.backend} n={r.n}: error {r.error_ref:.2e} vs reference"
-    ops = {(r.workload, r.op) for r in res.rows}
+    ops = {(r.workload, r.op) for r in res.rows if r.ran}
     for wl, op in ops:
         assert any(r.backend.startswith("reference") for r in res.rows if (r.workload, r.op) == (wl, op)), (wl, op)
 
