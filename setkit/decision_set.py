@@ -167,7 +167,9 @@ class DecisionSet:
             args = (X, tol) if op == "contains" else (X,)
             if self.node.children():
                 args = args + (self.parts,)
-            return fn(*args), {}
+            out = fn(*args)
+            # a kernel may return (out, info) to report status/iterations for details=True
+            return out if isinstance(out, tuple) else (out, {})
         if p == "derived":
             if op == "distance":
                 P, info = self._run("project", X)
