@@ -299,6 +299,11 @@ class DecisionSet:
         from . import measures
         return measures.centroid(self, measure, **kw)
 
+    def centered(self, measure: str = "volume", **kw) -> "DecisionSet":
+        """The same set translated so that its centroid under ``measure`` is the origin (an affine shift)."""
+        from .combinators.affine import centered
+        return centered(self, measure, **kw)
+
     def sample(self, k: int, measure: str = "volume", rng=None, **kw):
         """k points of the set drawn from ``measure``; shape (k, *K.shape)."""
         from . import measures
