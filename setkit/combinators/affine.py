@@ -142,6 +142,25 @@ class ScaledSet(AffineImage):
                               np.concatenate([lo_x, f.lo[nx:]]), np.concatenate([hi_x, f.hi[nx:]]))
         return cached(self, "linear_form", build)
 
+    # -- measure hooks (read by setkit.measures): an invertible affine map carries the uniform law on
+    # K (volume), on its extreme points (vertices) to those of the image, and lmo_{aK+s}(g) =
+    # a lmo_K(a g) + s has the law of a lmo_K(g) + s because g and -g have the same law (directions).
+    def exact_centroid(self, measure):
+        """a·centroid_K + s whenever the part knows its centroid exactly."""
+        hook = getattr(self.part, "exact_centroid", None)
+        c = hook(measure) if callable(hook) else None
+        if c is None:
+            return None
+        return self.scale_factor * np.asarray(c, dtype=float).reshape(-1) + self.shift
+
+    def exact_sample(self, k, measure, rng):
+        """a·X + s for exact samples X of the part."""
+        hook = getattr(self.part, "exact_sample", None)
+        X = hook(k, measure, rng) if callable(hook) else None
+        if X is None:
+            return None
+        return self.scale_factor * np.asarray(X, dtype=float).reshape(k, -1) + self.shift
+
     @kernel("project")
     def project(self, Y, parts):
         """a·P_K((y - s)/a) + s: the part's projection after an exact change of variables."""

@@ -98,6 +98,31 @@ class Product(Family):
             return stack_blocks([forms[g] for g in self.layout])
         return cached(self, "linear_form", build)
 
+    # -- measure hooks (read by setkit.measures): the uniform law on a product (volume), on the product
+    # of the extreme-point sets (vertices) and the law of the block-wise lmo of a Gaussian direction
+    # (directions) are all product laws, so centroids concatenate and samples are drawn block by block.
+    def exact_centroid(self, measure):
+        """Concatenation of the blocks' exact centroids (None if a block has none)."""
+        cs = []
+        for blk in self.blocks:
+            hook = getattr(blk, "exact_centroid", None)
+            c = hook(measure) if callable(hook) else None
+            if c is None:
+                return None
+            cs.append(np.asarray(c, dtype=float).reshape(-1))
+        return np.concatenate([cs[g] for g in self.layout])
+
+    def exact_sample(self, k, measure, rng):
+        """Independent exact samples of every block, concatenated (None if a block has none)."""
+        out = []
+        for g in self.layout:
+            hook = getattr(self.blocks[g], "exact_sample", None)
+            X = hook(k, measure, rng) if callable(hook) else None
+            if X is None:
+                return None
+            out.append(np.asarray(X, dtype=float).reshape(k, -1))
+        return np.concatenate(out, axis=1)
+
     # -- block-wise evaluation ----------------------------------------------------------------
     def _gather(self, X, cols, contiguous):
         b = X.shape[0]
