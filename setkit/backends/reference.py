@@ -38,34 +38,37 @@ class ReferenceBackend(Backend):
 
     # -- problem construction -------------------------------------------------
     def _variable(self):
+        # z = sc * w: the solver works on w, of order 1 for projections of far points
+        # (with z itself as the variable Clarabel loses digits when unbounded coordinates are huge)
         cp = self.cp
         d, shape = self.node.dim, self.node.shape
-        z = cp.Variable(d)
+        w = cp.Variable(d)
+        sc = cp.Parameter(nonneg=True, value=1.0)
+        z = sc * w
         x = z if shape == (d,) else cp.reshape(z, shape, order="C")
         cons = self.node.cvxpy_constraints(x)
-        return z, cons
+        return z, w, sc, cons
 
     def _problem(self, op):
         if op in self._problems:
             return self._problems[op]
         cp = self.cp
-        z, cons = self._variable()
+        z, w, sc, cons = self._variable()
         p = cp.Parameter(self.node.dim)
-        inv = cp.Parameter(nonneg=True, value=1.0)
         if op == "project":
-            # scaled objective 0.5 ||z/s - y/s||^2 keeps Clarabel well conditioned for far points
-            prob = cp.Problem(cp.Minimize(0.5 * cp.sum_squares(inv * z - p)), cons)
+            # scaled objective 0.5 ||z/s - y/s||^2 = 0.5 ||w - y/s||^2 keeps Clarabel well conditioned
+            prob = cp.Problem(cp.Minimize(0.5 * cp.sum_squares(w - p)), cons)
         else:
-            prob = cp.Problem(cp.Minimize(p @ z), cons)
-        self._problems[op] = (prob, z, p, inv, cons)
+            prob = cp.Problem(cp.Minimize(p @ w), cons)
+        self._problems[op] = (prob, z, p, sc, cons)
         return self._problems[op]
 
     def _solve(self, op, v):
         cp = self.cp
-        prob, z, p, inv, cons = self._problem(op)
+        prob, z, p, sc, cons = self._problem(op)
         scale = max(1.0, float(np.abs(v).max(initial=0.0)))
         p.value = v / scale
-        inv.value = 1.0 / scale
+        sc.value = scale if op == "project" else 1.0
         try:
             prob.solve(solver=cp.CLARABEL, **CLARABEL_SETTINGS)
         except cp.error.SolverError as exc:
