@@ -63,6 +63,20 @@ def _floor_series(rows):
     return out
 
 
+COLORS = {"native": "tab:blue", "osqp": "tab:orange", "highs": "tab:red", "reference": "tab:green"}
+
+
+def _shrink_png(path):
+    """Re-save a plot with a small palette (a few tens of kB instead of ~100 kB)."""
+    try:
+        from PIL import Image
+    except ImportError:
+        return
+    with Image.open(path) as im:
+        im = im.convert("RGB").quantize(colors=48)
+        im.save(path, optimize=True)
+
+
 def plot(res, out_dir):
     import matplotlib
     matplotlib.use("Agg")
@@ -78,31 +92,40 @@ def plot(res, out_dir):
         ops = [op for op in ("project", "distance", "lmo", "support", "contains") if (wl, op) in ser]
         if not ops:
             continue
-        fig, axes = plt.subplots(1, len(ops), figsize=(3.1 * len(ops), 2.9), squeeze=False)
-        for ax, op in zip(axes[0], ops):
+        cols = min(3, len(ops))
+        nrows = (len(ops) + cols - 1) // cols
+        fig, axes = plt.subplots(nrows, cols, figsize=(3.6 * cols, 2.9 * nrows), squeeze=False)
+        for ax in axes.flat[len(ops):]:
+            ax.axis("off")
+        for ax, op in zip(axes.flat, ops):
             for backend, pts in sorted(ser[(wl, op)].items()):
                 pts = sorted(pts)
                 ns, ts = zip(*pts)
                 k = growth_exponent(ns, ts)
-                lab = backend + (f" (slope {k:.2f})" if k is not None else "")
-                ax.loglog(ns, ts, marker="o", ms=3, lw=1.2, label=lab)
+                lab = backend + (f", slope {k:.2f}" if k is not None else "")
+                style = "-" if "via" not in backend else ":"
+                ax.loglog(ns, ts, style, marker="o", ms=3, lw=1.3, label=lab,
+                          color=COLORS.get(backend.split(" ")[0], "tab:purple"))
             if (wl, op) in fser:
                 fl = sorted(fser[(wl, op)].items())
                 ns = [n for n, _ in fl]
                 ts = [v[1] for _, v in fl]
                 k = growth_exponent(ns, ts)
-                ax.loglog(ns, ts, "k--", lw=1, label=f"floor: {fl[0][1][0]}" + (f" (slope {k:.2f})" if k else ""))
+                ax.loglog(ns, ts, "k--", lw=1, label=f"floor {fl[0][1][0]}" + (f", slope {k:.2f}" if k else ""))
             ax.set_title(op, fontsize=9)
             ax.set_xlabel("n", fontsize=8)
             ax.tick_params(labelsize=7)
             ax.grid(True, which="major", lw=0.3)
-            ax.legend(fontsize=5.5, loc="upper left")
-        axes[0][0].set_ylabel("seconds per call", fontsize=8)
+            ax.legend(fontsize=6, loc="upper left", framealpha=0.7)
+        for row in axes:
+            row[0].set_ylabel("seconds per call", fontsize=8)
         fig.suptitle(wl, fontsize=10)
         fig.tight_layout()
         name = f"{slug(wl)}.png"
-        fig.savefig(os.path.join(out_dir, "plots", name), dpi=72)
+        path = os.path.join(out_dir, "plots", name)
+        fig.savefig(path, dpi=70)
         plt.close(fig)
+        _shrink_png(path)
         files[wl] = name
     return files
 
