@@ -143,6 +143,7 @@ def markdown(res, plots=None) -> str:
          "and are the numbers to read. Times are medians over repeats of one call; a call is one batch "
          "of `batch` points.", ""]
     L += targets_section(res)
+    L += floors_section(res)
     L += ["## Every operator, every backend", "",
           "Columns: `ms` median milliseconds per call; `setup ms` the extra cost of the first call "
           "(workspace construction, cvxpy canonicalization, factorization); `error` the largest error "
@@ -189,6 +190,29 @@ def markdown(res, plots=None) -> str:
     return "\n".join(L) + "\n"
 
 
+def floors_section(res):
+    if not res.floors:
+        return []
+    names = ("pass", "sort", "sort+isotonic")
+    sizes = sorted({n for n, _, _ in res.floors})
+    t = {(n, f): s for n, f, s in res.floors}
+    L = ["## Floors", "",
+         "One vector of n standard normal numbers: `pass` is one np.sum, `sort` one np.sort, "
+         "`sort+isotonic` np.sort then scipy.optimize.isotonic_regression of the same vector. "
+         "Native rows below report their time over the floor measured on their own input.", "",
+         "| n | " + " | ".join(f"{f} ms" for f in names) + " |", "|---:|" + "---:|" * len(names)]
+    for n in sizes:
+        L.append(f"| {n:,} | " + " | ".join(_ms(t.get((n, f), float('nan'))) for f in names) + " |")
+    slopes = []
+    for f in names:
+        k = growth_exponent(sizes, [t.get((n, f), float("nan")) for n in sizes])
+        if k is not None:
+            slopes.append(f"{f}: {k:.2f}")
+    if slopes:
+        L += ["", "Fitted growth exponents: " + "; ".join(slopes) + "."]
+    return L + [""]
+
+
 def targets_section(res):
     L = ["## Targets", ""]
     if not res.targets:
@@ -218,7 +242,7 @@ def write(res, out_dir, plots=True):
     with open(os.path.join(out_dir, "RESULTS.md"), "w") as fh:
         fh.write(markdown(res, files))
     with open(os.path.join(out_dir, "results.json"), "w") as fh:
-        json.dump({"mode": res.mode, "machine": res.machine, "seconds": res.seconds,
+        json.dump({"mode": res.mode, "machine": res.machine, "seconds": res.seconds, "floors": res.floors,
                    "rows": [asdict(r) for r in res.rows], "targets": [asdict(t) for t in res.targets]},
                   fh, indent=1, default=str)
     return files

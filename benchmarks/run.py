@@ -90,6 +90,7 @@ class Result:
     mode: str
     rows: list = field(default_factory=list)
     targets: list = field(default_factory=list)
+    floors: list = field(default_factory=list)   # (n, floor name, seconds) on one vector of n
     machine: dict = field(default_factory=dict)
     started: str = ""
     seconds: float = 0.0
@@ -376,6 +377,17 @@ def sweep(mode: Mode, kinds=None, ops=OPERATORS, log=print, seed=0) -> list:
     return rows
 
 
+def floor_table(mode: Mode, seed=0) -> list:
+    """The floors alone on one vector of each size: what no operator on n numbers can beat by much."""
+    from ._workloads import QUICK_SIZES, VECTOR_SIZES
+    out = []
+    for n in (QUICK_SIZES if mode.name == "quick" else VECTOR_SIZES):
+        X = np.random.default_rng([seed, n, 1]).standard_normal((1, n))
+        for name in ("pass", "sort", "sort+isotonic"):
+            out.append((n, name, time_floor(name, X, mode)))
+    return out
+
+
 def machine_stamp() -> dict:
     import platform
     import scipy
@@ -406,6 +418,7 @@ def run(mode="quick", kinds=None, ops=OPERATORS, out_dir=None, targets=True, plo
     m = {"quick": QUICK, "full": FULL}[mode]
     res = Result(mode=mode, machine=machine_stamp(), started=time.strftime("%Y-%m-%d %H:%M:%S"))
     t0 = time.perf_counter()
+    res.floors = floor_table(m, seed)
     res.rows = sweep(m, kinds, ops, log, seed)
     if targets:
         res.targets = tg.check_targets(m, res.rows, log=log)
