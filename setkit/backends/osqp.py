@@ -95,5 +95,6 @@ class OsqpBackend(Backend):
             out[i] = z[:f.n_x]
             stat.append("solved" if ok else status)
             iters.append(int(res.info.iter))
-            bstat.append(f"{status}; polish={res.info.status_polish}" + ("; re-solved at eps 1e-10" if tightened else ""))
+            bstat.append(f"{status}; polish={res.info.status_polish}"
+                         + ("; re-solved at eps 1e-10" if tightened else ""))
         return out, {"status": stat, "iterations": iters, "backend_status": bstat}
