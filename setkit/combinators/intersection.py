@@ -215,7 +215,7 @@ class Intersection(Family):
                    f"residual {r:.3g}). Raise max_iterations or accuracy in the description, or call "
                    f"with_backends(project=\"reference\").")
             tol = self.accuracy * float(self._row_scale(X[i:i + 1])[0])
-            if loose_of(parts) and r <= 1e3 * tol and g <= 0.5 * (1e3 * tol) ** 2:
+            if loose_of(parts) and r <= 1e3 * self.accuracy * max(1.0, self.scale()) and abs(g) <= 0.5 * (1e3 * tol) ** 2:
                 warnings.warn(msg, AccuracyWarning, stacklevel=4)
             else:
                 raise SolveError(msg, status="not_converged")
@@ -242,7 +242,8 @@ class CutIntersection(Intersection):
             return base._run("project", Z)[0]
 
         X, info = project_with_cuts(proj, Y, self.cut_matrix, self.cut_rhs, self.n_eq, self._row_scale(Y),
-                                    accuracy=self.accuracy, max_iterations=self.max_iterations)
+                                    accuracy=self.accuracy, max_iterations=self.max_iterations,
+                                    feasibility_scale=max(1.0, self.scale()))
         return self._accept(X, info, parts, "cut dual")
 
 
@@ -255,7 +256,7 @@ class SplitIntersection(Intersection):
         """Dykstra's alternating projections, stopped on the duality gap and residual, O(sweeps * sum of part costs)."""
         projs = [(lambda Z, p=p: p._run("project", Z)[0]) for p in parts]
         X, info = dykstra(projs, Y, self._row_scale(Y), accuracy=self.accuracy,
-                          max_iterations=self.max_iterations)
+                          max_iterations=self.max_iterations, feasibility_scale=max(1.0, self.scale()))
         return self._accept(X, info, parts, "Dykstra")
 
 

@@ -36,7 +36,7 @@ def _new_info(b):
             "gap": np.full(b, np.nan), "residual": np.full(b, np.nan)}
 
 
-def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, divergence=1e8):
+def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, divergence=1e4, feasibility_scale=None):
     """Dykstra's alternating projections onto K_1 ∩ ... ∩ K_m, batched over rows.
 
     Each sweep projects x + q_i onto K_i and keeps the increment q_i (an outer
@@ -47,8 +47,8 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
         gap = sum_i <q_i, x_i - x>        (no cancellation of large terms)
 
     and the residual is max_i ||x_i - x|| >= max_i dist(x, K_i). A row stops when
-    gap <= (1/2)(accuracy*scale)^2 and residual <= accuracy*scale. O(sweeps * sum of
-    the parts' projection costs).
+    |gap| <= (1/2)(accuracy*scale)^2 and residual <= accuracy*feasibility_scale
+    (default: scale). O(sweeps * sum of the parts' projection costs).
 
     Parameters
     ----------
@@ -69,8 +69,9 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
     info = _new_info(b)
     rows = np.arange(b)
     scale = np.broadcast_to(np.asarray(scale, dtype=float), (b,)).copy()
-    tol_r = accuracy * scale
-    tol_g = 0.5 * tol_r ** 2
+    fs = scale if feasibility_scale is None else np.broadcast_to(np.asarray(feasibility_scale, float), (b,))
+    tol_r = accuracy * fs
+    tol_g = 0.5 * (accuracy * scale) ** 2
     big = divergence * (scale + np.abs(Y).max(axis=1))
     X = Y.copy()
     Yact = Y.copy()
@@ -85,7 +86,7 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
         diff = Xi - X[None]
         res = np.sqrt(np.einsum("mbd,mbd->mb", diff, diff)).max(axis=0)
         gap = np.einsum("mbd,mbd->b", Q, diff)
-        done = (res <= tol_r[rows]) & (gap <= tol_g[rows])
+        done = (res <= tol_r[rows]) & (np.abs(gap) <= tol_g[rows])
         qmax = np.sqrt(np.einsum("mbd,mbd->mb", Q, Q)).max(axis=0)
         empty = ~done & (qmax > big[rows])
         last = it == max_iterations
@@ -106,7 +107,7 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
 
 
 def project_with_cuts(project_base, Y, A, rhs, n_eq, scale, accuracy=1e-7, max_iterations=2_000,
-                      divergence=1e8):
+                      divergence=1e6, feasibility_scale=None):
     """Projection onto B ∩ {a_j·x = rhs_j (j < n_eq), a_j·x <= rhs_j (j >= n_eq)} by its dual.
 
     Lagrangian dual over the few cut multipliers lam (free for equalities, >= 0 for
@@ -116,7 +117,8 @@ def project_with_cuts(project_base, Y, A, rhs, n_eq, scale, accuracy=1e-7, max_i
     finished by Newton steps on the active cuts with a finite-difference Jacobian
     (exact for polyhedral B, whose projection is piecewise affine). The returned point
     lies in B; gap = -lam·(A x - rhs) (duality gap, no cancellation), residual = the
-    largest cut violation (rows of A have unit norm, so this is a distance).
+    largest cut violation (rows of A have unit norm, so this is a distance). A row is
+    accepted when |gap| <= (1/2)(accuracy*scale)^2 and residual <= accuracy*feasibility_scale.
     O(evaluations * cost of proj_B), a few dozen evaluations per point in practice.
     """
     from scipy.optimize import minimize
@@ -127,6 +129,7 @@ def project_with_cuts(project_base, Y, A, rhs, n_eq, scale, accuracy=1e-7, max_i
     rhs = np.asarray(rhs, dtype=float)
     k = A.shape[0]
     scale = np.broadcast_to(np.asarray(scale, dtype=float), (b,))
+    fs = scale if feasibility_scale is None else np.broadcast_to(np.asarray(feasibility_scale, float), (b,))
     out = np.empty_like(Y)
     info = _new_info(b)
     bounds = [(None, None)] * n_eq + [(0.0, None)] * (k - n_eq)
@@ -138,8 +141,8 @@ def project_with_cuts(project_base, Y, A, rhs, n_eq, scale, accuracy=1e-7, max_i
 
     for row in range(b):
         y = Y[row]
-        tol_r = accuracy * scale[row]
-        tol_g = 0.5 * tol_r ** 2
+        tol_r = accuracy * fs[row]
+        tol_g = 0.5 * (accuracy * scale[row]) ** 2
         big = divergence * (scale[row] + np.abs(y).max())
         evals = [0]
 
@@ -157,20 +160,26 @@ def project_with_cuts(project_base, Y, A, rhs, n_eq, scale, accuracy=1e-7, max_i
             r = A @ x - rhs
             return x, r, viol(r), float(-(lam @ r))
 
+        def stop_when_unbounded(intermediate_result):
+            # the dual is unbounded (lam -> infinity) exactly when the cuts miss the base set
+            if np.abs(intermediate_result.x).max(initial=0.0) > big:
+                raise StopIteration
+
         best = None
         for lam0 in (lam_prev, np.zeros(k)):
             res = minimize(neg_dual, lam0, jac=True, method="L-BFGS-B", bounds=bounds,
+                           callback=stop_when_unbounded,
                            options=dict(maxiter=max_iterations, ftol=1e-300, gtol=0.1 * tol_r, maxcor=20))
             lam = np.clip(res.x, [lo if lo is not None else -np.inf for lo, _ in bounds], np.inf)
             x, r, v, gap = good(lam)
             lam, x, r, v, gap = _newton_finish(point, A, rhs, n_eq, lam, x, r, v, gap, tol_r, tol_g, viol)
             if best is None or v < best[3]:
                 best = (lam, x, r, v, gap)
-            if v <= tol_r and gap <= tol_g:
+            if v <= tol_r and abs(gap) <= tol_g:
                 break
         lam, x, r, v, gap = best
         out[row] = x
-        ok = v <= tol_r and gap <= tol_g
+        ok = v <= tol_r and abs(gap) <= tol_g
         if ok:
             lam_prev = lam
         status = "solved" if ok else ("empty" if np.abs(lam).max(initial=0.0) > big else "not_converged")
@@ -185,7 +194,7 @@ def _newton_finish(point, A, rhs, n_eq, lam, x, r, v, gap, tol_r, tol_g, viol, s
     """Newton steps on the active cuts: solve A_S x(lam) = rhs_S with a finite-difference Jacobian."""
     k = A.shape[0]
     for _ in range(steps):
-        if v <= tol_r and gap <= tol_g:
+        if v <= tol_r and abs(gap) <= tol_g:
             break
         active = np.zeros(k, bool)
         active[:n_eq] = True
