@@ -9,13 +9,14 @@ Description keys::
 
 How each operator is served (chosen once, when the description is read):
 
-* every part has a linear form without auxiliary variables (boxes, simplices,
-  polyhedra...): the forms are merged into one linear form, so the OSQP
-  projection and the HiGHS LMO serve the intersection, compiled once;
-* one part (the *base*, e.g. a permutahedron or a ball) has its own projection
-  and the others are a few linear constraints (at most ``CUT_LIMIT`` rows): the
-  projection solves the dual over the cut multipliers, each step one projection
-  onto the base (:func:`setkit.kernels.splitting.project_with_cuts`);
+* one part (the *base*, e.g. a permutahedron, a ball or a simplex) has its own
+  projection and the others are a few linear constraints (at most ``CUT_LIMIT``
+  rows in all, bounds included): the projection solves the dual over the cut
+  multipliers, each step one projection onto the base
+  (:func:`setkit.kernels.splitting.project_with_cuts`);
+* else, every part has a linear form without auxiliary variables (boxes,
+  simplices, polyhedra...): the forms are merged into one linear form, so the
+  OSQP projection serves the intersection, compiled once;
 * otherwise: Dykstra's method on the parts' own projections
   (:func:`setkit.kernels.splitting.dykstra`).
 
@@ -268,16 +269,27 @@ def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None):
     if all(f is not None for f in forms):
         merged = merge_forms(forms)
         _check_feasible(merged, parts)
-    if all(f is not None and f.n_aux == 0 for f in forms):
-        return Intersection(**kw)
     cuts = [cut_rows(f) if f is not None and f.n_aux == 0 else None for f in forms]
     others = [i for i, c in enumerate(cuts) if c is None]
-    if len(others) == 1 and len(parts) > 1:
-        A = np.vstack([c[0] for c in cuts if c is not None])
-        rhs = np.concatenate([c[1] for c in cuts if c is not None])
-        eq = np.concatenate([np.arange(c[0].shape[0]) < c[2] for c in cuts if c is not None])
-        order = np.concatenate([np.flatnonzero(eq), np.flatnonzero(~eq)])
-        return CutIntersection(base=others[0], cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()), **kw)
+    native = [i for i, p in enumerate(parts) if "project" in p.kernels]
+    base = None
+    if len(parts) > 1:
+        if len(others) == 1:
+            base = others[0]
+        elif not others and native:
+            # every part is a few linear rows: the part with the most rows and its own projection is the base
+            base = max(native, key=lambda i: cuts[i][0].shape[0])
+    if base is not None:
+        rest = [cuts[i] for i in range(len(parts)) if i != base]
+        n_rows = sum(c[0].shape[0] for c in rest)
+        if 0 < n_rows <= CUT_LIMIT and (base in native or any(f is None for f in forms)):
+            A = np.vstack([c[0] for c in rest])
+            rhs = np.concatenate([c[1] for c in rest])
+            eq = np.concatenate([np.arange(c[0].shape[0]) < c[2] for c in rest])
+            order = np.concatenate([np.flatnonzero(eq), np.flatnonzero(~eq)])
+            return CutIntersection(base=base, cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()), **kw)
+    if all(f is not None and f.n_aux == 0 for f in forms):
+        return Intersection(**kw)
     return SplitIntersection(**kw)
 
 

@@ -14,15 +14,27 @@ def _node_type(K):
 
 
 def test_polyhedral_parts_merge_into_one_linear_form(rng):
+    # parts without their own projection: one merged form, OSQP projection and HiGHS LMO
+    n = 5
+    cube = halfspaces(np.vstack([np.eye(n), -np.eye(n)]), np.ones(2 * n))
+    K = setkit.compile({"kind": "intersection", "of": [cube, halfspaces(rng.standard_normal((3, n)), 0.5)]})
+    assert _node_type(K) is Intersection
+    assert K.routes()["project"].provider == "osqp"
+    assert K.routes()["lmo"].provider == "highs"
+    f = K.node.linear_form()
+    assert f.n_x == n and f.n_aux == 0 and f.A_ub.shape[0] == 2 * n + 3
+    check_against_reference(K, rng, scales=(1e-3, 1.0, 30.0))
+
+
+def test_capped_simplex_uses_a_native_base_and_the_merged_form(rng):
     for n in (3, 7):
         caps = {"kind": "box", "dim": n, "lower": 0, "upper": rng.uniform(0.3, 0.9, n).tolist()}
         K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": n}, caps]})
-        assert _node_type(K) is Intersection
-        assert K.routes()["project"].provider == "osqp"
-        assert K.routes()["lmo"].provider == "highs"
-        f = K.node.linear_form()
-        assert f.n_x == n and f.n_aux == 0
+        assert _node_type(K) is CutIntersection
+        assert K.routes()["lmo"].provider == "highs"        # LMO on the merged linear form
         check_against_reference(K, rng)
+        y = rng.standard_normal((3, n))
+        assert np.allclose(K.with_backends(project="osqp").project(y), K.project(y), atol=1e-6)
 
 
 def test_hand_solved_capped_simplex():
