@@ -200,7 +200,7 @@ class Intersection(Family):
     def _row_scale(self, Y):
         return np.maximum(max(1.0, self.scale()), np.abs(Y).max(axis=1))
 
-    def _accept(self, X, info, parts, method):
+    def _accept(self, X, info, parts, method, sc):
         """Raise (or warn when loose) unless every row converged; returns (X, info for Details)."""
         status = info["status"]
         bad = [i for i, s in enumerate(status) if s != "solved"]
@@ -215,7 +215,7 @@ class Intersection(Family):
                    f"{len(status)} points within {self.max_iterations} steps (row {i}: duality gap {g:.3g}, "
                    f"residual {r:.3g}). Raise max_iterations or accuracy in the description, or call "
                    f"with_backends(project=\"reference\").")
-            tol = self.accuracy * float(self._row_scale(X[i:i + 1])[0])
+            tol = self.accuracy * float(sc[i])
             if loose_of(parts) and r <= 1e3 * self.accuracy * max(1.0, self.scale()) and abs(g) <= 0.5 * (1e3 * tol) ** 2:
                 warnings.warn(msg, AccuracyWarning, stacklevel=4)
             else:
@@ -242,10 +242,11 @@ class CutIntersection(Intersection):
         def proj(Z):
             return base._run("project", Z)[0]
 
-        X, info = project_with_cuts(proj, Y, self.cut_matrix, self.cut_rhs, self.n_eq, self._row_scale(Y),
+        sc = self._row_scale(Y)
+        X, info = project_with_cuts(proj, Y, self.cut_matrix, self.cut_rhs, self.n_eq, sc,
                                     accuracy=self.accuracy, max_iterations=self.max_iterations,
                                     feasibility_scale=max(1.0, self.scale()))
-        return self._accept(X, info, parts, "cut dual")
+        return self._accept(X, info, parts, "cut dual", sc)
 
 
 @dataclass(frozen=True, eq=False, kw_only=True)
@@ -256,9 +257,10 @@ class SplitIntersection(Intersection):
     def project(self, Y, parts):
         """Dykstra's alternating projections, stopped on the duality gap and residual, O(sweeps * sum of part costs)."""
         projs = [(lambda Z, p=p: p._run("project", Z)[0]) for p in parts]
-        X, info = dykstra(projs, Y, self._row_scale(Y), accuracy=self.accuracy,
+        sc = self._row_scale(Y)
+        X, info = dykstra(projs, Y, sc, accuracy=self.accuracy,
                           max_iterations=self.max_iterations, feasibility_scale=max(1.0, self.scale()))
-        return self._accept(X, info, parts, "Dykstra")
+        return self._accept(X, info, parts, "Dykstra", sc)
 
 
 def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None):

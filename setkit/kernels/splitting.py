@@ -30,6 +30,10 @@ import numpy as np
 
 __all__ = ["dykstra", "project_with_cuts", "project_linear_image"]
 
+# gaps are sums of products of O(scale) numbers: below ~ a few ulps of scale^2 they are rounding noise,
+# so the gap tolerance never goes below GAP_FLOOR * (number of terms) * scale^2
+GAP_FLOOR = 8 * np.finfo(float).eps
+
 
 def _new_info(b):
     return {"status": ["not_converged"] * b, "iterations": [0] * b,
@@ -71,7 +75,7 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
     scale = np.broadcast_to(np.asarray(scale, dtype=float), (b,)).copy()
     fs = scale if feasibility_scale is None else np.broadcast_to(np.asarray(feasibility_scale, float), (b,))
     tol_r = accuracy * fs
-    tol_g = 0.5 * (accuracy * scale) ** 2
+    tol_g = np.maximum(0.5 * (accuracy * scale) ** 2, GAP_FLOOR * m * scale ** 2)
     big = divergence * (scale + np.abs(Y).max(axis=1))
     X = Y.copy()
     Yact = Y.copy()
@@ -142,7 +146,7 @@ def project_with_cuts(project_base, Y, A, rhs, n_eq, scale, accuracy=1e-7, max_i
     for row in range(b):
         y = Y[row]
         tol_r = accuracy * fs[row]
-        tol_g = 0.5 * (accuracy * scale[row]) ** 2
+        tol_g = max(0.5 * (accuracy * scale[row]) ** 2, GAP_FLOOR * k * scale[row] ** 2)
         big = divergence * (scale[row] + np.abs(y).max())
         evals = [0]
 
@@ -255,7 +259,7 @@ def project_linear_image(project_part, support_part, M, shift, Y, scale, accurac
         info["residual"][:] = 0.0
         return out, info
     scale = np.broadcast_to(np.asarray(scale, dtype=float), (b,))
-    tol_g = 0.5 * (accuracy * scale) ** 2
+    tol_g = np.maximum(0.5 * (accuracy * scale) ** 2, GAP_FLOOR * scale ** 2)
     rows = np.arange(b)
     # start from the part's projection of a least-squares preimage
     pre = np.linalg.lstsq(M, (Y - shift).T, rcond=None)[0].T
