@@ -5,8 +5,8 @@ is the image of the Birkhoff polytope of doubly stochastic n x n matrices W
 under x = W w (Birkhoff-von Neumann: the vertices of the Birkhoff polytope are
 the permutation matrices). That gives a linear form with n^2 auxiliary
 variables and 3n equalities, so P(w) ∩ {polyhedron} is one LP for HiGHS.
-A permutahedron family may return :func:`permutahedron_form` from its
-``linear_form()``.
+A permutahedron family may return :func:`permutahedron_form` from its optional
+``extended_form()`` hook (see :func:`setkit.combinators.lp_form`).
 """
 from __future__ import annotations
 

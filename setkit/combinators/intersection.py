@@ -22,8 +22,9 @@ How each operator is served (chosen once, when the description is read):
 
 In every case the LMO and the support function use the merged linear form when
 every part has one (auxiliary variables allowed: extended formulations such as
-a permutahedron written as the image of the Birkhoff polytope), else the cvxpy
-reference. An empty intersection is reported with :class:`EmptySetError` when
+a permutahedron written as the image of the Birkhoff polytope, offered by a
+family's optional ``extended_form()`` hook, see :func:`setkit.combinators.lp_form`),
+else the cvxpy reference. An empty intersection is reported with :class:`EmptySetError` when
 the description is read if the merged linear form is LP-infeasible, and at run
 time when a splitting method diverges.
 
@@ -43,7 +44,7 @@ from ..errors import AccuracyWarning, EmptySetError, SolveError
 from ..families import Family, kernel, register
 from ..forms import LinearForm
 from ..kernels.splitting import dykstra, project_with_cuts
-from . import cached, loose_of, part_violation
+from . import cached, loose_of, lp_form, part_violation
 
 CUT_LIMIT = 64           # a part with at most this many linear rows counts as a few cuts
 FEASIBILITY_CHECK_LIMIT = 200_000   # variables of the merged form up to which emptiness is checked by LP
@@ -167,7 +168,7 @@ class Intersection(Family):
 
     def linear_form(self):
         def build():
-            forms = [p.linear_form() for p in self.parts]
+            forms = [lp_form(p) for p in self.parts]
             if any(f is None for f in forms):
                 return None
             return merge_forms(forms)
@@ -268,8 +269,9 @@ def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None):
     parts = tuple(parts)
     forms = [p.linear_form() for p in parts]
     kw = dict(parts=parts, accuracy=accuracy, max_iterations=max_iterations, name=name)
-    if all(f is not None for f in forms):
-        merged = merge_forms(forms)
+    lp_forms = [lp_form(p) for p in parts]
+    if all(f is not None for f in lp_forms):
+        merged = merge_forms(lp_forms)
         _check_feasible(merged, parts)
     cuts = [cut_rows(f) if f is not None and f.n_aux == 0 else None for f in forms]
     others = [i for i, c in enumerate(cuts) if c is None]

@@ -165,7 +165,7 @@ class PermutahedronFixture(Family):
         n = ws.size
         return [cp.sum(x) == ws.sum()] + [cp.sum_largest(x, k) <= ws[:k].sum() for k in range(1, n)]
 
-    def linear_form(self):
+    def extended_form(self):
         from setkit.combinators.extended import permutahedron_form
         return permutahedron_form(self.weights)
 
