@@ -38,39 +38,56 @@ class ReferenceBackend(Backend):
 
     # -- problem construction -------------------------------------------------
     def _variable(self):
+        # z = sc * w: for projections of far points the solver can work on w = z / |y|, of order 1
+        # when the answer is as large as y (with z itself as the variable Clarabel lost digits on
+        # far points of sets with unbounded coordinates, status still optimal)
         cp = self.cp
         d, shape = self.node.dim, self.node.shape
-        z = cp.Variable(d)
+        w = cp.Variable(d)
+        sc = cp.Parameter(nonneg=True, value=1.0)
+        z = sc * w
         x = z if shape == (d,) else cp.reshape(z, shape, order="C")
         cons = self.node.cvxpy_constraints(x)
-        return z, cons
+        return z, w, sc, cons
 
     def _problem(self, op):
         if op in self._problems:
             return self._problems[op]
         cp = self.cp
-        z, cons = self._variable()
+        z, w, sc, cons = self._variable()
         p = cp.Parameter(self.node.dim)
-        inv = cp.Parameter(nonneg=True, value=1.0)
+        a = cp.Parameter(nonneg=True, value=1.0)
         if op == "project":
-            # scaled objective 0.5 ||z/s - y/s||^2 keeps Clarabel well conditioned for far points
-            prob = cp.Problem(cp.Minimize(0.5 * cp.sum_squares(inv * z - p)), cons)
+            # 0.5 ||z/s - y/s||^2 with z = sc w, a = sc / s: well conditioned for far points
+            prob = cp.Problem(cp.Minimize(0.5 * cp.sum_squares(a * w - p)), cons)
         else:
-            prob = cp.Problem(cp.Minimize(p @ z), cons)
-        self._problems[op] = (prob, z, p, inv, cons)
+            prob = cp.Problem(cp.Minimize(p @ w), cons)
+        self._problems[op] = (prob, z, p, (sc, a), cons)
         return self._problems[op]
 
     def _solve(self, op, v):
         cp = self.cp
-        prob, z, p, inv, cons = self._problem(op)
+        prob, z, p, (sc, a), cons = self._problem(op)
         scale = max(1.0, float(np.abs(v).max(initial=0.0)))
         p.value = v / scale
-        inv.value = 1.0 / scale
-        try:
-            prob.solve(solver=cp.CLARABEL, **CLARABEL_SETTINGS)
-        except cp.error.SolverError as exc:
-            raise SolveError(f"reference ({self.node.label}): Clarabel failed on {op}: {exc}",
-                             status="solver_error") from None
+        # variable scalings to try: the answer as large as y (far points of unbounded sets), then
+        # the answer of order 1 (far points of bounded sets, where z / |y| would be tiny)
+        tries = (scale, 1.0) if (op == "project" and scale > 1.0) else (1.0,)
+        for k, sv in enumerate(tries):
+            sc.value = sv
+            a.value = sv / scale if op == "project" else 1.0
+            try:
+                with warnings.catch_warnings():
+                    if k + 1 < len(tries):   # a first try that is not clean is retried silently
+                        warnings.simplefilter("ignore", UserWarning)
+                    prob.solve(solver=cp.CLARABEL, **CLARABEL_SETTINGS)
+            except cp.error.SolverError as exc:
+                if k + 1 < len(tries):
+                    continue
+                raise SolveError(f"reference ({self.node.label}): Clarabel failed on {op}: {exc}",
+                                 status="solver_error") from None
+            if prob.status == cp.OPTIMAL:
+                break
         status = prob.status
         if status in (cp.UNBOUNDED, cp.UNBOUNDED_INACCURATE):
             raise UnboundedDirectionError(
