@@ -395,3 +395,31 @@ def test_large_polytope_estimate_stays_inside(rng):
     assert not r.exact
     m = r.point.mean()
     assert np.all(np.abs(r.point - m) <= 5 * r.std_error + 1e-12)
+
+
+def test_chebyshev_center_matches_cvxpy_reference(rng):
+    # the start of hit-and-run: the largest inscribed ball, compared with the same LP solved by cvxpy
+    import cvxpy as cp
+    P = rng.standard_normal((20, 3)) * [3.0, 1.0, 0.5]
+    K = hpoly_from_points(P)
+    red = measures.reduced(K)
+    A, b = K.node.A, K.node.b
+    x, r = cp.Variable(3), cp.Variable()
+    cp.Problem(cp.Maximize(r), [A @ x + r * np.linalg.norm(A, axis=1) <= b]).solve(solver=cp.CLARABEL)
+    assert abs(red.radius - r.value) <= 1e-7 * max(1.0, r.value)
+    # the center itself may not be unique; its inscribed radius must be the optimal one
+    c = red.to_x(red.center[None, :])[0]
+    slack = (b - A @ c) / np.linalg.norm(A, axis=1)
+    assert abs(slack.min() - r.value) <= 1e-7
+
+
+def test_intersection_of_simplex_and_box_is_triangulated():
+    # {x >= 0, sum x = 2} with x <= 0.9: a triangle with vertices the permutations of (0.9, 0.9, 0.2);
+    # the volume centroid of a triangle is its vertex mean (common practice): (2/3, 2/3, 2/3)
+    K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 3, "total": 2.0},
+                                                       {"kind": "box", "dim": 3, "lower": 0, "upper": 0.9}]})
+    r = K.centroid(details=True)
+    assert r.exact
+    np.testing.assert_allclose(r.point, [2 / 3] * 3, atol=1e-12)
+    X = K.sample(400, rng=3)
+    assert K.contains(X).all() and X.max() <= 0.9 + 1e-12
