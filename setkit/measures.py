@@ -413,20 +413,41 @@ def _membership_frame(K, rng):
 
 
 def _membership_step(K, frame, max_shrink=60):
+    """Hit-and-run step on a membership oracle: a line-dependent bracket (support function when it is
+    cheap, else the bounding box), then Neal's shrinkage toward the current point until contains()."""
     N, x0 = frame.N, frame.x0
     shape = K.shape
+    routes = K.routes()
+    cheap_support = routes["support"].provider == "native" or (
+        routes["support"].provider == "derived" and routes["lmo"].provider == "native")
+    if not cheap_support:
+        E = np.eye(K.dim)
+        sup = K.support(np.concatenate([E, -E]).reshape((2 * K.dim,) + shape)).reshape(2 * K.dim)
+        box_hi, box_lo = sup[:K.dim], -sup[K.dim:]
+        pad = 1e-9 * max(1.0, float(np.abs(sup).max()))
+        box_hi, box_lo = box_hi + pad, box_lo - pad
 
     def step(T, L, rng):
         C, m = T.shape
         D = rng.standard_normal((C, m)) @ L.T
         X = x0 + T @ N.T
         Dx = D @ N.T
-        nn = np.einsum("ij,ij->i", Dx, Dx)
-        up = K.support(Dx.reshape((C,) + shape)).reshape(C)
-        dn = K.support((-Dx).reshape((C,) + shape)).reshape(C)
-        xd = np.einsum("ij,ij->i", Dx, X)
-        hi = np.maximum((up - xd) / nn, 0.0)
-        lo = -np.maximum((dn + xd) / nn, 0.0)
+        if cheap_support:
+            # bracket from the two supporting hyperplanes orthogonal to the line
+            nn = np.einsum("ij,ij->i", Dx, Dx)
+            both = K.support(np.concatenate([Dx, -Dx]).reshape((2 * C,) + shape)).reshape(2 * C)
+            xd = np.einsum("ij,ij->i", Dx, X)
+            hi = np.maximum((both[:C] - xd) / nn, 0.0)
+            lo = -np.maximum((both[C:] + xd) / nn, 0.0)
+        else:
+            # bracket from the bounding box of the set (computed once): no LP per step
+            tiny = 1e-300
+            with np.errstate(divide="ignore", invalid="ignore"):
+                r1 = (box_hi - X) / Dx
+                r2 = (box_lo - X) / Dx
+            live = np.abs(Dx) > tiny
+            hi = np.where(live, np.maximum(r1, r2), np.inf).min(axis=1).clip(min=0.0)
+            lo = np.where(live, np.minimum(r1, r2), -np.inf).max(axis=1).clip(max=0.0)
         lam = np.zeros(C)
         todo = np.ones(C, bool)
         for _ in range(max_shrink):
