@@ -241,9 +241,10 @@ def _project_certificate(ctx):
     R = X - P
     sup = ctx.ref_support_rows(R)
     gap = sup - np.einsum("ij,ij->i", R, P)
-    bound = np.sqrt(2.0 * np.maximum(gap, 0.0))
+    # (1/2)||p - p*||^2 <= gap for p in K, and ||p - p*|| <= ||y - p|| + ||y - p*|| <= 2 ||y - p||
+    bound = np.minimum(np.sqrt(2.0 * np.maximum(gap, 0.0)), 2.0 * np.linalg.norm(R, axis=1))
     _raise_worst("project/certificate", K,
-                 "the Frank-Wolfe certificate sqrt(2 (support(y-p) - <y-p, p>)) is too large",
+                 "the Frank-Wolfe certificate min(sqrt(2 (support(y-p) - <y-p, p>)), 2 ||y-p||) is too large",
                  bound, allowed, X, labels, P, ctx.ref_projection(),
                  "the certificate bounds ||p - p*||; the reference support function was used")
     return 2 * len(X), float(max((dist_in / allowed).max(), (bound / allowed).max())), ctx.rtol
