@@ -118,3 +118,26 @@ class Box(Family):
     def violation(self, X):
         """Largest bound violation, O(n)."""
         return np.maximum((self.lower - X).max(axis=1), (X - self.upper).max(axis=1)).clip(min=0.0)
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def _bounded(self):
+        return bool(np.all(np.isfinite(self.lower)) and np.all(np.isfinite(self.upper)))
+
+    def exact_centroid(self, measure):
+        """The midpoint (lower + upper) / 2 for every measure of a bounded box (symmetry); None if unbounded.
+
+        Volume: product of uniform laws; vertices: each corner coordinate is lower or upper with
+        probability 1/2; directions: lmo(g)_i is lower_i if g_i > 0 else upper_i, each with probability 1/2.
+        """
+        if not self._bounded():
+            return None
+        return (self.lower + self.upper) / 2.0
+
+    def exact_sample(self, k, measure, rng):
+        """Independent coordinates: uniform on [lower, upper] (volume) or a fair choice of bound (vertices, directions)."""
+        if not self._bounded():
+            return None
+        U = rng.random((k, self.lower.size))
+        if measure == "volume":
+            return self.lower + (self.upper - self.lower) * U
+        return np.where(U < 0.5, self.lower, self.upper)

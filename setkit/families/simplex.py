@@ -96,3 +96,33 @@ class Simplex(Family):
         s = X.sum(axis=1) - self.total
         sv = np.abs(s) if self.mode == "equal" else np.maximum(s, 0.0)
         return np.maximum((-X).max(axis=1).clip(min=0.0), sv)
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def exact_centroid(self, measure):
+        """Closed forms by symmetry: total/n (equal); total/(n+1) (at_most, volume and vertices, the
+        origin being a vertex); total (1 - 2^-n)/n for directions at_most (lmo(g) is the origin iff g >= 0)."""
+        n, t = self.n, self.total
+        if self.mode == "equal":
+            return np.full(n, t / n)
+        if measure == "directions":
+            return np.full(n, t * (1.0 - 0.5 ** n) / n)
+        return np.full(n, t / (n + 1))
+
+    def exact_sample(self, k, measure, rng):
+        """Volume: total * Dirichlet(1, ..., 1) from normalized exponential spacings (the at_most simplex
+        drops the slack coordinate); vertices: a uniform vertex; directions: lmo of a Gaussian direction."""
+        n, t = self.n, self.total
+        if measure == "volume":
+            E = rng.standard_exponential((k, n + (self.mode == "at_most")))
+            return t * (E / E.sum(axis=1, keepdims=True))[:, :n]
+        X = np.zeros((k, n))
+        if measure == "vertices":
+            J = rng.integers(0, n + (self.mode == "at_most"), size=k)
+        else:
+            Gd = rng.standard_normal((k, n))
+            J = np.argmin(Gd, axis=1)
+            if self.mode == "at_most":
+                J = np.where(Gd.min(axis=1) < 0, J, n)
+        rows = np.flatnonzero(J < n)
+        X[rows, J[rows]] = t
+        return X
