@@ -273,6 +273,17 @@ def flow_targets(kinds, quick, rng, log):
     return out
 
 
+def _per_call(fn, Y):
+    """Median seconds per call over the points of Y (one call each), after one untimed call; and the answers."""
+    fn(Y[0])    # workspace set-up, canonicalization and JIT are not per-call costs
+    times, out = [], []
+    for y in Y:
+        t0 = time.perf_counter()
+        out.append(fn(y))
+        times.append(time.perf_counter() - t0)
+    return float(np.median(times)), np.array(out)
+
+
 def intersection_target(kinds, quick, rng):
     n = 20 if quick else 200
     pts = 3 if quick else 20
