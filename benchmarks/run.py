@@ -154,10 +154,12 @@ def make_inputs(K, op, batch, rng):
 def call(K, op, X):
     if op == "contains":
         # the reference answers through an interior-point projection accurate to 1e-6..1e-5
-        # relative, so membership is asked at 1e-4 relative: the inputs are either on the set
-        # (projections) or far from it, so this tolerance still separates them
+        # relative per coordinate, so its distances are off by up to ~1e-5 sqrt(dim): membership
+        # is asked at 1e-4 sqrt(dim) relative. The inputs are either on the set (projections) or
+        # at a distance ~ sqrt(dim) from it, so this tolerance still separates them.
         Xf = X.reshape(X.shape[0], -1)
-        tol = 1e-4 * np.maximum(1.0, np.maximum(np.abs(Xf).max(axis=1), float(K.node.scale())))
+        tol = 1e-4 * np.sqrt(Xf.shape[1]) * np.maximum(1.0, np.maximum(np.abs(Xf).max(axis=1),
+                                                                         float(K.node.scale())))
         return K.contains(X, tol=tol)
     return getattr(K, op)(X)
 
