@@ -83,7 +83,10 @@ class ReferenceBackend(Backend):
         p.value = v / scale
         inv.value = s / scale
         try:
-            prob.solve(solver=cp.CLARABEL, **(settings or CLARABEL_SETTINGS))
+            with warnings.catch_warnings():
+                # cvxpy warns "Solution may be inaccurate"; the status is handled by the caller
+                warnings.filterwarnings("ignore", message="Solution may be inaccurate")
+                prob.solve(solver=cp.CLARABEL, **(settings or CLARABEL_SETTINGS))
         except cp.error.SolverError as exc:
             return prob, z, cons, s, exc
         return prob, z, cons, s, None
