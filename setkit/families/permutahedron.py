@@ -50,9 +50,15 @@ class Permutahedron(Family):
     def scale(self):
         return float(max(1.0, np.abs(self.weights).max()))
 
+    def __post_init__(self):
+        # sorted once: every projection, LMO and membership test uses the weights in decreasing order
+        object.__setattr__(self, "_wd", np.ascontiguousarray(np.sort(self.weights)[::-1]))
+        object.__setattr__(self, "_wa", np.sort(self.weights))
+        object.__setattr__(self, "_ps", np.cumsum(self._wd))
+
     @property
     def _wdesc(self):
-        return np.sort(self.weights)[::-1].copy()
+        return self._wd
 
     def cvxpy_constraints(self, x):
         import cvxpy as cp
@@ -85,10 +91,10 @@ class Permutahedron(Family):
     @kernel("support")
     def support(self, C):
         """Sorted c against sorted w (both increasing), O(n log n)."""
-        return np.sort(C, axis=1) @ np.sort(self.weights)
+        return np.sort(C, axis=1) @ self._wa
 
     def _majorization_gap(self, X):
-        ps_w = np.cumsum(self._wdesc)
+        ps_w = self._ps
         ps_x = np.cumsum(-np.sort(-X, axis=1), axis=1)
         over = (ps_x[:, :-1] - ps_w[:-1]).max(axis=1, initial=0.0)
         return np.maximum(over.clip(min=0.0), np.abs(ps_x[:, -1] - ps_w[-1]))
