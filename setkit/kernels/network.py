@@ -1,0 +1,550 @@
+"""Euclidean projection onto network-flow polytopes by a dual Newton method on node potentials.
+
+The set is {x : B x = s, lo <= x <= hi}, B the node-arc incidence matrix
+((B x)_v = flow out of v - flow into v) and s the net supplies. Its projection
+problem min 0.5 ||x - y||^2 has the concave dual
+
+    g(p) = min_{lo <= x <= hi} 0.5 ||x - y||^2 + p^T (B x - s),
+    x(p)_e = clip(y_e - (p_tail(e) - p_head(e)), lo_e, hi_e),   grad g(p) = B x(p) - s,
+
+a piecewise-quadratic function of the node potentials p. We maximize it with
+a semismooth Newton method: the generalized Hessian is minus the Laplacian of
+the edges that are strictly between their bounds, B D B^T; the Newton system
+(B D B^T + mu I) d = grad g is solved matrix-free by Jacobi-preconditioned
+conjugate gradients (O(E) per iteration, no factorization of the random
+graph's Laplacian), followed by a line search on the directional derivative
+of g (piecewise linear and monotone). When a Newton step stalls, a Gauss-Seidel
+sweep of exact coordinate maximization repairs it: each node's balance is a
+monotone piecewise-linear function of its own potential and is solved exactly
+over its sorted breakpoints.
+
+Stopping rule (measured here, not trusted from anywhere): the balance
+residual ||B x(p) - s||_inf and the duality gap |p^T (B x(p) - s)| are both
+below their tolerances. x(p) always satisfies the bounds exactly. A point that
+does not meet the rule within the iteration budget is reported as not converged
+(status 1) and the caller raises.
+"""
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+STATUS_TEXT = {0: "converged", 1: "iteration limit reached before the residual and gap tolerances",
+               2: "a node balance cannot be met (the set looks empty)"}
+
+
+@njit(cache=True)
+def _primal(y, p, tail, head, lo, hi, x, free):
+    for e in range(y.size):
+        v = y[e] - (p[tail[e]] - p[head[e]])
+        if v <= lo[e]:
+            x[e] = lo[e]
+            free[e] = 0
+        elif v >= hi[e]:
+            x[e] = hi[e]
+            free[e] = 0
+        else:
+            x[e] = v
+            free[e] = 1
+
+
+@njit(cache=True)
+def _balance(x, tail, head, s, r):
+    for v in range(s.size):
+        r[v] = -s[v]
+    for e in range(x.size):
+        r[tail[e]] += x[e]
+        r[head[e]] -= x[e]
+
+
+@njit(cache=True)
+def _dir_deriv(y, p, d, t, tail, head, lo, hi, s):
+    """phi'(t) for phi(t) = g(p + t d): sum_v d_v (B x(p + t d) - s)_v."""
+    acc = 0.0
+    for v in range(s.size):
+        acc -= s[v] * d[v]
+    for e in range(y.size):
+        a, b = tail[e], head[e]
+        v = y[e] - ((p[a] + t * d[a]) - (p[b] + t * d[b]))
+        if v < lo[e]:
+            v = lo[e]
+        elif v > hi[e]:
+            v = hi[e]
+        acc += v * (d[a] - d[b])
+    return acc
+
+
+@njit(cache=True)
+def _matvec(d, ft, fh, nf, mu, out):
+    for v in range(d.size):
+        out[v] = mu * d[v]
+    for k in range(nf):
+        a, b = ft[k], fh[k]
+        w = d[a] - d[b]
+        out[a] += w
+        out[b] -= w
+
+
+@njit(cache=True)
+def _cg(r, free, tail, head, mu, rel, max_it, d, res, z, q, w, diag, ft, fh):
+    """Solve (B D B^T + mu I) d = r by Jacobi-preconditioned CG to ||res|| <= rel ||r||."""
+    n = r.size
+    for v in range(n):
+        diag[v] = mu
+    nf = 0
+    for e in range(free.size):
+        if free[e] and tail[e] != head[e]:
+            ft[nf] = tail[e]
+            fh[nf] = head[e]
+            nf += 1
+            diag[tail[e]] += 1.0
+            diag[head[e]] += 1.0
+    rr0 = 0.0
+    for v in range(n):
+        d[v] = 0.0
+        res[v] = r[v]
+        z[v] = res[v] / diag[v]
+        q[v] = z[v]
+        rr0 += r[v] * r[v]
+    rz = 0.0
+    for v in range(n):
+        rz += res[v] * z[v]
+    target = rel * rel * rr0
+    it = 0
+    while it < max_it:
+        _matvec(q, ft, fh, nf, mu, w)
+        qw = 0.0
+        for v in range(n):
+            qw += q[v] * w[v]
+        if qw <= 0.0:
+            break
+        alpha = rz / qw
+        rr = 0.0
+        for v in range(n):
+            d[v] += alpha * q[v]
+            res[v] -= alpha * w[v]
+            rr += res[v] * res[v]
+        it += 1
+        if rr <= target:
+            break
+        rz_new = 0.0
+        for v in range(n):
+            z[v] = res[v] / diag[v]
+            rz_new += res[v] * z[v]
+        beta = rz_new / rz
+        rz = rz_new
+        for v in range(n):
+            q[v] = z[v] + beta * q[v]
+    return it
+
+
+@njit(cache=True)
+def _solve_shift(ta, tL, tU, nb, target, bt, bd):
+    """The shift lam nearest to 0 with sum_k clip(ta_k - lam, tL_k, tU_k) = target.
+
+    The left side is non-increasing and piecewise linear in lam; the root is found
+    by walking its sorted breakpoints from 0. Returns (lam, ok).
+    """
+    f = 0.0
+    for k in range(nb):
+        c = ta[k]
+        if c < tL[k]:
+            c = tL[k]
+        elif c > tU[k]:
+            c = tU[k]
+        f += c
+    if f == target:
+        return 0.0, True
+    if f > target:
+        sgn = 1.0       # walk right: f decreases
+    else:
+        sgn = -1.0      # walk left: f increases
+    # breakpoints on the walking side, with the slope change met when passing them
+    m = 0
+    slope = 0.0         # d f / d lam just beyond 0 on the walking side
+    for k in range(nb):
+        u = ta[k] - tU[k]       # for lam < u the term sits at U
+        l = ta[k] - tL[k]       # for lam > l the term sits at L
+        if sgn > 0:
+            if u <= 0.0 and 0.0 < l:
+                slope -= 1.0
+            if u > 0.0 and u < np.inf:
+                bt[m] = u
+                bd[m] = -1.0
+                m += 1
+            if l > 0.0 and l < np.inf:
+                bt[m] = l
+                bd[m] = 1.0
+                m += 1
+        else:
+            if u < 0.0 and 0.0 <= l:
+                slope -= 1.0
+            if u < 0.0 and u > -np.inf:
+                bt[m] = -u
+                bd[m] = 1.0
+                m += 1
+            if l < 0.0 and l > -np.inf:
+                bt[m] = -l
+                bd[m] = -1.0
+                m += 1
+    order = np.argsort(bt[:m])
+    pos = 0.0           # distance walked
+    for j in range(m):
+        dist = bt[order[j]]
+        f_next = f + sgn * slope * (dist - pos)
+        if (sgn > 0 and f_next <= target) or (sgn < 0 and f_next >= target):
+            if slope != 0.0:
+                return sgn * (pos + (target - f) / (sgn * slope)), True
+            return sgn * dist, True
+        f = f_next
+        pos = dist
+        slope += bd[order[j]]
+    if slope != 0.0:
+        return sgn * (pos + (target - f) / (sgn * slope)), True
+    return 0.0, False
+
+
+@njit(cache=True)
+def _components(free, tail, head, nn, parent, comp):
+    """Connected components of the free edges (union-find); comp[v] in 0..k-1. Returns k."""
+    for v in range(nn):
+        parent[v] = v
+    for e in range(free.size):
+        if free[e]:
+            a = tail[e]
+            while parent[a] != a:
+                parent[a] = parent[parent[a]]
+                a = parent[a]
+            b = head[e]
+            while parent[b] != b:
+                parent[b] = parent[parent[b]]
+                b = parent[b]
+            if a != b:
+                parent[a] = b
+    k = 0
+    for v in range(nn):
+        comp[v] = -1
+    for v in range(nn):
+        a = v
+        while parent[a] != a:
+            a = parent[a]
+        if comp[a] < 0:
+            comp[a] = k
+            k += 1
+        comp[v] = comp[a]
+    return k
+
+
+@njit(cache=True)
+def _block_sweep(y, p, tail, head, lo, hi, s, indptr, adj_edge, adj_out, comp, ncomp, r, tol,
+                 c_ptr, c_nodes, ta, tL, tU, bt, bd, fill):
+    """Exact dual ascent along component shifts: for each component c of the free edges with a
+    nonzero net imbalance, add to the potentials of c the shift that balances c as a whole
+    (only the edges crossing c's boundary change). Returns False if some component cannot balance.
+    """
+    nn = s.size
+    # nodes grouped by component
+    for c in range(ncomp + 1):
+        c_ptr[c] = 0
+    for v in range(nn):
+        c_ptr[comp[v] + 1] += 1
+    for c in range(ncomp):
+        c_ptr[c + 1] += c_ptr[c]
+    for c in range(ncomp):
+        fill[c] = c_ptr[c]
+    for v in range(nn):
+        c_nodes[fill[comp[v]]] = v
+        fill[comp[v]] += 1
+    for c in range(ncomp):
+        R = 0.0
+        for j in range(c_ptr[c], c_ptr[c + 1]):
+            R += r[c_nodes[j]]
+        if abs(R) <= tol:
+            continue
+        target = 0.0
+        nb = 0
+        for j in range(c_ptr[c], c_ptr[c + 1]):
+            v = c_nodes[j]
+            target += s[v]
+            for k in range(indptr[v], indptr[v + 1]):
+                e = adj_edge[k]
+                a_, b_ = tail[e], head[e]
+                if comp[a_] == comp[b_]:
+                    continue        # inside the component: unchanged by the shift
+                if adj_out[k]:
+                    ta[nb] = y[e] - p[a_] + p[b_]
+                    tL[nb] = lo[e]
+                    tU[nb] = hi[e]
+                else:
+                    ta[nb] = -(y[e] - p[a_] + p[b_])
+                    tL[nb] = -hi[e]
+                    tU[nb] = -lo[e]
+                nb += 1
+        # internal edges contribute nothing to the component's total balance
+        lam, ok = _solve_shift(ta, tL, tU, nb, target, bt, bd)
+        if not ok:
+            return False
+        if lam != 0.0:
+            for j in range(c_ptr[c], c_ptr[c + 1]):
+                p[c_nodes[j]] += lam
+    return True
+
+
+@njit(cache=True)
+def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
+                    tol_r, tol_gap, max_newton, warm, scale, gcomp, gcount, verbose=False):
+    """Batched projection; returns X, P (final potentials), Newton steps, residuals, gaps, status, CG steps.
+
+    Each step: (1) primal x(p), balances r; (2) components of the free edges and one exact
+    block shift per imbalanced component; (3) a Newton step on the component-centred
+    balances, solved by CG, with a line search on phi'(t). Row i starts from the potentials
+    of row i-1 (row 0 from P0) when ``warm``.
+    """
+    b, m = Y.shape
+    nn = s.size
+    X = np.empty((b, m))
+    P = np.empty((b, nn))
+    iters = np.zeros(b, np.int64)
+    resid = np.zeros(b)
+    gaps = np.zeros(b)
+    status = np.zeros(b, np.int64)
+    cgit = np.zeros(b, np.int64)
+    x = np.empty(m)
+    free = np.zeros(m, np.int8)
+    r = np.empty(nn)
+    d = np.empty(nn)
+    res = np.empty(nn)
+    z = np.empty(nn)
+    q = np.empty(nn)
+    w = np.empty(nn)
+    diag = np.empty(nn)
+    rhs = np.empty(nn)
+    ft = np.empty(m, np.int64)
+    fh = np.empty(m, np.int64)
+    parent = np.empty(nn, np.int64)
+    comp = np.empty(nn, np.int64)
+    csum = np.empty(nn)
+    ccount = np.empty(nn)
+    c_ptr = np.empty(nn + 1, np.int64)
+    c_nodes = np.empty(nn, np.int64)
+    ta = np.empty(2 * m + 1)
+    tL = np.empty(2 * m + 1)
+    tU = np.empty(2 * m + 1)
+    bt = np.empty(4 * m + 2)
+    bd = np.empty(4 * m + 2)
+    fill = np.empty(nn, np.int64)
+    maxdeg = 1
+    for v in range(nn):
+        if indptr[v + 1] - indptr[v] > maxdeg:
+            maxdeg = indptr[v + 1] - indptr[v]
+    p = P0.copy()
+    for i in range(b):
+        y = Y[i]
+        if not warm:
+            for v in range(nn):
+                p[v] = P0[v]
+        else:
+            # a warm start only seeds the iteration: bound it by what the data can justify
+            # (on a free path, potentials differ by at most |y_e| + |x_e| per edge)
+            ymax = 0.0
+            for e in range(m):
+                if abs(y[e]) > ymax:
+                    ymax = abs(y[e])
+            R = nn * (ymax + scale)
+            for v in range(nn):
+                if p[v] > R:
+                    p[v] = R
+                elif p[v] < -R:
+                    p[v] = -R
+            # keep the warm start only if it balances better than zero potentials
+            _primal(y, p, tail, head, lo, hi, x, free)
+            _balance(x, tail, head, s, r)
+            r_warm = 0.0
+            for v in range(nn):
+                r_warm += r[v] * r[v]
+            for v in range(nn):
+                d[v] = 0.0
+            _primal(y, d, tail, head, lo, hi, x, free)
+            _balance(x, tail, head, s, r)
+            r_zero = 0.0
+            for v in range(nn):
+                r_zero += r[v] * r[v]
+            if r_zero < r_warm:
+                for v in range(nn):
+                    p[v] = 0.0
+        # centre the potentials on every connected component of the graph (g is invariant to
+        # such shifts; centring keeps their magnitude, hence the rounding, at the data's scale)
+        yabs = 0.0
+        for e in range(m):
+            if abs(y[e]) > yabs:
+                yabs = abs(y[e])
+        it = 0
+        st = 1
+        rn = np.inf
+        gap = np.inf
+        while True:
+            for c in range(gcount.size):
+                csum[c] = 0.0
+            for v in range(nn):
+                csum[gcomp[v]] += p[v]
+            for v in range(nn):
+                p[v] -= csum[gcomp[v]] / gcount[gcomp[v]]
+            _primal(y, p, tail, head, lo, hi, x, free)
+            _balance(x, tail, head, s, r)
+            rn = 0.0
+            gap = 0.0
+            for v in range(nn):
+                if abs(r[v]) > rn:
+                    rn = abs(r[v])
+                gap += p[v] * r[v]
+            gap = abs(gap)
+            # rounding floor of the balances: each sums up to maxdeg terms of size ~ |p| + |y|
+            pmax = 0.0
+            for v in range(nn):
+                if abs(p[v]) > pmax:
+                    pmax = abs(p[v])
+            floor = 8.0 * 2.220446049250313e-16 * maxdeg * (pmax + yabs)
+            if rn <= max(tol_r, floor) and gap <= max(tol_gap, floor * pmax * nn):
+                st = 0
+                break
+            if it >= max_newton:
+                break
+            it += 1
+            # (2) exact shifts of imbalanced components of the free edges
+            ncomp = _components(free, tail, head, nn, parent, comp)
+            for c in range(ncomp):
+                csum[c] = 0.0
+                ccount[c] = 0.0
+            for v in range(nn):
+                csum[comp[v]] += r[v]
+                ccount[comp[v]] += 1.0
+            big = 0.0
+            for c in range(ncomp):
+                if abs(csum[c]) > big:
+                    big = abs(csum[c])
+            if big > tol_r:
+                if not _block_sweep(y, p, tail, head, lo, hi, s, indptr, adj_edge, adj_out, comp, ncomp, r,
+                                    0.1 * tol_r, c_ptr, c_nodes, ta, tL, tU, bt, bd, fill):
+                    st = 2
+                    break
+                _primal(y, p, tail, head, lo, hi, x, free)
+                _balance(x, tail, head, s, r)
+                ncomp = _components(free, tail, head, nn, parent, comp)
+                for c in range(ncomp):
+                    csum[c] = 0.0
+                    ccount[c] = 0.0
+                for v in range(nn):
+                    csum[comp[v]] += r[v]
+                    ccount[comp[v]] += 1.0
+            # (3) Newton step on the component-centred balances
+            rr = 0.0
+            for v in range(nn):
+                w[v] = r[v] - csum[comp[v]] / ccount[comp[v]]
+                rr += w[v] * w[v]
+            rnorm = np.sqrt(rr)
+            if rnorm <= 0.1 * tol_r:
+                continue
+            for v in range(nn):
+                rhs[v] = w[v]
+            eta = min(0.1, rnorm / scale)
+            cgit[i] += _cg(rhs, free, tail, head, 1e-12, max(eta, 1e-13), 4 * nn + 50, d, res, z, q, w, diag, ft, fh)
+            d0 = 0.0
+            for v in range(nn):
+                d0 += d[v] * r[v]
+            if not d0 > 0.0:
+                continue
+            t = 1.0
+            dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s)
+            lo_t, lo_v = 0.0, d0
+            while dt > 0.5 * d0 and t < 1e8:
+                lo_t, lo_v = t, dt
+                t *= 4.0
+                dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s)
+            if dt > 0.5 * d0:
+                t = lo_t
+            elif dt < -0.5 * d0:
+                hi_t, hi_v = t, dt
+                side = 0
+                for _k in range(60):
+                    # Illinois variant of regula falsi on the piecewise-linear, non-increasing phi'
+                    t = lo_t + (hi_t - lo_t) * lo_v / (lo_v - hi_v)
+                    if not (t > lo_t and t < hi_t):
+                        t = 0.5 * (lo_t + hi_t)
+                    dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s)
+                    if dt >= -0.5 * d0 and dt <= 0.5 * d0:
+                        break
+                    if dt > 0.0:
+                        lo_t, lo_v = t, dt
+                        if side == 1:
+                            hi_v *= 0.5
+                        side = 1
+                    else:
+                        hi_t, hi_v = t, dt
+                        if side == -1:
+                            lo_v *= 0.5
+                        side = -1
+            if verbose:
+                print(it, rn, gap, ncomp, t, d0, dt)
+            for v in range(nn):
+                p[v] += t * d[v]
+        for e in range(m):
+            X[i, e] = x[e]
+        for v in range(nn):
+            P[i, v] = p[v]
+        iters[i] = it
+        resid[i] = rn
+        gaps[i] = gap
+        status[i] = st
+    return X, P, iters, resid, gaps, status, cgit
+
+
+class NetworkProjector:
+    """The arrays of one flow polytope, arranged for :func:`project_network`, plus warm-start potentials.
+
+    One instance per thread (it keeps the last potentials for the next call).
+    """
+
+    def __init__(self, tail, head, lo, hi, supply, tol=1e-12):
+        self.tail = np.ascontiguousarray(tail, dtype=np.int64)
+        self.head = np.ascontiguousarray(head, dtype=np.int64)
+        self.lo = np.ascontiguousarray(lo, dtype=float)
+        self.hi = np.ascontiguousarray(hi, dtype=float)
+        self.s = np.ascontiguousarray(supply, dtype=float)
+        n, m = self.s.size, self.tail.size
+        # incidence lists: for node v, its edges with a flag "edge leaves v"
+        ends = np.concatenate([self.tail, self.head])
+        edge = np.concatenate([np.arange(m), np.arange(m)])
+        out = np.concatenate([np.ones(m, np.int8), np.zeros(m, np.int8)])
+        order = np.argsort(ends, kind="stable")
+        self.adj_edge = np.ascontiguousarray(edge[order], dtype=np.int64)
+        self.adj_out = np.ascontiguousarray(out[order])
+        self.indptr = np.zeros(n + 1, np.int64)
+        np.cumsum(np.bincount(ends, minlength=n), out=self.indptr[1:])
+        fin = np.concatenate([self.lo[np.isfinite(self.lo)], self.hi[np.isfinite(self.hi)], self.s])
+        self.data_scale = float(np.abs(fin).max(initial=0.0))
+        self.tol = tol
+        self.potentials = np.zeros(n)
+        import scipy.sparse as sp
+        from scipy.sparse.csgraph import connected_components
+        G = sp.csr_matrix((np.ones(m), (self.tail, self.head)), shape=(n, n))
+        _, comp = connected_components(G, directed=True, connection="weak")
+        self.gcomp = np.ascontiguousarray(comp, dtype=np.int64)
+        self.gcount = np.bincount(self.gcomp).astype(float)
+        self.max_newton = 500
+
+    def project(self, Y, warm=True):
+        """Project the rows of Y; returns X and a dict with iterations, residual, gap, status per row."""
+        Y = np.ascontiguousarray(Y, dtype=float)
+        scale = max(1.0, self.data_scale, float(np.abs(Y).max(initial=0.0)))
+        tol_r = self.tol * scale
+        tol_gap = self.tol * scale * scale * max(1.0, np.sqrt(self.s.size))
+        p0 = self.potentials if warm else np.zeros_like(self.potentials)
+        X, P, it, rn, gap, st, cg = project_network(Y, p0, self.tail, self.head, self.lo, self.hi, self.s,
+                                                    self.indptr, self.adj_edge, self.adj_out, tol_r, tol_gap,
+                                                    self.max_newton, warm, scale, self.gcomp, self.gcount)
+        ok = st == 0
+        if ok.any():
+            self.potentials = P[np.flatnonzero(ok)[-1]].copy()
+        else:
+            self.potentials = np.zeros_like(self.potentials)
+        return X, dict(iterations=it, cg_iterations=cg, residual=rn, gap=gap, status=st, tol_r=tol_r, tol_gap=tol_gap)
