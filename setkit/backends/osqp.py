@@ -52,6 +52,8 @@ class OsqpBackend(Backend):
         self.solver = osqp.OSQP()
         self.solver.setup(P, np.zeros(n), A, lo, hi, **SETTINGS)
         self._osqp = osqp
+        status_enum = getattr(osqp, "SolverStatus", None)   # osqp >= 1.0; older: the named constant
+        self._solved = int(status_enum.OSQP_SOLVED) if status_enum is not None else osqp.constant("OSQP_SOLVED")
 
     def _residual(self, z):
         f = self.form
@@ -71,13 +73,13 @@ class OsqpBackend(Backend):
             q = np.concatenate([-y, np.zeros(f.n_aux)])
             self.solver.update(q=q)
             res = self.solver.solve(raise_error=False)
-            ok = res.info.status_val == self._osqp.constant("OSQP_SOLVED")
+            ok = res.info.status_val == self._solved
             tightened = False
             if not (ok and res.info.status_polish == 1):
                 self.solver.update_settings(**TIGHT)
                 res = self.solver.solve(raise_error=False)
                 self.solver.update_settings(eps_abs=SETTINGS["eps_abs"], eps_rel=SETTINGS["eps_rel"])
-                ok = res.info.status_val == self._osqp.constant("OSQP_SOLVED")
+                ok = res.info.status_val == self._solved
                 tightened = True
             status = res.info.status
             z = res.x
