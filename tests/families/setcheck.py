@@ -19,7 +19,7 @@ def sample_points(K, rng, n=3):
     return Y.reshape((-1,) + K.shape)
 
 
-def check_against_reference(K, rng, n=3, rtol=2e-6, bounded=True):
+def check_against_reference(K, rng, n=3, rtol=2e-5, bounded=True, osqp=True):
     """Compare project, distance, contains, violation, lmo and support of K with the cvxpy reference."""
     R = K.with_backends(**REF)
     Y = sample_points(K, rng, n)
@@ -28,7 +28,13 @@ def check_against_reference(K, rng, n=3, rtol=2e-6, bounded=True):
     Pr = R.project(Y)
     scale = np.maximum(1.0, np.abs(Y.reshape(b, -1)).max(axis=1)) * max(1.0, K.node.scale())
     err = np.abs((P - Pr).reshape(b, -1)).max(axis=1) / scale
+    # the interior-point reference is accurate to about 1e-6 relative on degenerate faces
     assert err.max() <= rtol, f"project differs from the reference by {err.max():.3g} (relative)"
+    if osqp and K.routes()["project"].provider != "osqp":
+        # the polished OSQP backend identifies the active set and is exact up to rounding
+        Po = K.with_backends(project="osqp").project(Y)
+        e2 = np.abs((P - Po).reshape(b, -1)).max(axis=1) / scale
+        assert e2.max() <= 1e-8, f"project differs from the osqp backend by {e2.max():.3g} (relative)"
     D = K.distance(Y)
     Dr = np.linalg.norm((Y - Pr).reshape(b, -1), axis=1)
     assert np.all(np.abs(D - Dr) <= rtol * scale)
