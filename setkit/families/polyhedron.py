@@ -23,6 +23,8 @@ def _matrix(r, key, n_cols):
         r.raw(key, None)
         return None
     v = r.raw(key)
+    if isinstance(v, str) and v.lower().endswith(".npz"):
+        v = r._to_array(key, v, float)     # a .npz file may hold a scipy.sparse matrix
     if sp.issparse(v):
         M = sp.csr_matrix(v, dtype=float)
         if M.nnz and not np.all(np.isfinite(M.data)):
@@ -62,6 +64,9 @@ class Polyhedron(Family):
     @classmethod
     def from_spec(cls, r):
         n = r.integer("dim", None, min=1)
+        for mat, rhs, rel in (("A", "b", "A x <= b"), ("C", "d", "C x = d")):
+            if r.has(rhs) and not r.has(mat):
+                r.fail(rhs, f"{rhs} is given but {mat} is missing; {rel} needs both.")
         A = _matrix(r, "A", n)
         if n is None and A is not None:
             n = A.shape[1]
