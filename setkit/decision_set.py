@@ -167,7 +167,9 @@ class DecisionSet:
             args = (X, tol) if op == "contains" else (X,)
             if self.node.children():
                 args = args + (self.parts,)
-            return fn(*args), {}
+            out = fn(*args)
+            # a kernel may return (out, info) to report status/iterations for details=True
+            return out if isinstance(out, tuple) else (out, {})
         if p == "derived":
             if op == "distance":
                 P, info = self._run("project", X)
@@ -296,6 +298,11 @@ class DecisionSet:
         """Centroid of the set under ``measure`` ("volume", "vertices", "directions")."""
         from . import measures
         return measures.centroid(self, measure, **kw)
+
+    def centered(self, measure: str = "volume", **kw) -> "DecisionSet":
+        """The same set translated so that its centroid under ``measure`` is the origin (an affine shift)."""
+        from .combinators.affine import centered
+        return centered(self, measure, **kw)
 
     def sample(self, k: int, measure: str = "volume", rng=None, **kw):
         """k points of the set drawn from ``measure``; shape (k, *K.shape)."""

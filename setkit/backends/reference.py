@@ -35,13 +35,17 @@ class ReferenceBackend(Backend):
             raise BackendUnavailableError("backend 'reference' needs cvxpy: pip install cvxpy.") from exc
         self.cp = cp
         self._problems = {}
+        self._set_scale = max(1.0, float(node.scale()))
 
     # -- problem construction -------------------------------------------------
-    def _variable(self):
+    def _variable(self, s=1.0):
         cp = self.cp
         d, shape = self.node.dim, self.node.shape
         z = cp.Variable(d)
-        x = z if shape == (d,) else cp.reshape(z, shape, order="C")
+        # projections work on z = x / s with s the set's data scale, so that z = O(1)
+        # (linear minimization stays unscaled: Clarabel failed on some degenerate scaled LPs)
+        xz = z if s == 1.0 else s * z
+        x = xz if shape == (d,) else cp.reshape(xz, shape, order="C")
         cons = self.node.cvxpy_constraints(x)
         return z, cons
 
@@ -49,12 +53,15 @@ class ReferenceBackend(Backend):
         if op in self._problems:
             return self._problems[op]
         cp = self.cp
-        z, cons = self._variable()
+        z, cons = self._variable(self._set_scale if op == "project" else 1.0)
         p = cp.Parameter(self.node.dim)
         inv = cp.Parameter(nonneg=True, value=1.0)
         if op == "project":
-            # scaled objective 0.5 ||z/s - y/s||^2 keeps Clarabel well conditioned for far points
-            prob = cp.Problem(cp.Minimize(0.5 * cp.sum_squares(inv * z - p)), cons)
+            # expanded objective (0.5 ||x||^2 - <y, x>) / (s t) with x = s z and
+            # t = max(1, s, |y|_inf): 0.5 (s/t) ||z||^2 - <y/t, z>. The constant ||y||^2 is dropped
+            # and no auxiliary equality z/t - y/t is formed, which keeps Clarabel accurate to
+            # ~1e-8 of the set's scale for far points (the form ||z/t - y/t||^2 lost ~1e-6 of |y|)
+            prob = cp.Problem(cp.Minimize(0.5 * inv * cp.sum_squares(z) - p @ z), cons)
         else:
             prob = cp.Problem(cp.Minimize(p @ z), cons)
         self._problems[op] = (prob, z, p, inv, cons)
@@ -64,8 +71,10 @@ class ReferenceBackend(Backend):
         cp = self.cp
         prob, z, p, inv, cons = self._problem(op)
         scale = max(1.0, float(np.abs(v).max(initial=0.0)))
+        if op == "project":
+            scale = max(scale, self._set_scale)
         p.value = v / scale
-        inv.value = 1.0 / scale
+        inv.value = self._set_scale / scale
         try:
             prob.solve(solver=cp.CLARABEL, **CLARABEL_SETTINGS)
         except cp.error.SolverError as exc:
@@ -87,6 +96,8 @@ class ReferenceBackend(Backend):
                 raise SolveError(f"reference ({self.node.label}): {op} did not solve cleanly "
                                  f"(status {status!r}).", status=status)
         x = np.array(z.value, dtype=float)
+        if op == "project":
+            x *= self._set_scale
         resid = max((float(np.max(c.violation(), initial=0.0)) for c in cons), default=0.0)
         xs = max(1.0, float(np.abs(x).max(initial=0.0)))
         if resid > 1e-6 * xs:

@@ -130,7 +130,12 @@ def _load_builtins():
         if _loaded:
             return
         for pkg_name in ("setkit.families", "setkit.combinators"):
-            pkg = importlib.import_module(pkg_name)
+            try:
+                pkg = importlib.import_module(pkg_name)
+            except ModuleNotFoundError as exc:
+                if exc.name != pkg_name:
+                    raise
+                continue  # an optional built-in package not present (yet)
             for info in pkgutil.iter_modules(pkg.__path__):
                 if not info.name.startswith("_"):
                     importlib.import_module(f"{pkg_name}.{info.name}")

@@ -51,6 +51,20 @@ class Box(Family):
             r.fail("lower", "lower cannot be +inf and upper cannot be -inf.")
         return cls(lower=lo, upper=hi, name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "box", "dim": 3, "lower": 0, "upper": 1},
+                {"kind": "box", "lower": [-2.0, 0.0, 1.0, -0.5], "upper": [1.0, 0.0, 3.0, 250.0]},
+                {"kind": "box", "lower": [0.0, "-inf"], "upper": ["inf", 2.0]}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random bounded box of dimension 2..6."""
+        n = int(rng.integers(2, 7))
+        lo = np.round(rng.normal(size=n), 3)
+        return {"kind": "box", "lower": lo.tolist(), "upper": (lo + rng.uniform(0, 3, n).round(3)).tolist()}
+
     @property
     def shape(self):
         return (self.lower.size,)
@@ -104,3 +118,26 @@ class Box(Family):
     def violation(self, X):
         """Largest bound violation, O(n)."""
         return np.maximum((self.lower - X).max(axis=1), (X - self.upper).max(axis=1)).clip(min=0.0)
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def _bounded(self):
+        return bool(np.all(np.isfinite(self.lower)) and np.all(np.isfinite(self.upper)))
+
+    def exact_centroid(self, measure):
+        """The midpoint (lower + upper) / 2 for every measure of a bounded box (symmetry); None if unbounded.
+
+        Volume: product of uniform laws; vertices: each corner coordinate is lower or upper with
+        probability 1/2; directions: lmo(g)_i is lower_i if g_i > 0 else upper_i, each with probability 1/2.
+        """
+        if not self._bounded():
+            return None
+        return (self.lower + self.upper) / 2.0
+
+    def exact_sample(self, k, measure, rng):
+        """Independent coordinates: uniform on [lower, upper] (volume) or a fair choice of bound (vertices, directions)."""
+        if not self._bounded():
+            return None
+        U = rng.random((k, self.lower.size))
+        if measure == "volume":
+            return self.lower + (self.upper - self.lower) * U
+        return np.where(U < 0.5, self.lower, self.upper)

@@ -32,6 +32,19 @@ class Simplex(Family):
         mode = r.choice("mode", ("equal", "at_most"), "equal")
         return cls(n=n, total=total, mode=mode, name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "simplex", "dim": 4},
+                {"kind": "simplex", "dim": 5, "total": 3.5, "mode": "at_most"},
+                {"kind": "simplex", "dim": 1, "total": 2.0}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random simplex of dimension 2..8, either mode."""
+        return {"kind": "simplex", "dim": int(rng.integers(2, 9)), "total": float(np.round(rng.uniform(0.1, 5), 3)),
+                "mode": str(rng.choice(["equal", "at_most"]))}
+
     @property
     def shape(self):
         return (self.n,)
@@ -83,3 +96,33 @@ class Simplex(Family):
         s = X.sum(axis=1) - self.total
         sv = np.abs(s) if self.mode == "equal" else np.maximum(s, 0.0)
         return np.maximum((-X).max(axis=1).clip(min=0.0), sv)
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def exact_centroid(self, measure):
+        """Closed forms by symmetry: total/n (equal); total/(n+1) (at_most, volume and vertices, the
+        origin being a vertex); total (1 - 2^-n)/n for directions at_most (lmo(g) is the origin iff g >= 0)."""
+        n, t = self.n, self.total
+        if self.mode == "equal":
+            return np.full(n, t / n)
+        if measure == "directions":
+            return np.full(n, t * (1.0 - 0.5 ** n) / n)
+        return np.full(n, t / (n + 1))
+
+    def exact_sample(self, k, measure, rng):
+        """Volume: total * Dirichlet(1, ..., 1) from normalized exponential spacings (the at_most simplex
+        drops the slack coordinate); vertices: a uniform vertex; directions: lmo of a Gaussian direction."""
+        n, t = self.n, self.total
+        if measure == "volume":
+            E = rng.standard_exponential((k, n + (self.mode == "at_most")))
+            return t * (E / E.sum(axis=1, keepdims=True))[:, :n]
+        X = np.zeros((k, n))
+        if measure == "vertices":
+            J = rng.integers(0, n + (self.mode == "at_most"), size=k)
+        else:
+            Gd = rng.standard_normal((k, n))
+            J = np.argmin(Gd, axis=1)
+            if self.mode == "at_most":
+                J = np.where(Gd.min(axis=1) < 0, J, n)
+        rows = np.flatnonzero(J < n)
+        X[rows, J[rows]] = t
+        return X

@@ -1,0 +1,327 @@
+"""Intersection of sets of one shape: K = K_1 ∩ ... ∩ K_m.
+
+Description keys::
+
+    kind: intersection
+    of: [set, set, ...]        # the parts, all of one point shape
+    accuracy: 1.0e-7           # splitting methods only: relative target of gap and residual
+    max_iterations: 20000      # splitting methods only: cap on sweeps / evaluations
+
+How each operator is served (chosen once, when the description is read):
+
+* one part (the *base*, e.g. a permutahedron, a ball or a simplex) has its own
+  projection and the others are a few linear constraints (at most ``CUT_LIMIT``
+  rows in all, bounds included): the projection solves the dual over the cut
+  multipliers, each step one projection onto the base
+  (:func:`setkit.kernels.splitting.project_with_cuts`);
+* else, every part has a linear form without auxiliary variables (boxes,
+  simplices, polyhedra...): the forms are merged into one linear form, so the
+  OSQP projection serves the intersection, compiled once;
+* otherwise: Dykstra's method on the parts' own projections
+  (:func:`setkit.kernels.splitting.dykstra`).
+
+In every case the LMO and the support function use the merged linear form when
+every part has one (auxiliary variables allowed: extended formulations such as
+a permutahedron written as the image of the Birkhoff polytope, offered by a
+family's optional ``extended_form()`` hook, see :func:`setkit.combinators.lp_form`),
+else the cvxpy reference. An empty intersection is reported with :class:`EmptySetError` when
+the description is read if the merged linear form is LP-infeasible, and at run
+time when a splitting method diverges.
+
+``contains`` means every part contains the point within ``tol`` (a point within
+``tol`` of every part may be farther from the intersection when the parts meet
+at a small angle); ``violation`` is the largest violation over the parts.
+"""
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+
+from ..errors import AccuracyWarning, EmptySetError, SolveError
+from ..families import Family, kernel, register
+from ..forms import LinearForm
+from ..kernels.splitting import dykstra, project_with_cuts
+from . import cached, loose_of, lp_form, part_violation
+
+CUT_LIMIT = 64           # a part with at most this many linear rows counts as a few cuts
+FEASIBILITY_CHECK_LIMIT = 200_000   # variables of the merged form up to which emptiness is checked by LP
+
+
+def merge_forms(forms):
+    """One linear form for the intersection: shared x, auxiliaries of every part side by side."""
+    n_x = forms[0].n_x
+    na = [f.n_aux for f in forms]
+    N = n_x + sum(na)
+    off = n_x + np.cumsum([0] + na)
+
+    def place(A, i):
+        A = sp.csr_matrix(A)
+        blocks = [A[:, :n_x]]
+        if off[i] > n_x:
+            blocks.append(sp.csr_matrix((A.shape[0], off[i] - n_x)))
+        if na[i]:
+            blocks.append(A[:, n_x:])
+        if N > off[i + 1]:
+            blocks.append(sp.csr_matrix((A.shape[0], N - off[i + 1])))
+        return sp.hstack(blocks, format="csr")
+
+    A_eq = sp.vstack([place(f.A_eq, i) for i, f in enumerate(forms)], format="csr")
+    A_ub = sp.vstack([place(f.A_ub, i) for i, f in enumerate(forms)], format="csr")
+    lo_x = np.max([f.lo[:n_x] for f in forms], axis=0)
+    hi_x = np.min([f.hi[:n_x] for f in forms], axis=0)
+    lo = np.concatenate([lo_x] + [f.lo[n_x:] for f in forms])
+    hi = np.concatenate([hi_x] + [f.hi[n_x:] for f in forms])
+    return LinearForm(n_x, N - n_x, A_eq, np.concatenate([f.b_eq for f in forms]), A_ub,
+                      np.concatenate([f.b_ub for f in forms]), lo, hi)
+
+
+def cut_rows(form):
+    """An aux-free linear form as rows (E x = f; G x <= h) with unit-norm rows, or None if too many.
+
+    Returns (A, rhs, n_eq) with the equalities first, or raises EmptySetError for
+    a zero row that no point satisfies.
+    """
+    if form is None or form.n_aux:
+        return None
+    lo_f = np.flatnonzero(np.isfinite(form.lo))
+    hi_f = np.flatnonzero(np.isfinite(form.hi))
+    count = form.A_eq.shape[0] + form.A_ub.shape[0] + lo_f.size + hi_f.size
+    if count > CUT_LIMIT:
+        return None
+    n = form.n_x
+    E = form.A_eq.toarray()
+    f = form.b_eq.copy()
+    G = [form.A_ub.toarray()]
+    h = [form.b_ub]
+    if lo_f.size:
+        G.append(-np.eye(n)[lo_f])
+        h.append(-form.lo[lo_f])
+    if hi_f.size:
+        G.append(np.eye(n)[hi_f])
+        h.append(form.hi[hi_f])
+    G = np.vstack(G) if G else np.zeros((0, n))
+    h = np.concatenate(h) if h else np.zeros(0)
+    rows, rhs, n_eq = [], [], 0
+    for mat, vec, eq in ((E, f, True), (G, h, False)):
+        for a, c in zip(mat, vec):
+            nrm = float(np.linalg.norm(a))
+            if nrm == 0.0:
+                if (eq and c != 0.0) or (not eq and c < 0.0):
+                    raise EmptySetError(f"a constraint 0 {'=' if eq else '<='} {c} has no solution")
+                continue
+            rows.append(a / nrm)
+            rhs.append(c / nrm)
+            n_eq += eq
+    A = np.array(rows).reshape(len(rows), n)
+    return A, np.array(rhs, dtype=float), n_eq
+
+
+@register("intersection")
+@dataclass(frozen=True, eq=False, kw_only=True)
+class Intersection(Family):
+    """K = K_1 ∩ ... ∩ K_m, every part polyhedral: one merged linear form (OSQP projection, HiGHS LMO).
+
+    >>> import setkit
+    >>> K = setkit.compile({"kind": "intersection", "of": [
+    ...     {"kind": "simplex", "dim": 3}, {"kind": "box", "dim": 3, "lower": 0, "upper": 0.5}]})
+    >>> K.project([1.0, 0.0, 0.0]).round(6).tolist()
+    [0.5, 0.25, 0.25]
+    """
+
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "intersection", "of": [{"kind": "simplex", "dim": 3},
+                                                 {"kind": "box", "dim": 3, "lower": 0, "upper": 0.5}]},
+                {"kind": "intersection", "of": [{"kind": "simplex", "dim": 4, "total": 2.0, "mode": "at_most"},
+                                                 {"kind": "box", "lower": [0, 0, 0.2, 0], "upper": [1, 0.5, 1, 1]}]}]
+
+    parts: tuple
+    accuracy: float = 1e-7
+    max_iterations: int = 20_000
+
+    @classmethod
+    def from_spec(cls, r):
+        parts = r.nodes("of", min_count=1)
+        shape = tuple(parts[0].shape)
+        for i, p in enumerate(parts[1:], start=1):
+            if tuple(p.shape) != shape:
+                r.fail("of", f"every part must have the point shape of the first, {shape}; "
+                             f"part {i} ({p.label}) has shape {tuple(p.shape)}.")
+        acc = r.number("accuracy", 1e-7, min=1e-14, max=1e-2)
+        cap = r.integer("max_iterations", 20_000, min=1)
+        try:
+            return make_intersection(parts, accuracy=acc, max_iterations=cap, name=r.name)
+        except EmptySetError as exc:
+            r.fail("of", str(exc), cls=EmptySetError)
+
+    @property
+    def shape(self):
+        return tuple(self.parts[0].shape)
+
+    def children(self):
+        return tuple(self.parts)
+
+    def scale(self):
+        return max(p.scale() for p in self.parts)
+
+    def cvxpy_constraints(self, x):
+        cons = []
+        for p in self.parts:
+            cons.extend(p.cvxpy_constraints(x))
+        return cons
+
+    def linear_form(self):
+        def build():
+            forms = [lp_form(p) for p in self.parts]
+            if any(f is None for f in forms):
+                return None
+            return merge_forms(forms)
+        return cached(self, "linear_form", build)
+
+    @property
+    def traits(self):
+        common = set(self.parts[0].traits)
+        for p in self.parts[1:]:
+            common &= set(p.traits)
+        if any(p.has_trait("bounded") for p in self.parts):
+            common.add("bounded")
+        return frozenset(common)
+
+    @kernel("contains")
+    def contains(self, X, tol, parts):
+        """Every part contains the point within tol, O(sum of the parts' membership costs)."""
+        ok = np.ones(X.shape[0], bool)
+        for p in parts:
+            v, _ = p._run("contains", X, tol=tol)
+            ok &= np.asarray(v, bool)
+        return ok
+
+    @kernel("violation")
+    def violation(self, X, parts):
+        """Largest violation over the parts (NaN if a part has no check), O(sum of the parts' costs)."""
+        return np.max([part_violation(p, X) for p in parts], axis=0)
+
+    # -- shared by the splitting subclasses -------------------------------------------------
+    def _row_scale(self, Y):
+        return np.maximum(max(1.0, self.scale()), np.abs(Y).max(axis=1))
+
+    def _accept(self, X, info, parts, method, sc):
+        """Raise (or warn when loose) unless every row converged; returns (X, info for Details)."""
+        status = info["status"]
+        bad = [i for i, s in enumerate(status) if s != "solved"]
+        if bad:
+            i = bad[0]
+            g, r, it = info["gap"][i], info["residual"][i], info["iterations"][i]
+            if status[i] == "empty":
+                raise EmptySetError(
+                    f"{self.label}: {method} diverged on batch row {i} (gap {g:.3g}, the parts stay "
+                    f"{r:.3g} apart after {it} steps): the parts appear to have no common point.")
+            msg = (f"{self.label}: {method} did not reach the accuracy {self.accuracy:g} on {len(bad)} of "
+                   f"{len(status)} points within {self.max_iterations} steps (row {i}: duality gap {g:.3g}, "
+                   f"residual {r:.3g}). Raise max_iterations or accuracy in the description, or call "
+                   f"with_backends(project=\"reference\").")
+            tol = self.accuracy * float(sc[i])
+            if loose_of(parts) and r <= 1e3 * self.accuracy * max(1.0, self.scale()) and abs(g) <= 0.5 * (1e3 * tol) ** 2:
+                warnings.warn(msg, AccuracyWarning, stacklevel=4)
+            else:
+                raise SolveError(msg, status="not_converged")
+        bstat = [f"{method}: {s}, duality gap {g:.3g}, residual {r:.3g}"
+                 for s, g, r in zip(status, info["gap"], info["residual"])]
+        return X, {"status": list(status), "iterations": list(info["iterations"]), "backend_status": bstat}
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class CutIntersection(Intersection):
+    """A base set with its own projection cut by a few linear constraints (dual method)."""
+
+    base: int = 0
+    cut_matrix: np.ndarray = None
+    cut_rhs: np.ndarray = None
+    n_eq: int = 0
+
+    @kernel("project")
+    def project(self, Y, parts):
+        """Dual over the few cut multipliers (L-BFGS-B + Newton), one base projection per step, O(steps * base cost)."""
+        base = parts[self.base]
+
+        def proj(Z):
+            return base._run("project", Z)[0]
+
+        sc = self._row_scale(Y)
+        X, info = project_with_cuts(proj, Y, self.cut_matrix, self.cut_rhs, self.n_eq, sc,
+                                    accuracy=self.accuracy, max_iterations=self.max_iterations,
+                                    feasibility_scale=max(1.0, self.scale()))
+        return self._accept(X, info, parts, "cut dual", sc)
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class SplitIntersection(Intersection):
+    """General parts: Dykstra's method on the parts' own projections."""
+
+    @kernel("project")
+    def project(self, Y, parts):
+        """Dykstra's alternating projections, stopped on the duality gap and residual, O(sweeps * sum of part costs)."""
+        projs = [(lambda Z, p=p: p._run("project", Z)[0]) for p in parts]
+        sc = self._row_scale(Y)
+        X, info = dykstra(projs, Y, sc, accuracy=self.accuracy,
+                          max_iterations=self.max_iterations, feasibility_scale=max(1.0, self.scale()))
+        return self._accept(X, info, parts, "Dykstra", sc)
+
+
+def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None):
+    """Choose the intersection node for ``parts`` (see the module docstring) and check emptiness."""
+    parts = tuple(parts)
+    forms = [p.linear_form() for p in parts]
+    kw = dict(parts=parts, accuracy=accuracy, max_iterations=max_iterations, name=name)
+    lp_forms = [lp_form(p) for p in parts]
+    if all(f is not None for f in lp_forms):
+        merged = merge_forms(lp_forms)
+        _check_feasible(merged, parts)
+    cuts = [cut_rows(f) if f is not None and f.n_aux == 0 else None for f in forms]
+    others = [i for i, c in enumerate(cuts) if c is None]
+    native = [i for i, p in enumerate(parts) if "project" in p.kernels]
+    base = None
+    if len(parts) > 1:
+        if len(others) == 1:
+            base = others[0]
+        elif not others and native:
+            # every part is a few linear rows: the part with the most rows and its own projection is the base
+            base = max(native, key=lambda i: cuts[i][0].shape[0])
+    if base is not None:
+        rest = [cuts[i] for i in range(len(parts)) if i != base]
+        n_rows = sum(c[0].shape[0] for c in rest)
+        if 0 < n_rows <= CUT_LIMIT and (base in native or any(f is None for f in forms)):
+            A = np.vstack([c[0] for c in rest])
+            rhs = np.concatenate([c[1] for c in rest])
+            eq = np.concatenate([np.arange(c[0].shape[0]) < c[2] for c in rest])
+            order = np.concatenate([np.flatnonzero(eq), np.flatnonzero(~eq)])
+            return CutIntersection(base=base, cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()), **kw)
+    if all(f is not None and f.n_aux == 0 for f in forms):
+        return Intersection(**kw)
+    return SplitIntersection(**kw)
+
+
+def _check_feasible(form, parts):
+    """LP feasibility of the merged form (HiGHS); raises EmptySetError when no point exists."""
+    if form.n > FEASIBILITY_CHECK_LIMIT:
+        return
+    lo_x, hi_x = form.lo[:form.n_x], form.hi[:form.n_x]
+    bad = np.flatnonzero(lo_x > hi_x)
+    if bad.size:
+        i = int(bad[0])
+        raise EmptySetError(f"the parts have no common point: coordinate {i} must be at least {lo_x[i]:g} "
+                            f"and at most {hi_x[i]:g}")
+    from scipy.optimize import linprog
+    res = linprog(np.zeros(form.n), A_ub=form.A_ub if form.A_ub.shape[0] else None,
+                  b_ub=form.b_ub if form.A_ub.shape[0] else None,
+                  A_eq=form.A_eq if form.A_eq.shape[0] else None,
+                  b_eq=form.b_eq if form.A_eq.shape[0] else None,
+                  bounds=np.column_stack([form.lo, form.hi]), method="highs")
+    if res.status == 2:
+        labels = ", ".join(p.label for p in parts)
+        raise EmptySetError(f"the parts ({labels}) have no common point: the merged linear constraints are "
+                            f"infeasible (HiGHS: {res.message})")

@@ -1,0 +1,253 @@
+"""The distance penalty G·dist(x, K) and its smoothings.
+
+Definitions (exact; d(x) = dist(x, K), p(x) = project(x)):
+
+* ``smoothing=None``: P(x) = G·d(x); the gradient returned is
+  G·(x - p(x))/d(x) outside K and 0 inside (a subgradient; on the boundary 0 is one).
+* ``smoothing="moreau"``: P(x) = G·h(d(x)) with h(t) = t²/(2δ) for t <= δ and
+  t - δ/2 beyond (the Moreau envelope of G·d, i.e. G times the Huber function of
+  the distance); grad P(x) = G·(x - p(x))/max(d(x), δ): one projection per point,
+  exact, Lipschitz with constant G/δ.
+* ``smoothing="ball"``: P(x) = E_u[G·d(x + δu)], u uniform in the unit ball of
+  R^dim. Estimated from seeded samples u_1..u_n drawn in antithetic pairs
+  (u, -u). Value estimator: the sample mean of G·d(x + δu_j). Gradient
+  estimator: the sample mean of G·(y_j - p(y_j))/d(y_j) at y_j = x + δu_j (the
+  gradient of G·d averaged over the ball; unbiased because d is Lipschitz and
+  differentiable almost everywhere). Standard errors are computed over the
+  n/2 pair means. By convexity each pair mean is at least G·d(x), so the
+  estimate never falls below the unsmoothed penalty.
+
+Every variant is G-Lipschitz, so if a loss f is G-Lipschitz, f + P is
+2G-Lipschitz, and with the unsmoothed penalty a minimizer of f + P over the
+whole space can be taken inside K.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from .errors import InputError
+
+SMOOTHINGS = (None, "moreau", "ball")
+
+
+@dataclass(frozen=True)
+class PenaltyEstimate:
+    """A penalty value or gradient with its standard error.
+
+    ``estimate`` has the batch shape (values) or the input shape (gradients);
+    ``std_error`` the same shape (zeros for the exact variants); ``samples`` the
+    number of ball points per input point (0 when exact); ``estimator`` says how.
+    """
+
+    estimate: Any
+    std_error: Any
+    samples: int
+    estimator: str
+
+
+class DistancePenalty:
+    """P(x) = G·dist(x, K), optionally smoothed; batched ``value`` and ``grad``.
+
+    Build it with ``K.penalty(G, smoothing=None | "moreau" | "ball", width=delta)``.
+    Ball smoothing options: ``samples`` (even, default 64), ``rng`` (Generator or
+    int seed, default 0) and ``resample`` (False: the same seeded ball points are
+    used on every call, so ``value`` is a deterministic function of x - common
+    random numbers; True: fresh points each call).
+
+    >>> import setkit
+    >>> K = setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1})
+    >>> float(K.penalty(3.0).value([2.0, 0.5]))
+    3.0
+    >>> K.penalty(3.0, "moreau", width=2.0).grad([2.0, 0.5]).tolist()
+    [1.5, 0.0]
+    """
+
+    def __init__(self, K, G, smoothing=None, width=None, *, samples: int = 64, rng=None,
+                 resample: bool = False):
+        label = K.node.label
+        if smoothing not in SMOOTHINGS:
+            raise InputError(f"penalty on {label}: smoothing must be None, 'moreau' or 'ball'; got {smoothing!r}.")
+        try:
+            G = float(G)
+        except (TypeError, ValueError):
+            raise InputError(f"penalty on {label}: G must be a number >= 0; got {G!r}.") from None
+        if not math.isfinite(G) or G < 0:
+            raise InputError(f"penalty on {label}: G must be a finite number >= 0; got {G}.")
+        if smoothing is None:
+            if width is not None:
+                raise InputError(f"penalty on {label}: width is only used with smoothing 'moreau' or 'ball'; "
+                                 f"got width={width} with smoothing=None.")
+        else:
+            try:
+                width = float(width)
+            except (TypeError, ValueError):
+                raise InputError(f"penalty on {label}: smoothing {smoothing!r} needs width = delta > 0; "
+                                 f"got {width!r}.") from None
+            if not (math.isfinite(width) and width > 0):
+                raise InputError(f"penalty on {label}: width must be a finite number > 0; got {width}.")
+        self.K = K
+        self.G = G
+        self.smoothing = smoothing
+        self.width = width
+        self.resample = bool(resample)
+        self._U = None
+        if smoothing == "ball":
+            from .measures import as_generator
+            if isinstance(samples, bool) or not isinstance(samples, (int, np.integer)) or samples < 2 or samples % 2:
+                raise InputError(f"penalty on {label}: samples must be an even int >= 2 (antithetic pairs); "
+                                 f"got {samples!r}.")
+            self.samples = int(samples)
+            self._rng = as_generator(rng, 0)
+            self._U = self._draw()
+        else:
+            self.samples = 0
+
+    def __repr__(self):
+        sm = "" if self.smoothing is None else f", smoothing={self.smoothing!r}, width={self.width}"
+        return f"<DistancePenalty G={self.G} on {self.K.node.label}{sm}>"
+
+    @property
+    def lipschitz(self) -> float:
+        """A Lipschitz constant of P (G for every variant)."""
+        return self.G
+
+    # -- sampling --------------------------------------------------------------------------------
+    def _draw(self):
+        d, h = self.K.dim, self.samples // 2
+        Z = self._rng.standard_normal((h, d))
+        Z /= np.linalg.norm(Z, axis=1, keepdims=True)
+        R = self._rng.random(h) ** (1.0 / d)
+        U = Z * R[:, None]
+        return np.concatenate([U, -U])          # rows j and j + h are an antithetic pair
+
+    def _ball_points(self):
+        return self._draw() if self.resample else self._U
+
+    # -- core ------------------------------------------------------------------------------------
+    def _dist_proj(self, X):
+        P, _ = self.K._run("project", X)
+        R = X - P
+        d = np.linalg.norm(R, axis=1)
+        tol = 1e-12 * np.maximum(1.0, np.abs(X).max(axis=1))
+        return d, R, tol
+
+    def _compute(self, X, want_grad):
+        G, delta = self.G, self.width
+        b, dim = X.shape
+        if self.smoothing is None:
+            d, R, tol = self._dist_proj(X)
+            v = G * d
+            g = np.where((d > tol)[:, None], G * R / np.where(d > tol, d, 1.0)[:, None], 0.0) if want_grad else None
+            return v, np.zeros(b), g, (np.zeros((b, dim)) if want_grad else None)
+        if self.smoothing == "moreau":
+            d, R, _ = self._dist_proj(X)
+            v = G * np.where(d <= delta, d * d / (2 * delta), d - delta / 2)
+            g = G * R / np.maximum(d, delta)[:, None] if want_grad else None
+            return v, np.zeros(b), g, (np.zeros((b, dim)) if want_grad else None)
+        U = self._ball_points()
+        n = U.shape[0]
+        h = n // 2
+        Y = (X[:, None, :] + delta * U[None, :, :]).reshape(b * n, dim)
+        d, R, tol = self._dist_proj(Y)
+        vals = (G * d).reshape(b, n)
+        pv = 0.5 * (vals[:, :h] + vals[:, h:])          # antithetic pair means
+        v = pv.mean(axis=1)
+        v_se = pv.std(axis=1, ddof=1) / math.sqrt(h) if h > 1 else np.full(b, np.nan)
+        if not want_grad:
+            return v, v_se, None, None
+        g_all = np.where((d > tol)[:, None], G * R / np.where(d > tol, d, 1.0)[:, None], 0.0).reshape(b, n, dim)
+        pg = 0.5 * (g_all[:, :h] + g_all[:, h:])
+        g = pg.mean(axis=1)
+        g_se = pg.std(axis=1, ddof=1) / math.sqrt(h) if h > 1 else np.full((b, dim), np.nan)
+        return v, v_se, g, g_se
+
+    def _estimator(self, what):
+        if self.smoothing is None:
+            return "exact: G*d(x)" if what == "value" else "exact: G*(x - proj(x))/d(x), 0 inside the set"
+        if self.smoothing == "moreau":
+            return ("exact: G*h(d(x)), h(t) = t^2/(2 delta) if t <= delta else t - delta/2" if what == "value"
+                    else "exact: G*(x - proj(x))/max(d(x), delta)")
+        base = f"{self.samples} ball points in antithetic pairs, standard error over pair means"
+        return ("mean of G*d(x + delta*u)" if what == "value"
+                else "mean of G*(y - proj(y))/d(y) at y = x + delta*u") + "; " + base
+
+    # -- public ----------------------------------------------------------------------------------
+    def value(self, x, details: bool = False):
+        """P(x) for one point (a float) or a batch (an array of the batch shape)."""
+        X, lead = self.K._batch(x, "x", "penalty.value")
+        v, se, _, _ = self._compute(X, False)
+        out = self.K._out_values(v, lead)
+        if not details:
+            return out
+        return PenaltyEstimate(out, self.K._out_values(se, lead), self.samples, self._estimator("value"))
+
+    __call__ = value
+
+    def grad(self, x, details: bool = False):
+        """grad P(x) (a subgradient for smoothing=None), of the same shape as x."""
+        X, lead = self.K._batch(x, "x", "penalty.grad")
+        _, _, g, gse = self._compute(X, True)
+        out = self.K._out_points(g, lead)
+        if not details:
+            return out
+        return PenaltyEstimate(out, self.K._out_points(gse, lead), self.samples, self._estimator("grad"))
+
+    def value_and_grad(self, x):
+        """(P(x), grad P(x)) from one set of projections (and, for the ball, the same samples)."""
+        X, lead = self.K._batch(x, "x", "penalty.value_and_grad")
+        v, _, g, _ = self._compute(X, True)
+        return self.K._out_values(v, lead), self.K._out_points(g, lead)
+
+    def extend(self, f, grad_f=None, *, batched: bool = False) -> "ExtendedLoss":
+        """The loss f + P on the whole space, with value and gradient.
+
+        ``f(x)`` returns a float and ``grad_f(x)`` an array of K.shape for one point
+        of K.shape; with ``batched=True`` both take a batch (..., *K.shape) instead.
+        """
+        if not callable(f) or (grad_f is not None and not callable(grad_f)):
+            raise InputError("penalty.extend: f and grad_f must be callables (grad_f may be None if only "
+                             "values are needed).")
+        return ExtendedLoss(f, grad_f, self, batched)
+
+
+class ExtendedLoss:
+    """x -> f(x) + P(x) with its gradient grad f(x) + grad P(x); batched like the penalty."""
+
+    def __init__(self, f, grad_f, penalty: DistancePenalty, batched: bool):
+        self.f, self.grad_f, self.penalty, self.batched = f, grad_f, penalty, batched
+
+    def _apply(self, fn, x, kind):
+        K = self.penalty.K
+        X, lead = K._batch(x, "x", f"extended loss {kind}")
+        if self.batched:
+            out = np.asarray(fn(K._out_points(X, lead)), dtype=float)
+            return out.reshape(lead + (() if kind == "value" else K.shape))
+        rows = [np.asarray(fn(r.reshape(K.shape)), dtype=float) for r in X]
+        if kind == "value":
+            return K._out_values(np.array([float(r) for r in rows]), lead)
+        return K._out_points(np.stack([r.reshape(K.dim) for r in rows]) if rows else np.zeros((0, K.dim)), lead)
+
+    def value(self, x):
+        """f(x) + P(x)."""
+        return self._apply(self.f, x, "value") + self.penalty.value(x)
+
+    __call__ = value
+
+    def grad(self, x):
+        """grad f(x) + grad P(x)."""
+        if self.grad_f is None:
+            raise InputError("extended loss: grad needs grad_f; pass it to penalty.extend(f, grad_f).")
+        return self._apply(self.grad_f, x, "grad") + self.penalty.grad(x)
+
+    def lipschitz(self, L_f: float) -> float:
+        """A Lipschitz constant of f + P when f is L_f-Lipschitz: L_f + G."""
+        return float(L_f) + self.penalty.G
+
+
+def make_penalty(K, G, smoothing=None, width=None, **kw) -> DistancePenalty:
+    """The penalty object served by ``K.penalty(G, smoothing, width, ...)``."""
+    return DistancePenalty(K, G, smoothing, width, **kw)
