@@ -121,6 +121,22 @@ class Polyhedron(Family):
         node._check_nonempty(r)
         return node
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "polyhedron", "A": [[1, 1], [-1, 2]], "b": [1, 2], "lower": [-1, -1], "upper": [3, 3]},
+                {"kind": "polyhedron", "A": [[1, 1, 1]], "b": [2], "C": [[1, -1, 0]], "d": [0.5], "lower": 0}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random bounded polytope in 2..4 dimensions around a known interior point."""
+        n = int(rng.integers(2, 5))
+        m = int(rng.integers(n + 1, 2 * n + 2))
+        A = rng.standard_normal((m, n)).round(3)
+        x0 = rng.uniform(-0.5, 0.5, n)
+        b = (A @ x0 + rng.uniform(0.1, 1.0, m)).round(3)
+        return {"kind": "polyhedron", "A": A.tolist(), "b": b.tolist(), "lower": -2.0, "upper": 2.0}
+
     def _check_nonempty(self, r):
         """Elastic LP: minimize the total violation; a positive optimum means the set is empty."""
         from scipy.optimize import linprog

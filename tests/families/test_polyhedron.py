@@ -121,7 +121,8 @@ def test_osqp_failure_is_reported_not_returned(monkeypatch):
     import setkit.backends.osqp as osqp_backend
     monkeypatch.setitem(osqp_backend.SETTINGS, "max_iter", 1)
     monkeypatch.setitem(osqp_backend.SETTINGS, "polishing", False)
-    monkeypatch.setattr(osqp_backend, "TIGHT", dict(eps_abs=1e-12, eps_rel=1e-12, max_iter=1))
+    monkeypatch.setattr(osqp_backend, "TIGHT_MAX_ITER", 1)
+    monkeypatch.setattr(osqp_backend, "RESTART", dict(rho=0.1, max_iter=1))
     rng = np.random.default_rng(5)
     spec, _ = random_polytope(rng)
     K = setkit.compile(spec)
