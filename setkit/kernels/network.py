@@ -298,7 +298,7 @@ def _block_sweep(y, p, tail, head, lo, hi, s, indptr, adj_edge, adj_out, comp, n
 
 @njit(cache=True)
 def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
-                    tol_r, tol_gap, max_newton, warm, scale, gcomp, gcount, verbose=False):
+                    tol_r, tol_gap, max_newton, warm, scale, gcomp, gcount):
     """Batched projection; returns X, P (final potentials), Newton steps, residuals, gaps, status, CG steps.
 
     Each step: (1) primal x(p), balances r; (2) components of the free edges and one exact
@@ -523,8 +523,6 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
                         if side == -1:
                             lo_v *= 0.5
                         side = -1
-            if verbose:
-                print(it, rn, gap, ncomp, t, d0, dt)
             for v in range(nn):
                 p[v] += t * d[v]
         for e in range(m):
