@@ -241,3 +241,24 @@ def test_linear_form_is_the_incidence_system():
     f = setkit.compile(spec).node.linear_form()
     assert sp.issparse(f.A_eq) and f.n_aux == 0
     assert np.abs(f.A_eq @ x0 - f.b_eq).max() <= 1e-12
+
+
+def test_threads_get_their_own_workspaces():
+    import threading
+    rng = np.random.default_rng(11)
+    spec, x0 = random_flow(rng, n=20, m=60)
+    K = setkit.compile(spec)
+    Y = x0 + 3 * rng.standard_normal((2, 30, 60))
+    expect = [np.array([K.project(y) for y in Yk]) for Yk in Y]
+    got = [None, None]
+
+    def work(k):
+        got[k] = np.array([K.project(y) for y in Y[k]])
+
+    threads = [threading.Thread(target=work, args=(k,)) for k in range(2)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    for k in range(2):
+        np.testing.assert_allclose(got[k], expect[k], atol=1e-9)
