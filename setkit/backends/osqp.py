@@ -20,7 +20,7 @@ from ..errors import AccuracyWarning, BackendUnavailableError, SolveError
 from . import Backend, register_backend
 
 SETTINGS = dict(verbose=False, eps_abs=1e-8, eps_rel=1e-8, eps_prim_inf=1e-10, eps_dual_inf=1e-10,
-                polishing=True, polish_refine_iter=10, max_iter=4_000, warm_starting=True,
+                polishing=True, polish_refine_iter=10, max_iter=10_000, warm_starting=True,
                 adaptive_rho=True, check_termination=10)
 # when polishing does not succeed the answer is only eps-accurate: re-solve (warm) at these tolerances
 TIGHT = dict(eps_abs=1e-10, eps_rel=1e-10)
