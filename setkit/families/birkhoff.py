@@ -26,6 +26,15 @@ class Birkhoff(Transport):
         n = r.integer("n", min=1)
         return cls(rows=np.ones(n), cols=np.ones(n), name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "birkhoff", "n": 2}, {"kind": "birkhoff", "n": 4}]
+
+    @classmethod
+    def random_example(cls, rng):
+        return {"kind": "birkhoff", "n": int(rng.integers(2, 5))}
+
     @property
     def n(self) -> int:
         return int(self.rows.size)

@@ -40,6 +40,18 @@ class Hull(Family):
                 r.fail("dim", f"dim is {n} but the points have {V.shape[1]} coordinates.")
         return cls(points=np.ascontiguousarray(V, dtype=float), name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "hull", "points": [[0, 0], [2, 0], [0, 2], [1, 0.5]]},
+                {"kind": "hull", "points": [[1, 0, 0], [0, 1, 0], [0, 0, 1], [1, 1, 1], [0.5, 0.5, 0]]}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """3..10 random points in 2..5 dimensions."""
+        k, d = int(rng.integers(3, 11)), int(rng.integers(2, 6))
+        return {"kind": "hull", "points": rng.standard_normal((k, d)).round(3).tolist()}
+
     @property
     def shape(self):
         return (int(self.points.shape[1]),)
