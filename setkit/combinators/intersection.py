@@ -196,7 +196,12 @@ class Intersection(Family):
         """Every part contains the point within tol, O(sum of the parts' membership costs)."""
         ok = np.ones(X.shape[0], bool)
         for p in parts:
-            v, _ = p._run("contains", X, tol=tol)
+            r = p.routes()
+            if r["contains"].provider == "derived" and r["violation"].provider == "form":
+                # a bare linear form: its largest constraint violation, not a projection per point
+                v = p._run("violation", X)[0] <= tol
+            else:
+                v, _ = p._run("contains", X, tol=tol)
             ok &= np.asarray(v, bool)
         return ok
 

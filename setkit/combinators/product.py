@@ -60,7 +60,11 @@ class Product(Family):
     # -- structure --------------------------------------------------------------------------
     @property
     def shape(self):
-        return (sum(self.blocks[g].dim for g in self.layout),)
+        return cached(self, "shape", lambda: (int(sum(self.blocks[g].dim for g in self.layout)),))
+
+    @property
+    def dim(self):
+        return self.shape[0]
 
     def children(self):
         return tuple(self.blocks)
