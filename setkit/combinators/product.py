@@ -57,6 +57,26 @@ class Product(Family):
         copies = r.integer("copies", 1, min=1)
         return make_product(list(nodes) * copies, name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (grouped blocks, mixed blocks, nesting)."""
+        return [
+            {"kind": "product", "of": [{"kind": "simplex", "dim": 3}], "copies": 3},
+            {"kind": "product", "of": [{"kind": "simplex", "dim": 2, "total": 2.0},
+                                       {"kind": "box", "dim": 2, "lower": -1, "upper": 1},
+                                       {"kind": "simplex", "dim": 2, "total": 2.0}]},
+            {"kind": "product", "of": [{"kind": "intersection", "of": [
+                {"kind": "simplex", "dim": 3}, {"kind": "box", "dim": 3, "lower": 0, "upper": 0.5}]},
+                {"kind": "ball", "dim": 2, "radius": 2.0}]},
+        ]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A product of 2..4 random simplices."""
+        k = int(rng.integers(2, 5))
+        return {"kind": "product", "of": [{"kind": "simplex", "dim": int(rng.integers(2, 5)),
+                                           "total": float(np.round(rng.uniform(0.5, 3.0), 3))} for _ in range(k)]}
+
     # -- structure --------------------------------------------------------------------------
     @property
     def shape(self):
