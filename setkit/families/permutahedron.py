@@ -74,6 +74,15 @@ class Permutahedron(Family):
     # extended formulations (Birkhoff, O(n^2) variables; sorting networks) are not worth
     # it next to the native kernels, so generic LP/QP backends do not serve this family.
 
+    def extended_form(self):
+        """Optional hook for combinators: x = W w over doubly stochastic W (n^2 auxiliaries).
+
+        Lets an intersection with a polyhedron be one LP for its LMO; the family's own
+        routes are unchanged (see setkit.combinators.lp_form).
+        """
+        from ..combinators.extended import permutahedron_form
+        return permutahedron_form(self.weights)
+
     # -- native kernels ----------------------------------------------------------------------
     @kernel("project")
     def project(self, Y):
