@@ -17,7 +17,7 @@ from .errors import (AccuracyWarning, BackendUnavailableError, DescriptionError,
 
 __version__ = "0.1.0"
 
-__all__ = ["load", "compile", "verify", "build", "DecisionSet", "register", "kernel", "Family",
+__all__ = ["load", "compile", "verify", "build", "from_cvxpy", "DecisionSet", "register", "kernel", "Family",
            "SetkitError", "DescriptionError", "EmptySetError", "InputError", "UnboundedDirectionError",
            "BackendUnavailableError", "UnsupportedOperationError", "SolveError", "SetkitWarning",
            "AccuracyWarning"]
@@ -54,6 +54,16 @@ def build(kind: str, **params):
     from .description import Location, parse_node
     node = parse_node({"kind": kind, **params}, Location("argument", ()))
     return DecisionSet(node)
+
+
+def from_cvxpy(constraints, shape, **options):
+    """A set stated by cvxpy constraints alone: ``setkit.from_cvxpy(lambda x: [x >= 0, ...], 3)``.
+
+    Every operator is served by generic or reference backends; see
+    :func:`setkit.families.custom.from_cvxpy` for the options.
+    """
+    from .families.custom import from_cvxpy as _from_cvxpy
+    return _from_cvxpy(constraints, shape, **options)
 
 
 def __getattr__(name):

@@ -1,50 +1,684 @@
-"""The command line: ``setkit verify FILE`` (more subcommands in later issues)."""
+"""The command line.
+
+    setkit inspect FILE            the family tree, shape, dimension and operator plan
+    setkit verify FILE...          every operator against the cvxpy reference, with timings
+    setkit run OPERATOR FILE [IN]  one operator on points read from .npy, .csv or .json
+    setkit compare FILE            every backend that can serve each operator: time and agreement
+    setkit catalog [NAME]          the ready descriptions, or one of them
+
+A FILE may also be the name of a catalog entry (``setkit verify weekly-channels``).
+Exit codes: 0 ok, 1 a disagreement (or a failed solve), 2 bad input or description.
+"""
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import json
+import os
 import sys
+import threading
+import time
+from pathlib import Path
 
-from .errors import SetkitError
+import numpy as np
+
+from .errors import DescriptionError, InputError, SetkitError
+
+EXIT_OK, EXIT_DISAGREE, EXIT_BAD_INPUT = 0, 1, 2
+DESCRIPTION_SUFFIXES = (".yaml", ".yml", ".json")
+POINT_OPERATORS = ("project", "distance", "lmo", "support", "contains", "violation", "penalty")
+SET_OPERATORS = ("centroid", "sample")
+COMPARED = ("project", "distance", "lmo", "support")
 
 
-def _cmd_verify(args) -> int:
+# -- progress ------------------------------------------------------------------------------------
+class Progress:
+    """A progress line on stderr for anything that takes more than a second.
+
+    Nothing is shown for quick work; after ``after`` seconds (default 1, or the
+    environment variable SETKIT_PROGRESS_AFTER) a line with the current step and
+    the elapsed time appears and is refreshed every half second (rewritten in
+    place on a terminal, a new line at most every 2 s otherwise). Uses ``rich``
+    when it is installed and stderr is a terminal.
+    """
+
+    def __init__(self, label: str, total: int | None = None, enabled: bool = True, stream=None):
+        self.label = label
+        self.total = total
+        self.done = 0
+        self.step = ""
+        self.stream = stream if stream is not None else sys.stderr
+        self.enabled = enabled
+        self.after = float(os.environ.get("SETKIT_PROGRESS_AFTER", "1.0"))
+        self._stop = threading.Event()
+        self._thread = None
+        self._shown = False
+        self._last_line = 0.0
+        self._rich = None
+
+    def __enter__(self):
+        self.t0 = time.perf_counter()
+        if self.enabled:
+            self._thread = threading.Thread(target=self._loop, daemon=True)
+            self._thread.start()
+        return self
+
+    def advance(self, step: str = "", n: int = 1):
+        self.done += n
+        self.step = step
+
+    def set_step(self, step: str):
+        self.step = step
+
+    def _text(self):
+        el = time.perf_counter() - self.t0
+        count = f" {self.done}/{self.total}" if self.total else ""
+        step = f" ({self.step})" if self.step else ""
+        return f"setkit: {self.label}{count}{step}, {el:.1f} s"
+
+    def _loop(self):
+        tty = hasattr(self.stream, "isatty") and self.stream.isatty()
+        if self._stop.wait(self.after):
+            return
+        if tty:
+            try:
+                from rich.console import Console  # optional
+                self._rich = Console(file=self.stream).status(self._text())
+                self._rich.start()
+            except Exception:  # noqa: BLE001 - rich is optional
+                self._rich = None
+        while True:
+            self._shown = True
+            now = time.perf_counter()
+            if self._rich is not None:
+                self._rich.update(self._text())
+            elif tty:
+                self.stream.write("\r" + self._text() + " " * 8)
+                self.stream.flush()
+            elif now - self._last_line >= 2.0:
+                self.stream.write(self._text() + "\n")
+                self.stream.flush()
+                self._last_line = now
+            if self._stop.wait(0.5):
+                return
+
+    def __exit__(self, *exc):
+        self._stop.set()
+        if self._thread is not None:
+            self._thread.join()
+        if self._rich is not None:
+            self._rich.stop()
+        elif self._shown and hasattr(self.stream, "isatty") and self.stream.isatty():
+            self.stream.write("\r" + self._text() + ", done\n")
+            self.stream.flush()
+        return False
+
+
+# -- files ---------------------------------------------------------------------------------------
+def catalog_dir() -> Path:
+    """The catalog folder: $SETKIT_CATALOG, else catalog/ beside the package, else ./catalog."""
+    env = os.environ.get("SETKIT_CATALOG")
+    if env:
+        return Path(env)
+    here = Path(__file__).resolve().parent.parent / "catalog"
+    return here if here.is_dir() else Path("catalog")
+
+
+def catalog_entries(folder: Path | None = None) -> list[Path]:
+    folder = Path(folder) if folder is not None else catalog_dir()
+    if not folder.is_dir():
+        return []
+    return sorted(p for p in folder.iterdir() if p.suffix.lower() in DESCRIPTION_SUFFIXES)
+
+
+def resolve(target: str, folder: Path | None = None) -> str:
+    """A description file path, or the file of a catalog entry named ``target``."""
+    if os.path.exists(target):
+        if os.path.isdir(target):
+            raise DescriptionError(f"description ({target}): this is a folder; give a .yaml, .yml or .json file.")
+        return target
+    folder = Path(folder) if folder is not None else catalog_dir()
+    for suffix in ("",) + DESCRIPTION_SUFFIXES:
+        p = folder / (target + suffix)
+        if p.is_file():
+            return str(p)
+    names = ", ".join(p.stem for p in catalog_entries(folder)) or "(none found)"
+    raise DescriptionError(f"description ({target}): no such file, and no catalog entry of that name in "
+                           f"{folder}; the catalog entries are {names}.")
+
+
+def _about(path: str) -> str:
+    from .description import read_file
+    try:
+        data = read_file(path)
+    except SetkitError:
+        return ""
+    return str(data.get("about", "")) if isinstance(data, dict) else ""
+
+
+def _load(target, folder=None):
     from . import load
-    from .checks import verify
-    status = 0
-    reports = []
-    for path in args.files:
-        K = load(path)
-        rep = verify(K, n_points=args.points, seed=args.seed)
-        reports.append({"file": path, **rep.as_dict()})
-        print(f"{path}: {rep.text()}")
-        if not rep.ok:
-            status = 1
+    path = resolve(target, folder)
+    return path, load(path)
+
+
+def read_points(source: str, K, argname: str = "points") -> np.ndarray:
+    """Points from a .npy, .csv or .json file, '-' (JSON on stdin) or inline JSON text.
+
+    The array's trailing axes must be K.shape, or each row must hold K.dim numbers
+    (C order), which are reshaped to K.shape.
+    """
+    shape = K.shape
+    what = f"{argname} {source!r}"
+    if source == "-":
+        text, kind = sys.stdin.read(), "json"
+    elif source.lower().endswith((".npy", ".csv", ".json")):
+        if not os.path.exists(source):
+            raise InputError(f"{what}: the file does not exist.")
+        kind, text = source.lower().rsplit(".", 1)[1], None
+    elif source.lstrip()[:1] in "[{-0123456789.":
+        text, kind = source, "json"
+    else:
+        raise InputError(f"{what}: expected a .npy, .csv or .json file, '-' for JSON on standard input, or "
+                         f"inline JSON such as '[0.1, 0.2]'.")
+    try:
+        if kind == "npy":
+            arr = np.load(source, allow_pickle=False)
+        elif kind == "csv":
+            arr = np.loadtxt(source, delimiter=",", ndmin=2, comments="#")
+        else:
+            data = json.loads(text) if text is not None else json.load(open(source, encoding="utf-8"))
+            if isinstance(data, dict):
+                if "points" not in data:
+                    raise InputError(f"{what}: a JSON object must hold the points under the key 'points'; "
+                                     f"it has {', '.join(map(str, data)) or 'no keys'}.")
+                data = data["points"]
+            arr = np.asarray(data, dtype=float)
+    except InputError:
+        raise
+    except json.JSONDecodeError as exc:
+        raise InputError(f"{what}: not valid JSON at line {exc.lineno}, column {exc.colno}: {exc.msg}.") from None
+    except (ValueError, TypeError, OSError) as exc:
+        raise InputError(f"{what}: could not read numbers: {exc}.") from None
+    if arr.dtype == object or not np.issubdtype(arr.dtype, np.number):
+        raise InputError(f"{what}: expected numbers; got {arr.dtype} data.")
+    arr = np.asarray(arr, dtype=float)
+    k = len(shape)
+    if arr.ndim >= k and tuple(arr.shape[arr.ndim - k:]) == shape:
+        pass
+    elif arr.ndim in (1, 2) and arr.shape[-1] == K.dim:
+        arr = arr.reshape((-1,) + shape) if arr.ndim == 2 else arr.reshape(shape)
+    else:
+        raise InputError(f"{what}: each point must have shape {shape} ({K.dim} numbers); got an array of "
+                         f"shape {arr.shape}.")
+    if not np.all(np.isfinite(arr)):
+        bad = tuple(int(i) for i in np.argwhere(~np.isfinite(arr))[0])
+        raise InputError(f"{what}: every entry must be a finite number; got {arr[bad]} at index {bad}.")
+    return arr
+
+
+def _dumps(payload: dict) -> str:
+    """JSON with one top-level key per line and arrays kept on one line."""
+    items = [f"  {json.dumps(k)}: {json.dumps(v, default=_json_default)}" for k, v in payload.items()]
+    return "{\n" + ",\n".join(items) + "\n}"
+
+
+def write_result(out: str | None, payload: dict, array) -> None:
+    single = payload.pop("single", False)
+    if out is None:
+        print(_dumps(payload))
+        return
+    low = out.lower()
+    arr = np.asarray(array)
+    if low.endswith(".npy"):
+        np.save(out, arr)
+    elif low.endswith(".csv"):
+        a = arr.astype(float)
+        a = a.reshape(1, -1) if a.ndim <= 1 and single else a
+        np.savetxt(out, a.reshape(a.shape[0], -1) if a.ndim > 1 else a.reshape(-1, 1), delimiter=",", fmt="%.17g")
+    elif low.endswith(".json"):
+        with open(out, "w", encoding="utf-8") as fh:
+            fh.write(_dumps(payload) + "\n")
+    else:
+        raise InputError(f"--out {out!r}: the result file must end in .npy, .csv or .json.")
+    print(f"wrote {payload['operator']} of {payload['count']} point(s) to {out}", file=sys.stderr)
+
+
+def _json_default(o):
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, (np.floating, np.integer, np.bool_)):
+        return o.item()
+    if isinstance(o, (tuple, set, frozenset)):
+        return list(o)
+    return str(o)
+
+
+# -- inspect -------------------------------------------------------------------------------------
+def _parameters(node) -> dict:
+    out = {}
+    if not dataclasses.is_dataclass(node):
+        return out
+    for f in dataclasses.fields(node):
+        if f.name == "name":
+            continue
+        v = getattr(node, f.name)
+        if isinstance(v, np.ndarray):
+            out[f.name] = v.tolist() if v.size <= 6 else f"array of shape {v.shape}"
+        elif hasattr(v, "toarray"):
+            out[f.name] = f"sparse matrix of shape {v.shape}"
+        elif isinstance(v, (bool, int, float, str)) or v is None:
+            out[f.name] = v
+        elif isinstance(v, (tuple, list)) and v and all(hasattr(c, "kind") for c in v):
+            continue   # children, shown as parts
+        elif hasattr(v, "kind") and hasattr(v, "shape"):
+            continue
+        elif callable(v):
+            out[f.name] = getattr(v, "__qualname__", repr(v))
+        elif isinstance(v, (tuple, list, frozenset)) and len(v) <= 6:
+            out[f.name] = list(v)
+        else:
+            out[f.name] = type(v).__name__
+    return out
+
+
+def tree(node) -> dict:
+    return {"kind": node.kind, "name": node.name, "shape": list(node.shape), "dim": node.dim,
+            "traits": sorted(node.traits), "parameters": _parameters(node),
+            "parts": [tree(c) for c in node.children()]}
+
+
+def _tree_lines(t, depth=0):
+    name = f" '{t['name']}'" if t["name"] else ""
+    params = ", ".join(f"{k}={_short(v)}" for k, v in t["parameters"].items())
+    lines = ["  " * depth + f"- {t['kind']}{name}: shape {tuple(t['shape'])}" + (f"; {params}" if params else "")]
+    for p in t["parts"]:
+        lines.extend(_tree_lines(p, depth + 1))
+    return lines
+
+
+def _short(v):
+    s = json.dumps(v, default=_json_default) if not isinstance(v, str) else v
+    return s if len(s) <= 60 else s[:57] + "..."
+
+
+def _cmd_inspect(args) -> int:
+    path, K = _load(args.file, args.dir)
+    t = tree(K.node)
+    plan = {op: {"provider": r.provider, "reason": r.reason} for op, r in K.routes().items()}
     if args.json:
-        with open(args.json, "w", encoding="utf-8") as fh:
-            json.dump(reports, fh, indent=2, default=float)
+        print(json.dumps({"file": path, "about": _about(path), "shape": list(K.shape), "dim": K.dim,
+                          "tree": t, "plan": plan}, indent=2, default=_json_default))
+        return EXIT_OK
+    about = _about(path)
+    print(f"file:      {path}")
+    if about:
+        print(f"about:     {about}")
+    print(f"shape:     {K.shape}")
+    print(f"dimension: {K.dim}")
+    print("tree:")
+    for line in _tree_lines(t, 1):
+        print(line)
+    print("plan:")
+    for line in K.explain().splitlines():
+        print("  " + line)
+    return EXIT_OK
+
+
+# -- candidates and timing -------------------------------------------------------------------------
+def candidates(K, op: str) -> list[str]:
+    """Every provider that can serve ``op`` on K: native, derived, and each available backend."""
+    from .backends import all_backends
+    from .routing import DERIVED_RULES
+    out = []
+    if op in K.node.kernels:
+        out.append("native")
+    if op in DERIVED_RULES:
+        out.append("derived")
+    for name, cls in sorted(all_backends().items(), key=lambda kv: kv[1].priority):
+        if op in cls.operators and cls.available() and cls.accepts(K.node)[0]:
+            out.append(name)
+    return out
+
+
+def _median_time(fn, arg, repeat):
+    times, out = [], None
+    for _ in range(max(1, repeat)):
+        t0 = time.perf_counter()
+        out = fn(arg)
+        times.append(time.perf_counter() - t0)
+    return out, float(np.median(times))
+
+
+def compare_backends(K, n_points=4, seed=0, repeat=3, rtol=2e-5, progress=None) -> list[dict]:
+    """Time every provider of project, distance, lmo and support on the same seeded inputs and
+    measure its gap to the reference. Returns one row per (operator, provider)."""
+    from .checks import REFERENCE_ROUTES, test_points
+    from .errors import UnboundedDirectionError
+    rng = np.random.default_rng(seed)
+    Y = test_points(K, n_points, rng).reshape((-1,) + K.shape)
+    C = rng.standard_normal((3 * n_points,) + K.shape)
+    b = len(Y)
+    s = max(1.0, K.node.scale())
+    yscale = np.maximum(1.0, np.abs(Y.reshape(b, -1)).max(axis=1)) * s
+    cscale = np.linalg.norm(C.reshape(len(C), -1), axis=1) * s
+    ref = K.with_backends(**REFERENCE_ROUTES)
+    rows = []
+    baseline = {}
+    try:
+        baseline["project"] = ref.project(Y).reshape(b, -1)
+        baseline["distance"] = np.linalg.norm(Y.reshape(b, -1) - baseline["project"], axis=1)
+    except SetkitError as exc:
+        baseline["project"] = exc
+    try:
+        L = ref.lmo(C).reshape(len(C), -1)
+        baseline["lmo"] = np.einsum("ij,ij->i", C.reshape(len(C), -1), L)
+        baseline["support"] = ref.support(C)
+    except UnboundedDirectionError as exc:
+        baseline["lmo"] = baseline["support"] = exc
+    for op in COMPARED:
+        inp = Y if op in ("project", "distance") else C
+        for prov in candidates(K, op):
+            if progress is not None:
+                progress.set_step(f"{op} by {prov}")
+            row = {"operator": op, "provider": prov, "cases": len(inp), "ms_per_call": None,
+                   "max_gap": None, "allowed": rtol, "agrees": None, "note": ""}
+            base = baseline.get("project" if op == "distance" else op)
+            try:
+                Kp = K.with_backends(**{op: prov})
+                out, t = _median_time(getattr(Kp, op), inp, repeat)
+                row["ms_per_call"] = 1e3 * t / len(inp)
+                if isinstance(baseline.get(op), Exception):
+                    row["note"] = f"no reference answer: {baseline[op]}"[:100]
+                elif op == "project":
+                    gap = np.linalg.norm(out.reshape(b, -1) - baseline["project"], axis=1) / yscale
+                    row["max_gap"] = float(gap.max())
+                elif op == "distance":
+                    row["max_gap"] = float((np.abs(out - baseline["distance"]) / yscale).max())
+                elif op == "lmo":
+                    v = np.einsum("ij,ij->i", C.reshape(len(C), -1), out.reshape(len(C), -1))
+                    row["max_gap"] = float((np.abs(v - baseline["lmo"]) / cscale).max())
+                else:
+                    row["max_gap"] = float((np.abs(out - baseline["support"]) / cscale).max())
+                if row["max_gap"] is not None:
+                    row["agrees"] = bool(row["max_gap"] <= rtol)
+            except SetkitError as exc:
+                row["note"] = f"{type(exc).__name__}: {exc}"[:160]
+                row["agrees"] = False if not isinstance(exc, UnboundedDirectionError) else None
+            if base is None:
+                pass
+            rows.append(row)
+            if progress is not None:
+                progress.advance(f"{op} by {prov}")
+    return rows
+
+
+def _compare_table(rows) -> str:
+    lines = [f"  {'operator':<10} {'provider':<10} {'cases':>5} {'ms/call':>10} {'max gap':>10} {'allowed':>8}  verdict"]
+    for r in rows:
+        ms = "-" if r["ms_per_call"] is None else f"{r['ms_per_call']:.4f}"
+        gap = "-" if r["max_gap"] is None else f"{r['max_gap']:.2e}"
+        verdict = {True: "agrees", False: "DISAGREES", None: "-"}[r["agrees"]]
+        lines.append(f"  {r['operator']:<10} {r['provider']:<10} {r['cases']:>5} {ms:>10} {gap:>10} "
+                     f"{r['allowed']:>8.0e}  {verdict}" + (f"  {r['note']}" if r["note"] else ""))
+    return "\n".join(lines)
+
+
+# -- verify ----------------------------------------------------------------------------------------
+def _cmd_verify(args) -> int:
+    from .checks import verify
+    status = EXIT_OK
+    reports = []
+    with Progress("verify", total=len(args.files), enabled=not args.quiet) as prog:
+        for target in args.files:
+            prog.set_step(target)
+            path, K = _load(target, args.dir)   # description errors -> exit 2
+            t0 = time.perf_counter()
+            try:
+                rep = verify(K, n_points=args.points, seed=args.seed)
+            except (DescriptionError, InputError):
+                raise
+            except SetkitError as exc:
+                print(f"{path}: FAILED: {type(exc).__name__}: {exc}")
+                reports.append({"file": path, "set": K.node.label, "ok": False,
+                                "error": f"{type(exc).__name__}: {exc}"})
+                status = EXIT_DISAGREE
+                prog.advance(target)
+                continue
+            entry = {"file": path, **rep.as_dict(), "seconds": time.perf_counter() - t0}
+            print(f"{path}: {rep.text()}")
+            if not args.no_timings:
+                timing = compare_backends(K, n_points=max(1, args.points // 2), seed=args.seed, repeat=1,
+                                          progress=prog)
+                entry["backends"] = timing
+                print("  timings and agreement of every backend that can serve each operator:")
+                print("\n".join("  " + line for line in _compare_table(timing).splitlines()))
+                if any(r["agrees"] is False for r in timing):
+                    status = EXIT_DISAGREE
+            reports.append(entry)
+            if not rep.ok:
+                status = EXIT_DISAGREE
+            prog.advance(target)
+    if args.json:
+        _write_json(args.json, reports)
     return status
 
 
+def _write_json(path, data):
+    if path == "-":
+        print(json.dumps(data, indent=2, default=_json_default))
+        return
+    try:
+        with open(path, "w", encoding="utf-8") as fh:
+            json.dump(data, fh, indent=2, default=_json_default)
+    except OSError as exc:
+        raise InputError(f"--json {path!r}: cannot write the report: {exc.strerror}.") from None
+
+
+# -- compare ---------------------------------------------------------------------------------------
+def _cmd_compare(args) -> int:
+    path, K = _load(args.file, args.dir)
+    with Progress(f"compare {path}", enabled=not args.quiet) as prog:
+        rows = compare_backends(K, n_points=args.points, seed=args.seed, repeat=args.repeat, progress=prog)
+    print(f"{path}: {K.node.label}, shape {K.shape}; median of {args.repeat} run(s), gaps relative to the "
+          f"cvxpy reference")
+    print(_compare_table(rows))
+    fastest = {}
+    for r in rows:
+        if r["agrees"] and r["ms_per_call"] is not None:
+            cur = fastest.get(r["operator"])
+            if cur is None or r["ms_per_call"] < cur["ms_per_call"]:
+                fastest[r["operator"]] = r
+    if fastest:
+        print("fastest agreeing: " + ", ".join(f"{op} {r['provider']}" for op, r in fastest.items()))
+    if args.json:
+        _write_json(args.json, {"file": path, "set": K.node.label, "shape": list(K.shape), "rows": rows})
+    return EXIT_DISAGREE if any(r["agrees"] is False for r in rows) else EXIT_OK
+
+
+# -- run -------------------------------------------------------------------------------------------
+def _cmd_run(args) -> int:
+    path, K = _load(args.file, args.dir)
+    if args.backend:
+        op = "project" if args.operator == "penalty" else args.operator
+        if op in SET_OPERATORS:
+            raise InputError(f"--backend does not apply to {args.operator}.")
+        K = K.with_backends(**{op: args.backend})
+    op = args.operator
+    payload = {"operator": op, "set": K.node.label, "file": path, "shape": list(K.shape)}
+    with Progress(f"run {op}", enabled=not args.quiet):
+        if op in SET_OPERATORS:
+            if args.points is not None or args.at is not None:
+                raise InputError(f"{op} takes no points; drop the points argument.")
+            rng = np.random.default_rng(args.seed)
+            if op == "centroid":
+                res = K.centroid(measure=args.measure)
+                point = getattr(res, "point", res)
+                payload.update(count=1, single=True, measure=args.measure, result=np.asarray(point))
+                for key in ("standard_error", "exact", "method", "effective_samples"):
+                    if hasattr(res, key):
+                        payload[key] = getattr(res, key)
+                arr = np.asarray(point)
+            else:
+                if args.count < 1:
+                    raise InputError(f"--count must be at least 1; got {args.count}.")
+                arr = np.asarray(K.sample(args.count, measure=args.measure, rng=rng))
+                payload.update(count=args.count, measure=args.measure, seed=args.seed, result=arr)
+            write_result(args.out, payload, arr)
+            return EXIT_OK
+        source = args.at if args.at is not None else args.points
+        if source is None:
+            raise InputError(f"{op} needs points: give a .npy, .csv or .json file, '-' for standard input, "
+                             f"or --at '[...]'.")
+        X = read_points(source, K, "--at" if args.at is not None else "points")
+        single = X.shape == K.shape
+        payload.update(count=1 if single else int(np.prod(X.shape[: X.ndim - len(K.shape)])), single=single)
+        if op == "penalty":
+            if args.weight is None:
+                raise InputError("penalty needs --weight G (the factor of the distance).")
+            pen = K.penalty(args.weight, smoothing=args.smoothing, width=args.width)
+            Xb = X.reshape((-1,) + K.shape)
+            vals = np.array([float(np.asarray(pen.value(x))) for x in Xb])
+            grads = np.stack([np.asarray(pen.grad(x), float) for x in Xb])
+            payload.update(weight=args.weight, smoothing=args.smoothing, width=args.width,
+                           result=vals[0] if single else vals, gradient=grads[0] if single else grads)
+            write_result(args.out, payload, vals)
+            return EXIT_OK
+        if op == "contains":
+            res = K.contains(X, tol=args.tol)
+        elif op in ("project", "lmo") and args.details:
+            d = K.project(X, details=True) if op == "project" else K.lmo(X, details=True)
+            res = d.point
+            payload.update(status=d.status, route=d.route, residual=d.residual, certificate=d.certificate,
+                           seconds=d.seconds)
+        else:
+            res = getattr(K, op)(X)
+        payload["result"] = np.asarray(res)
+        write_result(args.out, payload, res)
+    return EXIT_OK
+
+
+# -- catalog ---------------------------------------------------------------------------------------
+def _cmd_catalog(args) -> int:
+    folder = Path(args.dir) if args.dir else catalog_dir()
+    if args.name:
+        path = resolve(args.name, folder)
+        print(f"# {path}")
+        print(Path(path).read_text(encoding="utf-8").rstrip())
+        print()
+        try:
+            from . import load
+            K = load(path)
+            print(f"# compiles to {K.node.label}, shape {K.shape}, dimension {K.dim}")
+        except SetkitError as exc:
+            print(f"# does not compile here: {exc}")
+            return EXIT_BAD_INPUT
+        return EXIT_OK
+    entries = catalog_entries(folder)
+    if not entries:
+        raise DescriptionError(f"catalog ({folder}): no .yaml, .yml or .json descriptions found; set "
+                               f"SETKIT_CATALOG or --dir to the catalog folder.")
+    from . import load
+    rows = []
+    for p in entries:
+        try:
+            K = load(p)
+            kind, shape = K.node.label, str(K.shape)
+        except SetkitError as exc:
+            msg = str(exc)
+            why = msg[msg.index("unknown kind"):].split(";")[0] if "unknown kind" in msg else "see: setkit inspect"
+            kind, shape = "(does not compile here)", f"- ({why})"
+        rows.append((p.stem, kind, shape, _about(str(p))))
+    if args.json:
+        print(json.dumps([dict(name=a, set=b, shape=c, about=d) for a, b, c, d in rows], indent=2))
+        return EXIT_OK
+    w1 = max(len(r[0]) for r in rows)
+    w2 = max(len(r[1]) for r in rows)
+    w3 = max(len(r[2]) for r in rows)
+    print(f"catalog: {folder} ({len(rows)} entries; show one with: setkit catalog NAME)")
+    for a, b, c, d in rows:
+        print(f"  {a:<{w1}}  {b:<{w2}}  {c:<{w3}}  {d}")
+    return EXIT_OK
+
+
+# -- parser ----------------------------------------------------------------------------------------
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="setkit", description="Compile convex decision sets into verified operators.")
-    sub = p.add_subparsers(dest="command", required=True)
+    p = argparse.ArgumentParser(
+        prog="setkit", description="Compile convex decision sets into verified operators.",
+        epilog="A FILE may be a description file or the name of a catalog entry. Exit codes: 0 ok, "
+               "1 disagreement or failed solve, 2 bad input or description.")
+    p.add_argument("--dir", metavar="FOLDER", help="the catalog folder (default: $SETKIT_CATALOG or ./catalog)")
+    p.add_argument("--quiet", action="store_true", help="no progress line on stderr")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    i = sub.add_parser("inspect", help="family tree, shape, dimension and operator plan of a description")
+    i.add_argument("file", help="description file or catalog name")
+    i.add_argument("--json", action="store_true", help="print the same as JSON")
+    i.set_defaults(run=_cmd_inspect)
+
     v = sub.add_parser("verify", help="compare every operator of a description with the cvxpy reference")
-    v.add_argument("files", nargs="+", help="description files (.yaml, .yml or .json)")
+    v.add_argument("files", nargs="+", help="description files (.yaml, .yml or .json) or catalog names")
     v.add_argument("--points", type=int, default=4, help="random points per category (inside, near, far)")
     v.add_argument("--seed", type=int, default=0, help="seed of the random points and directions")
-    v.add_argument("--json", metavar="OUT", help="also write the report as JSON to OUT")
+    v.add_argument("--json", metavar="OUT", help="also write the report as JSON to OUT ('-' for stdout)")
+    v.add_argument("--no-timings", action="store_true", help="skip the per-backend timing table")
     v.set_defaults(run=_cmd_verify)
+
+    r = sub.add_parser("run", help="run one operator on points read from .npy, .csv or .json")
+    r.add_argument("operator", choices=POINT_OPERATORS + SET_OPERATORS)
+    r.add_argument("file", help="description file or catalog name")
+    r.add_argument("points", nargs="?", help="points: .npy, .csv or .json file, or '-' for JSON on stdin")
+    r.add_argument("--at", metavar="JSON", help="the points as inline JSON, e.g. '[0.2, 0.9, 0.1]'")
+    r.add_argument("--out", metavar="FILE", help="write the result to a .npy, .csv or .json file")
+    r.add_argument("--backend", help="serve the operator by this provider (native, derived or a backend name)")
+    r.add_argument("--details", action="store_true", help="project/lmo: also status, residual, certificate")
+    r.add_argument("--tol", type=float, help="contains: absolute tolerance")
+    r.add_argument("--measure", default="volume", help="centroid/sample: volume, vertices or directions")
+    r.add_argument("--count", type=int, default=10, help="sample: how many points")
+    r.add_argument("--seed", type=int, default=0, help="sample: seed")
+    r.add_argument("--weight", type=float, help="penalty: the factor G of G * dist(x, K)")
+    r.add_argument("--smoothing", choices=("moreau", "ball"), help="penalty: smoothing")
+    r.add_argument("--width", type=float, help="penalty: smoothing width")
+    r.set_defaults(run=_cmd_run)
+
+    c = sub.add_parser("compare", help="time every backend on a description and check their agreement")
+    c.add_argument("file", help="description file or catalog name")
+    c.add_argument("--points", type=int, default=4, help="random points per category")
+    c.add_argument("--repeat", type=int, default=3, help="runs per provider; the median is shown")
+    c.add_argument("--seed", type=int, default=0)
+    c.add_argument("--json", metavar="OUT", help="also write the table as JSON to OUT ('-' for stdout)")
+    c.set_defaults(run=_cmd_compare)
+
+    g = sub.add_parser("catalog", help="list the catalog, or show one entry")
+    g.add_argument("name", nargs="?", help="an entry to show")
+    g.add_argument("--json", action="store_true", help="list as JSON")
+    g.set_defaults(run=_cmd_catalog)
     return p
 
 
 def main(argv=None) -> int:
-    args = build_parser().parse_args(argv)
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:   # argparse: usage errors exit 2, --help exits 0
+        return int(exc.code or 0)
+    for key in ("dir", "quiet"):
+        if not hasattr(args, key):
+            setattr(args, key, None)
     try:
         return args.run(args)
-    except SetkitError as exc:
+    except (DescriptionError, InputError) as exc:
         print(f"setkit: {exc}", file=sys.stderr)
-        return 2
+        return EXIT_BAD_INPUT
+    except SetkitError as exc:
+        print(f"setkit: {type(exc).__name__}: {exc}", file=sys.stderr)
+        return EXIT_DISAGREE if not isinstance(exc, (ImportError, NotImplementedError)) else EXIT_BAD_INPUT
+    except (ImportError, ModuleNotFoundError) as exc:
+        print(f"setkit: this operator is not available in this installation: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("setkit: interrupted", file=sys.stderr)
+        return 130
 
 
 if __name__ == "__main__":  # pragma: no cover

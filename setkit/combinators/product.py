@@ -25,7 +25,7 @@ import numpy as np
 
 from ..families import Family, kernel, register
 from ..forms import stack_blocks
-from . import cached, node_key, part_violation
+from . import cached, lp_form, node_key, part_violation
 
 
 @register("product")
@@ -38,6 +38,13 @@ class Product(Family):
     >>> K.project([1.0, 0.0, 3.0, 1.0]).tolist()
     [1.0, 0.0, 1.0, 0.0]
     """
+
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "product", "of": [{"kind": "simplex", "dim": 3},
+                                            {"kind": "box", "dim": 2, "lower": -1, "upper": 1}]},
+                {"kind": "product", "of": [{"kind": "simplex", "dim": 2, "total": 3.0}], "copies": 3}]
 
     blocks: tuple          # the distinct block nodes
     layout: tuple          # for each position, the index of its block in ``blocks``
@@ -92,7 +99,7 @@ class Product(Family):
 
     def linear_form(self):
         def build():
-            forms = [b.linear_form() for b in self.blocks]
+            forms = [lp_form(b) for b in self.blocks]
             if any(f is None for f in forms):
                 return None
             return stack_blocks([forms[g] for g in self.layout])

@@ -51,6 +51,20 @@ class Box(Family):
             r.fail("lower", "lower cannot be +inf and upper cannot be -inf.")
         return cls(lower=lo, upper=hi, name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "box", "dim": 3, "lower": 0, "upper": 1},
+                {"kind": "box", "lower": [-2.0, 0.0, 1.0, -0.5], "upper": [1.0, 0.0, 3.0, 250.0]},
+                {"kind": "box", "lower": [0.0, "-inf"], "upper": ["inf", 2.0]}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random bounded box of dimension 2..6."""
+        n = int(rng.integers(2, 7))
+        lo = np.round(rng.normal(size=n), 3)
+        return {"kind": "box", "lower": lo.tolist(), "upper": (lo + rng.uniform(0, 3, n).round(3)).tolist()}
+
     @property
     def shape(self):
         return (self.lower.size,)

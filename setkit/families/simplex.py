@@ -32,6 +32,19 @@ class Simplex(Family):
         mode = r.choice("mode", ("equal", "at_most"), "equal")
         return cls(n=n, total=total, mode=mode, name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "simplex", "dim": 4},
+                {"kind": "simplex", "dim": 5, "total": 3.5, "mode": "at_most"},
+                {"kind": "simplex", "dim": 1, "total": 2.0}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random simplex of dimension 2..8, either mode."""
+        return {"kind": "simplex", "dim": int(rng.integers(2, 9)), "total": float(np.round(rng.uniform(0.1, 5), 3)),
+                "mode": str(rng.choice(["equal", "at_most"]))}
+
     @property
     def shape(self):
         return (self.n,)

@@ -1,0 +1,765 @@
+"""Conformance checks for your own sets and families, for use in your test suite.
+
+One call proves every operator of a set against the cvxpy reference and
+against certificates that need no reference, on seeded random inputs (points
+inside, near, far, at scales 1e-3 .. 1e6, vertices; directions with ties,
+zeros and extreme scales; batches)::
+
+    import setkit, setkit.testing
+    K = setkit.compile({"kind": "simplex", "dim": 4})
+    setkit.testing.check_set(K, seed=0)          # raises AssertionError on any failure
+
+A failure shows the check, the input, setkit's answer, the reference answer
+and the gap against the allowed tolerance. To get one pytest case per check::
+
+    @setkit.testing.parametrize(K)
+    def test_my_set(check):
+        check()
+
+Families are checked over their small example instances (the optional
+classmethods ``examples()`` -> list of spec dicts and ``random_example(rng)``
+-> one spec dict) with :func:`check_family`. Hypothesis strategies for points
+and directions of a set are :func:`points` and :func:`directions`.
+
+The bar (tolerances are relative to the size of the input and of the set's
+data, ``s = max(1, K.node.scale())``):
+
+* projection within ``rtol * max(1, |y|_inf) * s`` of the reference, in the set,
+  a fixed point on points of the set, and a Frank-Wolfe certificate (computed
+  with the reference support function) below the same bound;
+* distance within the same bound of ``||y - reference projection||``;
+* LMO objective within ``rtol * |c| * s`` of the reference minimum, answer in the set;
+  unbounded directions raise :class:`~setkit.errors.UnboundedDirectionError`;
+* support within ``rtol * |c| * s`` of the reference, positively homogeneous, 0 at c = 0;
+* membership accepts points of the set and rejects points far from it;
+* batched calls equal one-by-one calls and have the documented shapes;
+* bad inputs (wrong shape, NaN) raise :class:`~setkit.errors.InputError`;
+* when available, the penalty equals ``G * distance`` and the centroid lies in the set.
+"""
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from .errors import InputError, SetkitError, UnboundedDirectionError, UnsupportedOperationError
+
+__all__ = ["check_set", "check_family", "checks", "family_checks", "parametrize", "points", "directions",
+           "CheckOutcome", "REFERENCE_ROUTES"]
+
+REFERENCE_ROUTES = dict(project="reference", lmo="reference", support="reference")
+DEFAULT_RTOL = 2e-5
+
+
+@dataclass(frozen=True)
+class CheckOutcome:
+    """The result of one passing check: its name, how many cases it ran, and ``worst``, the
+    largest gap divided by its allowed value (at most 1 for a pass; 0 for yes/no checks)."""
+
+    name: str
+    cases: int
+    worst: float
+    allowed: float
+    seconds: float
+    note: str = ""
+
+
+class _Skip(Exception):
+    """A check that does not apply to this set (for example no centroid module)."""
+
+
+def _fmt(v, width=6) -> str:
+    if v is None:
+        return "(none: the set is unbounded in this direction)"
+    a = np.asarray(v, dtype=float)
+    if a.ndim == 0:
+        return f"{float(a):.{width + 3}g}"
+    return np.array2string(a, precision=width, max_line_width=100, threshold=40, separator=", ")
+
+
+# -- shared inputs and reference answers -------------------------------------------------------
+class _Context:
+    """Seeded inputs and cached reference answers shared by the checks of one set."""
+
+    def __init__(self, K, seed: int, points: int, rtol: float):
+        self.K = K
+        self.seed = seed
+        self.n = max(1, int(points))
+        self.rtol = rtol
+        self.ref = K.with_backends(**REFERENCE_ROUTES)
+        self.s = max(1.0, float(K.node.scale()))
+        self._cache = {}
+
+    def _get(self, key, make):
+        if key not in self._cache:
+            self._cache[key] = make()
+        return self._cache[key]
+
+    # inputs: (flat array (b, dim), list of labels)
+    def inputs(self):
+        def make():
+            K, n, d, s = self.K, self.n, self.K.dim, self.s
+            rng = np.random.default_rng([self.seed, 1])
+            raw = rng.standard_normal((n, d)) * s
+            inside = self.ref_project_rows(raw)
+            groups = [
+                (inside, "a point of the set"),
+                (inside + 1e-3 * s * rng.standard_normal((n, d)), "near the set (noise 1e-3)"),
+                (raw, "a Gaussian point at the set's scale"),
+                (1e3 * s * rng.standard_normal((n, d)), "far from the set (scale 1e3)"),
+                (1e-3 * rng.standard_normal((1, d)), "a tiny point (scale 1e-3)"),
+                (1e6 * s * rng.standard_normal((1, d)), "a huge point (scale 1e6)"),
+            ]
+            X = np.concatenate([g for g, _ in groups])
+            labels = [lab for g, lab in groups for _ in range(len(g))]
+            return X, labels
+        return self._get("inputs", make)
+
+    def directions(self):
+        def make():
+            n, d = self.n, self.K.dim
+            rng = np.random.default_rng([self.seed, 2])
+            gauss = rng.standard_normal((n, d))
+            groups = [
+                (gauss, "a Gaussian direction"),
+                (np.round(rng.standard_normal((n, d))), "a rounded direction (ties likely)"),
+                (np.ones((1, d)), "the all-ones direction (a full tie)"),
+                (1e-3 * rng.standard_normal((1, d)), "a tiny direction (scale 1e-3)"),
+                (1e6 * rng.standard_normal((1, d)), "a huge direction (scale 1e6)"),
+            ]
+            C = np.concatenate([g for g, _ in groups])
+            zero = ~np.any(C != 0, axis=1)
+            C[zero, 0] = 1.0   # rounding may give the zero vector; c = 0 has its own check
+            labels = [lab for g, lab in groups for _ in range(len(g))]
+            return C, labels
+        return self._get("directions", make)
+
+    def shaped(self, X):
+        return X.reshape((-1,) + self.K.shape)
+
+    def flat(self, A, b):
+        return np.asarray(A, dtype=float).reshape(b, -1)
+
+    def ref_project_rows(self, X):
+        return self.flat(self.ref.project(self.shaped(X)), len(X))
+
+    def ref_projection(self):
+        X, _ = self.inputs()
+        return self._get("ref_project", lambda: self.ref_project_rows(X))
+
+    def ref_distance_rows(self, X):
+        """Distance of each row to the set, by the reference projection."""
+        P = self.ref_project_rows(X)
+        return np.linalg.norm(X - P, axis=1)
+
+    def ref_lmo_rows(self, C):
+        """Reference LMO per row; None where the set is unbounded along -c."""
+        out = []
+        for c in C:
+            try:
+                out.append(self.flat(self.ref.lmo(c.reshape(self.K.shape)), 1)[0])
+            except UnboundedDirectionError:
+                out.append(None)
+        return out
+
+    def ref_lmo(self):
+        C, _ = self.directions()
+        return self._get("ref_lmo", lambda: self.ref_lmo_rows(C))
+
+    def ref_lmo_neg(self):
+        C, _ = self.directions()
+        return self._get("ref_lmo_neg", lambda: self.ref_lmo_rows(-C))
+
+    def ref_support_rows(self, C):
+        vals = []
+        for c, x in zip(C, self.ref_lmo_rows(-C)):
+            vals.append(np.inf if x is None else float(c @ x))
+        return np.array(vals)
+
+    def vertices(self):
+        """A few extreme points of the set (reference LMO answers), where bounded."""
+        L = [x for x in self.ref_lmo() if x is not None]
+        return np.array(L[: self.n]) if L else np.zeros((0, self.K.dim))
+
+    def point_scale(self, X):
+        return np.maximum(1.0, np.abs(X).max(axis=1)) * self.s
+
+    def dir_scale(self, C):
+        return np.maximum(np.linalg.norm(C, axis=1), 1e-300) * self.s
+
+
+def _raise_worst(name, K, what, gaps, allowed, X, labels, got, want, note=""):
+    """Raise an AssertionError for the case with the largest gap/allowed ratio."""
+    ratio = np.asarray(gaps, float) / np.maximum(np.asarray(allowed, float), 1e-300)
+    bad = np.flatnonzero(~(ratio <= 1.0))
+    if bad.size == 0:
+        return
+    i = int(bad[np.argmax(np.nan_to_num(ratio[bad], nan=np.inf))])
+    al = np.broadcast_to(np.asarray(allowed, float), ratio.shape)
+    shape = K.shape
+    def show(v):
+        if v is None:
+            return _fmt(None)
+        a = np.asarray(v, dtype=float)
+        return _fmt(a.reshape(shape) if a.size == K.dim and a.ndim >= 1 else a)
+
+    raise AssertionError(
+        f"setkit conformance: {name} failed on {K.node.label} (shape {shape}): {what}\n"
+        f"  {bad.size} of {len(ratio)} cases fail; the worst is case {i} ({labels[i]})\n"
+        f"  input:     {show(X[i])}\n"
+        f"  setkit:    {show(None if got is None else got[i])}\n"
+        f"  reference: {show(None if want is None else want[i])}\n"
+        f"  gap:       {float(np.asarray(gaps)[i]):.3e} (allowed {float(al[i]):.3e})"
+        + (f"\n  note: {note}" if note else ""))
+
+
+# -- the checks ---------------------------------------------------------------------------------
+def _project_reference(ctx):
+    K = ctx.K
+    X, labels = ctx.inputs()
+    P = ctx.flat(K.project(ctx.shaped(X)), len(X))
+    Pr = ctx.ref_projection()
+    allowed = ctx.rtol * ctx.point_scale(X)
+    gaps = np.linalg.norm(P - Pr, axis=1)
+    _raise_worst("project/reference", K, "the projection differs from the reference projection",
+                 gaps, allowed, X, labels, P, Pr, "gap = ||setkit - reference||")
+    return len(X), float((gaps / allowed).max()), ctx.rtol
+
+
+def _project_certificate(ctx):
+    """p must lie in K and its Frank-Wolfe gap (with the reference support) must be small."""
+    K = ctx.K
+    X, labels = ctx.inputs()
+    P = ctx.flat(K.project(ctx.shaped(X)), len(X))
+    allowed = ctx.rtol * ctx.point_scale(X)
+    dist_in = ctx.ref_distance_rows(P)
+    _raise_worst("project/feasible", K, "the projection is not a point of the set",
+                 dist_in, allowed, X, labels, P, ctx.ref_projection(),
+                 "gap = distance of setkit's answer to the set (by the reference)")
+    R = X - P
+    sup = ctx.ref_support_rows(R)
+    gap = sup - np.einsum("ij,ij->i", R, P)
+    # (1/2)||p - p*||^2 <= gap for p in K, and ||p - p*|| <= ||y - p|| + ||y - p*|| <= 2 ||y - p||
+    bound = np.minimum(np.sqrt(2.0 * np.maximum(gap, 0.0)), 2.0 * np.linalg.norm(R, axis=1))
+    _raise_worst("project/certificate", K,
+                 "the Frank-Wolfe certificate min(sqrt(2 (support(y-p) - <y-p, p>)), 2 ||y-p||) is too large",
+                 bound, allowed, X, labels, P, ctx.ref_projection(),
+                 "the certificate bounds ||p - p*||; the reference support function was used")
+    return 2 * len(X), float(max((dist_in / allowed).max(), (bound / allowed).max())), ctx.rtol
+
+
+def _project_fixed_points(ctx):
+    K = ctx.K
+    X, _ = ctx.inputs()
+    pts = [ctx.ref_projection()[: ctx.n]]
+    labels = ["a point of the set (reference projection)"] * ctx.n
+    V = ctx.vertices()
+    if len(V):
+        pts.append(V)
+        labels += ["an extreme point of the set (reference LMO)"] * len(V)
+    Z = np.concatenate(pts)
+    P = ctx.flat(K.project(ctx.shaped(Z)), len(Z))
+    allowed = ctx.rtol * ctx.point_scale(Z)
+    gaps = np.linalg.norm(P - Z, axis=1)
+    _raise_worst("project/fixed-points", K, "projecting a point of the set moved it",
+                 gaps, allowed, Z, labels, P, Z, "the reference answer is the input itself")
+    return len(Z), float((gaps / allowed).max()), ctx.rtol
+
+
+def _distance_reference(ctx):
+    K = ctx.K
+    X, labels = ctx.inputs()
+    D = np.asarray(K.distance(ctx.shaped(X)), float).reshape(-1)
+    Dr = np.linalg.norm(X - ctx.ref_projection(), axis=1)
+    allowed = ctx.rtol * ctx.point_scale(X)
+    gaps = np.abs(D - Dr)
+    _raise_worst("distance/reference", K, "the distance differs from ||y - reference projection||",
+                 gaps, allowed, X, labels, D, Dr)
+    return len(X), float((gaps / allowed).max()), ctx.rtol
+
+
+def _lmo_rows(ctx, C):
+    """K's LMO per row (batched first), None where it raised UnboundedDirectionError."""
+    K = ctx.K
+    try:
+        L = ctx.flat(K.lmo(ctx.shaped(C)), len(C))
+        return list(L)
+    except UnboundedDirectionError:
+        out = []
+        for c in C:
+            try:
+                out.append(ctx.flat(K.lmo(c.reshape(K.shape)), 1)[0])
+            except UnboundedDirectionError:
+                out.append(None)
+        return out
+
+
+def _lmo_reference(ctx):
+    K = ctx.K
+    C, labels = ctx.directions()
+    L = _lmo_rows(ctx, C)
+    Lr = ctx.ref_lmo()
+    allowed = ctx.rtol * ctx.dir_scale(C)
+    gaps, got, want = [], [], []
+    for c, x, xr in zip(C, L, Lr):
+        if xr is None:
+            # unbounded: setkit must say so, not return a point
+            gaps.append(0.0 if x is None else np.inf)
+        elif x is None:
+            gaps.append(np.inf)
+        else:
+            gaps.append(abs(float(c @ x) - float(c @ xr)))
+        got.append(None if x is None else float(c @ x))
+        want.append(None if xr is None else float(c @ xr))
+    gaps = np.array(gaps)
+    _raise_worst("lmo/reference", K, "the LMO objective <c, lmo(c)> differs from the reference minimum "
+                 "(or boundedness disagrees)", gaps, allowed, C, labels, got, want,
+                 "values shown are objectives <c, x>")
+    ok = [i for i, x in enumerate(L) if x is not None]
+    if ok:
+        A = np.array([L[i] for i in ok])
+        din = ctx.ref_distance_rows(A)
+        al = ctx.rtol * ctx.point_scale(A)
+        _raise_worst("lmo/feasible", K, "the LMO answer is not a point of the set", din, al,
+                     C[ok], [labels[i] for i in ok], A, [Lr[i] for i in ok],
+                     "gap = distance of setkit's answer to the set (by the reference)")
+    return len(C), float(np.nanmax(np.where(np.isfinite(gaps), gaps / allowed, 0.0))), ctx.rtol
+
+
+def _support_rows(ctx, C):
+    K = ctx.K
+    try:
+        return np.asarray(K.support(ctx.shaped(C)), float).reshape(-1)
+    except UnboundedDirectionError:
+        out = []
+        for c in C:
+            try:
+                out.append(float(K.support(c.reshape(K.shape))))
+            except UnboundedDirectionError:
+                out.append(np.inf)
+        return np.array(out)
+
+
+def _support_reference(ctx):
+    K = ctx.K
+    C, labels = ctx.directions()
+    S = _support_rows(ctx, C)
+    Sr = np.array([np.inf if x is None else float(c @ x) for c, x in zip(C, ctx.ref_lmo_neg())])
+    allowed = ctx.rtol * ctx.dir_scale(C)
+    both_inf = np.isinf(S) & np.isinf(Sr) & (np.sign(S) == np.sign(Sr))
+    with np.errstate(invalid="ignore"):
+        gaps = np.where(both_inf, 0.0, np.abs(S - Sr))
+    gaps = np.nan_to_num(gaps, nan=np.inf)
+    _raise_worst("support/reference", K, "the support function differs from the reference max <c, x>",
+                 gaps, allowed, C, labels, S, Sr)
+    return len(C), float(np.max(np.where(np.isfinite(gaps), gaps / allowed, 0.0))), ctx.rtol
+
+
+def _support_homogeneity(ctx):
+    """support(t c) = t support(c) for t > 0, and support(0) = 0 (positive homogeneity)."""
+    K = ctx.K
+    C, labels = ctx.directions()
+    S = _support_rows(ctx, C)
+    fin = np.flatnonzero(np.isfinite(S))
+    if fin.size == 0:
+        raise _Skip("the set is unbounded along every tested direction")
+    gaps, allowed, got, want, lab, inp = [], [], [], [], [], []
+    for t in (1e-3, 7.0, 1e5):
+        St = _support_rows(ctx, t * C[fin])
+        gaps.append(np.abs(St - t * S[fin]))
+        allowed.append(ctx.rtol * t * ctx.dir_scale(C[fin]))
+        got.append(St)
+        want.append(t * S[fin])
+        lab += [f"{labels[i]}, scaled by {t:g}" for i in fin]
+        inp.append(t * C[fin])
+    zero = np.zeros((1, K.dim))
+    z = float(np.asarray(K.support(zero.reshape(K.shape))))
+    gaps.append(np.array([abs(z)]))
+    allowed.append(np.array([ctx.rtol * ctx.s]))
+    got.append(np.array([z]))
+    want.append(np.array([0.0]))
+    lab.append("the zero direction")
+    inp.append(zero)
+    g = np.concatenate(gaps)
+    a = np.concatenate(allowed)
+    _raise_worst("support/homogeneity", K, "support(t c) != t support(c) (or support(0) != 0)", g, a,
+                 np.concatenate(inp), lab, np.concatenate(got), np.concatenate(want),
+                 "the reference column shows t * support(c)")
+    return len(g), float((g / a).max()), ctx.rtol
+
+
+def _lmo_zero_direction(ctx):
+    """lmo(0) may be any point of the set, but it must be one."""
+    K = ctx.K
+    zero = np.zeros(K.shape)
+    try:
+        x = ctx.flat(K.lmo(zero), 1)
+    except UnboundedDirectionError as exc:
+        raise AssertionError(f"setkit conformance: lmo/zero-direction failed on {K.node.label}: lmo(0) raised "
+                             f"UnboundedDirectionError ({exc}); every point of a nonempty set minimizes <0, x>.")
+    d = ctx.ref_distance_rows(x)
+    al = ctx.rtol * ctx.point_scale(x)
+    _raise_worst("lmo/zero-direction", K, "lmo(0) is not a point of the set", d, al, zero.reshape(1, -1),
+                 ["the zero direction"], x, None)
+    return 1, float((d / al).max()), ctx.rtol
+
+
+def _contains(ctx):
+    K = ctx.K
+    X, labels = ctx.inputs()
+    Pr = ctx.ref_projection()
+    scale = ctx.point_scale(Pr)
+    inside = np.asarray(K.contains(ctx.shaped(Pr), tol=1e-5 * scale), bool).reshape(-1)
+    bad_in = (~inside).astype(float)
+    _raise_worst("contains/points-of-the-set", K, "contains() rejects a point of the set "
+                 "(tol = 1e-5 * scale)", bad_in, np.zeros(len(Pr)) + 0.5, Pr, ["the reference projection of " + lab
+                                                                               for lab in labels],
+                 inside.astype(float), np.ones(len(Pr)), "values: 1 = contained, 0 = not")
+    Dr = np.linalg.norm(X - Pr, axis=1)
+    far = Dr > 1e-2 * ctx.point_scale(X)
+    got = np.asarray(K.contains(ctx.shaped(X)), bool).reshape(-1)
+    wrong = (got & far).astype(float)
+    _raise_worst("contains/points-outside", K, "contains() accepts a point far from the set "
+                 "(reference distance > 1e-2 * scale)", wrong, np.zeros(len(X)) + 0.5, X, labels,
+                 got.astype(float), (~far).astype(float), "values: 1 = contained, 0 = not")
+    return len(Pr) + int(far.sum()), 0.0, 0.0
+
+
+def _violation(ctx):
+    K = ctx.K
+    X, labels = ctx.inputs()
+    v = np.asarray(K.violation(ctx.shaped(X)), float).reshape(-1)
+    if np.all(np.isnan(v)):
+        raise _Skip("the set offers no violation measure")
+    Pr = ctx.ref_projection()
+    vin = np.asarray(K.violation(ctx.shaped(Pr)), float).reshape(-1)
+    al = 1e-5 * ctx.point_scale(Pr)
+    _raise_worst("violation/points-of-the-set", K, "violation() is positive at a point of the set", vin, al, Pr,
+                 labels, vin, np.zeros(len(vin)))
+    Dr = np.linalg.norm(X - Pr, axis=1)
+    far = Dr > 1e-2 * ctx.point_scale(X)
+    wrong = (far & ~(v > 0)).astype(float)
+    _raise_worst("violation/points-outside", K, "violation() is 0 at a point far from the set", wrong,
+                 np.zeros(len(X)) + 0.5, X, labels, v, Dr, "the reference column shows the distance")
+    return len(X) + len(Pr), 0.0, 0.0
+
+
+def _batches(ctx):
+    """A (2, 3, *shape) batch equals the same inputs one by one, with the documented shapes."""
+    K = ctx.K
+    X, labels = ctx.inputs()
+    C, _ = ctx.directions()
+    rng = np.random.default_rng([ctx.seed, 3])
+    Y = X[rng.integers(0, len(X), 6)]
+    Yb = Y.reshape((2, 3) + K.shape)
+    problems = []
+
+    def same(a, b, tol):
+        a, b = np.asarray(a, float), np.asarray(b, float)
+        return a.shape == b.shape and np.all(np.abs(a - b) <= tol)
+
+    P = K.project(Yb)
+    if P.shape != (2, 3) + K.shape:
+        problems.append(f"project of a batch of shape {Yb.shape} returned shape {P.shape}")
+    else:
+        one = np.stack([K.project(y.reshape(K.shape)) for y in Y]).reshape(P.shape)
+        tol = 1e-9 * ctx.point_scale(Y).max()
+        if not same(P, one, tol):
+            err = float(np.abs(P - one).max())
+            problems.append(f"project: batched and one-by-one answers differ by {err:.3e} (allowed {tol:.1e})")
+    D = K.distance(Yb)
+    if np.shape(D) != (2, 3):
+        problems.append(f"distance of a batch of shape {Yb.shape} returned shape {np.shape(D)}; expected (2, 3)")
+    d0 = K.distance(Y[0].reshape(K.shape))
+    if np.ndim(d0) != 0:
+        problems.append(f"distance of one point returned shape {np.shape(d0)}; expected a scalar")
+    Cb = C[:6] if len(C) >= 6 else np.resize(C, (6, K.dim))
+    try:
+        L = K.lmo(Cb.reshape((2, 3) + K.shape))
+        if L.shape != (2, 3) + K.shape:
+            problems.append(f"lmo of a batch returned shape {L.shape}; expected {(2, 3) + K.shape}")
+        else:
+            vals = np.einsum("ij,ij->i", Cb, L.reshape(6, -1))
+            one = np.array([c @ K.lmo(c.reshape(K.shape)).reshape(-1) for c in Cb])
+            tol = 1e-9 * ctx.dir_scale(Cb).max() * 10
+            if not same(vals, one, tol):
+                problems.append(f"lmo: batched and one-by-one objectives differ by {np.abs(vals - one).max():.3e}")
+        S = K.support(Cb.reshape((2, 3) + K.shape))
+        if np.shape(S) != (2, 3):
+            problems.append(f"support of a batch returned shape {np.shape(S)}; expected (2, 3)")
+        s0 = K.support(Cb[0].reshape(K.shape))
+        if np.ndim(s0) != 0:
+            problems.append(f"support of one direction returned shape {np.shape(s0)}; expected a scalar")
+    except UnboundedDirectionError:
+        pass
+    M = K.contains(Yb)
+    if np.shape(M) != (2, 3):
+        problems.append(f"contains of a batch returned shape {np.shape(M)}; expected (2, 3)")
+    if problems:
+        raise AssertionError(f"setkit conformance: batch/shapes failed on {K.node.label} (shape {K.shape}):\n  "
+                             + "\n  ".join(problems) + f"\n  batch input (flat rows):\n{_fmt(Y)}")
+    return 6, 0.0, 0.0
+
+
+def _bad_inputs(ctx):
+    K = ctx.K
+    wrong = np.zeros(K.dim + 1)
+    nan = np.zeros(K.shape)
+    nan.reshape(-1)[0] = np.nan
+    problems = []
+    for op in ("project", "distance", "lmo", "support", "contains"):
+        for arg, what in ((wrong, f"an array of shape {wrong.shape}"), (nan, "an array holding NaN")):
+            try:
+                getattr(K, op)(arg)
+            except InputError:
+                continue
+            except Exception as exc:  # noqa: BLE001 - reported as a failure
+                problems.append(f"{op}({what}) raised {type(exc).__name__} instead of InputError: {exc}")
+                continue
+            problems.append(f"{op}({what}) returned an answer instead of raising InputError")
+    if problems:
+        raise AssertionError(f"setkit conformance: inputs/rejected failed on {K.node.label}:\n  "
+                             + "\n  ".join(problems))
+    return 10, 0.0, 0.0
+
+
+def _penalty(ctx):
+    K = ctx.K
+    G = 2.5
+    try:
+        pen = K.penalty(G)
+    except (ImportError, UnsupportedOperationError, AttributeError, NotImplementedError) as exc:
+        raise _Skip(f"no penalty available: {exc}")
+    X, labels = ctx.inputs()
+    Dr = np.linalg.norm(X - ctx.ref_projection(), axis=1)
+    v = np.array([float(pen.value(x.reshape(K.shape))) for x in X])
+    allowed = G * ctx.rtol * ctx.point_scale(X)
+    gaps = np.abs(v - G * Dr)
+    _raise_worst("penalty/value", K, "penalty(G).value(x) differs from G * reference distance", gaps, allowed,
+                 X, labels, v, G * Dr)
+    return len(X), float((gaps / allowed).max()), ctx.rtol
+
+
+def _centroid(ctx):
+    K = ctx.K
+    try:
+        c = K.centroid(measure="vertices")
+    except (ImportError, UnsupportedOperationError, AttributeError, NotImplementedError, SetkitError) as exc:
+        raise _Skip(f"no vertex centroid available: {type(exc).__name__}: {exc}"[:200])
+    c = np.asarray(getattr(c, "point", c), float).reshape(1, -1)
+    d = ctx.ref_distance_rows(c)
+    al = 1e-4 * ctx.point_scale(c)
+    _raise_worst("centroid/feasible", K, "the vertex centroid is not a point of the set", d, al, c,
+                 ["the vertex centroid"], c, None)
+    return 1, float((d / al).max()), 1e-4
+
+
+CHECKS: tuple[tuple[str, Callable], ...] = (
+    ("project/reference", _project_reference),
+    ("project/certificate", _project_certificate),
+    ("project/fixed-points", _project_fixed_points),
+    ("distance/reference", _distance_reference),
+    ("lmo/reference", _lmo_reference),
+    ("lmo/zero-direction", _lmo_zero_direction),
+    ("support/reference", _support_reference),
+    ("support/homogeneity", _support_homogeneity),
+    ("contains", _contains),
+    ("violation", _violation),
+    ("batch/shapes", _batches),
+    ("inputs/rejected", _bad_inputs),
+    ("penalty/value", _penalty),
+    ("centroid/feasible", _centroid),
+)
+
+
+def _as_set(target):
+    from .decision_set import DecisionSet
+    if isinstance(target, DecisionSet):
+        return target
+    from . import compile as _compile, load
+    import os
+    if isinstance(target, (str, os.PathLike)):
+        return load(target)
+    return _compile(target)
+
+
+def checks(K, seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL, only=None) -> list:
+    """The conformance checks of one set as a list of ``(name, callable)``.
+
+    Each callable takes no argument, raises AssertionError on failure and
+    returns a :class:`CheckOutcome` (``note`` says why a check was skipped).
+    The checks share one cache of inputs and reference answers.
+    ``K`` may be a DecisionSet, a description dict or a file path.
+    """
+    K = _as_set(K)
+    ctx = _Context(K, seed, points, rtol)
+    out = []
+    for name, fn in CHECKS:
+        if only is not None and not any(name.startswith(o) for o in only):
+            continue
+
+        def run(fn=fn, name=name):
+            t0 = time.perf_counter()
+            try:
+                cases, worst, allowed = fn(ctx)
+                note = ""
+            except _Skip as sk:
+                cases, worst, allowed, note = 0, 0.0, 0.0, f"skipped: {sk}"
+            return CheckOutcome(name, cases, worst, allowed, time.perf_counter() - t0, note)
+        run.__name__ = "check_" + name.replace("/", "_").replace("-", "_")
+        out.append((name, run))
+    return out
+
+
+def check_set(K, seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL, only=None) -> list:
+    """Run every conformance check on ``K``; raise one AssertionError listing every failure.
+
+    ``points`` is the number of random inputs per category (inside, near, at
+    the set's scale, far; plus tiny and huge ones); ``only`` restricts to
+    checks whose names start with one of the given prefixes. Returns the list
+    of :class:`CheckOutcome` when everything passes.
+
+    >>> import setkit, setkit.testing
+    >>> out = setkit.testing.check_set(setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}))
+    >>> all(o.worst <= 1 for o in out)
+    True
+    """
+    outcomes, failures = [], []
+    for name, run in checks(K, seed=seed, points=points, rtol=rtol, only=only):
+        try:
+            outcomes.append(run())
+        except AssertionError as exc:
+            failures.append(str(exc))
+        except SetkitError as exc:
+            failures.append(f"setkit conformance: {name} raised {type(exc).__name__}: {exc}")
+    if failures:
+        head = f"{len(failures)} conformance check(s) failed (seed {seed}):\n"
+        raise AssertionError(head + "\n\n".join(failures))
+    return outcomes
+
+
+def _family_specs(family, seed: int, count: int) -> list:
+    from .families import Family, lookup
+    cls = lookup(family) if isinstance(family, str) else family
+    if not (isinstance(cls, type) and issubclass(cls, Family)):
+        raise TypeError(f"check_family: expected a kind name or a Family subclass; got {family!r}.")
+    specs = [dict(s) for s in (getattr(cls, "examples", lambda: [])() or [])]
+    maker = getattr(cls, "random_example", None)
+    if maker is not None:
+        rng = np.random.default_rng([seed, 4])
+        for _ in range(count):
+            spec = maker(rng)
+            if spec is not None:
+                specs.append(dict(spec))
+    for s in specs:
+        s.setdefault("kind", cls.kind)
+    if not specs:
+        raise AssertionError(f"setkit conformance: the family {cls.kind!r} ({cls.__module__}.{cls.__qualname__}) "
+                             f"provides no example instances; add a classmethod examples() returning small "
+                             f"spec dicts (and optionally random_example(rng)).")
+    return specs
+
+
+def family_checks(family, seed: int = 0, count: int = 2, points: int = 2, rtol: float = DEFAULT_RTOL) -> list:
+    """``(name, callable)`` pairs: every check on every example instance of a family.
+
+    Names look like ``simplex[0]:project/reference``; a failure message starts
+    with the spec of the instance.
+    """
+    out = []
+    for i, spec in enumerate(_family_specs(family, seed, count)):
+        kind = spec["kind"]
+        for name, run in _lazy_checks(spec, seed, points, rtol):
+            out.append((f"{kind}[{i}]:{name}", run))
+    return out
+
+
+def _lazy_checks(spec, seed, points, rtol):
+    holder = {}
+
+    def get():
+        if "c" not in holder:
+            holder["c"] = dict(checks(spec, seed=seed, points=points, rtol=rtol))
+        return holder["c"]
+
+    out = []
+    for name, _ in CHECKS:
+        def run(name=name):
+            try:
+                return get()[name]()
+            except AssertionError as exc:
+                raise AssertionError(f"instance {spec!r}:\n{exc}") from None
+        out.append((name, run))
+    return out
+
+
+def check_family(family, seed: int = 0, count: int = 2, points: int = 2, rtol: float = DEFAULT_RTOL) -> list:
+    """Run :func:`check_set` on every example instance of a family (a kind name or a Family class).
+
+    Instances come from the family's optional classmethods ``examples()``
+    (fixed small spec dicts) and ``random_example(rng)`` (called ``count``
+    times with a generator seeded by ``seed``).
+    """
+    outcomes, failures = [], []
+    for spec in _family_specs(family, seed, count):
+        try:
+            outcomes.extend(check_set(spec, seed=seed, points=points, rtol=rtol))
+        except AssertionError as exc:
+            failures.append(f"instance {spec!r}:\n{exc}")
+    if failures:
+        raise AssertionError("\n\n".join(failures))
+    return outcomes
+
+
+def parametrize(target, argname: str = "check", seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL,
+                family: bool = False):
+    """A ``pytest.mark.parametrize`` over the conformance checks of a set (or, with
+    ``family=True``, of a family), one test case per check::
+
+        @setkit.testing.parametrize(K)
+        def test_conformance(check):
+            check()
+    """
+    import pytest
+    pairs = (family_checks(target, seed=seed, points=points, rtol=rtol) if family
+             else checks(target, seed=seed, points=points, rtol=rtol))
+    return pytest.mark.parametrize(argname, [pytest.param(fn, id=name) for name, fn in pairs])
+
+
+# -- hypothesis strategies ------------------------------------------------------------------------
+def points(K, where: str = "anywhere", scale: float = 10.0):
+    """A hypothesis strategy of points of shape ``K.shape``.
+
+    ``where`` is ``"anywhere"`` (entries within ±scale·s), ``"inside"`` (their
+    projections onto K) or ``"near"`` (inside plus a perturbation of size
+    about 1e-3·s).
+    """
+    from hypothesis import strategies as st
+    from hypothesis.extra.numpy import arrays
+    K = _as_set(K)
+    s = max(1.0, float(K.node.scale()))
+    bound = float(scale) * s
+    elems = st.floats(-bound, bound, allow_nan=False, allow_infinity=False, width=64)
+    base = arrays(np.float64, K.shape, elements=elems)
+    if where == "anywhere":
+        return base
+    if where == "inside":
+        return base.map(lambda y: K.project(y))
+    if where == "near":
+        small = arrays(np.float64, K.shape, elements=st.floats(-1e-3 * s, 1e-3 * s, allow_nan=False, width=64))
+        return st.tuples(base, small).map(lambda t: K.project(t[0]) + t[1])
+    raise ValueError(f"points: where must be anywhere, inside or near; got {where!r}.")
+
+
+def directions(K, scale: float = 1.0, nonzero: bool = True):
+    """A hypothesis strategy of directions of shape ``K.shape`` (entries within ±scale)."""
+    from hypothesis import strategies as st
+    from hypothesis.extra.numpy import arrays
+    K = _as_set(K)
+    elems = st.floats(-float(scale), float(scale), allow_nan=False, allow_infinity=False, width=64)
+    strat = arrays(np.float64, K.shape, elements=elems)
+    if nonzero:
+        strat = strat.filter(lambda c: bool(np.any(np.abs(c) > 1e-9 * scale)))
+    return strat

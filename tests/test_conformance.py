@@ -1,0 +1,42 @@
+"""The conformance checks of setkit.testing run over every registered built-in family.
+
+Each family offers small instances through its classmethods ``examples()`` and
+``random_example(rng)``; built-ins meet the same bar as users' sets.
+"""
+import pytest
+
+from setkit.families import _FAMILIES, known_kinds
+from setkit.testing import family_checks
+
+
+def _builtin_kinds():
+    known_kinds()   # imports every built-in module
+    return sorted(k for k, cls in _FAMILIES.items() if cls.__module__.startswith("setkit."))
+
+
+def _params():
+    out = []
+    for kind in _builtin_kinds():
+        cls = _FAMILIES[kind]
+        if kind == "custom":   # built in Python only; its conformance runs in tests/families/test_custom.py
+            continue
+        if not (getattr(cls, "examples", None) or getattr(cls, "random_example", None)):
+            out.append(pytest.param(None, id=f"{kind}:no-examples",
+                                    marks=pytest.mark.skip(reason=f"{kind} offers no examples() yet")))
+            continue
+        out.extend(pytest.param(fn, id=name) for name, fn in family_checks(kind, seed=7, count=1, points=2))
+    return out
+
+
+@pytest.mark.parametrize("check", _params())
+def test_builtin_family_conforms(check):
+    outcome = check()
+    # a passing check reports its worst gap as a fraction of the allowed one
+    assert outcome.worst <= 1.0 or outcome.allowed == 0.0
+
+
+def test_every_builtin_family_is_covered():
+    kinds = _builtin_kinds()
+    assert {"box", "simplex"} <= set(kinds)
+    with_examples = [k for k in kinds if getattr(_FAMILIES[k], "examples", None)]
+    assert "box" in with_examples and "simplex" in with_examples
