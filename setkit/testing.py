@@ -173,9 +173,13 @@ class _Context:
         return self._get("ref_lmo_neg", lambda: self.ref_lmo_rows(-C))
 
     def ref_support_rows(self, C):
+        """Reference support per row, computed on unit directions (the support function is
+        positively homogeneous; tiny directions such as y - p for y near K confuse the solver)."""
+        norms = np.linalg.norm(C, axis=1)
+        U = C / np.where(norms > 0, norms, 1.0)[:, None]
         vals = []
-        for c, x in zip(C, self.ref_lmo_rows(-C)):
-            vals.append(np.inf if x is None else float(c @ x))
+        for u, nrm, x in zip(U, norms, self.ref_lmo_rows(-U)):
+            vals.append(np.inf if x is None else float(nrm * (u @ x)))
         return np.array(vals)
 
     def vertices(self):
