@@ -115,3 +115,14 @@ def test_description_file_cannot_use_kind_custom(tmp_path):
     with pytest.raises(DescriptionError, match="from_cvxpy") as info:
         setkit.load(f)
     assert "c.yaml" in str(info.value)
+
+
+def test_penalty_and_centroid_are_derived():
+    K = setkit.from_cvxpy(capped_simplex, 3)
+    y = np.array([1.0, 1.0, 1.0])
+    assert K.penalty(2.0).value(y) == pytest.approx(2.0 * K.distance(y))
+    # the 'directions' centroid: mean LMO answer of Gaussian directions, each an LP solve here
+    r = K.centroid(measure="directions", details=True, samples=60, rng=0)
+    assert not r.exact and K.contains(r.point, tol=1e-6)
+    # lmo answers are vertices (0,0,0), (0.25,0,0), (0,1,0), (0,0,1): by symmetry x1 and x2 agree in law
+    assert abs(r.point[1] - r.point[2]) <= 6 * max(r.std_error[1], r.std_error[2]) + 1e-9
