@@ -32,7 +32,7 @@ How answers are obtained (first that applies)
    the effective sample size is the number of draws); ``volume`` by hit-and-run
    (chord endpoints from the constraints for polytopes, or a support-bracketed
    membership chord with Neal's shrinkage for other sets). Estimates carry a
-   standard error per coordinate (batch means over parallel chains) and an
+   standard error per coordinate (batch means and autocorrelation time over parallel chains) and an
    effective sample size, available with ``details=True``.
 4. Where no honest estimate exists (uniform over the extreme points of a large
    polytope, or of a non-polyhedral set without family knowledge; volume of an
@@ -43,13 +43,13 @@ Hit-and-run
 -----------
 Chains start at the Chebyshev center (largest inscribed ball, one LP) of the
 reduced polytope, or at the mean of LMO answers for non-polyhedral sets. Each
-step draws a direction from a centrally symmetric law and moves to a uniform
-point of the chord (polytopes) or to a shrinkage draw on the chord (membership
-sets); both leave the uniform distribution invariant. After the first half of
-the burn-in the directions are drawn from N(0, S) with S the covariance of the
-burn-in states (fixed afterwards, so the chain stays a valid reversible chain);
-this rounds elongated sets. Defaults: ``chains = 8``,
-``burn_in = 200 + 50 * m`` steps, ``thin = max(1, m // 2)`` steps between kept
+step draws a direction from a fixed centrally symmetric law N(0, S) and moves
+to a uniform point of the chord (polytopes) or to a shrinkage draw on the chord
+(membership sets); both leave the uniform distribution invariant. S rounds
+elongated sets: for polytopes the inverse Dikin matrix of the constraints at
+the Chebyshev center, for other sets the covariance of the LMO answers used to
+find the affine hull. Defaults: ``chains = 8``,
+``burn_in = 200 + 50 * m`` steps, ``thin = max(1, m)`` steps between kept
 states, ``m`` the dimension of the affine hull.
 
 All randomness comes from ``rng`` (a numpy Generator or an int seed). For
@@ -320,38 +320,42 @@ def _reduced_dim_ok(P, exact_max_dim):
 def _defaults(m, chains, burn_in, thin):
     chains = 8 if chains is None else int(chains)
     burn_in = 200 + 50 * m if burn_in is None else int(burn_in)
-    thin = max(1, m // 2) if thin is None else int(thin)
+    thin = max(1, m) if thin is None else int(thin)
     if chains < 1 or burn_in < 0 or thin < 1:
         raise InputError(f"hit-and-run: chains must be >= 1, burn_in >= 0 and thin >= 1; got chains={chains}, "
                          f"burn_in={burn_in}, thin={thin}.")
     return chains, burn_in, thin
 
 
-def _run_chains(step, T0, n_keep, burn_in, thin, rng):
-    """Drive batched chains: ``step(T, L, rng)`` advances all chains one step; returns (C, n_keep, m)."""
+def _run_chains(step, T0, n_keep, burn_in, thin, rng, L):
+    """Drive batched chains: ``step(T, L, rng)`` advances all chains one step; returns (C, n_keep, m).
+
+    ``L`` shapes the direction law N(0, L L^T); it is fixed for the whole run (the chain stays reversible).
+    """
     C, m = T0.shape
     T = T0.copy()
-    L = np.eye(m)
-    half = burn_in // 2
-    pilot = []
-    for i in range(burn_in):
+    for _ in range(burn_in):
         T = step(T, L, rng)
-        if i >= half:
-            pilot.append(T)
-        if i == burn_in - 1 and len(pilot) * C > 2 * m and m > 0:
-            S = np.cov(np.concatenate(pilot).T).reshape(m, m)
-            tr = float(np.trace(S)) / m
-            if tr > 0 and np.all(np.isfinite(S)):
-                try:
-                    L = np.linalg.cholesky(S + 1e-9 * tr * np.eye(m))
-                except np.linalg.LinAlgError:
-                    L = np.eye(m)
     out = np.empty((C, n_keep, m))
     for j in range(n_keep):
         for _ in range(thin):
             T = step(T, L, rng)
         out[:, j] = T
     return out
+
+
+def _dikin_factor(P):
+    """Cholesky factor of the inverse Dikin matrix (sum m_i m_i^T / s_i^2)^-1 at the Chebyshev center."""
+    m = P.m
+    s = np.maximum(P.q - P.M @ P.center, 1e-300)
+    H = (P.M / s[:, None] ** 2).T @ P.M
+    try:
+        L = np.linalg.cholesky(np.linalg.inv(H))
+        if np.all(np.isfinite(L)):
+            return L
+    except np.linalg.LinAlgError:
+        pass
+    return np.eye(m)
 
 
 def _polytope_step(P, label):
@@ -379,6 +383,7 @@ def _polytope_step(P, label):
 class _MembershipFrame:
     x0: np.ndarray
     N: np.ndarray
+    L: np.ndarray
 
 
 def _membership_frame(K, rng):
@@ -395,26 +400,54 @@ def _membership_frame(K, rng):
     x0 = Pts.mean(axis=0)
     U, s, _ = np.linalg.svd((Pts - x0).T, full_matrices=False)
     if s.size == 0 or s[0] == 0:
-        return _MembershipFrame(x0, np.zeros((d, 0)))
+        return _MembershipFrame(x0, np.zeros((d, 0)), np.zeros((0, 0)))
     r = int(np.sum(s > 1e-9 * s[0]))
-    return _MembershipFrame(x0, U[:, :r])
+    N = U[:, :r]
+    T = (Pts - x0) @ N
+    S = T.T @ T / max(1, nd - 1)
+    try:
+        L = np.linalg.cholesky(S + 1e-9 * float(np.trace(S)) / r * np.eye(r))
+    except np.linalg.LinAlgError:
+        L = np.eye(r)
+    return _MembershipFrame(x0, N, L)
 
 
 def _membership_step(K, frame, max_shrink=60):
+    """Hit-and-run step on a membership oracle: a line-dependent bracket (support function when it is
+    cheap, else the bounding box), then Neal's shrinkage toward the current point until contains()."""
     N, x0 = frame.N, frame.x0
     shape = K.shape
+    routes = K.routes()
+    cheap_support = routes["support"].provider == "native" or (
+        routes["support"].provider == "derived" and routes["lmo"].provider == "native")
+    if not cheap_support:
+        E = np.eye(K.dim)
+        sup = K.support(np.concatenate([E, -E]).reshape((2 * K.dim,) + shape)).reshape(2 * K.dim)
+        box_hi, box_lo = sup[:K.dim], -sup[K.dim:]
+        pad = 1e-9 * max(1.0, float(np.abs(sup).max()))
+        box_hi, box_lo = box_hi + pad, box_lo - pad
 
     def step(T, L, rng):
         C, m = T.shape
         D = rng.standard_normal((C, m)) @ L.T
         X = x0 + T @ N.T
         Dx = D @ N.T
-        nn = np.einsum("ij,ij->i", Dx, Dx)
-        up = K.support(Dx.reshape((C,) + shape)).reshape(C)
-        dn = K.support((-Dx).reshape((C,) + shape)).reshape(C)
-        xd = np.einsum("ij,ij->i", Dx, X)
-        hi = np.maximum((up - xd) / nn, 0.0)
-        lo = -np.maximum((dn + xd) / nn, 0.0)
+        if cheap_support:
+            # bracket from the two supporting hyperplanes orthogonal to the line
+            nn = np.einsum("ij,ij->i", Dx, Dx)
+            both = K.support(np.concatenate([Dx, -Dx]).reshape((2 * C,) + shape)).reshape(2 * C)
+            xd = np.einsum("ij,ij->i", Dx, X)
+            hi = np.maximum((both[:C] - xd) / nn, 0.0)
+            lo = -np.maximum((both[C:] + xd) / nn, 0.0)
+        else:
+            # bracket from the bounding box of the set (computed once): no LP per step
+            tiny = 1e-300
+            with np.errstate(divide="ignore", invalid="ignore"):
+                r1 = (box_hi - X) / Dx
+                r2 = (box_lo - X) / Dx
+            live = np.abs(Dx) > tiny
+            hi = np.where(live, np.maximum(r1, r2), np.inf).min(axis=1).clip(min=0.0)
+            lo = np.where(live, np.minimum(r1, r2), -np.inf).max(axis=1).clip(max=0.0)
         lam = np.zeros(C)
         todo = np.ones(C, bool)
         for _ in range(max_shrink):
@@ -436,43 +469,75 @@ def _membership_step(K, frame, max_shrink=60):
 
 
 def _volume_chain_setup(K, rng):
-    """(step, start T0 row, to_x) for hit-and-run in K's affine hull."""
+    """(step, start row, to_x, m, direction factor L) for hit-and-run in K's affine hull."""
     P = reduced(K)
     if P is not None:
         if not P.bounded:
             raise UnsupportedOperationError(
                 f"volume measure on {K.node.label}: the set is unbounded, so it has no uniform distribution; "
                 f"bound it (e.g. intersect it with a box).")
-        return _polytope_step(P, K.node.label), P.center, P.to_x, P.m
+        return _polytope_step(P, K.node.label), P.center, P.to_x, P.m, _dikin_factor(P)
     frame = _membership_frame(K, rng)
-    return _membership_step(K, frame), np.zeros(frame.N.shape[1]), (lambda T: frame.x0 + T @ frame.N.T), \
-        frame.N.shape[1]
+    return (_membership_step(K, frame), np.zeros(frame.N.shape[1]), (lambda T: frame.x0 + T @ frame.N.T),
+            frame.N.shape[1], frame.L)
 
 
 def hit_and_run(K, n, rng, chains=None, burn_in=None, thin=None):
     """(C, n_per_chain, dim) hit-and-run states of the uniform distribution on K."""
-    step, start, to_x, m = _volume_chain_setup(K, rng)
+    step, start, to_x, m, L = _volume_chain_setup(K, rng)
     chains, burn_in, thin = _defaults(m, chains, burn_in, thin)
     per = max(1, -(-n // chains))
     if m == 0:
         return np.broadcast_to(to_x(start[None, :]), (chains, per, K.dim)).copy()
     T0 = np.repeat(start[None, :], chains, axis=0)
-    S = _run_chains(step, T0, per, burn_in, thin, rng)
+    S = _run_chains(step, T0, per, burn_in, thin, rng, L)
     C = S.shape[0]
     return to_x(S.reshape(-1, m)).reshape(C, per, K.dim)
 
 
-def batch_means(S):
-    """Mean, per-coordinate standard error (batch means) and smallest effective sample size of chains S (C, n, d)."""
+def _ips_tau(S):
+    """Integrated autocorrelation time per coordinate of chains S (C, n, d): Geyer's initial positive
+    sequence estimator on the chain-averaged autocovariance (centered at the pooled mean). O(C n log n d)."""
     C, n, d = S.shape
-    mean = S.reshape(-1, d).mean(axis=0)
-    B = max(1, min(n, 20))
+    Z = S - S.reshape(-1, d).mean(axis=0)
+    L = 1 << int(math.ceil(math.log2(2 * n)))
+    F = np.fft.rfft(Z, n=L, axis=1)
+    acov = np.fft.irfft(F * np.conj(F), n=L, axis=1)[:, :n].mean(axis=0) / n     # (n, d)
+    tau = np.ones(d)
+    for j in range(d):
+        g0 = acov[0, j]
+        if g0 <= 0:
+            continue
+        rho = acov[:, j] / g0
+        total = -1.0
+        for k in range(0, n - 1, 2):
+            pair = rho[k] + rho[k + 1]
+            if pair <= 0:
+                break
+            total += 2.0 * pair
+        tau[j] = max(total, 1.0 / (C * n))
+    return tau
+
+
+def batch_means(S):
+    """Mean, per-coordinate standard error and smallest effective sample size of chains S (C, n, d).
+
+    The standard error is the larger of two estimates: batch means (5 batches per chain) and the
+    initial-positive-sequence autocorrelation time (Geyer, 1992); the larger one is kept because both
+    tend to understate the error of slowly mixing chains.
+    """
+    C, n, d = S.shape
+    flat = S.reshape(-1, d)
+    mean = flat.mean(axis=0)
+    if C * n < 2:
+        return mean, np.full(d, np.nan), float("nan")
+    var = flat.var(axis=0, ddof=1)
+    B = max(1, min(n, 5))
     size = n // B
     bm = S[:, :B * size].reshape(C, B, size, d).mean(axis=2).reshape(C * B, d)
-    if C * B < 2:
-        return mean, np.full(d, np.nan), float("nan")
-    se = bm.std(axis=0, ddof=1) / math.sqrt(C * B)
-    var = S.reshape(-1, d).var(axis=0, ddof=1)
+    se_b = bm.std(axis=0, ddof=1) / math.sqrt(C * B) if C * B > 1 else np.zeros(d)
+    se_t = np.sqrt(var * _ips_tau(S) / (C * n)) if n > 1 else np.zeros(d)
+    se = np.maximum(se_b, se_t)
     live = se > 1e-14 * max(1.0, float(np.abs(mean).max()))
     ess = float(np.min(var[live] / se[live] ** 2)) if live.any() else float(C * n)
     return mean, se, min(ess, float(C * n))
@@ -563,7 +628,7 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
     r = MeasureResult(point=mean.reshape(K.shape), measure=measure, method="hit-and-run", exact=False,
                       std_error=se.reshape(K.shape), ess=ess, samples=S.shape[0] * S.shape[1],
                       seconds=time.perf_counter() - t0,
-                      note=f"{S.shape[0]} chains, {how}; standard error by batch means")
+                      note=f"{S.shape[0]} chains, {how}; standard error: max of batch means and autocorrelation time")
     return r if details else r.point
 
 

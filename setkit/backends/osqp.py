@@ -1,9 +1,11 @@
 """Compiled OSQP projection for every set with a linear form.
 
 The KKT system is set up and factorized once per workspace; each call updates
-only the linear term and warm-starts from the previous answer. Tolerances are
-tight (1e-9) with polishing; the status is checked and the feasibility
-residual measured by us before an answer is returned.
+only the linear term and warm-starts from the previous answer. Each solve runs
+at eps 1e-8 and is polished (a successful polish solves the KKT system of the
+identified active set, so the answer is exact up to rounding); when polishing
+does not succeed, the point is re-solved warm at eps 1e-10. The status is
+checked and the feasibility residual measured by us before an answer is returned.
 """
 from __future__ import annotations
 
@@ -15,9 +17,11 @@ import scipy.sparse as sp
 from ..errors import AccuracyWarning, BackendUnavailableError, SolveError
 from . import Backend, register_backend
 
-SETTINGS = dict(verbose=False, eps_abs=1e-9, eps_rel=1e-9, eps_prim_inf=1e-10, eps_dual_inf=1e-10,
+SETTINGS = dict(verbose=False, eps_abs=1e-8, eps_rel=1e-8, eps_prim_inf=1e-10, eps_dual_inf=1e-10,
                 polishing=True, polish_refine_iter=10, max_iter=200_000, warm_starting=True,
-                adaptive_rho=True, check_termination=25)
+                adaptive_rho=True, check_termination=10)
+# when polishing does not succeed the answer is only eps-accurate: re-solve (warm) at these tolerances
+TIGHT = dict(eps_abs=1e-10, eps_rel=1e-10)
 
 
 @register_backend("osqp")
@@ -67,8 +71,15 @@ class OsqpBackend(Backend):
             q = np.concatenate([-y, np.zeros(f.n_aux)])
             self.solver.update(q=q)
             res = self.solver.solve(raise_error=False)
-            status = res.info.status
             ok = res.info.status_val == self._osqp.constant("OSQP_SOLVED")
+            tightened = False
+            if not (ok and res.info.status_polish == 1):
+                self.solver.update_settings(**TIGHT)
+                res = self.solver.solve(raise_error=False)
+                self.solver.update_settings(eps_abs=SETTINGS["eps_abs"], eps_rel=SETTINGS["eps_rel"])
+                ok = res.info.status_val == self._osqp.constant("OSQP_SOLVED")
+                tightened = True
+            status = res.info.status
             z = res.x
             if z is None or not np.all(np.isfinite(z)):
                 raise SolveError(f"osqp ({self.node.label}): projection failed with status {status!r}; "
@@ -84,5 +95,6 @@ class OsqpBackend(Backend):
             out[i] = z[:f.n_x]
             stat.append("solved" if ok else status)
             iters.append(int(res.info.iter))
-            bstat.append(f"{status}; polish={res.info.status_polish}")
+            bstat.append(f"{status}; polish={res.info.status_polish}"
+                         + ("; re-solved at eps 1e-10" if tightened else ""))
         return out, {"status": stat, "iterations": iters, "backend_status": bstat}

@@ -35,59 +35,51 @@ class ReferenceBackend(Backend):
             raise BackendUnavailableError("backend 'reference' needs cvxpy: pip install cvxpy.") from exc
         self.cp = cp
         self._problems = {}
+        self._set_scale = max(1.0, float(node.scale()))
 
     # -- problem construction -------------------------------------------------
-    def _variable(self):
-        # z = sc * w: for projections of far points the solver can work on w = z / |y|, of order 1
-        # when the answer is as large as y (with z itself as the variable Clarabel lost digits on
-        # far points of sets with unbounded coordinates, status still optimal)
+    def _variable(self, s=1.0):
         cp = self.cp
         d, shape = self.node.dim, self.node.shape
-        w = cp.Variable(d)
-        sc = cp.Parameter(nonneg=True, value=1.0)
-        z = sc * w
-        x = z if shape == (d,) else cp.reshape(z, shape, order="C")
+        z = cp.Variable(d)
+        # projections work on z = x / s with s the set's data scale, so that z = O(1)
+        # (linear minimization stays unscaled: Clarabel failed on some degenerate scaled LPs)
+        xz = z if s == 1.0 else s * z
+        x = xz if shape == (d,) else cp.reshape(xz, shape, order="C")
         cons = self.node.cvxpy_constraints(x)
-        return z, w, sc, cons
+        return z, cons
 
     def _problem(self, op):
         if op in self._problems:
             return self._problems[op]
         cp = self.cp
-        z, w, sc, cons = self._variable()
+        z, cons = self._variable(self._set_scale if op == "project" else 1.0)
         p = cp.Parameter(self.node.dim)
-        a = cp.Parameter(nonneg=True, value=1.0)
+        inv = cp.Parameter(nonneg=True, value=1.0)
         if op == "project":
-            # 0.5 ||z/s - y/s||^2 with z = sc w, a = sc / s: well conditioned for far points
-            prob = cp.Problem(cp.Minimize(0.5 * cp.sum_squares(a * w - p)), cons)
+            # expanded objective (0.5 ||x||^2 - <y, x>) / (s t) with x = s z and
+            # t = max(1, s, |y|_inf): 0.5 (s/t) ||z||^2 - <y/t, z>. The constant ||y||^2 is dropped
+            # and no auxiliary equality z/t - y/t is formed, which keeps Clarabel accurate to
+            # ~1e-8 of the set's scale for far points (the form ||z/t - y/t||^2 lost ~1e-6 of |y|)
+            prob = cp.Problem(cp.Minimize(0.5 * inv * cp.sum_squares(z) - p @ z), cons)
         else:
-            prob = cp.Problem(cp.Minimize(p @ w), cons)
-        self._problems[op] = (prob, z, p, (sc, a), cons)
+            prob = cp.Problem(cp.Minimize(p @ z), cons)
+        self._problems[op] = (prob, z, p, inv, cons)
         return self._problems[op]
 
     def _solve(self, op, v):
         cp = self.cp
-        prob, z, p, (sc, a), cons = self._problem(op)
+        prob, z, p, inv, cons = self._problem(op)
         scale = max(1.0, float(np.abs(v).max(initial=0.0)))
+        if op == "project":
+            scale = max(scale, self._set_scale)
         p.value = v / scale
-        # variable scalings to try: the answer as large as y (far points of unbounded sets), then
-        # the answer of order 1 (far points of bounded sets, where z / |y| would be tiny)
-        tries = (scale, 1.0) if (op == "project" and scale > 1.0) else (1.0,)
-        for k, sv in enumerate(tries):
-            sc.value = sv
-            a.value = sv / scale if op == "project" else 1.0
-            try:
-                with warnings.catch_warnings():
-                    if k + 1 < len(tries):   # a first try that is not clean is retried silently
-                        warnings.simplefilter("ignore", UserWarning)
-                    prob.solve(solver=cp.CLARABEL, **CLARABEL_SETTINGS)
-            except cp.error.SolverError as exc:
-                if k + 1 < len(tries):
-                    continue
-                raise SolveError(f"reference ({self.node.label}): Clarabel failed on {op}: {exc}",
-                                 status="solver_error") from None
-            if prob.status == cp.OPTIMAL:
-                break
+        inv.value = self._set_scale / scale
+        try:
+            prob.solve(solver=cp.CLARABEL, **CLARABEL_SETTINGS)
+        except cp.error.SolverError as exc:
+            raise SolveError(f"reference ({self.node.label}): Clarabel failed on {op}: {exc}",
+                             status="solver_error") from None
         status = prob.status
         if status in (cp.UNBOUNDED, cp.UNBOUNDED_INACCURATE):
             raise UnboundedDirectionError(
@@ -104,6 +96,8 @@ class ReferenceBackend(Backend):
                 raise SolveError(f"reference ({self.node.label}): {op} did not solve cleanly "
                                  f"(status {status!r}).", status=status)
         x = np.array(z.value, dtype=float)
+        if op == "project":
+            x *= self._set_scale
         resid = max((float(np.max(c.violation(), initial=0.0)) for c in cons), default=0.0)
         xs = max(1.0, float(np.abs(x).max(initial=0.0)))
         if resid > 1e-6 * xs:

@@ -52,6 +52,21 @@ def cached(node, key, build):
     return store[key]
 
 
+def lp_form(node):
+    """A linear form of ``node`` for LPs: its ``linear_form()``, else its optional ``extended_form()`` hook.
+
+    A family whose only linear description needs auxiliary variables (an extended
+    formulation, e.g. a permutahedron as the image of the Birkhoff polytope) may
+    offer it as ``extended_form()`` without declaring a ``linear_form()``; then the
+    family itself keeps its native routes, and combinators still get one LP.
+    """
+    f = node.linear_form()
+    if f is None:
+        hook = getattr(node, "extended_form", None)
+        f = hook() if callable(hook) else None
+    return f
+
+
 def part_violation(part, X):
     """A part's violation of each row, NaN where the part has no independent check."""
     if part.routes()["violation"].provider == "none":

@@ -37,7 +37,7 @@ from ..errors import AccuracyWarning, SolveError
 from ..families import Family, kernel, register
 from ..forms import LinearForm
 from ..kernels.splitting import project_linear_image
-from . import cached, loose_of, part_violation
+from . import cached, loose_of, lp_form, part_violation
 
 
 @register("affine")
@@ -128,7 +128,7 @@ class ScaledSet(AffineImage):
 
     def linear_form(self):
         def build():
-            f = self.part.linear_form()
+            f = lp_form(self.part)
             if f is None:
                 return None
             a, s, nx = self.scale_factor, self.shift, f.n_x
@@ -220,7 +220,7 @@ class LinearImage(AffineImage):
 
     def linear_form(self):
         def build():
-            f = self.part.linear_form()
+            f = lp_form(self.part)
             if f is None:
                 return None
             m = self.matrix.shape[0]
@@ -294,7 +294,7 @@ def make_affine(part, scale=1.0, shift=None, matrix=None, accuracy=1e-7, max_ite
     # projected gradient when the part projects natively (exact certificate, no degenerate QP);
     # OSQP on the composed form when the part has a linear form but no fast projection
     native = "project" in part.kernels
-    cls = LinearImageGradient if native or part.linear_form() is None else LinearImage
+    cls = LinearImageGradient if native or lp_form(part) is None else LinearImage
     return cls(scale_factor=1.0, shift=s, matrix=M, **kw)
 
 

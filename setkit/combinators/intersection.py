@@ -9,20 +9,22 @@ Description keys::
 
 How each operator is served (chosen once, when the description is read):
 
-* every part has a linear form without auxiliary variables (boxes, simplices,
-  polyhedra...): the forms are merged into one linear form, so the OSQP
-  projection and the HiGHS LMO serve the intersection, compiled once;
-* one part (the *base*, e.g. a permutahedron or a ball) has its own projection
-  and the others are a few linear constraints (at most ``CUT_LIMIT`` rows): the
-  projection solves the dual over the cut multipliers, each step one projection
-  onto the base (:func:`setkit.kernels.splitting.project_with_cuts`);
+* one part (the *base*, e.g. a permutahedron, a ball or a simplex) has its own
+  projection and the others are a few linear constraints (at most ``CUT_LIMIT``
+  rows in all, bounds included): the projection solves the dual over the cut
+  multipliers, each step one projection onto the base
+  (:func:`setkit.kernels.splitting.project_with_cuts`);
+* else, every part has a linear form without auxiliary variables (boxes,
+  simplices, polyhedra...): the forms are merged into one linear form, so the
+  OSQP projection serves the intersection, compiled once;
 * otherwise: Dykstra's method on the parts' own projections
   (:func:`setkit.kernels.splitting.dykstra`).
 
 In every case the LMO and the support function use the merged linear form when
 every part has one (auxiliary variables allowed: extended formulations such as
-a permutahedron written as the image of the Birkhoff polytope), else the cvxpy
-reference. An empty intersection is reported with :class:`EmptySetError` when
+a permutahedron written as the image of the Birkhoff polytope, offered by a
+family's optional ``extended_form()`` hook, see :func:`setkit.combinators.lp_form`),
+else the cvxpy reference. An empty intersection is reported with :class:`EmptySetError` when
 the description is read if the merged linear form is LP-infeasible, and at run
 time when a splitting method diverges.
 
@@ -42,7 +44,7 @@ from ..errors import AccuracyWarning, EmptySetError, SolveError
 from ..families import Family, kernel, register
 from ..forms import LinearForm
 from ..kernels.splitting import dykstra, project_with_cuts
-from . import cached, loose_of, part_violation
+from . import cached, loose_of, lp_form, part_violation
 
 CUT_LIMIT = 64           # a part with at most this many linear rows counts as a few cuts
 FEASIBILITY_CHECK_LIMIT = 200_000   # variables of the merged form up to which emptiness is checked by LP
@@ -174,7 +176,7 @@ class Intersection(Family):
 
     def linear_form(self):
         def build():
-            forms = [p.linear_form() for p in self.parts]
+            forms = [lp_form(p) for p in self.parts]
             if any(f is None for f in forms):
                 return None
             return merge_forms(forms)
@@ -207,7 +209,7 @@ class Intersection(Family):
     def _row_scale(self, Y):
         return np.maximum(max(1.0, self.scale()), np.abs(Y).max(axis=1))
 
-    def _accept(self, X, info, parts, method):
+    def _accept(self, X, info, parts, method, sc):
         """Raise (or warn when loose) unless every row converged; returns (X, info for Details)."""
         status = info["status"]
         bad = [i for i, s in enumerate(status) if s != "solved"]
@@ -222,8 +224,8 @@ class Intersection(Family):
                    f"{len(status)} points within {self.max_iterations} steps (row {i}: duality gap {g:.3g}, "
                    f"residual {r:.3g}). Raise max_iterations or accuracy in the description, or call "
                    f"with_backends(project=\"reference\").")
-            tol = self.accuracy * float(self._row_scale(X[i:i + 1])[0])
-            if loose_of(parts) and r <= 1e3 * tol and g <= 0.5 * (1e3 * tol) ** 2:
+            tol = self.accuracy * float(sc[i])
+            if loose_of(parts) and r <= 1e3 * self.accuracy * max(1.0, self.scale()) and abs(g) <= 0.5 * (1e3 * tol) ** 2:
                 warnings.warn(msg, AccuracyWarning, stacklevel=4)
             else:
                 raise SolveError(msg, status="not_converged")
@@ -249,9 +251,11 @@ class CutIntersection(Intersection):
         def proj(Z):
             return base._run("project", Z)[0]
 
-        X, info = project_with_cuts(proj, Y, self.cut_matrix, self.cut_rhs, self.n_eq, self._row_scale(Y),
-                                    accuracy=self.accuracy, max_iterations=self.max_iterations)
-        return self._accept(X, info, parts, "cut dual")
+        sc = self._row_scale(Y)
+        X, info = project_with_cuts(proj, Y, self.cut_matrix, self.cut_rhs, self.n_eq, sc,
+                                    accuracy=self.accuracy, max_iterations=self.max_iterations,
+                                    feasibility_scale=max(1.0, self.scale()))
+        return self._accept(X, info, parts, "cut dual", sc)
 
 
 @dataclass(frozen=True, eq=False, kw_only=True)
@@ -262,9 +266,10 @@ class SplitIntersection(Intersection):
     def project(self, Y, parts):
         """Dykstra's alternating projections, stopped on the duality gap and residual, O(sweeps * sum of part costs)."""
         projs = [(lambda Z, p=p: p._run("project", Z)[0]) for p in parts]
-        X, info = dykstra(projs, Y, self._row_scale(Y), accuracy=self.accuracy,
-                          max_iterations=self.max_iterations)
-        return self._accept(X, info, parts, "Dykstra")
+        sc = self._row_scale(Y)
+        X, info = dykstra(projs, Y, sc, accuracy=self.accuracy,
+                          max_iterations=self.max_iterations, feasibility_scale=max(1.0, self.scale()))
+        return self._accept(X, info, parts, "Dykstra", sc)
 
 
 def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None):
@@ -272,19 +277,31 @@ def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None):
     parts = tuple(parts)
     forms = [p.linear_form() for p in parts]
     kw = dict(parts=parts, accuracy=accuracy, max_iterations=max_iterations, name=name)
-    if all(f is not None for f in forms):
-        merged = merge_forms(forms)
+    lp_forms = [lp_form(p) for p in parts]
+    if all(f is not None for f in lp_forms):
+        merged = merge_forms(lp_forms)
         _check_feasible(merged, parts)
-    if all(f is not None and f.n_aux == 0 for f in forms):
-        return Intersection(**kw)
     cuts = [cut_rows(f) if f is not None and f.n_aux == 0 else None for f in forms]
     others = [i for i, c in enumerate(cuts) if c is None]
-    if len(others) == 1 and len(parts) > 1:
-        A = np.vstack([c[0] for c in cuts if c is not None])
-        rhs = np.concatenate([c[1] for c in cuts if c is not None])
-        eq = np.concatenate([np.arange(c[0].shape[0]) < c[2] for c in cuts if c is not None])
-        order = np.concatenate([np.flatnonzero(eq), np.flatnonzero(~eq)])
-        return CutIntersection(base=others[0], cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()), **kw)
+    native = [i for i, p in enumerate(parts) if "project" in p.kernels]
+    base = None
+    if len(parts) > 1:
+        if len(others) == 1:
+            base = others[0]
+        elif not others and native:
+            # every part is a few linear rows: the part with the most rows and its own projection is the base
+            base = max(native, key=lambda i: cuts[i][0].shape[0])
+    if base is not None:
+        rest = [cuts[i] for i in range(len(parts)) if i != base]
+        n_rows = sum(c[0].shape[0] for c in rest)
+        if 0 < n_rows <= CUT_LIMIT and (base in native or any(f is None for f in forms)):
+            A = np.vstack([c[0] for c in rest])
+            rhs = np.concatenate([c[1] for c in rest])
+            eq = np.concatenate([np.arange(c[0].shape[0]) < c[2] for c in rest])
+            order = np.concatenate([np.flatnonzero(eq), np.flatnonzero(~eq)])
+            return CutIntersection(base=base, cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()), **kw)
+    if all(f is not None and f.n_aux == 0 for f in forms):
+        return Intersection(**kw)
     return SplitIntersection(**kw)
 
 

@@ -25,7 +25,7 @@ import numpy as np
 
 from ..families import Family, kernel, register
 from ..forms import stack_blocks
-from . import cached, node_key, part_violation
+from . import cached, lp_form, node_key, part_violation
 
 
 @register("product")
@@ -99,7 +99,7 @@ class Product(Family):
 
     def linear_form(self):
         def build():
-            forms = [b.linear_form() for b in self.blocks]
+            forms = [lp_form(b) for b in self.blocks]
             if any(f is None for f in forms):
                 return None
             return stack_blocks([forms[g] for g in self.layout])

@@ -75,24 +75,28 @@ def _dir_deriv(y, p, d, t, tail, head, lo, hi, s):
 
 
 @njit(cache=True)
-def _matvec(d, free, tail, head, mu, out):
+def _matvec(d, ft, fh, nf, mu, out):
     for v in range(d.size):
         out[v] = mu * d[v]
-    for e in range(free.size):
-        if free[e]:
-            w = d[tail[e]] - d[head[e]]
-            out[tail[e]] += w
-            out[head[e]] -= w
+    for k in range(nf):
+        a, b = ft[k], fh[k]
+        w = d[a] - d[b]
+        out[a] += w
+        out[b] -= w
 
 
 @njit(cache=True)
-def _cg(r, free, tail, head, mu, rel, max_it, d, res, z, q, w, diag):
+def _cg(r, free, tail, head, mu, rel, max_it, d, res, z, q, w, diag, ft, fh):
     """Solve (B D B^T + mu I) d = r by Jacobi-preconditioned CG to ||res|| <= rel ||r||."""
     n = r.size
     for v in range(n):
         diag[v] = mu
+    nf = 0
     for e in range(free.size):
-        if free[e]:
+        if free[e] and tail[e] != head[e]:
+            ft[nf] = tail[e]
+            fh[nf] = head[e]
+            nf += 1
             diag[tail[e]] += 1.0
             diag[head[e]] += 1.0
     rr0 = 0.0
@@ -108,7 +112,7 @@ def _cg(r, free, tail, head, mu, rel, max_it, d, res, z, q, w, diag):
     target = rel * rel * rr0
     it = 0
     while it < max_it:
-        _matvec(q, free, tail, head, mu, w)
+        _matvec(q, ft, fh, nf, mu, w)
         qw = 0.0
         for v in range(n):
             qw += q[v] * w[v]
@@ -135,137 +139,166 @@ def _cg(r, free, tail, head, mu, rel, max_it, d, res, z, q, w, diag):
 
 
 @njit(cache=True)
-def _gauss_seidel(y, p, tail, head, lo, hi, s, indptr, adj_edge, adj_out, bk_t, bk_k):
-    """One sweep of exact coordinate maximization of g: node by node, solve balance_v(p_v) = s_v.
+def _solve_shift(ta, tL, tU, nb, target, bt, bd):
+    """The shift lam nearest to 0 with sum_k clip(ta_k - lam, tL_k, tU_k) = target.
 
-    With a_k, L_k, U_k per incident edge, balance_v(q) = sum_k clip(a_k - q, L_k, U_k) is
-    non-increasing and piecewise linear; its root is found over the sorted breakpoints.
-    Returns 2 if some node's balance cannot reach s_v (empty set), else 0.
+    The left side is non-increasing and piecewise linear in lam; the root is found
+    by walking its sorted breakpoints from 0. Returns (lam, ok).
+    """
+    f = 0.0
+    for k in range(nb):
+        c = ta[k]
+        if c < tL[k]:
+            c = tL[k]
+        elif c > tU[k]:
+            c = tU[k]
+        f += c
+    if f == target:
+        return 0.0, True
+    if f > target:
+        sgn = 1.0       # walk right: f decreases
+    else:
+        sgn = -1.0      # walk left: f increases
+    # breakpoints on the walking side, with the slope change met when passing them
+    m = 0
+    slope = 0.0         # d f / d lam just beyond 0 on the walking side
+    for k in range(nb):
+        u = ta[k] - tU[k]       # for lam < u the term sits at U
+        l = ta[k] - tL[k]       # for lam > l the term sits at L
+        if sgn > 0:
+            if u <= 0.0 and 0.0 < l:
+                slope -= 1.0
+            if u > 0.0 and u < np.inf:
+                bt[m] = u
+                bd[m] = -1.0
+                m += 1
+            if l > 0.0 and l < np.inf:
+                bt[m] = l
+                bd[m] = 1.0
+                m += 1
+        else:
+            if u < 0.0 and 0.0 <= l:
+                slope -= 1.0
+            if u < 0.0 and u > -np.inf:
+                bt[m] = -u
+                bd[m] = 1.0
+                m += 1
+            if l < 0.0 and l > -np.inf:
+                bt[m] = -l
+                bd[m] = -1.0
+                m += 1
+    order = np.argsort(bt[:m])
+    pos = 0.0           # distance walked
+    for j in range(m):
+        dist = bt[order[j]]
+        f_next = f + sgn * slope * (dist - pos)
+        if (sgn > 0 and f_next <= target) or (sgn < 0 and f_next >= target):
+            if slope != 0.0:
+                return sgn * (pos + (target - f) / (sgn * slope)), True
+            return sgn * dist, True
+        f = f_next
+        pos = dist
+        slope += bd[order[j]]
+    if slope != 0.0:
+        return sgn * (pos + (target - f) / (sgn * slope)), True
+    return 0.0, False
+
+
+@njit(cache=True)
+def _components(free, tail, head, nn, parent, comp):
+    """Connected components of the free edges (union-find); comp[v] in 0..k-1. Returns k."""
+    for v in range(nn):
+        parent[v] = v
+    for e in range(free.size):
+        if free[e]:
+            a = tail[e]
+            while parent[a] != a:
+                parent[a] = parent[parent[a]]
+                a = parent[a]
+            b = head[e]
+            while parent[b] != b:
+                parent[b] = parent[parent[b]]
+                b = parent[b]
+            if a != b:
+                parent[a] = b
+    k = 0
+    for v in range(nn):
+        comp[v] = -1
+    for v in range(nn):
+        a = v
+        while parent[a] != a:
+            a = parent[a]
+        if comp[a] < 0:
+            comp[a] = k
+            k += 1
+        comp[v] = comp[a]
+    return k
+
+
+@njit(cache=True)
+def _block_sweep(y, p, tail, head, lo, hi, s, indptr, adj_edge, adj_out, comp, ncomp, r, tol,
+                 c_ptr, c_nodes, ta, tL, tU, bt, bd, fill):
+    """Exact dual ascent along component shifts: for each component c of the free edges with a
+    nonzero net imbalance, add to the potentials of c the shift that balances c as a whole
+    (only the edges crossing c's boundary change). Returns False if some component cannot balance.
     """
     nn = s.size
+    # nodes grouped by component
+    for c in range(ncomp + 1):
+        c_ptr[c] = 0
     for v in range(nn):
-        k0, k1 = indptr[v], indptr[v + 1]
-        if k1 == k0:
+        c_ptr[comp[v] + 1] += 1
+    for c in range(ncomp):
+        c_ptr[c + 1] += c_ptr[c]
+    for c in range(ncomp):
+        fill[c] = c_ptr[c]
+    for v in range(nn):
+        c_nodes[fill[comp[v]]] = v
+        fill[comp[v]] += 1
+    for c in range(ncomp):
+        R = 0.0
+        for j in range(c_ptr[c], c_ptr[c + 1]):
+            R += r[c_nodes[j]]
+        if abs(R) <= tol:
             continue
-        q0 = p[v]
-        # value and slope at q0, and the breakpoints
-        f = 0.0
+        target = 0.0
         nb = 0
-        for k in range(k0, k1):
-            e = adj_edge[k]
-            if adj_out[k]:
-                a = y[e] + p[head[e]]
-                L, U = lo[e], hi[e]
-            else:
-                a = p[tail[e]] - y[e]
-                L, U = -hi[e], -lo[e]
-            if tail[e] == head[e]:
-                continue
-            c = a - q0
-            if c < L:
-                c = L
-            elif c > U:
-                c = U
-            f += c
-            if U < np.inf:
-                bk_t[nb] = a - U   # below this the term sits at U; above it the term is free
-                bk_k[nb] = -1      # slope change when passing upward: -1
-                nb += 1
-            if L > -np.inf:
-                bk_t[nb] = a - L   # above this the term sits at L
-                bk_k[nb] = 1
-                nb += 1
-        target = s[v]
-        if f == target:
-            continue
-        # slope just to the right of q0: minus the number of free terms there
-        slope = 0.0
-        for k in range(k0, k1):
-            e = adj_edge[k]
-            if tail[e] == head[e]:
-                continue
-            if adj_out[k]:
-                a = y[e] + p[head[e]]
-                L, U = lo[e], hi[e]
-            else:
-                a = p[tail[e]] - y[e]
-                L, U = -hi[e], -lo[e]
-            if a - U <= q0 and q0 < a - L:
-                slope -= 1.0
-        order = np.argsort(bk_t[:nb])
-        if f > target:
-            # move right: q increases, f decreases
-            q = q0
-            done = False
-            for j in range(nb):
-                t = bk_t[order[j]]
-                if t <= q0:
-                    continue
-                ft = f + slope * (t - q)
-                if ft <= target:
-                    if slope < 0.0:
-                        q = q + (target - f) / slope
-                    else:
-                        q = t
-                    done = True
-                    break
-                f = ft
-                q = t
-                slope += bk_k[order[j]]
-            if not done:
-                if slope < 0.0:
-                    q = q + (target - f) / slope
-                else:
-                    return 2
-            p[v] = q
-        else:
-            # move left: q decreases, f increases; slope just left of q0
-            slope = 0.0
-            for k in range(k0, k1):
+        for j in range(c_ptr[c], c_ptr[c + 1]):
+            v = c_nodes[j]
+            target += s[v]
+            for k in range(indptr[v], indptr[v + 1]):
                 e = adj_edge[k]
-                if tail[e] == head[e]:
-                    continue
+                a_, b_ = tail[e], head[e]
+                if comp[a_] == comp[b_]:
+                    continue        # inside the component: unchanged by the shift
                 if adj_out[k]:
-                    a = y[e] + p[head[e]]
-                    L, U = lo[e], hi[e]
+                    ta[nb] = y[e] - p[a_] + p[b_]
+                    tL[nb] = lo[e]
+                    tU[nb] = hi[e]
                 else:
-                    a = p[tail[e]] - y[e]
-                    L, U = -hi[e], -lo[e]
-                if a - U < q0 and q0 <= a - L:
-                    slope -= 1.0
-            q = q0
-            done = False
-            for jj in range(nb):
-                j = nb - 1 - jj
-                t = bk_t[order[j]]
-                if t >= q0:
-                    continue
-                ft = f - slope * (q - t)
-                if ft >= target:
-                    if slope < 0.0:
-                        q = q + (target - f) / slope
-                    else:
-                        q = t
-                    done = True
-                    break
-                f = ft
-                q = t
-                slope -= bk_k[order[j]]
-            if not done:
-                if slope < 0.0:
-                    q = q + (target - f) / slope
-                else:
-                    return 2
-            p[v] = q
-    return 0
+                    ta[nb] = -(y[e] - p[a_] + p[b_])
+                    tL[nb] = -hi[e]
+                    tU[nb] = -lo[e]
+                nb += 1
+        # internal edges contribute nothing to the component's total balance
+        lam, ok = _solve_shift(ta, tL, tU, nb, target, bt, bd)
+        if not ok:
+            return False
+        if lam != 0.0:
+            for j in range(c_ptr[c], c_ptr[c + 1]):
+                p[c_nodes[j]] += lam
+    return True
 
 
 @njit(cache=True)
 def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
-                    tol_r, tol_gap, max_newton, warm, scale, mu_c, stall_t):
-    """Batched projection; returns X, P (final potentials), iterations, residuals, gaps, status.
+                    tol_r, tol_gap, max_newton, warm, scale, gcomp, gcount, verbose=False):
+    """Batched projection; returns X, P (final potentials), Newton steps, residuals, gaps, status, CG steps.
 
-    Row i starts from the potentials of row i-1 (row 0 from P0) when ``warm``.
+    Each step: (1) primal x(p), balances r; (2) components of the free edges and one exact
+    block shift per imbalanced component; (3) a Newton step on the component-centred
+    balances, solved by CG, with a line search on phi'(t). Row i starts from the potentials
+    of row i-1 (row 0 from P0) when ``warm``.
     """
     b, m = Y.shape
     nn = s.size
@@ -276,8 +309,6 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
     gaps = np.zeros(b)
     status = np.zeros(b, np.int64)
     cgit = np.zeros(b, np.int64)
-    lsit = np.zeros(b, np.int64)
-    gsit = np.zeros(b, np.int64)
     x = np.empty(m)
     free = np.zeros(m, np.int8)
     r = np.empty(nn)
@@ -287,83 +318,77 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
     q = np.empty(nn)
     w = np.empty(nn)
     diag = np.empty(nn)
+    rhs = np.empty(nn)
+    ft = np.empty(m, np.int64)
+    fh = np.empty(m, np.int64)
+    parent = np.empty(nn, np.int64)
+    comp = np.empty(nn, np.int64)
+    csum = np.empty(nn)
+    ccount = np.empty(nn)
+    c_ptr = np.empty(nn + 1, np.int64)
+    c_nodes = np.empty(nn, np.int64)
+    ta = np.empty(2 * m + 1)
+    tL = np.empty(2 * m + 1)
+    tU = np.empty(2 * m + 1)
+    bt = np.empty(4 * m + 2)
+    bd = np.empty(4 * m + 2)
+    fill = np.empty(nn, np.int64)
     maxdeg = 1
     for v in range(nn):
         if indptr[v + 1] - indptr[v] > maxdeg:
             maxdeg = indptr[v + 1] - indptr[v]
-    bk_t = np.empty(2 * maxdeg)
-    bk_k = np.empty(2 * maxdeg)
     p = P0.copy()
-    inv_scale = 1.0 / scale
     for i in range(b):
         y = Y[i]
         if not warm:
             for v in range(nn):
                 p[v] = P0[v]
+        else:
+            # a warm start only seeds the iteration: bound it by what the data can justify
+            # (on a free path, potentials differ by at most |y_e| + |x_e| per edge)
+            ymax = 0.0
+            for e in range(m):
+                if abs(y[e]) > ymax:
+                    ymax = abs(y[e])
+            R = nn * (ymax + scale)
+            for v in range(nn):
+                if p[v] > R:
+                    p[v] = R
+                elif p[v] < -R:
+                    p[v] = -R
+            # keep the warm start only if it balances better than zero potentials
+            _primal(y, p, tail, head, lo, hi, x, free)
+            _balance(x, tail, head, s, r)
+            r_warm = 0.0
+            for v in range(nn):
+                r_warm += r[v] * r[v]
+            for v in range(nn):
+                d[v] = 0.0
+            _primal(y, d, tail, head, lo, hi, x, free)
+            _balance(x, tail, head, s, r)
+            r_zero = 0.0
+            for v in range(nn):
+                r_zero += r[v] * r[v]
+            if r_zero < r_warm:
+                for v in range(nn):
+                    p[v] = 0.0
+        # centre the potentials on every connected component of the graph (g is invariant to
+        # such shifts; centring keeps their magnitude, hence the rounding, at the data's scale)
+        yabs = 0.0
+        for e in range(m):
+            if abs(y[e]) > yabs:
+                yabs = abs(y[e])
         it = 0
         st = 1
         rn = np.inf
         gap = np.inf
-        stalls = 0
-        while it < max_newton:
-            _primal(y, p, tail, head, lo, hi, x, free)
-            _balance(x, tail, head, s, r)
-            rn = 0.0
-            rr = 0.0
-            gap = 0.0
+        while True:
+            for c in range(gcount.size):
+                csum[c] = 0.0
             for v in range(nn):
-                a = abs(r[v])
-                if a > rn:
-                    rn = a
-                rr += r[v] * r[v]
-                gap += p[v] * r[v]
-            gap = abs(gap)
-            if rn <= tol_r and gap <= tol_gap:
-                st = 0
-                break
-            it += 1
-            if stalls > 0:
-                # repair a stalled Newton step with an exact coordinate sweep
-                if _gauss_seidel(y, p, tail, head, lo, hi, s, indptr, adj_edge, adj_out, bk_t, bk_k) == 2:
-                    st = 2
-                    break
-                stalls = 0
-                gsit[i] += 1
-                continue
-            rnorm = np.sqrt(rr)
-            mu = 1e-10 + mu_c * min(1.0, rnorm * inv_scale)
-            eta = min(0.1, rnorm)
-            cgit[i] += _cg(r, free, tail, head, mu, max(eta, 1e-12), 4 * nn + 50, d, res, z, q, w, diag)
-            # line search on phi'(t) = <d, B x(p + t d) - s>, non-increasing in t
-            d0 = 0.0
+                csum[gcomp[v]] += p[v]
             for v in range(nn):
-                d0 += d[v] * r[v]
-            if not d0 > 0.0:
-                stalls = 1
-                continue
-            t = 1.0
-            dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s)
-            if dt < -0.5 * d0:
-                lo_t, lo_v = 0.0, d0
-                hi_t, hi_v = 1.0, dt
-                for _k in range(40):
-                    # regula falsi on the piecewise-linear phi'
-                    t = lo_t + (hi_t - lo_t) * lo_v / (lo_v - hi_v)
-                    if not (t > lo_t and t < hi_t):
-                        t = 0.5 * (lo_t + hi_t)
-                    dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s)
-                    lsit[i] += 1
-                    if dt >= -0.5 * d0 and dt <= 0.5 * d0:
-                        break
-                    if dt > 0.0:
-                        lo_t, lo_v = t, dt
-                    else:
-                        hi_t, hi_v = t, dt
-                if t < stall_t:
-                    stalls = 1
-            for v in range(nn):
-                p[v] += t * d[v]
-        if st == 1 and it >= max_newton:
+                p[v] -= csum[gcomp[v]] / gcount[gcomp[v]]
             _primal(y, p, tail, head, lo, hi, x, free)
             _balance(x, tail, head, s, r)
             rn = 0.0
@@ -373,8 +398,95 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
                     rn = abs(r[v])
                 gap += p[v] * r[v]
             gap = abs(gap)
-            if rn <= tol_r and gap <= tol_gap:
+            # rounding floor of the balances: each sums up to maxdeg terms of size ~ |p| + |y|
+            pmax = 0.0
+            for v in range(nn):
+                if abs(p[v]) > pmax:
+                    pmax = abs(p[v])
+            floor = 8.0 * 2.220446049250313e-16 * maxdeg * (pmax + yabs)
+            if rn <= max(tol_r, floor) and gap <= max(tol_gap, floor * pmax * nn):
                 st = 0
+                break
+            if it >= max_newton:
+                break
+            it += 1
+            # (2) exact shifts of imbalanced components of the free edges
+            ncomp = _components(free, tail, head, nn, parent, comp)
+            for c in range(ncomp):
+                csum[c] = 0.0
+                ccount[c] = 0.0
+            for v in range(nn):
+                csum[comp[v]] += r[v]
+                ccount[comp[v]] += 1.0
+            big = 0.0
+            for c in range(ncomp):
+                if abs(csum[c]) > big:
+                    big = abs(csum[c])
+            if big > tol_r:
+                if not _block_sweep(y, p, tail, head, lo, hi, s, indptr, adj_edge, adj_out, comp, ncomp, r,
+                                    0.1 * tol_r, c_ptr, c_nodes, ta, tL, tU, bt, bd, fill):
+                    st = 2
+                    break
+                _primal(y, p, tail, head, lo, hi, x, free)
+                _balance(x, tail, head, s, r)
+                ncomp = _components(free, tail, head, nn, parent, comp)
+                for c in range(ncomp):
+                    csum[c] = 0.0
+                    ccount[c] = 0.0
+                for v in range(nn):
+                    csum[comp[v]] += r[v]
+                    ccount[comp[v]] += 1.0
+            # (3) Newton step on the component-centred balances
+            rr = 0.0
+            for v in range(nn):
+                w[v] = r[v] - csum[comp[v]] / ccount[comp[v]]
+                rr += w[v] * w[v]
+            rnorm = np.sqrt(rr)
+            if rnorm <= 0.1 * tol_r:
+                continue
+            for v in range(nn):
+                rhs[v] = w[v]
+            eta = min(0.1, rnorm / scale)
+            cgit[i] += _cg(rhs, free, tail, head, 1e-12, max(eta, 1e-13), 4 * nn + 50, d, res, z, q, w, diag, ft, fh)
+            d0 = 0.0
+            for v in range(nn):
+                d0 += d[v] * r[v]
+            if not d0 > 0.0:
+                continue
+            t = 1.0
+            dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s)
+            lo_t, lo_v = 0.0, d0
+            while dt > 0.5 * d0 and t < 1e8:
+                lo_t, lo_v = t, dt
+                t *= 4.0
+                dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s)
+            if dt > 0.5 * d0:
+                t = lo_t
+            elif dt < -0.5 * d0:
+                hi_t, hi_v = t, dt
+                side = 0
+                for _k in range(60):
+                    # Illinois variant of regula falsi on the piecewise-linear, non-increasing phi'
+                    t = lo_t + (hi_t - lo_t) * lo_v / (lo_v - hi_v)
+                    if not (t > lo_t and t < hi_t):
+                        t = 0.5 * (lo_t + hi_t)
+                    dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s)
+                    if dt >= -0.5 * d0 and dt <= 0.5 * d0:
+                        break
+                    if dt > 0.0:
+                        lo_t, lo_v = t, dt
+                        if side == 1:
+                            hi_v *= 0.5
+                        side = 1
+                    else:
+                        hi_t, hi_v = t, dt
+                        if side == -1:
+                            lo_v *= 0.5
+                        side = -1
+            if verbose:
+                print(it, rn, gap, ncomp, t, d0, dt)
+            for v in range(nn):
+                p[v] += t * d[v]
         for e in range(m):
             X[i, e] = x[e]
         for v in range(nn):
@@ -383,7 +495,7 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
         resid[i] = rn
         gaps[i] = gap
         status[i] = st
-    return X, P, iters, resid, gaps, status, cgit, lsit, gsit
+    return X, P, iters, resid, gaps, status, cgit
 
 
 class NetworkProjector:
@@ -392,7 +504,7 @@ class NetworkProjector:
     One instance per thread (it keeps the last potentials for the next call).
     """
 
-    def __init__(self, tail, head, lo, hi, supply, tol=1e-10):
+    def __init__(self, tail, head, lo, hi, supply, tol=1e-12):
         self.tail = np.ascontiguousarray(tail, dtype=np.int64)
         self.head = np.ascontiguousarray(head, dtype=np.int64)
         self.lo = np.ascontiguousarray(lo, dtype=float)
@@ -412,9 +524,13 @@ class NetworkProjector:
         self.data_scale = float(np.abs(fin).max(initial=0.0))
         self.tol = tol
         self.potentials = np.zeros(n)
+        import scipy.sparse as sp
+        from scipy.sparse.csgraph import connected_components
+        G = sp.csr_matrix((np.ones(m), (self.tail, self.head)), shape=(n, n))
+        _, comp = connected_components(G, directed=True, connection="weak")
+        self.gcomp = np.ascontiguousarray(comp, dtype=np.int64)
+        self.gcount = np.bincount(self.gcomp).astype(float)
         self.max_newton = 500
-        self.mu_c = 1.0
-        self.stall_t = 0.05
 
     def project(self, Y, warm=True):
         """Project the rows of Y; returns X and a dict with iterations, residual, gap, status per row."""
@@ -423,12 +539,12 @@ class NetworkProjector:
         tol_r = self.tol * scale
         tol_gap = self.tol * scale * scale * max(1.0, np.sqrt(self.s.size))
         p0 = self.potentials if warm else np.zeros_like(self.potentials)
-        X, P, it, rn, gap, st, cg, ls, gs = project_network(Y, p0, self.tail, self.head, self.lo, self.hi, self.s,
-                                                self.indptr, self.adj_edge, self.adj_out, tol_r, tol_gap,
-                                                self.max_newton, warm, scale, self.mu_c, self.stall_t)
+        X, P, it, rn, gap, st, cg = project_network(Y, p0, self.tail, self.head, self.lo, self.hi, self.s,
+                                                    self.indptr, self.adj_edge, self.adj_out, tol_r, tol_gap,
+                                                    self.max_newton, warm, scale, self.gcomp, self.gcount)
         ok = st == 0
         if ok.any():
             self.potentials = P[np.flatnonzero(ok)[-1]].copy()
         else:
             self.potentials = np.zeros_like(self.potentials)
-        return X, dict(iterations=it, cg_iterations=cg, line_search=ls, sweeps=gs, residual=rn, gap=gap, status=st, tol_r=tol_r, tol_gap=tol_gap)
+        return X, dict(iterations=it, cg_iterations=cg, residual=rn, gap=gap, status=st, tol_r=tol_r, tol_gap=tol_gap)

@@ -7,19 +7,89 @@ breakpoint search.
 from __future__ import annotations
 
 import numpy as np
+from numba import njit
+
+# Michelot passes allowed before falling back to the sort-based threshold
+_MAX_PASSES = 64
+
+
+@njit(cache=True)
+def _simplex_tau(y, total, buf):
+    """Threshold tau with sum max(y - tau, 0) = total (total > 0), by Michelot's fixed point.
+
+    tau = (sum_{S} y - total) / |S| over S = {y > tau}, starting from S = all;
+    tau increases and S shrinks at every pass, so it stops exactly when S is
+    stable. Each pass compacts S into ``buf``. Returns NaN after too many passes
+    (the caller then falls back to sorting). O(n) per pass, few passes in practice.
+    """
+    n = y.size
+    s = 0.0
+    for i in range(n):
+        s += y[i]
+    tau = (s - total) / n
+    m = n
+    src = y
+    for _ in range(_MAX_PASSES):
+        # branch-free compaction of {v > tau} into buf
+        m2 = 0
+        s2 = 0.0
+        for k in range(m):
+            v = src[k]
+            keep = v > tau
+            buf[m2] = v
+            m2 += keep
+            s2 += v * keep
+        if m2 == m:
+            return tau
+        m = m2
+        src = buf
+        tau = (s2 - total) / m
+    return np.nan
+
+
+@njit(cache=True)
+def _simplex_rows_nb(Y, total, out):
+    b, n = Y.shape
+    buf = np.empty(n)
+    bad = 0
+    for r in range(b):
+        tau = _simplex_tau(Y[r], total, buf)
+        if np.isnan(tau):
+            bad += 1
+            for j in range(n):
+                out[r, j] = np.nan
+            continue
+        for j in range(n):
+            v = Y[r, j] - tau
+            out[r, j] = v if v > 0.0 else 0.0
+    return bad
 
 
 def project_simplex_rows(Y: np.ndarray, total: float) -> np.ndarray:
     """Project each row of Y onto {x >= 0, sum x = total}.
 
-    Sort-based threshold (Held, Wolfe and Crowder 1974; Duchi et al. 2008):
-    x = max(y - tau, 0) with tau from the sorted prefix sums. O(b n log n).
+    x = max(y - tau, 0) with the threshold tau of the KKT conditions found by
+    Michelot's fixed point in compiled code (expected O(n) per row); rows where
+    it needs too many passes fall back to the sorted-prefix threshold
+    (Held, Wolfe and Crowder 1974), O(n log n).
     """
+    Y = np.ascontiguousarray(Y, dtype=float)
     b, n = Y.shape
     if total == 0.0:
         return np.zeros_like(Y)
-    if b == 1 and n > 4096:
-        return project_simplex_large(Y[0], total)[None, :]
+    out = np.empty_like(Y)
+    bad = _simplex_rows_nb(Y, float(total), out)
+    if bad:
+        rows = np.flatnonzero(np.isnan(out[:, 0]))
+        out[rows] = project_simplex_sorted(Y[rows], total)
+    return out
+
+
+def project_simplex_sorted(Y: np.ndarray, total: float) -> np.ndarray:
+    """Rows of Y onto {x >= 0, sum x = total} by the sorted-prefix threshold, O(b n log n)."""
+    b, n = Y.shape
+    if total == 0.0:
+        return np.zeros_like(Y)
     U = -np.sort(-Y, axis=1)
     css = np.cumsum(U, axis=1)
     css -= total
@@ -89,7 +159,7 @@ def capped_threshold(y, lo, hi, w, total):
     # on (L, U) every remaining coordinate has a constant status: solve the linear equation
     if idx.size:
         yi, li, hi_, wi = y[idx], lo[idx], hi[idx], w[idx]
-        mid = (L + U) / 2 if np.isfinite(L) and np.isfinite(U) else (L + 1 if np.isfinite(L) else U - 1)
+        mid = _interior_point(L, U)
         xm = yi - mid * wi
         at_hi = xm >= hi_
         at_lo = xm <= li
@@ -141,20 +211,233 @@ def capped_threshold_rows(Y, lo, hi, w, total):
     return lam
 
 
+def _interior_point(L, U):
+    """A point strictly inside (L, U) (ends may be infinite), safe for huge magnitudes."""
+    if np.isfinite(L) and np.isfinite(U):
+        return 0.5 * (L + U)
+    if np.isfinite(L):
+        return L + max(1.0, abs(L))
+    if np.isfinite(U):
+        return U - max(1.0, abs(U))
+    return 0.0
+
+
+@njit(cache=True)
+def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
+    """Median of up to 15 random breakpoints strictly inside (L, U); NaN if there is none."""
+    cnt = 0
+    for _ in range(60):
+        seed[0] = seed[0] * 6364136223846793005 + 1442695040888963407   # int64 LCG, wraps
+        r = (seed[0] >> 20) & 0x7FFFFFFFFFF
+        j = idx[r % m]
+        if (seed[0] >> 63) & 1:
+            bp = (y[j] - hi[j]) / w[j]
+        else:
+            bp = (y[j] - lo[j]) / w[j]
+        if bp > L and bp < U:
+            samp[cnt] = bp
+            cnt += 1
+            if cnt == 15:
+                break
+    if cnt == 0:
+        for k in range(m):
+            j = idx[k]
+            bp = (y[j] - hi[j]) / w[j]
+            if bp > L and bp < U:
+                return bp
+            bp = (y[j] - lo[j]) / w[j]
+            if bp > L and bp < U:
+                return bp
+        return np.nan
+    return np.sort(samp[:cnt])[cnt // 2]
+
+
+@njit(cache=True)
+def _capped_lambda(y, lo, hi, w, total, idx):
+    """Multiplier of the capped weighted simplex; see :func:`_capped_search`.
+
+    Long vectors first solve the same problem on a random sample of 1024
+    coordinates (with the total scaled down) and use its root as the first
+    pivot; the sorted breakpoints of the sample then supply pivots stepping
+    back across the root, so that two full passes settle almost every coordinate.
+    """
+    n = y.size
+    first = np.nan
+    sbp = np.empty(0)
+    if n > 4096:
+        k = 1024
+        ys = np.empty(k)
+        los = np.empty(k)
+        his = np.empty(k)
+        ws = np.empty(k)
+        seed = np.int64(1442695040888963407)
+        smin = 0.0
+        smax = 0.0
+        for t in range(k):
+            seed = seed * 6364136223846793005 + 1442695040888963407
+            j = ((seed >> 20) & 0x7FFFFFFFFFF) % n
+            ys[t] = y[j]
+            los[t] = lo[j]
+            his[t] = hi[j]
+            ws[t] = w[j]
+            smin += ws[t] * los[t]
+            smax += ws[t] * his[t]
+        ts = total * k / n
+        if smin < ts < smax:
+            first = _capped_search(ys, los, his, ws, ts, np.empty(k, np.int64), np.nan, sbp)
+            allbp = np.concatenate(((ys - his) / ws, (ys - los) / ws))
+            sbp = np.sort(allbp[np.isfinite(allbp)])
+    return _capped_search(y, lo, hi, w, total, idx, first, sbp)
+
+
+@njit(cache=True)
+def _capped_search(y, lo, hi, w, total, idx, first, sbp):
+    """Multiplier lam with sum w clip(y - lam w, lo, hi) = total, by randomized breakpoint search.
+
+    g(lam) is continuous, piecewise linear and non-increasing with breakpoints
+    (y - hi)/w (leaves the upper bound) and (y - lo)/w (reaches the lower bound).
+    Keep a bracket (L, U) with g(L) > total > g(U); each round takes the median
+    of a small random sample of the breakpoints inside the bracket as pivot and,
+    in one pass over the undecided list ``idx``, moves every coordinate whose
+    status is constant on the bracket into running sums while evaluating g at
+    the pivot on the others. Expected O(n); once no breakpoint is left inside
+    the bracket, g is linear there and the root is solved exactly.
+    Requires finite lo, w > 0 and sum w lo <= total <= sum w hi.
+    """
+    n = y.size
+    for i in range(n):
+        idx[i] = i
+    m = n
+    fixed = 0.0
+    free_c = 0.0
+    free_s = 0.0
+    L = -np.inf
+    U = np.inf
+    seed = np.full(1, 88172645463325252, np.int64)
+    samp = np.empty(15)
+    step = 1
+    piv = first
+    if np.isnan(piv) or not np.isfinite(piv):
+        piv = _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp)
+    while not np.isnan(piv):
+        m2 = 0
+        gk = 0.0
+        fixed_lo = 0.0
+        if L == -np.inf and U == np.inf:
+            # nothing can be settled yet: evaluate only (a cheaper loop)
+            for k in range(m):
+                j = idx[k]
+                gk += w[j] * min(max(y[j] - piv * w[j], lo[j]), hi[j])
+            m2 = m
+        for k in range(m if m2 == 0 else 0):
+            j = idx[k]
+            yj = y[j]
+            hj = hi[j]
+            lj = lo[j]
+            wj = w[j]
+            # branch-free (integer flags, selects): data-dependent branches cost more than the arithmetic
+            a = yj - hj
+            b = yj - lj
+            Uw = U * wj
+            Lw = L * wj
+            f_hi = np.int64(a >= Uw)                                     # at the upper bound on (L, U)
+            f_lo = np.int64(b <= Lw) * (1 - f_hi)                        # at the lower bound on (L, U)
+            f_free = np.int64(a <= Lw) * np.int64(b >= Uw) * (1 - f_hi) * (1 - f_lo)   # free on (L, U)
+            keep = 1 - f_hi - f_lo - f_free
+            fixed += wj * hj if f_hi else 0.0
+            fixed_lo += wj * lj if f_lo else 0.0
+            free_c += wj * yj if f_free else 0.0
+            free_s += wj * wj if f_free else 0.0
+            idx[m2] = j
+            m2 += keep
+            x = min(max(yj - piv * wj, lj), hj)
+            gk += wj * x if keep else 0.0
+        m = m2
+        fixed += fixed_lo
+        g = fixed + free_c - piv * free_s + gk
+        if g > total:
+            L = piv
+        elif g < total:
+            U = piv
+        else:
+            return piv
+        if m == 0:
+            break
+        piv = np.nan
+        if sbp.size and (L == -np.inf or U == np.inf):
+            # one-sided bracket: step back across the root along the sample's breakpoints,
+            # 4, 16, 64, ... sample breakpoints away (a few of all breakpoints in between)
+            step *= 4
+            if U < np.inf:
+                r = np.searchsorted(sbp, U) - step
+                if r >= 0:
+                    piv = sbp[r]
+            else:
+                r = np.searchsorted(sbp, L, side="right") + step - 1
+                if r < sbp.size:
+                    piv = sbp[r]
+            if not (piv > L and piv < U):
+                piv = np.nan
+        if np.isnan(piv):
+            piv = _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp)
+    if m > 0:
+        # no breakpoint strictly inside (L, U): classify the rest at an interior point
+        if L > -np.inf and U < np.inf:
+            mid = 0.5 * (L + U)
+        elif L > -np.inf:
+            mid = L + max(1.0, abs(L))
+        elif U < np.inf:
+            mid = U - max(1.0, abs(U))
+        else:
+            mid = 0.0
+        for k in range(m):
+            j = idx[k]
+            x = y[j] - mid * w[j]
+            if x >= hi[j]:
+                fixed += w[j] * hi[j]
+            elif x <= lo[j]:
+                fixed += w[j] * lo[j]
+            else:
+                free_c += w[j] * y[j]
+                free_s += w[j] * w[j]
+    if free_s == 0.0:
+        # g is flat (= total) on the bracket: any point of it is a root
+        if L > -np.inf:
+            return L
+        if U < np.inf:
+            return U
+        return 0.0
+    return (fixed + free_c - total) / free_s
+
+
+@njit(cache=True)
+def _capped_rows_nb(Y, lo, hi, w, total, rows, out):
+    b, n = Y.shape
+    idx = np.empty(n, np.int64)
+    for r in rows:
+        lam = _capped_lambda(Y[r], lo, hi, w, total, idx)
+        for j in range(n):
+            out[r, j] = min(max(Y[r, j] - lam * w[j], lo[j]), hi[j])
+
+
 def project_capped(Y, lo, hi, w, total, mode="equal"):
-    """Project rows of Y onto {lo <= x <= hi, <w, x> = total} (mode "equal") or <= total ("at_most")."""
-    X = np.clip(Y, lo, hi)
+    """Project rows of Y onto {lo <= x <= hi, <w, x> = total} (mode "equal") or <= total ("at_most").
+
+    The multiplier of the weighted sum comes from the compiled randomized
+    breakpoint search (expected O(n) per row); lower bounds must be finite,
+    upper bounds may be +inf, weights positive, and the total reachable.
+    """
+    Y = np.ascontiguousarray(Y, dtype=float)
+    lo = np.ascontiguousarray(np.broadcast_to(np.asarray(lo, float), Y.shape[1:]))
+    hi = np.ascontiguousarray(np.broadcast_to(np.asarray(hi, float), Y.shape[1:]))
+    w = np.ascontiguousarray(np.broadcast_to(np.asarray(w, float), Y.shape[1:]))
     if mode == "at_most":
-        need = X @ w > total
-        if not need.any():
+        X = np.clip(Y, lo, hi)
+        rows = np.flatnonzero(X @ w > total)
+        if rows.size == 0:
             return X
-        rows = np.flatnonzero(need)
     else:
+        X = np.empty_like(Y)
         rows = np.arange(Y.shape[0])
-    Ys = Y[rows]
-    if Ys.shape[0] == 1:
-        lam = np.array([capped_threshold(Ys[0], lo, hi, w, total)])
-    else:
-        lam = capped_threshold_rows(Ys, lo, hi, w, total)
-    X[rows] = np.clip(Ys - lam[:, None] * w, lo, hi)
+    _capped_rows_nb(Y, lo, hi, w, float(total), rows.astype(np.int64), X)
     return X

@@ -30,13 +30,17 @@ import numpy as np
 
 __all__ = ["dykstra", "project_with_cuts", "project_linear_image"]
 
+# gaps are sums of products of O(scale) numbers: below ~ a few ulps of scale^2 they are rounding noise,
+# so the gap tolerance never goes below GAP_FLOOR * (number of terms) * scale^2
+GAP_FLOOR = 8 * np.finfo(float).eps
+
 
 def _new_info(b):
     return {"status": ["not_converged"] * b, "iterations": [0] * b,
             "gap": np.full(b, np.nan), "residual": np.full(b, np.nan)}
 
 
-def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, divergence=1e8):
+def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, divergence=1e4, feasibility_scale=None):
     """Dykstra's alternating projections onto K_1 ∩ ... ∩ K_m, batched over rows.
 
     Each sweep projects x + q_i onto K_i and keeps the increment q_i (an outer
@@ -47,8 +51,8 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
         gap = sum_i <q_i, x_i - x>        (no cancellation of large terms)
 
     and the residual is max_i ||x_i - x|| >= max_i dist(x, K_i). A row stops when
-    gap <= (1/2)(accuracy*scale)^2 and residual <= accuracy*scale. O(sweeps * sum of
-    the parts' projection costs).
+    |gap| <= (1/2)(accuracy*scale)^2 and residual <= accuracy*feasibility_scale
+    (default: scale). O(sweeps * sum of the parts' projection costs).
 
     Parameters
     ----------
@@ -69,8 +73,9 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
     info = _new_info(b)
     rows = np.arange(b)
     scale = np.broadcast_to(np.asarray(scale, dtype=float), (b,)).copy()
-    tol_r = accuracy * scale
-    tol_g = 0.5 * tol_r ** 2
+    fs = scale if feasibility_scale is None else np.broadcast_to(np.asarray(feasibility_scale, float), (b,))
+    tol_r = accuracy * fs
+    tol_g = np.maximum(0.5 * (accuracy * scale) ** 2, GAP_FLOOR * m * scale ** 2)
     big = divergence * (scale + np.abs(Y).max(axis=1))
     X = Y.copy()
     Yact = Y.copy()
@@ -85,7 +90,7 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
         diff = Xi - X[None]
         res = np.sqrt(np.einsum("mbd,mbd->mb", diff, diff)).max(axis=0)
         gap = np.einsum("mbd,mbd->b", Q, diff)
-        done = (res <= tol_r[rows]) & (gap <= tol_g[rows])
+        done = (res <= tol_r[rows]) & (np.abs(gap) <= tol_g[rows])
         qmax = np.sqrt(np.einsum("mbd,mbd->mb", Q, Q)).max(axis=0)
         empty = ~done & (qmax > big[rows])
         last = it == max_iterations
@@ -106,74 +111,78 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
 
 
 def project_with_cuts(project_base, Y, A, rhs, n_eq, scale, accuracy=1e-7, max_iterations=2_000,
-                      divergence=1e8):
+                      divergence=1e6, feasibility_scale=None):
     """Projection onto B ∩ {a_j·x = rhs_j (j < n_eq), a_j·x <= rhs_j (j >= n_eq)} by its dual.
 
     Lagrangian dual over the few cut multipliers lam (free for equalities, >= 0 for
     inequalities): x(lam) = proj_B(y - A^T lam) minimizes the Lagrangian over B, the
     dual function g(lam) = (1/2)||x - y||^2 + lam·(A x - rhs) is concave and smooth
-    with gradient A x(lam) - rhs, and is maximized by L-BFGS-B (bounds on lam), then
-    finished by Newton steps on the active cuts with a finite-difference Jacobian
-    (exact for polyhedral B, whose projection is piecewise affine). The returned point
-    lies in B; gap = -lam·(A x - rhs) (duality gap, no cancellation), residual = the
-    largest cut violation (rows of A have unit norm, so this is a distance).
-    O(evaluations * cost of proj_B), a few dozen evaluations per point in practice.
+    with gradient r = A x(lam) - rhs. It is maximized by projected Newton steps on
+    the active cuts (Jacobian of r by finite differences, exact for polyhedral B whose
+    projection is piecewise affine) with an Armijo backtracking on g, falling back to
+    projected gradient steps lam + r/L (L = ||A||_2^2 bounds the curvature since the
+    projection is nonexpansive). The returned point lies in B; gap = -lam·r (duality
+    gap, no cancellation), residual = the largest cut violation (rows of A have unit
+    norm, so this is a distance). A row is accepted when |gap| <= (1/2)(accuracy*scale)^2
+    and residual <= accuracy*feasibility_scale. O(steps * (k + 1) * cost of proj_B) for
+    k cuts; a handful of steps per point in practice (warm-started along the batch).
     """
-    from scipy.optimize import minimize
-
     Y = np.asarray(Y, dtype=float)
     b, d = Y.shape
     A = np.asarray(A, dtype=float)
     rhs = np.asarray(rhs, dtype=float)
     k = A.shape[0]
     scale = np.broadcast_to(np.asarray(scale, dtype=float), (b,))
+    fs = scale if feasibility_scale is None else np.broadcast_to(np.asarray(feasibility_scale, float), (b,))
     out = np.empty_like(Y)
     info = _new_info(b)
-    bounds = [(None, None)] * n_eq + [(0.0, None)] * (k - n_eq)
+    L = max(float(np.linalg.norm(A, 2)) ** 2, 1e-300)
+    ineq = np.arange(k) >= n_eq
     lam_prev = np.zeros(k)
-
-    def viol(r):
-        v = np.abs(r[:n_eq]).max(initial=0.0)
-        return max(v, float(np.maximum(r[n_eq:], 0.0).max(initial=0.0)))
 
     for row in range(b):
         y = Y[row]
-        tol_r = accuracy * scale[row]
-        tol_g = 0.5 * tol_r ** 2
+        tol_r = accuracy * fs[row]
+        tol_g = max(0.5 * (accuracy * scale[row]) ** 2, GAP_FLOOR * k * scale[row] ** 2)
         big = divergence * (scale[row] + np.abs(y).max())
         evals = [0]
 
-        def point(lam):
+        def state(lam):
             evals[0] += 1
-            return project_base((y - A.T @ lam)[None, :])[0]
-
-        def neg_dual(lam):
-            x = point(lam)
+            x = project_base((y - A.T @ lam)[None, :])[0]
             r = A @ x - rhs
-            return -(0.5 * float(np.dot(x - y, x - y)) + float(lam @ r)), -r
+            g = 0.5 * float(np.dot(x - y, x - y)) + float(lam @ r)
+            v = max(float(np.abs(r[~ineq]).max(initial=0.0)), float(np.maximum(r[ineq], 0.0).max(initial=0.0)))
+            return x, r, g, v
 
-        def good(lam):
-            x = point(lam)
-            r = A @ x - rhs
-            return x, r, viol(r), float(-(lam @ r))
+        def newton_phase(lam, x, r, g, v, budget):
+            stop = min(max_iterations, evals[0] + budget)
+            while evals[0] < stop:
+                gap = float(-(lam @ r))
+                if v <= tol_r and abs(gap) <= tol_g:
+                    return "solved", lam, x, r, g, v
+                if np.abs(lam).max(initial=0.0) > big:
+                    return "empty", lam, x, r, g, v
+                lam, x, r, g, v = _dual_step(state, lam, x, r, g, v, ineq, L)
+            gap = float(-(lam @ r))
+            return ("solved" if v <= tol_r and abs(gap) <= tol_g else "not_converged"), lam, x, r, g, v
 
         best = None
-        for lam0 in (lam_prev, np.zeros(k)):
-            res = minimize(neg_dual, lam0, jac=True, method="L-BFGS-B", bounds=bounds,
-                           options=dict(maxiter=max_iterations, ftol=1e-300, gtol=0.1 * tol_r, maxcor=20))
-            lam = np.clip(res.x, [lo if lo is not None else -np.inf for lo, _ in bounds], np.inf)
-            x, r, v, gap = good(lam)
-            lam, x, r, v, gap = _newton_finish(point, A, rhs, n_eq, lam, x, r, v, gap, tol_r, tol_g, viol)
-            if best is None or v < best[3]:
-                best = (lam, x, r, v, gap)
-            if v <= tol_r and gap <= tol_g:
+        for lam0 in ((lam_prev, np.zeros(k)) if np.any(lam_prev) else (np.zeros(k),)):
+            status, lam, x, r, g, v = newton_phase(lam0.copy(), *state(lam0), budget=25 * (k + 2))
+            if status == "not_converged" and evals[0] < max_iterations:
+                # hard geometry (many active cuts, tiny curvature): quasi-Newton on the dual, then finish
+                lam = _lbfgsb_dual(state, lam, ineq, tol_r, big, max_iterations - evals[0])
+                status, lam, x, r, g, v = newton_phase(lam, *state(lam), budget=max_iterations)
+            gap = float(-(lam @ r))
+            if best is None or (status == "solved") or v < best[3]:
+                best = (lam, x, gap, v, status)
+            if status != "not_converged":
                 break
-        lam, x, r, v, gap = best
+        lam, x, gap, v, status = best
         out[row] = x
-        ok = v <= tol_r and gap <= tol_g
-        if ok:
+        if status == "solved":
             lam_prev = lam
-        status = "solved" if ok else ("empty" if np.abs(lam).max(initial=0.0) > big else "not_converged")
         info["status"][row] = status
         info["iterations"][row] = evals[0]
         info["gap"][row] = gap
@@ -181,43 +190,71 @@ def project_with_cuts(project_base, Y, A, rhs, n_eq, scale, accuracy=1e-7, max_i
     return out, info
 
 
-def _newton_finish(point, A, rhs, n_eq, lam, x, r, v, gap, tol_r, tol_g, viol, steps=8):
-    """Newton steps on the active cuts: solve A_S x(lam) = rhs_S with a finite-difference Jacobian."""
-    k = A.shape[0]
-    for _ in range(steps):
-        if v <= tol_r and gap <= tol_g:
-            break
-        active = np.zeros(k, bool)
-        active[:n_eq] = True
-        active[n_eq:] = (lam[n_eq:] > 0) | (r[n_eq:] > 0)
-        S = np.flatnonzero(active)
-        if S.size == 0:
-            break
-        h = max(1e-6, 1e-6 * float(np.abs(lam).max(initial=0.0)))
+def _lbfgsb_dual(state, lam, ineq, tol_r, big, budget):
+    """L-BFGS-B on the negated dual from lam (bounds lam >= 0 on the inequality cuts)."""
+    from scipy.optimize import minimize
+
+    def neg(l):
+        _, r, g, _ = state(l)
+        return -g, -r
+
+    def stop_when_unbounded(intermediate_result):
+        if np.abs(intermediate_result.x).max(initial=0.0) > big:
+            raise StopIteration
+
+    bounds = [(0.0, None) if q else (None, None) for q in ineq]
+    res = minimize(neg, lam, jac=True, method="L-BFGS-B", bounds=bounds, callback=stop_when_unbounded,
+                   options=dict(maxiter=max(1, budget), maxfun=max(1, budget), ftol=1e-300,
+                                gtol=0.1 * tol_r, maxcor=20))
+    out = np.asarray(res.x, dtype=float).copy()
+    out[ineq] = np.maximum(out[ineq], 0.0)
+    return out
+
+
+def _dual_step(state, lam, x, r, g, v, ineq, L):
+    """One ascent step on the concave dual: projected Newton on the active cuts, else projected gradient."""
+    k = lam.size
+    active = ~ineq | (lam > 0) | (r > 0)
+    S = np.flatnonzero(active)
+    if S.size:
+        h = 1e-7 * max(1.0, float(np.abs(lam).max(initial=0.0)))
         J = np.empty((S.size, S.size))
         for c, j in enumerate(S):
             lj = lam.copy()
             lj[j] += h
-            J[:, c] = (A[S] @ point(lj) - rhs[S] - r[S]) / h
+            _, rj, _, _ = state(lj)
+            J[:, c] = (rj[S] - r[S]) / h
+        # J = -A_S D A_S^T is negative semidefinite; a tiny shift keeps the solve well posed
+        mu = 1e-12 * max(1.0, float(np.abs(J).max(initial=0.0)))
         try:
-            step = np.linalg.lstsq(J, -r[S], rcond=1e-12)[0]
+            step = np.linalg.solve(J - mu * np.eye(S.size), -r[S])
         except np.linalg.LinAlgError:
+            step = None
+        if step is not None and np.all(np.isfinite(step)):
+            dlam = np.zeros(k)
+            dlam[S] = step
+            t = 1.0
+            for _ in range(10):
+                new = lam + t * dlam
+                new[ineq] = np.maximum(new[ineq], 0.0)
+                x2, r2, g2, v2 = state(new)
+                if g2 >= g + 1e-4 * float(r @ (new - lam)) or (v2 < 0.5 * v and g2 >= g - 1e-12 * abs(g)):
+                    return new, x2, r2, g2, v2
+                t *= 0.5
+    # projected gradient with a growing step while the dual keeps increasing (1/L always ascends)
+    t = 1.0 / L
+    new = lam + t * r
+    new[ineq] = np.maximum(new[ineq], 0.0)
+    cur = (new,) + state(new)
+    for _ in range(20):
+        t *= 4.0
+        new = lam + t * r
+        new[ineq] = np.maximum(new[ineq], 0.0)
+        nxt = (new,) + state(new)
+        if nxt[3] <= cur[3]:
             break
-        new = lam.copy()
-        new[S] += step
-        new[n_eq:] = np.maximum(new[n_eq:], 0.0)
-        x2, r2, v2, g2 = _eval(point, A, rhs, new, viol)
-        if v2 < v or (v2 <= tol_r and abs(g2) < abs(gap)):
-            lam, x, r, v, gap = new, x2, r2, v2, g2
-        else:
-            break
-    return lam, x, r, v, gap
-
-
-def _eval(point, A, rhs, lam, viol):
-    x = point(lam)
-    r = A @ x - rhs
-    return x, r, viol(r), float(-(lam @ r))
+        cur = nxt
+    return cur
 
 
 def project_linear_image(project_part, support_part, M, shift, Y, scale, accuracy=1e-7,
@@ -246,7 +283,7 @@ def project_linear_image(project_part, support_part, M, shift, Y, scale, accurac
         info["residual"][:] = 0.0
         return out, info
     scale = np.broadcast_to(np.asarray(scale, dtype=float), (b,))
-    tol_g = 0.5 * (accuracy * scale) ** 2
+    tol_g = np.maximum(0.5 * (accuracy * scale) ** 2, GAP_FLOOR * scale ** 2)
     rows = np.arange(b)
     # start from the part's projection of a least-squares preimage
     pre = np.linalg.lstsq(M, (Y - shift).T, rcond=None)[0].T

@@ -84,3 +84,119 @@ def halfspaces(A, b):
 
 def ball(center, radius):
     return Ball(center=np.asarray(center, float), radius=float(radius))
+
+
+REF = dict(project="reference", lmo="reference", support="reference")
+
+
+def points_for(K, rng, n=3, scales=(1e-3, 1.0, 1e3)):
+    """Seeded points near, inside and far from K at several scales, plus a duplicated row (a tie)."""
+    d = K.dim
+    s = max(1.0, K.node.scale())
+    rows = [s * sc * rng.standard_normal((n, d)) for sc in scales]
+    Y = np.concatenate(rows)
+    inside = K.with_backends(**REF, loose=True).project(Y[:n])
+    near = inside + 1e-4 * s * rng.standard_normal(inside.shape)
+    return np.concatenate([Y, inside, near, Y[:1]])
+
+
+def check_against_reference(K, rng, n=3, scales=(1e-3, 1.0, 1e3), rtol=2e-5, check_lmo=True):
+    """Compare project, distance, lmo, support, contains of K with the cvxpy reference (asserts)."""
+    # loose: Clarabel sometimes ends 'optimal_inaccurate' on second-order cones; the answers are still
+    # compared at rtol below, so an inaccurate reference shows up as a failure, not a pass
+    ref = K.with_backends(**REF, loose=True)
+    Y = points_for(K, rng, n, scales)
+    sc = np.maximum(1.0, np.abs(Y).max(axis=1)) * max(1.0, K.node.scale())
+    P, Pr = K.project(Y), ref.project(Y)
+    err = np.linalg.norm(P - Pr, axis=1) / sc
+    assert err.max() <= rtol, f"projection differs from the reference by {err.max():.3g} (relative)"
+    D = K.distance(Y)
+    assert np.all(np.abs(D - np.linalg.norm(Y - Pr, axis=1)) / sc <= rtol)
+    # projections of the reference lie in K; far points do not
+    assert K.contains(Pr, tol=1e-5 * sc).all()
+    far = np.linalg.norm(Y - Pr, axis=1) > 1e-2 * sc
+    assert not K.contains(Y[far]).any()
+    if check_lmo:
+        C = rng.standard_normal((2 * n, K.dim))
+        C[-1] = C[0]                              # a repeated direction
+        L, Lr = K.lmo(C), ref.lmo(C)
+        v, vr = np.einsum("ij,ij->i", C, L), np.einsum("ij,ij->i", C, Lr)
+        cs = np.linalg.norm(C, axis=1) * max(1.0, K.node.scale())
+        assert np.all(np.abs(v - vr) / cs <= rtol), f"lmo values differ by {np.abs(v - vr).max():.3g}"
+        assert np.all(ref.distance(L) / max(1.0, K.node.scale()) <= rtol), "lmo answer is outside the set"
+        S, Sr = K.support(C), ref.support(C)
+        assert np.all(np.abs(S - Sr) / cs <= rtol)
+        # the width sigma(c) + sigma(-c) of a nonempty set is >= 0 (common practice)
+        assert np.all(S + K.support(-C) >= -1e-9 * cs)
+    return P, Pr
+
+
+def _pav_nonincreasing(z):
+    """argmin ||v - z|| over v_1 >= ... >= v_n (pool-adjacent-violators), O(n)."""
+    vals, wts = [], []
+    for zi in z:
+        v, w = float(zi), 1
+        while vals and vals[-1] < v:
+            pv, pw = vals.pop(), wts.pop()
+            v, w = (pv * pw + v * w) / (pw + w), pw + w
+        vals.append(v)
+        wts.append(w)
+    return np.repeat(vals, wts)
+
+
+@dataclass(frozen=True, eq=False, kw_only=True)
+class PermutahedronFixture(Family):
+    """conv{permutations of w}: a private stand-in until the permutahedron family lands."""
+
+    weights: np.ndarray
+    kind: ClassVar[str] = "permutahedron-fixture"
+    traits = frozenset({"polyhedral", "bounded", "permutation_invariant"})
+
+    @property
+    def shape(self):
+        return (self.weights.size,)
+
+    def scale(self):
+        return float(max(1.0, np.abs(self.weights).max()))
+
+    def cvxpy_constraints(self, x):
+        import cvxpy as cp
+        ws = np.sort(self.weights)[::-1]
+        n = ws.size
+        return [cp.sum(x) == ws.sum()] + [cp.sum_largest(x, k) <= ws[:k].sum() for k in range(1, n)]
+
+    def extended_form(self):
+        from setkit.combinators.extended import permutahedron_form
+        return permutahedron_form(self.weights)
+
+    @kernel("project")
+    def project(self, Y):
+        """Sort, then pool-adjacent-violators on y_sorted - w_sorted, O(n log n) per row."""
+        ws = np.sort(self.weights)[::-1]
+        out = np.empty_like(Y)
+        for i, y in enumerate(Y):
+            o = np.argsort(-y, kind="stable")
+            out[i, o] = y[o] - _pav_nonincreasing(y[o] - ws)
+        return out
+
+    @kernel("lmo")
+    def lmo(self, C):
+        """The largest weight at the smallest c (rearrangement inequality), O(n log n)."""
+        ws = np.sort(self.weights)[::-1]
+        out = np.empty_like(C)
+        o = np.argsort(C, axis=1, kind="stable")
+        np.put_along_axis(out, o, np.broadcast_to(ws, C.shape), axis=1)
+        return out
+
+    @kernel("support")
+    def support(self, C):
+        """Sorted c against sorted w, O(n log n)."""
+        return np.sort(C, axis=1) @ np.sort(self.weights)
+
+
+def permutahedron(weights):
+    """The registered permutahedron family when it exists, else the private fixture."""
+    from setkit.families import known_kinds
+    if "permutahedron" in known_kinds():
+        return {"kind": "permutahedron", "weights": list(map(float, weights))}
+    return PermutahedronFixture(weights=np.asarray(weights, float))

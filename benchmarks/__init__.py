@@ -1,0 +1,1 @@
+"""setkit benchmarks: `python -m benchmarks.run --quick | --full`."""

@@ -1,0 +1,462 @@
+"""One command for every benchmark: ``python -m benchmarks.run --quick`` or ``--full``.
+
+For every registered kind (``setkit.families.known_kinds()``) and every operator
+(project, distance, lmo, support, contains), run every implementation that can
+serve it (native kernel, osqp, highs, reference; derived operators through each
+provider of the operator they come from) at growing sizes; measure the median
+time over repeats, the error against the most accurate answer available, the
+peak memory (tracemalloc) and, for native rows, the ratio to a floor (np.sort,
+np.sort + isotonic regression, or one np.sum over the same data). Then check the
+speed targets and write a Markdown report and log-log plots.
+
+Timings on a shared machine are noisy; ratios are measured side by side in one run.
+"""
+from __future__ import annotations
+
+import argparse
+import gc
+import os
+import statistics
+import sys
+import time
+import tracemalloc
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+if __package__ in (None, ""):  # python benchmarks/run.py
+    sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+    __package__ = "benchmarks"
+
+import setkit  # noqa: E402
+from setkit.backends import all_backends  # noqa: E402
+from setkit.errors import SetkitError  # noqa: E402
+from setkit.families import known_kinds  # noqa: E402
+
+from ._workloads import workloads_for  # noqa: E402
+
+OPERATORS = ("project", "distance", "lmo", "support", "contains")
+HERE = os.path.dirname(os.path.abspath(__file__))
+AGREE_RTOL = 2e-5          # same tolerance as setkit.checks.verify
+
+
+@dataclass(frozen=True)
+class Mode:
+    name: str
+    repeats: int            # at most this many timed calls after one warm-up call
+    min_seconds: float      # ... and stop repeating once this much time was spent
+    budget: float           # a generic backend whose call exceeds this stops growing
+    native_budget: float    # same for native kernels
+    memory_limit: float     # measure peak memory only for calls faster than this
+    sizes: str              # "sizes_quick" | "sizes_full"
+
+
+QUICK = Mode("quick", 3, 0.02, 1.0, 5.0, 0.2, "sizes_quick")
+FULL = Mode("full", 7, 0.5, 2.0, 20.0, 1.0, "sizes_full")
+
+
+@dataclass
+class Row:
+    kind: str
+    workload: str
+    op: str
+    backend: str
+    n: int
+    dim: int = 0
+    batch: int = 1
+    status: str = "ok"          # ok | skipped: ... | error: ... | no builder ...
+    seconds: float = float("nan")    # median per call (one call = one batch)
+    setup: float = float("nan")      # first call minus the median (workspace construction)
+    repeats: int = 0
+    error: float = float("nan")      # against the judge
+    judge: str = ""
+    error_ref: float = float("nan")  # against the reference, where it ran
+    agrees: bool | None = None
+    peak_bytes: float = float("nan")
+    floor: str = ""
+    floor_seconds: float = float("nan")
+    ratio_floor: float = float("nan")
+    ratio_ref: float = float("nan")  # reference seconds / this row's seconds
+    route: str = ""
+
+    @property
+    def ran(self) -> bool:
+        return self.status == "ok"
+
+
+@dataclass
+class Result:
+    mode: str
+    rows: list = field(default_factory=list)
+    targets: list = field(default_factory=list)
+    floors: list = field(default_factory=list)   # (n, floor name, seconds) on one vector of n
+    machine: dict = field(default_factory=dict)
+    started: str = ""
+    seconds: float = 0.0
+
+
+# ---------------------------------------------------------------------------------------------
+# implementations to compare
+# ---------------------------------------------------------------------------------------------
+def _direct(node, op) -> list:
+    """Providers serving ``op`` directly: native kernel first, then generic backends by priority."""
+    out = ["native"] if op in node.kernels else []
+    for name, cls in sorted(all_backends().items(), key=lambda kv: kv[1].priority):
+        if op in cls.operators and cls.available() and cls.accepts(node)[0]:
+            out.append(name)
+    return out
+
+
+def candidates(node, op) -> list:
+    """(label, with_backends overrides) for every implementation of ``op`` on ``node``."""
+    direct = _direct(node, op)
+    out = [(p, {op: p}) for p in direct]
+    if op == "distance":
+        for q in _direct(node, "project"):
+            if q == "native" and "native" in direct:
+                continue
+            out.append((f"{q} (via project)", {"distance": "derived", "project": q}))
+    elif op == "support":
+        for q in _direct(node, "lmo"):
+            if q not in direct:
+                out.append((f"{q} (via lmo)", {"support": "derived", "lmo": q}))
+    elif op == "contains":
+        if "distance" in node.kernels and "native" not in direct:
+            out.append(("native (via distance)", {"contains": "derived", "distance": "native"}))
+        for q in _direct(node, "project"):
+            if q == "native" and ("native" in direct or "distance" in node.kernels):
+                continue
+            out.append((f"{q} (via project)", {"contains": "derived", "distance": "derived", "project": q}))
+    return out
+
+
+def _base(label):
+    return label.split(" ")[0]
+
+
+# ---------------------------------------------------------------------------------------------
+# inputs, calls, errors
+# ---------------------------------------------------------------------------------------------
+def make_inputs(K, op, batch, rng):
+    s = max(1.0, float(K.node.scale()))
+    shape = (batch,) + K.shape
+    if op in ("project", "distance"):
+        return 2.0 * s * rng.standard_normal(shape)
+    if op in ("lmo", "support"):
+        return rng.standard_normal(shape)
+    # contains: half the points inside (projections), half far outside
+    Y = 3.0 * s * rng.standard_normal((max(2, batch),) + K.shape)
+    h = Y.shape[0] // 2
+    Y[:h] = K.project(Y[:h])
+    return Y
+
+
+def call(K, op, X):
+    if op == "contains":
+        # the reference answers through an interior-point projection accurate to about 1e-6
+        # relative, so membership is asked at 1e-5 relative (as setkit.checks.verify does)
+        Xf = X.reshape(X.shape[0], -1)
+        tol = 1e-5 * np.maximum(1.0, np.maximum(np.abs(Xf).max(axis=1), float(K.node.scale())))
+        return K.contains(X, tol=tol)
+    return getattr(K, op)(X)
+
+
+def op_error(op, out, ref, X, K) -> float:
+    b = X.shape[0]
+    Xf = X.reshape(b, -1)
+    s = max(1.0, float(K.node.scale()))
+    if op == "contains":
+        return float(np.mean(np.asarray(out) != np.asarray(ref)))
+    if op == "project":
+        scale = np.maximum(1.0, np.abs(Xf).max(axis=1))
+        return float((np.abs(np.reshape(out, (b, -1)) - np.reshape(ref, (b, -1))).max(axis=1) / scale).max())
+    if op == "distance":
+        scale = np.maximum(1.0, np.abs(Xf).max(axis=1))
+        return float((np.abs(np.ravel(out) - np.ravel(ref)) / scale).max())
+    cs = np.linalg.norm(Xf, axis=1) * s
+    if op == "lmo":   # LMO answers may differ on ties: compare objective values
+        v = np.einsum("ij,ij->i", Xf, np.reshape(out, (b, -1)))
+        vr = np.einsum("ij,ij->i", Xf, np.reshape(ref, (b, -1)))
+        return float((np.abs(v - vr) / cs).max())
+    return float((np.abs(np.ravel(out) - np.ravel(ref)) / cs).max())
+
+
+def timed_calls(fn, mode: Mode, budget: float, jit_warmup: bool = False):
+    """One warm-up call (kept as the answer), then repeats; returns (out, first, median, reps)."""
+    t0 = time.perf_counter()
+    out = fn()
+    first = time.perf_counter() - t0
+    times = []
+    if first > budget and jit_warmup:
+        # a compiled kernel pays its JIT compilation on the first call: time one more call
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    elif first <= budget:
+        spent = 0.0
+        while len(times) < mode.repeats and (len(times) < 3 or spent < mode.min_seconds):
+            t0 = time.perf_counter()
+            fn()
+            dt = time.perf_counter() - t0
+            times.append(dt)
+            spent += dt
+            if spent > budget:
+                break
+    med = statistics.median(times) if times else first
+    return out, first, med, max(1, len(times))
+
+
+def peak_memory(fn) -> float:
+    gc.collect()
+    tracemalloc.start()
+    try:
+        fn()
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    return float(peak)
+
+
+# ---------------------------------------------------------------------------------------------
+# floors
+# ---------------------------------------------------------------------------------------------
+def floor_fn(name, X):
+    Xf = np.ascontiguousarray(X.reshape(X.shape[0], -1))
+    if name == "sort":
+        return lambda: np.sort(Xf, axis=1)
+    if name == "sort+isotonic":
+        from scipy.optimize import isotonic_regression
+
+        def f():
+            np.sort(Xf, axis=1)
+            for row in Xf:
+                isotonic_regression(row)
+        return f
+    if name == "pass":
+        return lambda: np.sum(Xf)
+    raise ValueError(f"unknown floor {name!r}; the floors are sort, sort+isotonic, pass.")
+
+
+def time_floor(name, X, mode):
+    fn = floor_fn(name, X)
+    _, _, med, _ = timed_calls(fn, mode, 1e9)
+    return med
+
+
+# ---------------------------------------------------------------------------------------------
+# the sweep
+# ---------------------------------------------------------------------------------------------
+JUDGE_ORDER = ("reference", "native", "osqp", "highs")
+
+
+def _judge(results: dict):
+    """The most accurate answer among those that ran: the reference where it ran, else native."""
+    for want in JUDGE_ORDER:
+        for label, res in results.items():
+            if _base(label) == want and res is not None:
+                return label, res
+    return None, None
+
+
+def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
+    rows = []
+    sizes = getattr(wl, mode.sizes)
+    stopped = {}      # (op, label) -> reason larger sizes are skipped
+    last = {}         # (op, label) -> (n, first-call seconds)
+    missing = [k for k in wl.needs if k not in known_kinds()]
+    if missing:
+        return [Row(wl.kind, wl.label, "-", "-", 0, status=f"not available: needs the kind(s) "
+                                                           f"{', '.join(missing)}, not registered yet")]
+    for n in sizes:
+        rng = np.random.default_rng([seed, n])
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                K = setkit.compile(wl.build(n, rng))
+        except Exception as exc:  # a builder that no longer matches its family is reported, not hidden
+            rows.append(Row(wl.kind, wl.label, "-", "-", n, status=f"error: builder failed: {type(exc).__name__}: "
+                                                                      f"{str(exc)[:160]}"))
+            log(f"  {wl.label} n={n}: builder failed: {exc}")
+            continue
+        for op in ops:
+            X = make_inputs(K, op, wl.batch, rng)
+            cands = candidates(K.node, op)
+            if not cands:
+                rows.append(Row(wl.kind, wl.label, op, "-", n, K.dim, X.shape[0],
+                                status="unsupported: no implementation serves it"))
+                continue
+            outs, op_rows = {}, []
+            for label, over in cands:
+                row = Row(wl.kind, wl.label, op, label, n, K.dim, X.shape[0])
+                op_rows.append(row)
+                outs[label] = None
+                key = (op, label)
+                budget = mode.native_budget if _base(label) == "native" else mode.budget
+                if key in stopped:
+                    row.status = stopped[key]
+                    continue
+                if key in last:
+                    n0, t0 = last[key]
+                    guess = t0 * (n / n0) ** 1.2
+                    if guess > 2 * budget:
+                        row.status = stopped[key] = (f"skipped: predicted {guess:.3g} s per call from n={n0}, "
+                                                     f"over the {budget:g} s budget")
+                        continue
+                try:
+                    Kb = K.with_backends(**over)
+                    row.route = Kb.routes()[op].provider
+                    with warnings.catch_warnings():
+                        warnings.simplefilter("ignore")
+                        out, first, med, reps = timed_calls(lambda: call(Kb, op, X), mode, budget,
+                                                            jit_warmup=_base(label) == "native")
+                        if med < mode.memory_limit:
+                            row.peak_bytes = peak_memory(lambda: call(Kb, op, X))
+                except (SetkitError, ValueError, RuntimeError, ImportError) as exc:
+                    row.status = f"error: {type(exc).__name__}: {str(exc)[:160]}"
+                    stopped[key] = "skipped: failed at a smaller size"
+                    continue
+                outs[label] = out
+                row.seconds, row.setup, row.repeats = med, max(0.0, first - med), reps
+                last[key] = (n, med if _base(label) == "native" else first)
+                if med > budget:
+                    stopped[key] = f"skipped: one call took {med:.3g} s at n={n}, over the {budget:g} s budget"
+            jl, jout = _judge(outs)
+            ref_label = next((lb for lb in outs if _base(lb) == "reference" and outs[lb] is not None), None)
+            # a membership test answered through a projection has the projection's floor
+            via_project = any(r.ran and r.backend == "native (via project)" for r in op_rows)
+            fname = wl.floor("project") if op == "contains" and via_project else wl.floor(op)
+            fsec = time_floor(fname, X, mode) if any(r.ran and _base(r.backend) == "native" for r in op_rows) else None
+            ref_sec = next((r.seconds for r in op_rows if r.backend == ref_label), None)
+            for row in op_rows:
+                if not row.ran:
+                    continue
+                out = outs[row.backend]
+                if jout is not None:
+                    row.judge = jl
+                    row.error = op_error(op, out, jout, X, K)
+                if ref_label is not None:
+                    row.error_ref = op_error(op, out, outs[ref_label], X, K)
+                    tol = 0.0 if op == "contains" else AGREE_RTOL
+                    row.agrees = bool(row.error_ref <= tol)
+                    row.ratio_ref = ref_sec / row.seconds if row.seconds > 0 else float("inf")
+                if _base(row.backend) == "native" and fsec:
+                    row.floor, row.floor_seconds = fname, fsec
+                    row.ratio_floor = row.seconds / fsec
+            rows.extend(op_rows)
+            for r in op_rows:
+                log("  " + short_line(r))
+    return rows
+
+
+def short_line(r: Row) -> str:
+    t = f"{1e3 * r.seconds:10.3f} ms" if r.ran else " " * 13
+    extra = ""
+    if r.ran:
+        extra = f" err={r.error:.1e}" + (f" xfloor={r.ratio_floor:.2f}" if r.floor else "") + \
+                (f" ref/this={r.ratio_ref:.0f}" if r.ratio_ref == r.ratio_ref else "")
+    else:
+        extra = " " + r.status
+    return f"{r.workload[:34]:<34} {r.op:<8} {r.backend[:26]:<26} n={r.n:<8} {t}{extra}"
+
+
+def sweep(mode: Mode, kinds=None, ops=OPERATORS, log=print, seed=0) -> list:
+    rows = []
+    for kind in known_kinds():
+        if kinds and kind not in kinds:
+            continue
+        wls = workloads_for(kind)
+        if not wls:
+            rows.append(Row(kind, kind, "-", "-", 0, status="no benchmark builder for this kind; "
+                                                            "add one in benchmarks/_workloads.py"))
+            log(f"{kind}: no benchmark builder")
+            continue
+        for wl in wls:
+            log(f"{wl.label}:")
+            rows.extend(sweep_workload(wl, mode, log, seed=seed, ops=ops))
+    return rows
+
+
+def floor_table(mode: Mode, seed=0) -> list:
+    """The floors alone on one vector of each size: what no operator on n numbers can beat by much."""
+    from ._workloads import QUICK_SIZES, VECTOR_SIZES
+    out = []
+    for n in (QUICK_SIZES if mode.name == "quick" else VECTOR_SIZES):
+        X = np.random.default_rng([seed, n, 1]).standard_normal((1, n))
+        for name in ("pass", "sort", "sort+isotonic"):
+            out.append((n, name, time_floor(name, X, mode)))
+    return out
+
+
+def machine_stamp() -> dict:
+    import platform
+    import scipy
+    cpu = "unknown"
+    try:
+        with open("/proc/cpuinfo") as fh:
+            for line in fh:
+                if line.startswith("model name"):
+                    cpu = line.split(":", 1)[1].strip()
+                    break
+    except OSError:
+        pass
+    try:
+        load = os.getloadavg()
+    except OSError:
+        load = (float("nan"),) * 3
+    return {"platform": platform.platform(), "python": platform.python_version(), "cpu": cpu,
+            "cores": os.cpu_count(), "numpy": np.__version__, "scipy": scipy.__version__,
+            "setkit": setkit.__version__, "load": f"{load[0]:.2f} {load[1]:.2f} {load[2]:.2f}",
+            "date": time.strftime("%Y-%m-%d %H:%M %Z")}
+
+
+def run(mode="quick", kinds=None, ops=OPERATORS, out_dir=None, targets=True, plots=True, log=print,
+        seed=0, publish=False) -> Result:
+    """Run the benchmarks; write the report to ``out_dir`` (default benchmarks/out); return the rows."""
+    from . import report
+    from . import targets as tg
+    m = {"quick": QUICK, "full": FULL}[mode]
+    res = Result(mode=mode, machine=machine_stamp(), started=time.strftime("%Y-%m-%d %H:%M:%S"))
+    t0 = time.perf_counter()
+    res.floors = floor_table(m, seed)
+    res.rows = sweep(m, kinds, ops, log, seed)
+    if targets:
+        res.targets = tg.check_targets(m, res.rows, log=log)
+    res.seconds = time.perf_counter() - t0
+    out_dir = out_dir or os.path.join(HERE, "out")
+    report.write(res, out_dir, plots=plots)
+    if publish:
+        report.publish(res, out_dir, HERE)
+    log(f"report written to {os.path.join(out_dir, 'RESULTS.md')} ({res.seconds:.1f} s)")
+    return res
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(prog="python -m benchmarks.run",
+                                 description="Time every operator of every registered kind on every backend.")
+    g = ap.add_mutually_exclusive_group()
+    g.add_argument("--quick", action="store_const", dest="mode", const="quick",
+                   help="small sizes, checks that every row runs and agrees with the reference (default)")
+    g.add_argument("--full", action="store_const", dest="mode", const="full",
+                   help="sizes 1e2..1e6, the speed targets at their stated sizes")
+    ap.add_argument("--kinds", help="comma-separated kinds to run (default: every registered kind)")
+    ap.add_argument("--ops", help=f"comma-separated operators (default: {','.join(OPERATORS)})")
+    ap.add_argument("--out", help="output directory (default: benchmarks/out)")
+    ap.add_argument("--no-targets", action="store_true", help="skip the targets section")
+    ap.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
+    ap.add_argument("--publish", action="store_true",
+                    help="also copy the report to benchmarks/RESULTS.md and the plots to benchmarks/plots/")
+    a = ap.parse_args(argv)
+    kinds = set(a.kinds.split(",")) if a.kinds else None
+    ops = tuple(a.ops.split(",")) if a.ops else OPERATORS
+    bad = [o for o in ops if o not in OPERATORS]
+    if bad:
+        ap.error(f"unknown operator(s) {', '.join(bad)}; the operators are {', '.join(OPERATORS)}")
+    res = run(a.mode or "quick", kinds, ops, a.out, targets=not a.no_targets, plots=not a.no_plots,
+              publish=a.publish)
+    bad_rows = [r for r in res.rows if r.status.startswith("error") or r.agrees is False]
+    return 1 if bad_rows else 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,160 @@
+"""The norm ball {x : ||x - center||_p <= radius} for p = 1, 2, inf.
+
+A radius of 0 is allowed: the set is then the single point {center}.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..forms import LinearForm
+from ..kernels.simplex import project_simplex_rows
+from . import Family, kernel, register
+
+NORMS = (1, 2, "inf")
+
+
+@register("ball")
+@dataclass(frozen=True, eq=False, kw_only=True)
+class Ball(Family):
+    """K = {x in R^n : ||x - center||_p <= radius}, p in {1, 2, inf}, radius >= 0.
+
+    Projection: radial scaling (p = 2), clipping (p = inf), or the simplex
+    projection of |y - center| with the signs put back when the point is
+    outside (p = 1), O(n). LMO: center - radius * u with u the unit-norm
+    maximizer of <c, u>; support: <c, center> + radius * ||c||_q with q the
+    dual exponent.
+
+    >>> import setkit
+    >>> K = setkit.compile({"kind": "ball", "dim": 2, "norm": 1, "radius": 1.0})
+    >>> K.project([2.0, 0.5]).tolist()
+    [1.0, 0.0]
+    >>> K.support([3.0, -4.0]).item()
+    4.0
+    """
+
+    center: np.ndarray
+    radius: float
+    norm: object = 2
+    traits = frozenset({"bounded", "centrally_symmetric"})
+
+    @classmethod
+    def from_spec(cls, r):
+        if r.has("dim"):
+            n = r.integer("dim", min=1)
+            c = r.vector_or_scalar("center", n, default=0.0)
+        elif r.has("center"):
+            c = r.array("center", ndim=1)
+            n = c.size
+            if n == 0:
+                r.fail("center", "center must have at least one coordinate; got an empty list.")
+        else:
+            r.fail("dim", "dim is required (or give the center as a list).")
+        norm = r.choice("norm", NORMS, 2)
+        radius = r.number("radius", min=0.0)
+        return cls(center=np.asarray(c, float), radius=radius, norm=norm, name=r.name)
+
+    # -- description -----------------------------------------------------------------------
+    @property
+    def shape(self):
+        return (self.center.size,)
+
+    def has_trait(self, trait):
+        if trait == "polyhedral":
+            return self.norm != 2
+        if trait == "permutation_invariant":
+            return bool(np.all(self.center == self.center[0]))
+        return trait in self.traits
+
+    def scale(self):
+        return float(max(1.0, self.radius, np.abs(self.center).max()))
+
+    def cvxpy_constraints(self, x):
+        import cvxpy as cp
+        p = np.inf if self.norm == "inf" else self.norm
+        return [cp.norm(x - self.center, p) <= self.radius]
+
+    def linear_form(self):
+        n, c, r = self.dim, self.center, self.radius
+        if self.norm == "inf":
+            return LinearForm.build(n, lo=c - r, hi=c + r)
+        if self.norm == 1:
+            # extended formulation z = (x, t): -t <= x - c <= t, sum t <= r, t >= 0
+            import scipy.sparse as sp
+            eye = sp.eye(n, format="csr")
+            A = sp.vstack([sp.hstack([eye, -eye]), sp.hstack([-eye, -eye]),
+                           sp.hstack([sp.csr_matrix((1, n)), sp.csr_matrix(np.ones((1, n)))])], format="csr")
+            b = np.concatenate([c, -c, [r]])
+            lo = np.concatenate([np.full(n, -np.inf), np.zeros(n)])
+            return LinearForm.build(n, n_aux=n, A_ub=A, b_ub=b, lo=lo)
+        return None
+
+    def _norm(self, V):
+        if self.norm == 2:
+            return np.linalg.norm(V, axis=1)
+        if self.norm == 1:
+            return np.abs(V).sum(axis=1)
+        return np.abs(V).max(axis=1)
+
+    def _dual_norm(self, C):
+        if self.norm == 2:
+            return np.linalg.norm(C, axis=1)
+        if self.norm == 1:
+            return np.abs(C).max(axis=1)
+        return np.abs(C).sum(axis=1)
+
+    # -- native kernels ----------------------------------------------------------------------
+    @kernel("project")
+    def project(self, Y):
+        """Radial scaling (p=2), clipping (p=inf), or the simplex projection of |y - c| with signs restored (p=1), O(n)."""
+        c, r = self.center, self.radius
+        V = Y - c
+        if self.norm == "inf":
+            return c + np.clip(V, -r, r)
+        nv = self._norm(V)
+        out = nv > r
+        X = Y.copy()
+        if not out.any():
+            return X
+        if self.norm == 2:
+            X[out] = c + V[out] * (r / nv[out])[:, None]
+        else:
+            A = np.abs(V[out])
+            X[out] = c + np.sign(V[out]) * project_simplex_rows(A, r)
+        return X
+
+    @kernel("distance")
+    def distance(self, Y):
+        """max(||y - c||_2 - r, 0) for p=2; the norm of y - project(y) otherwise, O(n)."""
+        if self.norm == 2:
+            return np.maximum(np.linalg.norm(Y - self.center, axis=1) - self.radius, 0.0)
+        return np.linalg.norm(Y - self.project(Y), axis=1)
+
+    @kernel("lmo")
+    def lmo(self, C):
+        """c0 - r c/||c||_2 (p=2), c0 - r sign(c) (p=inf), c0 - r sign(c_j) e_j at the largest |c_j| (p=1), O(n)."""
+        b, n = C.shape
+        r = self.radius
+        X = np.broadcast_to(self.center, (b, n)).copy()
+        if self.norm == 2:
+            nc = np.linalg.norm(C, axis=1)
+            nz = nc > 0
+            X[nz] -= r * C[nz] / nc[nz, None]
+        elif self.norm == "inf":
+            X -= r * np.sign(C)
+        else:
+            j = np.argmax(np.abs(C), axis=1)
+            rows = np.arange(b)
+            X[rows, j] -= r * np.sign(C[rows, j])
+        return X
+
+    @kernel("support")
+    def support(self, C):
+        """<c, center> + r ||c||_q with q the dual exponent, O(n)."""
+        return C @ self.center + self.radius * self._dual_norm(C)
+
+    @kernel("violation")
+    def violation(self, X):
+        """max(||x - c||_p - r, 0), O(n)."""
+        return np.maximum(self._norm(X - self.center) - self.radius, 0.0)

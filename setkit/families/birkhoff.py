@@ -1,0 +1,57 @@
+"""The Birkhoff polytope: doubly-stochastic n x n matrices."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import kernel, register
+from .transport import Transport
+
+
+@register("birkhoff")
+@dataclass(frozen=True, eq=False, kw_only=True)
+class Birkhoff(Transport):
+    """K = {X in R^{n x n} : X >= 0, X 1 = 1, X^T 1 = 1}, the convex hull of the n! permutation matrices.
+
+    >>> import setkit
+    >>> setkit.compile({"kind": "birkhoff", "n": 3}).lmo([[0, 1, 1], [1, 1, 0], [1, 0, 1.0]]).tolist()
+    [[1.0, 0.0, 0.0], [0.0, 0.0, 1.0], [0.0, 1.0, 0.0]]
+    """
+
+    traits = frozenset({"polyhedral", "bounded", "permutation_invariant"})
+
+    @classmethod
+    def from_spec(cls, r):
+        n = r.integer("n", min=1)
+        return cls(rows=np.ones(n), cols=np.ones(n), name=r.name)
+
+    @property
+    def n(self) -> int:
+        return int(self.rows.size)
+
+    def scale(self):
+        return 1.0
+
+    @kernel("lmo")
+    def lmo(self, C):
+        """The assignment problem by scipy.optimize.linear_sum_assignment; answers are permutation matrices, O(n^3)."""
+        from scipy.optimize import linear_sum_assignment
+        n = self.n
+        X = np.zeros_like(C)
+        for i, c in enumerate(C):
+            rr, cc = linear_sum_assignment(c.reshape(n, n))
+            X[i, rr * n + cc] = 1.0
+        return X
+
+    @kernel("support")
+    def support(self, C):
+        """max over permutations of sum_i c[i, pi(i)] by linear_sum_assignment(maximize=True), O(n^3)."""
+        from scipy.optimize import linear_sum_assignment
+        n = self.n
+        out = np.empty(C.shape[0])
+        for i, c in enumerate(C):
+            M = c.reshape(n, n)
+            rr, cc = linear_sum_assignment(M, maximize=True)
+            out[i] = M[rr, cc].sum()
+        return out

@@ -1,0 +1,143 @@
+"""The budget {lower <= x <= upper, <w, x> = total} (mode equal) or <= total (mode at_most).
+
+A weighted, capped simplex: the feasible set of the continuous knapsack.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..forms import LinearForm
+from ..kernels.simplex import project_capped
+from . import Family, kernel, register
+
+
+def _fmt(v: float) -> str:
+    return repr(float(v)) if abs(v) < 1e16 else f"{v:.6g}"
+
+
+@register("budget")
+@dataclass(frozen=True, eq=False, kw_only=True)
+class Budget(Family):
+    """K = {x in R^n : lower <= x <= upper, sum_i w_i x_i = total} (mode equal; <= total for at_most).
+
+    ``lower`` is finite (default 0), ``upper`` may be omitted (+inf), weights
+    ``w`` are positive (default 1). The set is always bounded: x_i <= lower_i +
+    (total - <w, lower>) / w_i. Projection by breakpoint search on the multiplier
+    of the weighted sum (expected O(n)); LMO by the greedy of the continuous
+    knapsack (fill the smallest ratios c_i / w_i first), O(n log n).
+
+    >>> import setkit
+    >>> K = setkit.compile({"kind": "budget", "dim": 3, "total": 1.0, "upper": 0.5})
+    >>> K.project([1.0, 1.0, -1.0]).round(6).tolist()
+    [0.5, 0.5, 0.0]
+    >>> K.lmo([3.0, 1.0, 2.0]).round(6).tolist()
+    [0.0, 0.5, 0.5]
+    """
+
+    lower: np.ndarray
+    upper: np.ndarray
+    weights: np.ndarray
+    total: float
+    mode: str = "equal"
+    traits = frozenset({"polyhedral", "bounded"})
+
+    @classmethod
+    def from_spec(cls, r):
+        n = r.integer("dim", min=1)
+        total = r.number("total")
+        lo = r.vector_or_scalar("lower", n, default=0.0)
+        hi = r.vector_or_scalar("upper", n, default=np.inf, allow_inf=True)
+        if np.any(hi == -np.inf):
+            i = int(np.flatnonzero(hi == -np.inf)[0])
+            r.fail("upper", f"upper bounds must be finite or +inf; got -inf at index {i}.")
+        bad = np.flatnonzero(lo > hi)
+        if bad.size:
+            i = int(bad[0])
+            r.fail("upper", f"upper must be at least lower at every index; at index {i} lower is "
+                            f"{_fmt(lo[i])} and upper {_fmt(hi[i])}.")
+        weighted = r.has("weights")
+        w = r.vector_or_scalar("weights", n, default=1.0)
+        if np.any(w <= 0):
+            i = int(np.flatnonzero(w <= 0)[0])
+            r.fail("weights", f"weights must be positive; got {_fmt(w[i])} at index {i}.")
+        mode = r.choice("mode", ("equal", "at_most"), "equal")
+        ws = "the weighted sum" if weighted else "the sum"
+        smin = float(w @ lo)
+        if total < smin:
+            r.fail("total", f"total must be at least {ws} of lower bounds, {_fmt(smin)}; got {_fmt(total)}.")
+        if mode == "equal":
+            smax = float(w @ hi) if np.all(np.isfinite(hi)) else np.inf
+            if total > smax:
+                r.fail("total", f"total must be at most {ws} of upper bounds, {_fmt(smax)}; got {_fmt(total)}.")
+        return cls(lower=lo, upper=hi, weights=w, total=float(total), mode=mode, name=r.name)
+
+    # -- description -----------------------------------------------------------------------
+    @property
+    def shape(self):
+        return (self.lower.size,)
+
+    def scale(self):
+        v = np.concatenate([self.lower, self.upper[np.isfinite(self.upper)], [self.total]])
+        return float(max(1.0, np.abs(v).max()))
+
+    @property
+    def _caps(self):
+        """Effective upper bounds: the upper bound, or what the budget alone allows."""
+        room = self.total - float(self.weights @ self.lower)
+        return np.minimum(self.upper, self.lower + room / self.weights)
+
+    def cvxpy_constraints(self, x):
+        cons = [x >= self.lower]
+        fin = np.isfinite(self.upper)
+        if fin.all():
+            cons.append(x <= self.upper)
+        elif fin.any():
+            cons.append(x[np.flatnonzero(fin)] <= self.upper[fin])
+        s = self.weights @ x
+        cons.append(s == self.total if self.mode == "equal" else s <= self.total)
+        return cons
+
+    def linear_form(self):
+        row = self.weights[None, :]
+        if self.mode == "equal":
+            return LinearForm.build(self.dim, A_eq=row, b_eq=[self.total], lo=self.lower, hi=self.upper)
+        return LinearForm.build(self.dim, A_ub=row, b_ub=[self.total], lo=self.lower, hi=self.upper)
+
+    # -- native kernels ----------------------------------------------------------------------
+    @kernel("project")
+    def project(self, Y):
+        """Clip to the bounds and shift by the multiplier of the weighted sum, found by randomized breakpoint search, expected O(n)."""
+        return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode)
+
+    @kernel("lmo")
+    def lmo(self, C):
+        """Continuous-knapsack greedy: start at lower, fill coordinates by increasing c_i / w_i, O(n log n)."""
+        b, n = C.shape
+        w = self.weights
+        room = self.total - float(w @ self.lower)
+        caps = w * (self._caps - self.lower)           # weighted room of each coordinate, finite
+        ratio = C / w
+        order = np.argsort(ratio, axis=1, kind="stable")
+        cap_sorted = caps[order]
+        before = np.cumsum(cap_sorted, axis=1) - cap_sorted
+        fill = np.clip(room - before, 0.0, cap_sorted)
+        if self.mode == "at_most":
+            fill = np.where(np.take_along_axis(ratio, order, axis=1) < 0, fill, 0.0)
+        X = np.broadcast_to(self.lower, (b, n)).copy()
+        np.put_along_axis(X, order, self.lower[order] + fill / w[order], axis=1)
+        return X
+
+    @kernel("support")
+    def support(self, C):
+        """<c, lmo(-c)> by the same greedy, O(n log n)."""
+        return np.einsum("ij,ij->i", C, self.lmo(-C))
+
+    @kernel("violation")
+    def violation(self, X):
+        """Largest violation of the bounds and of the weighted sum, O(n)."""
+        s = X @ self.weights - self.total
+        sv = np.abs(s) if self.mode == "equal" else np.maximum(s, 0.0)
+        bounds = np.maximum((self.lower - X).max(axis=1), (X - self.upper).max(axis=1))
+        return np.maximum(bounds.clip(min=0.0), sv)

@@ -1,0 +1,76 @@
+"""Transportation polytopes {X >= 0 : X 1 = rows, X^T 1 = cols}, points are m x n matrices."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import EmptySetError
+from . import register
+from ._network import Network, NetworkFamily
+
+
+def bipartite_network(rows: np.ndarray, cols: np.ndarray) -> Network:
+    """Edge i*n + j goes from row node i to column node m + j (C order of the m x n matrix)."""
+    m, n = rows.size, cols.size
+    tail = np.repeat(np.arange(m), n)
+    head = m + np.tile(np.arange(n), m)
+    return Network(tail, head, np.zeros(m * n), np.full(m * n, np.inf), np.concatenate([rows, -cols]))
+
+
+def read_margins(r):
+    """Read and check rows and cols; returns them with cols rescaled to the exact row total."""
+    rows = r.array("rows", ndim=1)
+    cols = r.array("cols", ndim=1)
+    for key, v in (("rows", rows), ("cols", cols)):
+        if v.size == 0:
+            r.fail(key, f"{key} must list at least one sum; got an empty list.")
+        neg = np.flatnonzero(v < 0)
+        if neg.size:
+            r.fail(key, f"{key} must be nonnegative (amounts shipped); entry {int(neg[0])} is {v[neg[0]]:g}.")
+    tr, tc = float(rows.sum()), float(cols.sum())
+    if abs(tr - tc) > 1e-9 * max(1.0, tr, tc):
+        r.fail("cols", f"the row sums total {tr:.10g} but the column sums total {tc:.10g}; a transportation "
+                       f"plan needs equal totals, so the set is empty.", EmptySetError)
+    if tc > 0 and tc != tr:
+        cols = cols * (tr / tc)   # remove the rounding-level mismatch so the balances are exactly consistent
+    return rows, cols
+
+
+@register("transport")
+@dataclass(frozen=True, eq=False, kw_only=True)
+class Transport(NetworkFamily):
+    """K = {X in R^{m x n} : X >= 0, sum_j X_ij = rows_i, sum_i X_ij = cols_j}.
+
+    >>> import setkit
+    >>> K = setkit.compile({"kind": "transport", "rows": [1, 2], "cols": [2, 1]})
+    >>> K.lmo([[0.0, 1.0], [1.0, 5.0]]).tolist()
+    [[0.0, 1.0], [2.0, 0.0]]
+    """
+
+    rows: np.ndarray
+    cols: np.ndarray
+    _net: Network = field(init=False, repr=False)
+    traits = frozenset({"polyhedral", "bounded"})
+
+    def __post_init__(self):
+        object.__setattr__(self, "_net", bipartite_network(self.rows, self.cols))
+
+    @classmethod
+    def from_spec(cls, r):
+        rows, cols = read_margins(r)
+        return cls(rows=rows, cols=cols, name=r.name)
+
+    @property
+    def shape(self):
+        return (int(self.rows.size), int(self.cols.size))
+
+    def network(self):
+        return self._net
+
+    def scale(self):
+        return float(max(1.0, self.rows.max(initial=0.0), self.cols.max(initial=0.0)))
+
+    def cvxpy_constraints(self, x):
+        import cvxpy as cp
+        return [x >= 0, cp.sum(x, axis=1) == self.rows, cp.sum(x, axis=0) == self.cols]

@@ -1,0 +1,130 @@
+"""Intersections: merged linear form, cut dual and Dykstra routes against the cvxpy reference."""
+import numpy as np
+import pytest
+
+import setkit
+from setkit.combinators.intersection import CutIntersection, Intersection, SplitIntersection
+from setkit.errors import EmptySetError, SolveError
+
+from .fixtures import ball, check_against_reference, halfspaces
+
+
+def _node_type(K):
+    return type(K.node)
+
+
+def test_polyhedral_parts_merge_into_one_linear_form(rng):
+    # parts without their own projection: one merged form, OSQP projection and HiGHS LMO
+    n = 5
+    cube = halfspaces(np.vstack([np.eye(n), -np.eye(n)]), np.ones(2 * n))
+    K = setkit.compile({"kind": "intersection", "of": [cube, halfspaces(rng.standard_normal((3, n)), 0.5)]})
+    assert _node_type(K) is Intersection
+    assert K.routes()["project"].provider == "osqp"
+    assert K.routes()["lmo"].provider == "highs"
+    f = K.node.linear_form()
+    assert f.n_x == n and f.n_aux == 0 and f.A_ub.shape[0] == 2 * n + 3
+    check_against_reference(K, rng, scales=(1e-3, 1.0, 30.0))
+
+
+def test_capped_simplex_uses_a_native_base_and_the_merged_form(rng):
+    for n in (3, 7):
+        caps = {"kind": "box", "dim": n, "lower": 0, "upper": rng.uniform(0.3, 0.9, n).tolist()}
+        K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": n}, caps]})
+        assert _node_type(K) is CutIntersection
+        assert K.routes()["lmo"].provider == "highs"        # LMO on the merged linear form
+        check_against_reference(K, rng)
+        y = rng.standard_normal((3, n))
+        assert np.allclose(K.with_backends(project="osqp").project(y), K.project(y), atol=1e-6)
+
+
+def test_hand_solved_capped_simplex():
+    # KKT by hand (common practice): x = clip(y - tau, 0, 1/2) with sum 1 gives tau = 1/4 below
+    K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 3},
+                                                       {"kind": "box", "dim": 3, "lower": 0, "upper": 0.5}]})
+    assert np.allclose(K.project([1.0, 0.0, 0.0]), [0.5, 0.25, 0.25], atol=1e-7)
+    assert np.allclose(K.project([1.0, 1.0, -1.0]), [0.5, 0.5, 0.0], atol=1e-7)
+    assert K.support([1.0, 2.0, 3.0]) == pytest.approx(2.5, abs=1e-9)
+
+
+def test_cut_dual_route_ball_and_halfspaces(rng):
+    n = 6
+    A = rng.standard_normal((3, n))
+    K = setkit.compile({"kind": "intersection", "of": [ball(np.zeros(n), 1.0), halfspaces(A, 0.3 * np.ones(3))]})
+    assert _node_type(K) is CutIntersection
+    assert K.routes()["project"].provider == "native"
+    assert K.routes()["lmo"].provider == "reference"     # no linear form for the ball
+    check_against_reference(K, rng, scales=(1e-3, 1.0, 1e3))
+
+
+def test_cut_dual_with_equality_and_box_cuts(rng):
+    n = 5
+    K = setkit.compile({"kind": "intersection", "of": [
+        ball(0.2 * np.ones(n), 1.5), {"kind": "box", "dim": n, "lower": -0.5, "upper": 0.8},
+        {"kind": "simplex", "dim": n, "total": 1.0}]})
+    assert _node_type(K) is CutIntersection
+    assert K.node.n_eq == 1
+    check_against_reference(K, rng)
+
+
+def test_hand_solved_ball_and_halfspace():
+    # unit disc cut by x1 <= 1/2 (KKT by hand, common practice): (2, 0) -> (1/2, 0);
+    # (2, 2) -> the corner (1/2, sqrt(3)/2) where both constraints are active
+    K = setkit.compile({"kind": "intersection", "of": [ball([0.0, 0.0], 1.0), halfspaces([[1.0, 0.0]], [0.5])]})
+    assert np.allclose(K.project([2.0, 0.0]), [0.5, 0.0], atol=1e-7)
+    assert np.allclose(K.project([2.0, 2.0]), [0.5, np.sqrt(3) / 2], atol=1e-7)
+    assert np.allclose(K.project([2e6, 2e6]), [0.5, np.sqrt(3) / 2], atol=1e-6)   # a far point
+    d = K.project([[2.0, 0.0], [0.1, 0.2]], details=True)
+    assert list(d.status) == ["solved", "solved"]
+    assert np.allclose(d.point[1], [0.1, 0.2])
+
+
+def test_dykstra_route_two_balls(rng):
+    n = 5
+    K = setkit.compile({"kind": "intersection", "of": [ball(np.zeros(n), 1.0), ball(0.6 * np.ones(n), 1.2)]})
+    assert _node_type(K) is SplitIntersection
+    # Dykstra slows down for points far from the set; moderate scales here, far points in test_splitting
+    check_against_reference(K, rng, scales=(1e-3, 1.0, 3.0))
+
+
+def test_hand_solved_lens():
+    # two unit discs centred at (+-1/2, 0): the lens corner is (0, sqrt(3)/2) (geometry, common practice)
+    K = setkit.compile({"kind": "intersection", "of": [ball([-0.5, 0.0], 1.0), ball([0.5, 0.0], 1.0)]})
+    assert np.allclose(K.project([0.0, 3.0]), [0.0, np.sqrt(3) / 2], atol=1e-6)
+    assert np.allclose(K.project([0.1, 0.1]), [0.1, 0.1], atol=1e-12)
+
+
+def test_empty_polyhedral_intersection_is_reported_at_compile_time():
+    with pytest.raises(EmptySetError, match=r"no common point.*\(<dict>: of\)|of\).*no common point"):
+        setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 3},
+                                                       {"kind": "box", "dim": 3, "lower": 0, "upper": 0.1}]})
+
+
+@pytest.mark.parametrize("second", ["ball", "halfspace"])
+def test_empty_intersection_is_reported_at_run_time(second):
+    n = 4
+    other = ball(3 * np.ones(n), 1.0) if second == "ball" else halfspaces(-np.eye(n)[:1], [-5.0])
+    K = setkit.compile({"kind": "intersection", "of": [ball(np.zeros(n), 1.0), other]})
+    with pytest.raises(EmptySetError, match="no common point"):
+        K.project(np.ones(n))
+
+
+def test_shapes_must_agree():
+    with pytest.raises(setkit.DescriptionError, match=r"of\): every part must have the point shape"):
+        setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 3}, {"kind": "simplex", "dim": 4}]})
+
+
+def test_contains_and_violation_are_over_all_parts():
+    K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 3},
+                                                       {"kind": "box", "dim": 3, "lower": 0, "upper": 0.5}]})
+    X = np.array([[0.4, 0.3, 0.3], [0.6, 0.4, 0.0], [0.5, 0.5, 0.1]])
+    assert K.contains(X).tolist() == [True, False, False]
+    assert np.allclose(K.violation(X), [0.0, 0.1, 0.1])
+
+
+def test_pickles_and_runs_after_unpickling(rng):
+    import pickle
+    n = 4
+    K = setkit.compile({"kind": "intersection", "of": [ball(np.zeros(n), 1.0), halfspaces(np.ones((1, n)), [0.5])]})
+    y = rng.standard_normal(n) * 2
+    K2 = pickle.loads(pickle.dumps(K))
+    assert np.allclose(K.project(y), K2.project(y))
