@@ -22,7 +22,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import DescriptionError, InputError, SetkitError
+from .errors import DescriptionError, InputError, SetkitError, UnboundedDirectionError
 
 EXIT_OK, EXIT_DISAGREE, EXIT_BAD_INPUT = 0, 1, 2
 DESCRIPTION_SUFFIXES = (".yaml", ".yml", ".json")
@@ -667,7 +667,7 @@ def main(argv=None) -> int:
             setattr(args, key, None)
     try:
         return args.run(args)
-    except (DescriptionError, InputError) as exc:
+    except (DescriptionError, InputError, UnboundedDirectionError) as exc:
         print(f"setkit: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except SetkitError as exc:

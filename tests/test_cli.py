@@ -239,3 +239,12 @@ def test_help_and_usage_errors(capsys):
     assert "inspect" in capsys.readouterr().out
     assert cli.main(["frobnicate"]) == 2
     assert cli.main(["run", "rotate", SIMPLEX]) == 2
+
+
+def test_run_lmo_on_an_unbounded_direction_exits_2(tmp_path, capsys):
+    f = tmp_path / "half.yaml"
+    f.write_text("set:\n  kind: box\n  lower: [0, 0]\n  upper: [inf, 1]\n")
+    code, _, err = run(["run", "lmo", str(f), "--at", "[-1, 1]"], capsys)
+    assert code == 2 and "no minimizer" in err
+    code, out, _ = run(["run", "lmo", str(f), "--at", "[1, -1]"], capsys)
+    assert code == 0 and json.loads(out)["result"] == [0, 1]
