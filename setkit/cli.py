@@ -365,6 +365,10 @@ def compare_backends(K, n_points=4, seed=0, repeat=3, rtol=2e-5, progress=None) 
     ref = K.with_backends(**REFERENCE_ROUTES)
     rows = []
     baseline = {}
+    plan = {op: candidates(K, op) for op in COMPARED}
+    if progress is not None:
+        progress.total = (progress.total or 0) + sum(map(len, plan.values()))
+        progress.set_step("reference answers")
     try:
         baseline["project"] = ref.project(Y).reshape(b, -1)
         baseline["distance"] = np.linalg.norm(Y.reshape(b, -1) - baseline["project"], axis=1)
@@ -378,12 +382,11 @@ def compare_backends(K, n_points=4, seed=0, repeat=3, rtol=2e-5, progress=None) 
         baseline["lmo"] = baseline["support"] = exc
     for op in COMPARED:
         inp = Y if op in ("project", "distance") else C
-        for prov in candidates(K, op):
+        for prov in plan[op]:
             if progress is not None:
                 progress.set_step(f"{op} by {prov}")
             row = {"operator": op, "provider": prov, "cases": len(inp), "ms_per_call": None,
                    "max_gap": None, "allowed": rtol, "agrees": None, "note": ""}
-            base = baseline.get("project" if op == "distance" else op)
             try:
                 Kp = K.with_backends(**{op: prov})
                 out, t = _median_time(getattr(Kp, op), inp, repeat)
@@ -405,8 +408,6 @@ def compare_backends(K, n_points=4, seed=0, repeat=3, rtol=2e-5, progress=None) 
             except SetkitError as exc:
                 row["note"] = f"{type(exc).__name__}: {exc}"[:160]
                 row["agrees"] = False if not isinstance(exc, UnboundedDirectionError) else None
-            if base is None:
-                pass
             rows.append(row)
             if progress is not None:
                 progress.advance(f"{op} by {prov}")
@@ -414,7 +415,8 @@ def compare_backends(K, n_points=4, seed=0, repeat=3, rtol=2e-5, progress=None) 
 
 
 def _compare_table(rows) -> str:
-    lines = [f"  {'operator':<10} {'provider':<10} {'cases':>5} {'ms/call':>10} {'max gap':>10} {'allowed':>8}  verdict"]
+    lines = [f"  {'operator':<10} {'provider':<10} {'cases':>5} {'ms/call':>10} {'max gap':>10} "
+             f"{'allowed':>8}  verdict"]
     for r in rows:
         ms = "-" if r["ms_per_call"] is None else f"{r['ms_per_call']:.4f}"
         gap = "-" if r["max_gap"] is None else f"{r['max_gap']:.2e}"

@@ -100,7 +100,7 @@ class _Context:
     # inputs: (flat array (b, dim), list of labels)
     def inputs(self):
         def make():
-            K, n, d, s = self.K, self.n, self.K.dim, self.s
+            n, d, s = self.n, self.K.dim, self.s
             rng = np.random.default_rng([self.seed, 1])
             raw = rng.standard_normal((n, d)) * s
             inside = self.ref_project_rows(raw)
