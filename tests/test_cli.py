@@ -248,3 +248,35 @@ def test_run_lmo_on_an_unbounded_direction_exits_2(tmp_path, capsys):
     assert code == 2 and "no minimizer" in err
     code, out, _ = run(["run", "lmo", str(f), "--at", "[1, -1]"], capsys)
     assert code == 0 and json.loads(out)["result"] == [0, 1]
+
+
+@pytest.fixture
+def failing_backend(monkeypatch):
+    """A generic backend that always reports a failed solve (an honest failure, not a wrong answer)."""
+    from setkit.backends import Backend, _BACKENDS, all_backends
+    from setkit.errors import SolveError
+    all_backends()
+
+    class Failing(Backend):
+        name = "always_fails"
+        operators = ("project",)
+        requires = "cvxpy"
+        priority = 10_000
+        about = "fails on purpose (tests)"
+
+        def project(self, Y):
+            raise SolveError("always_fails: did not converge (on purpose)", status="max_iter")
+    monkeypatch.setitem(_BACKENDS, "always_fails", Failing)
+    return Failing
+
+
+def test_a_failing_alternative_backend(failing_backend, capsys):
+    # verify: the default plan agrees, the failing backend shows in the informational table
+    code, out, _ = run(["verify", SIMPLEX, "--points", "2"], capsys)
+    assert code == 0 and "always_fails" in out and "FAILED" in out
+    # compare: its purpose is to judge every backend, so a failure exits 1
+    code, out, _ = run(["compare", SIMPLEX, "--points", "2", "--repeat", "1"], capsys)
+    assert code == 1 and "not agreeing or failing: project always_fails" in out
+    # run with that backend: the failed solve is reported, exit 1
+    code, _, err = run(["run", "project", SIMPLEX, "--at", "[1, 0, 0, 0, 0]", "--backend", "always_fails"], capsys)
+    assert code == 1 and "did not converge" in err
