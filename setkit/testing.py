@@ -34,7 +34,8 @@ data, ``s = max(1, K.node.scale())``):
 * membership accepts points of the set and rejects points far from it;
 * batched calls equal one-by-one calls and have the documented shapes;
 * bad inputs (wrong shape, NaN) raise :class:`~setkit.errors.InputError`;
-* when available, the penalty equals ``G * distance`` and the centroid lies in the set.
+* when available, the penalty equals ``G * distance``, the Moreau penalty's value and gradient
+  match their definitions with the reference projection, and the vertex centroid lies in the set.
 """
 from __future__ import annotations
 
@@ -543,7 +544,23 @@ def _penalty(ctx):
     gaps = np.abs(v - G * Dr)
     _raise_worst("penalty/value", K, "penalty(G).value(x) differs from G * reference distance", gaps, allowed,
                  X, labels, v, G * Dr)
-    return len(X), float((gaps / allowed).max()), ctx.rtol
+    # the Moreau envelope (exact definition in the design): value G h(d), gradient G (x - p) / max(d, delta)
+    delta = 0.1 * ctx.s
+    pm = K.penalty(G, smoothing="moreau", width=delta)
+    Pr = ctx.ref_projection()
+    h = np.where(Dr <= delta, Dr ** 2 / (2 * delta), Dr - delta / 2)
+    vm = np.array([float(pm.value(x.reshape(K.shape))) for x in X])
+    gm = np.stack([np.asarray(pm.grad(x.reshape(K.shape)), float).reshape(-1) for x in X])
+    gr = G * (X - Pr) / np.maximum(Dr, delta)[:, None]
+    gv = np.abs(vm - G * h)
+    _raise_worst("penalty/moreau-value", K, "the Moreau penalty value differs from G h(reference distance)",
+                 gv, allowed, X, labels, vm, G * h)
+    gg = np.linalg.norm(gm - gr, axis=1)
+    # the gradient divides the projection error by max(d, delta)
+    gallowed = G * ctx.rtol * ctx.point_scale(X) / delta
+    _raise_worst("penalty/moreau-gradient", K, "the Moreau penalty gradient differs from "
+                 "G (x - p) / max(d, delta) with the reference projection", gg, gallowed, X, labels, gm, gr)
+    return 3 * len(X), float(max((gaps / allowed).max(), (gv / allowed).max(), (gg / gallowed).max())), ctx.rtol
 
 
 def _centroid(ctx):
