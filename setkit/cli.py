@@ -291,6 +291,8 @@ def tree(node) -> dict:
 def _tree_lines(t, depth=0):
     name = f" '{t['name']}'" if t["name"] else ""
     params = ", ".join(f"{k}={_short(v)}" for k, v in t["parameters"].items())
+    if len(params) > 160:
+        params = params[:157] + "..."
     lines = ["  " * depth + f"- {t['kind']}{name}: shape {tuple(t['shape'])}" + (f"; {params}" if params else "")]
     for p in t["parts"]:
         lines.extend(_tree_lines(p, depth + 1))
@@ -299,7 +301,7 @@ def _tree_lines(t, depth=0):
 
 def _short(v):
     s = json.dumps(v, default=_json_default) if not isinstance(v, str) else v
-    return s if len(s) <= 60 else s[:57] + "..."
+    return s if len(s) <= 48 else s[:45] + "..."
 
 
 def _cmd_inspect(args) -> int:
