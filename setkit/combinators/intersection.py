@@ -309,8 +309,15 @@ class SplitIntersection(Intersection):
 
 
 def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None, splitting="accelerated"):
-    """Choose the intersection node for ``parts`` (see the module docstring) and check emptiness."""
-    parts = tuple(parts)
+    """Choose the intersection node for ``parts`` (see the module docstring) and check emptiness.
+
+    Nested intersections are flattened first: (A ∩ B) ∩ C is served as A ∩ B ∩ C, so no
+    iterative projection ever serves as the base of another.
+    """
+    flat = []
+    for p in parts:
+        flat.extend(p.parts if isinstance(p, Intersection) else (p,))
+    parts = tuple(flat)
     forms = [p.linear_form() for p in parts]
     kw = dict(parts=parts, accuracy=accuracy, max_iterations=max_iterations, name=name)
     lp_forms = [lp_form(p) for p in parts]
