@@ -10,14 +10,17 @@ Description keys::
 
 How each operator is served (chosen once, when the description is read):
 
-* one part (the *base*, e.g. a permutahedron, a ball or a simplex) has its own
+* every part has a linear form without auxiliary variables (boxes, simplices,
+  polyhedra...): the forms are merged into one linear form, so the OSQP
+  projection and the HiGHS LMO serve the intersection, compiled once (except
+  when a part with its own projection leaves at most ``POLYHEDRAL_CUTS`` other
+  rows, e.g. a simplex with per-coordinate caps: then the cut dual below, a
+  one- or two-dimensional search);
+* else one part (the *base*, e.g. a permutahedron or a ball) has its own
   projection and the others are a few linear constraints (at most ``CUT_LIMIT``
-  rows in all, bounds included): the projection solves the dual over the cut
-  multipliers, each step one projection onto the base
-  (:func:`setkit.kernels.splitting.project_with_cuts`);
-* else, every part has a linear form without auxiliary variables (boxes,
-  simplices, polyhedra...): the forms are merged into one linear form, so the
-  OSQP projection serves the intersection, compiled once;
+  rows in all, bounds included; rows the base's own bounds imply are dropped):
+  the projection solves the dual over the cut multipliers, each step one
+  projection onto the base (:func:`setkit.kernels.splitting.project_with_cuts`);
 * otherwise: a splitting method on the parts' own projections: the accelerated
   dual proximal gradient (:func:`setkit.kernels.splitting.fast_dual_projections`,
   default) or Dykstra's method (:func:`setkit.kernels.splitting.dykstra`,
@@ -50,6 +53,7 @@ from ..kernels.splitting import dykstra, fast_dual_projections, project_with_cut
 from . import cached, loose_of, lp_form, part_violation
 
 CUT_LIMIT = 64           # a part with at most this many linear rows counts as a few cuts
+POLYHEDRAL_CUTS = 2     # all-polyhedral parts: a native base with at most this many other rows uses the cut dual
 FEASIBILITY_CHECK_LIMIT = 200_000   # variables of the merged form up to which emptiness is checked by LP
 
 
@@ -324,16 +328,18 @@ def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None, sp
     if all(f is not None for f in lp_forms):
         merged = merge_forms(lp_forms)
         _check_feasible(merged, parts)
+    polyhedral = all(f is not None and f.n_aux == 0 for f in forms)
     cuts = [cut_rows(f) if f is not None and f.n_aux == 0 else None for f in forms]
     others = [i for i, c in enumerate(cuts) if c is None]
     native = [i for i, p in enumerate(parts) if "project" in p.kernels]
     base = None
-    if len(parts) > 1:
-        if len(others) == 1:
-            base = others[0]
-        elif not others and native:
-            # every part is a few linear rows: the part with the most rows and its own projection is the base
-            base = max(native, key=lambda i: cuts[i][0].shape[0])
+    if len(parts) > 1 and len(others) == 1 and not polyhedral:
+        # one part is not a few linear rows (a permutahedron, a ball): it is the base
+        base = others[0]
+    elif len(parts) > 1 and not others and native:
+        # all polyhedral and small: the native part with the most rows is the base, but only when
+        # at most POLYHEDRAL_CUTS rows remain once its own bounds are taken out (else one OSQP QP)
+        base = max(native, key=lambda i: cuts[i][0].shape[0])
     if base is not None:
         rest = [cuts[i] for i in range(len(parts)) if i != base]
         n_rows = sum(c[0].shape[0] for c in rest)
@@ -344,10 +350,10 @@ def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None, sp
             keep = ~_implied_bounds(A, rhs, eq, forms[base])
             A, rhs, eq = A[keep], rhs[keep], eq[keep]
             order = np.concatenate([np.flatnonzero(eq), np.flatnonzero(~eq)])
-            if order.size:
+            if order.size and (not polyhedral or order.size <= POLYHEDRAL_CUTS):
                 return CutIntersection(base=base, cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()),
                                        **kw)
-    if all(f is not None and f.n_aux == 0 for f in forms):
+    if polyhedral:
         return Intersection(**kw)
     return SplitIntersection(splitting=splitting, **kw)
 

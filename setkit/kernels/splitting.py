@@ -291,22 +291,35 @@ def _lbfgsb_dual(state, lam, ineq, tol_r, big, budget):
 
 
 def _dual_step(state, lam, x, r, g, v, ineq, L):
-    """One ascent step on the concave dual: projected Newton on the active cuts, else projected gradient."""
+    """One ascent step on the concave dual.
+
+    Semismooth Newton on the natural residual of the KKT conditions: cuts with
+    lam_j + r_j > 0 (and all equalities) are *free* and solve r_F(lam) = 0 by Newton (Jacobian
+    of r in lam_F by finite differences), the others are set to lam_j = 0. The step is kept
+    when it increases the dual (Armijo) or halves the violation; otherwise a projected gradient
+    step lam + t r with a growing t (t = 1/L always ascends, L = ||A||_2^2).
+    """
     k = lam.size
-    active = ~ineq | (lam > 0) | (r > 0)
-    S = np.flatnonzero(active)
+    free = ~ineq | (lam + r > 0)
+    base = lam.copy()
+    base[~free] = 0.0
+    if np.any(base != lam):
+        xb, rb, gb, vb = state(base)
+    else:
+        xb, rb, gb, vb = x, r, g, v
+    S = np.flatnonzero(free)
     if S.size:
-        h = 1e-7 * max(1.0, float(np.abs(lam).max(initial=0.0)))
+        h = 1e-7 * max(1.0, float(np.abs(base).max(initial=0.0)))
         J = np.empty((S.size, S.size))
         for c, j in enumerate(S):
-            lj = lam.copy()
+            lj = base.copy()
             lj[j] += h
             _, rj, _, _ = state(lj)
-            J[:, c] = (rj[S] - r[S]) / h
+            J[:, c] = (rj[S] - rb[S]) / h
         # J = -A_S D A_S^T is negative semidefinite; a tiny shift keeps the solve well posed
         mu = 1e-12 * max(1.0, float(np.abs(J).max(initial=0.0)))
         try:
-            step = np.linalg.solve(J - mu * np.eye(S.size), -r[S])
+            step = np.linalg.solve(J - mu * np.eye(S.size), -rb[S])
         except np.linalg.LinAlgError:
             step = None
         if step is not None and np.all(np.isfinite(step)):
@@ -314,7 +327,7 @@ def _dual_step(state, lam, x, r, g, v, ineq, L):
             dlam[S] = step
             t = 1.0
             for _ in range(10):
-                new = lam + t * dlam
+                new = base + t * dlam
                 new[ineq] = np.maximum(new[ineq], 0.0)
                 x2, r2, g2, v2 = state(new)
                 if g2 >= g + 1e-4 * float(r @ (new - lam)) or (v2 < 0.5 * v and g2 >= g - 1e-12 * abs(g)):

@@ -26,15 +26,21 @@ def test_polyhedral_parts_merge_into_one_linear_form(rng):
     check_against_reference(K, rng, scales=(1e-3, 1.0, 30.0))
 
 
-def test_capped_simplex_uses_a_native_base_and_the_merged_form(rng):
+def test_capped_simplex_uses_the_cut_dual_and_caps_with_sectors_one_qp(rng):
     for n in (3, 7):
         caps = {"kind": "box", "dim": n, "lower": 0, "upper": rng.uniform(0.3, 0.9, n).tolist()}
         K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": n}, caps]})
-        assert _node_type(K) is CutIntersection
-        assert K.routes()["lmo"].provider == "highs"        # LMO on the merged linear form
+        # the box is the base; of the simplex only sum x = 1 remains (x >= 0 is implied by the box)
+        assert _node_type(K) is CutIntersection and K.node.cut_matrix.shape == (1, n)
+        assert K.routes()["lmo"].provider == "highs"
         check_against_reference(K, rng)
         y = rng.standard_normal((3, n))
         assert np.allclose(K.with_backends(project="osqp").project(y), K.project(y), atol=1e-6)
+    sectors = halfspaces([[1, 1, 0, 0, 0], [0, 0, 1, 1, 0], [0, 0, 0, 1, 1]], [0.5, 0.6, 0.5])
+    K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 5}, sectors,
+                                                       {"kind": "box", "dim": 5, "lower": 0, "upper": 0.4}]})
+    assert _node_type(K) is Intersection and K.routes()["project"].provider == "osqp"
+    check_against_reference(K, rng, scales=(1e-3, 1.0, 30.0))
 
 
 def test_hand_solved_capped_simplex():
