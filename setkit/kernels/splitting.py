@@ -78,7 +78,6 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
     tol_g = np.maximum(0.5 * (accuracy * scale) ** 2, GAP_FLOOR * m * scale ** 2)
     big = divergence * (scale + np.abs(Y).max(axis=1))
     X = Y.copy()
-    Yact = Y.copy()
     Q = np.zeros((m, b, d))
     Xi = np.zeros((m, b, d))
     for it in range(1, max_iterations + 1):
@@ -106,7 +105,7 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
             keep = ~finish
             if not keep.any():
                 break
-            rows, X, Yact, Q, Xi = rows[keep], X[keep], Yact[keep], Q[:, keep], Xi[:, keep]
+            rows, X, Q, Xi = rows[keep], X[keep], Q[:, keep], Xi[:, keep]
     return out, info
 
 

@@ -4,7 +4,7 @@ import pytest
 
 import setkit
 from setkit.combinators.intersection import CutIntersection, Intersection, SplitIntersection
-from setkit.errors import EmptySetError, SolveError
+from setkit.errors import EmptySetError
 
 from .fixtures import ball, check_against_reference, halfspaces
 
