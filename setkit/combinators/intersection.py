@@ -26,7 +26,9 @@ How each operator is served (chosen once, when the description is read):
   default) or Dykstra's method (:func:`setkit.kernels.splitting.dykstra`,
   ``splitting: dykstra``), which slows down for points far from the set.
 
-In every case the LMO and the support function use the merged linear form when
+The LMO of a cut intersection is column generation on the base's own LMO (a
+small master LP per call, exact for polytopes; :func:`setkit.kernels.splitting.lmo_with_cuts`).
+Otherwise the LMO and the support function use the merged linear form when
 every part has one (auxiliary variables allowed: extended formulations such as
 a permutahedron written as the image of the Birkhoff polytope, offered by a
 family's optional ``extended_form()`` hook, see :func:`setkit.combinators.lp_form`),
@@ -49,7 +51,7 @@ import scipy.sparse as sp
 from ..errors import AccuracyWarning, EmptySetError, SolveError
 from ..families import Family, kernel, register
 from ..forms import LinearForm
-from ..kernels.splitting import dykstra, fast_dual_projections, project_with_cuts
+from ..kernels.splitting import dykstra, fast_dual_projections, lmo_with_cuts, project_with_cuts
 from . import cached, loose_of, lp_form, part_violation
 
 CUT_LIMIT = 64           # a part with at most this many linear rows counts as a few cuts
@@ -293,6 +295,28 @@ class CutIntersection(Intersection):
                                     accuracy=self.accuracy, max_iterations=self.max_iterations,
                                     feasibility_scale=max(1.0, self.scale()))
         return self._accept(X, info, parts, "cut dual", sc)
+
+    @kernel("lmo")
+    def lmo(self, C, parts):
+        """Column generation (Dantzig-Wolfe): a small master LP over vertices from the base's own LMO, O(columns * (base LMO + small LP))."""
+        base = parts[self.base]
+        X, info = lmo_with_cuts(lambda Q: base._run("lmo", Q)[0], C, self.cut_matrix, self.cut_rhs, self.n_eq,
+                                max(1.0, self.scale()))
+        status = info["status"]
+        if "empty" in status:
+            raise EmptySetError(f"{self.label}: the cuts leave no point of {parts[self.base].node.label} "
+                                f"(column generation ends with nonzero elastic slack).")
+        bad = [i for i, s in enumerate(status) if s != "solved"]
+        if bad:
+            # the master did not settle within its column budget: the merged LP (extended form) or the
+            # reference answers those rows exactly
+            from ..backends import get_backend
+            name = "highs" if self.linear_form() is not None else "reference"
+            ws = get_backend(name)(self, loose=loose_of(parts))
+            X[bad] = ws.lmo(C[bad])[0]
+        return X, {"status": ["solved"] * len(status), "iterations": info["iterations"],
+                   "backend_status": [f"column generation: {s}, {n} columns" for s, n in
+                                      zip(status, info["iterations"])]}
 
 
 @dataclass(frozen=True, eq=False, kw_only=True)

@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["dykstra", "fast_dual_projections", "project_with_cuts", "project_linear_image"]
+__all__ = ["dykstra", "fast_dual_projections", "project_with_cuts", "project_linear_image", "lmo_with_cuts"]
 
 # gaps are sums of products of O(scale) numbers: below ~ a few ulps of scale^2 they are rounding noise,
 # so the gap tolerance never goes below GAP_FLOOR * (number of terms) * scale^2
@@ -412,4 +412,71 @@ def project_linear_image(project_part, support_part, M, shift, Y, scale, accurac
             if not keep.any():
                 break
             rows, X, Z, Ya, t = rows[keep], X[keep], Z[keep], Ya[keep], t[keep]
+    return out, info
+
+
+def lmo_with_cuts(lmo_base, C, A, rhs, n_eq, scale, max_columns=400, tol=1e-9):
+    """argmin <c, x> over B ∩ {a_j·x = rhs_j (j < n_eq), a_j·x <= rhs_j} by column generation.
+
+    Dantzig-Wolfe decomposition: a master LP (HiGHS) over convex combinations of vertices of
+    B found so far, with the cuts as rows and elastic slacks priced at a big M; the pricing
+    problem is one LMO of B at c - A^T pi (pi the duals of the cut rows). It stops when no
+    vertex has a negative reduced cost (exact optimality of the master for B ∩ cuts) and the
+    slacks are zero. The answer is a convex combination of at most k + 1 vertices of B.
+    Returns (X, info) with per-row status "solved" | "empty" | "not_converged" and the number
+    of columns generated. O(columns * (LMO of B + a small LP)).
+    """
+    from scipy.optimize import linprog
+
+    C = np.asarray(C, dtype=float)
+    b, d = C.shape
+    k = A.shape[0]
+    out = np.empty_like(C)
+    info = {"status": ["not_converged"] * b, "iterations": [0] * b, "gap": np.full(b, np.nan),
+            "residual": np.full(b, np.nan)}
+    eq, ub = slice(0, n_eq), slice(n_eq, k)
+    for row in range(b):
+        c = C[row]
+        cs = max(1.0, float(np.abs(c).max()))
+        M = 1e6 * cs * max(1.0, float(scale))
+        V = [lmo_base(c[None, :])[0]]
+        status, x = "not_converged", V[0]
+        for it in range(1, max_columns + 1):
+            Vm = np.array(V)                      # (p, d)
+            AV = A @ Vm.T                         # (k, p)
+            p = Vm.shape[0]
+            # variables: mu (p), s_plus (k), s_minus (n_eq); minimize c.V mu + M (s)
+            cost = np.concatenate([Vm @ c, np.full(k, M), np.full(n_eq, M)])
+            A_eq = np.zeros((1 + n_eq, p + k + n_eq))
+            A_eq[0, :p] = 1.0
+            A_eq[1:, :p] = AV[eq]
+            A_eq[1:, p:p + n_eq] = -np.eye(n_eq)
+            A_eq[1:, p + k:] = np.eye(n_eq)
+            b_eq = np.concatenate([[1.0], rhs[eq]])
+            A_ub = np.zeros((k - n_eq, p + k + n_eq))
+            A_ub[:, :p] = AV[ub]
+            A_ub[:, p + n_eq:p + k] = -np.eye(k - n_eq)
+            res = linprog(cost, A_ub=A_ub if k > n_eq else None, b_ub=rhs[ub] if k > n_eq else None,
+                          A_eq=A_eq, b_eq=b_eq, bounds=[(0, None)] * (p + k + n_eq), method="highs")
+            if res.status != 0:
+                break
+            mu = res.x[:p]
+            slack = float(res.x[p:].sum())
+            pi_0 = float(res.eqlin.marginals[0])
+            pi = np.zeros(k)
+            pi[eq] = res.eqlin.marginals[1:]
+            if k > n_eq:
+                pi[ub] = res.ineqlin.marginals
+            x = mu @ Vm
+            v = lmo_base((c - A.T @ pi)[None, :])[0]
+            reduced = float(c @ v - pi @ (A @ v) - pi_0)
+            if reduced >= -tol * cs * max(1.0, float(np.abs(v).max())):
+                status = "solved" if slack <= 1e-9 * max(1.0, float(scale)) else "empty"
+                info["gap"][row] = max(0.0, -reduced)
+                info["residual"][row] = slack
+                break
+            V.append(v)
+        out[row] = x
+        info["status"][row] = status
+        info["iterations"][row] = len(V)
     return out, info
