@@ -57,6 +57,7 @@ from . import cached, loose_of, lp_form, part_violation
 CUT_LIMIT = 64           # a part with at most this many linear rows counts as a few cuts
 POLYHEDRAL_CUTS = 2     # all-polyhedral parts: a native base with at most this many other rows uses the cut dual
 FEASIBILITY_CHECK_LIMIT = 200_000   # variables of the merged form up to which emptiness is checked by LP
+AUX_CHECK_LIMIT = 2_000  # beyond this many auxiliaries, a cut intersection is checked by column generation instead
 
 
 def merge_forms(forms):
@@ -349,9 +350,10 @@ def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None, sp
     forms = [p.linear_form() for p in parts]
     kw = dict(parts=parts, accuracy=accuracy, max_iterations=max_iterations, name=name)
     lp_forms = [lp_form(p) for p in parts]
-    if all(f is not None for f in lp_forms):
-        merged = merge_forms(lp_forms)
-        _check_feasible(merged, parts)
+    checked = False
+    if all(f is not None for f in lp_forms) and sum(f.n_aux for f in lp_forms) <= AUX_CHECK_LIMIT:
+        _check_feasible(merge_forms(lp_forms), parts)
+        checked = True
     polyhedral = all(f is not None and f.n_aux == 0 for f in forms)
     cuts = [cut_rows(f) if f is not None and f.n_aux == 0 else None for f in forms]
     others = [i for i, c in enumerate(cuts) if c is None]
@@ -375,8 +377,11 @@ def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None, sp
             A, rhs, eq = A[keep], rhs[keep], eq[keep]
             order = np.concatenate([np.flatnonzero(eq), np.flatnonzero(~eq)])
             if order.size and (not polyhedral or order.size <= POLYHEDRAL_CUTS):
-                return CutIntersection(base=base, cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()),
+                node = CutIntersection(base=base, cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()),
                                        **kw)
+                if not checked and "lmo" in parts[base].kernels:
+                    _check_cuts_feasible(node)
+                return node
     if polyhedral:
         return Intersection(**kw)
     return SplitIntersection(splitting=splitting, **kw)
@@ -398,6 +403,17 @@ def _implied_bounds(A, rhs, eq, base_form):
         bound = c / a[i]            # a_i x_i <= c:  x_i >= bound (a_i < 0) or x_i <= bound (a_i > 0)
         out[j] = base_form.lo[i] >= bound if a[i] < 0 else base_form.hi[i] <= bound
     return out
+
+
+def _check_cuts_feasible(node):
+    """Phase one of the column generation (c = 0): nonzero elastic slack means the cuts miss the base."""
+    from ..decision_set import DecisionSet
+    base = DecisionSet(node.parts[node.base])
+    _, info = lmo_with_cuts(lambda Q: base._run("lmo", Q)[0], np.zeros((1, node.dim)), node.cut_matrix,
+                            node.cut_rhs, node.n_eq, max(1.0, node.scale()))
+    if info["status"][0] == "empty":
+        raise EmptySetError(f"the parts have no common point: the cuts miss {node.parts[node.base].label} "
+                            f"(the elastic slack of the column generation stays {info['residual'][0]:.3g})")
 
 
 def _check_feasible(form, parts):
