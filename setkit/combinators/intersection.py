@@ -285,7 +285,7 @@ class CutIntersection(Intersection):
 
     @kernel("project")
     def project(self, Y, parts):
-        """Dual over the few cut multipliers (L-BFGS-B + Newton), one base projection per step, O(steps * base cost)."""
+        """Dual over the few cut multipliers (semismooth Newton, L-BFGS-B fallback), one base projection per step, O(steps * base cost)."""
         base = parts[self.base]
 
         def proj(Z):
