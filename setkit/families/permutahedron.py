@@ -72,7 +72,15 @@ class Permutahedron(Family):
 
     # linear_form: none. The majorization inequalities are 2^n - 2 facets; the compact
     # extended formulations (Birkhoff, O(n^2) variables; sorting networks) are not worth
-    # it next to the native kernels, so generic LP/QP backends do not serve this family.
+    # it next to the native kernels, so generic LP/QP backends do not serve this family alone.
+
+    def extended_form(self):
+        """The Birkhoff extended formulation {x = W w, W doubly stochastic}, n^2 auxiliaries.
+
+        Built only on request (by combinators that need one LP for an intersection).
+        """
+        from ..combinators.extended import permutahedron_form
+        return permutahedron_form(self.weights)
 
     # -- native kernels ----------------------------------------------------------------------
     @kernel("project")
