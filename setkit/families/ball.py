@@ -11,6 +11,7 @@ import numpy as np
 from ..forms import LinearForm
 from ..kernels.simplex import project_simplex_rows
 from . import Family, kernel, register
+from ._screen import screened_contains
 
 NORMS = (1, 2, "inf")
 
@@ -139,8 +140,8 @@ class Ball(Family):
         X = np.broadcast_to(self.center, (b, n)).copy()
         if self.norm == 2:
             nc = np.linalg.norm(C, axis=1)
-            nz = nc > 0
-            X[nz] -= r * C[nz] / nc[nz, None]
+            f = np.divide(r, nc, out=np.zeros_like(nc), where=nc > 0)
+            X -= C * f[:, None]
         elif self.norm == "inf":
             X -= r * np.sign(C)
         else:
@@ -153,6 +154,14 @@ class Ball(Family):
     def support(self, C):
         """<c, center> + r ||c||_q with q the dual exponent, O(n)."""
         return C @ self.center + self.radius * self._dual_norm(C)
+
+    @kernel("contains")
+    def contains(self, X, tol):
+        """||x - c||_p <= r screen, the distance only for borderline points (p = 1, inf), O(n)."""
+        if self.norm == 2:
+            return self.distance(X) <= tol
+        lip = np.sqrt(self.dim) if self.norm == 1 else 1.0   # ||u||_p <= lip ||u||_2
+        return screened_contains(X, tol, self.violation, self.distance, lip)
 
     @kernel("violation")
     def violation(self, X):

@@ -8,6 +8,7 @@ import numpy as np
 from ..forms import LinearForm
 from ..kernels.simplex import project_simplex_rows
 from . import Family, kernel, register
+from ._screen import screened_contains
 
 
 @register("simplex")
@@ -80,9 +81,20 @@ class Simplex(Family):
         b = C.shape[0]
         X = np.zeros_like(C)
         j = np.argmin(C, axis=1)
-        take = np.ones(b, bool) if self.mode == "equal" else C[np.arange(b), j] < 0
-        X[np.arange(b)[take], j[take]] = self.total
+        rows = np.arange(b)
+        if self.mode == "equal":
+            X[rows, j] = self.total
+        else:
+            X[rows, j] = np.where(C[rows, j] < 0, self.total, 0.0)
         return X
+
+    @kernel("contains")
+    def contains(self, X, tol):
+        """Violation screen (x >= 0 and the sum), the distance only for borderline points, O(n)."""
+        return screened_contains(X, tol, self.violation, self._distance, np.sqrt(self.n))
+
+    def _distance(self, X):
+        return np.linalg.norm(X - self.project(X), axis=1)
 
     @kernel("support")
     def support(self, C):

@@ -420,6 +420,12 @@ def _capped_rows_nb(Y, lo, hi, w, total, rows, out):
             out[r, j] = min(max(Y[r, j] - lam * w[j], lo[j]), hi[j])
 
 
+def _vector(v, shape):
+    if isinstance(v, np.ndarray) and v.dtype == np.float64 and v.shape == shape and v.flags.c_contiguous:
+        return v
+    return np.ascontiguousarray(np.broadcast_to(np.asarray(v, dtype=float), shape))
+
+
 def project_capped(Y, lo, hi, w, total, mode="equal"):
     """Project rows of Y onto {lo <= x <= hi, <w, x> = total} (mode "equal") or <= total ("at_most").
 
@@ -428,9 +434,7 @@ def project_capped(Y, lo, hi, w, total, mode="equal"):
     upper bounds may be +inf, weights positive, and the total reachable.
     """
     Y = np.ascontiguousarray(Y, dtype=float)
-    lo = np.ascontiguousarray(np.broadcast_to(np.asarray(lo, float), Y.shape[1:]))
-    hi = np.ascontiguousarray(np.broadcast_to(np.asarray(hi, float), Y.shape[1:]))
-    w = np.ascontiguousarray(np.broadcast_to(np.asarray(w, float), Y.shape[1:]))
+    lo, hi, w = (_vector(v, Y.shape[1:]) for v in (lo, hi, w))
     if mode == "at_most":
         X = np.clip(Y, lo, hi)
         rows = np.flatnonzero(X @ w > total)
@@ -439,5 +443,86 @@ def project_capped(Y, lo, hi, w, total, mode="equal"):
     else:
         X = np.empty_like(Y)
         rows = np.arange(Y.shape[0])
-    _capped_rows_nb(Y, lo, hi, w, float(total), rows.astype(np.int64), X)
+    _capped_rows_nb(Y, lo, hi, w, float(total), rows, X)
     return X
+
+
+@njit(cache=True)
+def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
+    """Rows of argmin <c, x> over {lo <= x <= cap, <w, x> = lo.w + room} (<= when ``at_most``).
+
+    The continuous-knapsack greedy fills coordinates by increasing ratio c_i / w_i
+    (only the negative ratios when at_most); instead of sorting, a randomized
+    selection finds the ratio where the budget runs out: each round partitions the
+    candidates around a pivot ratio, fills the cheaper side completely when it fits
+    and recurses into the side that holds the last unit. Expected O(n) per row.
+    ``cap`` must be finite (the budget bounds every coordinate).
+    """
+    b, n = C.shape
+    idx = np.empty(n, np.int64)
+    r = np.empty(n)
+    seed = np.int64(2862933555777941757)
+    for row in range(b):
+        m = 0
+        for i in range(n):
+            out[row, i] = lo[i]
+            ri = C[row, i] / w[i]
+            r[i] = ri
+            if cap[i] > lo[i] and (not at_most or ri < 0.0):
+                idx[m] = i
+                m += 1
+        R = room
+        while m > 0 and R > 0.0:
+            # pivot: median of three random candidate ratios
+            p3 = np.empty(3)
+            for t in range(3):
+                seed = seed * 6364136223846793005 + 1442695040888963407
+                p3[t] = r[idx[((seed >> 20) & 0x7FFFFFFFFFF) % m]]
+            p = max(min(p3[0], p3[1]), min(max(p3[0], p3[1]), p3[2]))
+            s_less = 0.0
+            s_eq = 0.0
+            for k in range(m):
+                j = idx[k]
+                if r[j] < p:
+                    s_less += w[j] * (cap[j] - lo[j])
+                elif r[j] == p:
+                    s_eq += w[j] * (cap[j] - lo[j])
+            if s_less >= R:
+                m2 = 0
+                for k in range(m):
+                    j = idx[k]
+                    if r[j] < p:
+                        idx[m2] = j
+                        m2 += 1
+                m = m2
+                continue
+            # everything cheaper than the pivot fits: fill it completely
+            for k in range(m):
+                j = idx[k]
+                if r[j] < p:
+                    out[row, j] = cap[j]
+            R -= s_less
+            if s_eq >= R:
+                for k in range(m):
+                    j = idx[k]
+                    if r[j] == p and R > 0.0:
+                        room_j = w[j] * (cap[j] - lo[j])
+                        if room_j <= R:
+                            out[row, j] = cap[j]
+                            R -= room_j
+                        else:
+                            out[row, j] = lo[j] + R / w[j]
+                            R = 0.0
+                break
+            for k in range(m):
+                j = idx[k]
+                if r[j] == p:
+                    out[row, j] = cap[j]
+            R -= s_eq
+            m2 = 0
+            for k in range(m):
+                j = idx[k]
+                if r[j] > p:
+                    idx[m2] = j
+                    m2 += 1
+            m = m2
