@@ -10,6 +10,7 @@ import numpy as np
 
 from ..forms import LinearForm
 from ..kernels.simplex import project_simplex_rows
+from ..kernels.vector_ops import ball_lmo, ball_violation, l2_ball_project
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -55,6 +56,10 @@ class Ball(Family):
         norm = r.choice("norm", NORMS, 2)
         radius = r.number("radius", min=0.0)
         return cls(center=np.asarray(c, float), radius=radius, norm=norm, name=r.name)
+
+    def __post_init__(self):
+        object.__setattr__(self, "center", np.ascontiguousarray(self.center, dtype=float))
+        object.__setattr__(self, "_p", 0 if self.norm == "inf" else int(self.norm))   # 0 means inf
 
     # -- description -----------------------------------------------------------------------
     @property
@@ -110,20 +115,22 @@ class Ball(Family):
     def project(self, Y):
         """Radial scaling (p=2), clipping (p=inf), or the simplex projection of |y - c| with signs restored (p=1), O(n)."""
         c, r = self.center, self.radius
+        if self.norm == 2:
+            return l2_ball_project(Y, c, r)
         V = Y - c
         if self.norm == "inf":
             return c + np.clip(V, -r, r)
         nv = self._norm(V)
         out = nv > r
-        X = Y.copy()
         if not out.any():
-            return X
+            return Y.copy()
         if self.norm == 2:
-            X[out] = c + V[out] * (r / nv[out])[:, None]
+            f = np.divide(r, nv, out=np.ones_like(nv), where=out)
+            P = c + V * f[:, None]
         else:
-            A = np.abs(V[out])
-            X[out] = c + np.sign(V[out]) * project_simplex_rows(A, r)
-        return X
+            P = c + np.sign(V) * project_simplex_rows(np.abs(V), r)
+        # points inside are returned unchanged (not re-rounded through c + (y - c))
+        return P if out.all() else np.where(out[:, None], P, Y)
 
     @kernel("distance")
     def distance(self, Y):
@@ -135,20 +142,7 @@ class Ball(Family):
     @kernel("lmo")
     def lmo(self, C):
         """c0 - r c/||c||_2 (p=2), c0 - r sign(c) (p=inf), c0 - r sign(c_j) e_j at the largest |c_j| (p=1), O(n)."""
-        b, n = C.shape
-        r = self.radius
-        X = np.broadcast_to(self.center, (b, n)).copy()
-        if self.norm == 2:
-            nc = np.linalg.norm(C, axis=1)
-            f = np.divide(r, nc, out=np.zeros_like(nc), where=nc > 0)
-            X -= C * f[:, None]
-        elif self.norm == "inf":
-            X -= r * np.sign(C)
-        else:
-            j = np.argmax(np.abs(C), axis=1)
-            rows = np.arange(b)
-            X[rows, j] -= r * np.sign(C[rows, j])
-        return X
+        return ball_lmo(C, self.center, self.radius, self._p)
 
     @kernel("support")
     def support(self, C):
@@ -166,4 +160,4 @@ class Ball(Family):
     @kernel("violation")
     def violation(self, X):
         """max(||x - c||_p - r, 0), O(n)."""
-        return np.maximum(self._norm(X - self.center) - self.radius, 0.0)
+        return ball_violation(X, self.center, self.radius, self._p)

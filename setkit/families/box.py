@@ -7,6 +7,7 @@ import numpy as np
 
 from ..errors import UnboundedDirectionError
 from ..forms import LinearForm
+from ..kernels.vector_ops import bounds_sum_violation
 from . import Family, kernel, register
 
 
@@ -104,6 +105,7 @@ class Box(Family):
         # used by every LMO call: the answer at c_i = 0, and whether any bound is infinite
         tie = np.where(np.isfinite(self.lower), self.lower, np.where(np.isfinite(self.upper), self.upper, 0.0))
         object.__setattr__(self, "_tie", tie)
+        object.__setattr__(self, "_zeros", np.zeros(self.lower.size))
         object.__setattr__(self, "_all_finite", bool(np.isfinite(self.lower).all() and np.isfinite(self.upper).all()))
 
     @kernel("lmo")
@@ -130,7 +132,7 @@ class Box(Family):
     @kernel("violation")
     def violation(self, X):
         """Largest bound violation, O(n)."""
-        return np.maximum((self.lower - X).max(axis=1), (X - self.upper).max(axis=1)).clip(min=0.0)
+        return bounds_sum_violation(X, self.lower, self.upper, self._zeros, 0.0, True)
 
     # -- exact knowledge for setkit.measures ------------------------------------------------------
     def _bounded(self):

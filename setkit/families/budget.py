@@ -10,6 +10,7 @@ import numpy as np
 
 from ..forms import LinearForm
 from ..kernels.simplex import knapsack_lmo_rows, project_capped
+from ..kernels.vector_ops import bounds_sum_violation
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -151,7 +152,4 @@ class Budget(Family):
     @kernel("violation")
     def violation(self, X):
         """Largest violation of the bounds and of the weighted sum, O(n)."""
-        s = X @ self.weights - self.total
-        sv = np.abs(s) if self.mode == "equal" else np.maximum(s, 0.0)
-        bounds = np.maximum((self.lower - X).max(axis=1), (X - self.upper).max(axis=1))
-        return np.maximum(bounds.clip(min=0.0), sv)
+        return bounds_sum_violation(X, self.lower, self.upper, self.weights, self.total, self.mode == "equal")

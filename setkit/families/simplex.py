@@ -7,6 +7,7 @@ import numpy as np
 
 from ..forms import LinearForm
 from ..kernels.simplex import project_simplex_rows
+from ..kernels.vector_ops import bounds_sum_violation
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -45,6 +46,11 @@ class Simplex(Family):
         """A random simplex of dimension 2..8, either mode."""
         return {"kind": "simplex", "dim": int(rng.integers(2, 9)), "total": float(np.round(rng.uniform(0.1, 5), 3)),
                 "mode": str(rng.choice(["equal", "at_most"]))}
+
+    def __post_init__(self):
+        object.__setattr__(self, "_zeros", np.zeros(self.n))
+        object.__setattr__(self, "_ones", np.ones(self.n))
+        object.__setattr__(self, "_inf", np.full(self.n, np.inf))
 
     @property
     def shape(self):
@@ -105,9 +111,7 @@ class Simplex(Family):
     @kernel("violation")
     def violation(self, X):
         """Largest violation of x >= 0 and of the sum constraint, O(n)."""
-        s = X.sum(axis=1) - self.total
-        sv = np.abs(s) if self.mode == "equal" else np.maximum(s, 0.0)
-        return np.maximum((-X).max(axis=1).clip(min=0.0), sv)
+        return bounds_sum_violation(X, self._zeros, self._inf, self._ones, self.total, self.mode == "equal")
 
     # -- exact knowledge for setkit.measures ------------------------------------------------------
     def exact_centroid(self, measure):

@@ -249,23 +249,30 @@ def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
             if bp > L and bp < U:
                 return bp
         return np.nan
-    return np.sort(samp[:cnt])[cnt // 2]
+    for a in range(1, cnt):                 # insertion sort of the small sample, in place
+        v = samp[a]
+        c = a - 1
+        while c >= 0 and samp[c] > v:
+            samp[c + 1] = samp[c]
+            c -= 1
+        samp[c + 1] = v
+    return samp[cnt // 2]
 
 
 @njit(cache=True)
 def _capped_lambda(y, lo, hi, w, total, idx):
     """Multiplier of the capped weighted simplex; see :func:`_capped_search`.
 
-    Long vectors first solve the same problem on a random sample of 1024
-    coordinates (with the total scaled down) and use its root as the first
+    Longer vectors (n > 256) first solve the same problem on a random sample of
+    min(1024, n/8) coordinates (with the total scaled down) and use its root as the first
     pivot; the sorted breakpoints of the sample then supply pivots stepping
     back across the root, so that two full passes settle almost every coordinate.
     """
     n = y.size
     first = np.nan
     sbp = np.empty(0)
-    if n > 4096:
-        k = 1024
+    if n > 256:
+        k = min(1024, n // 8)
         ys = np.empty(k)
         los = np.empty(k)
         his = np.empty(k)
@@ -461,6 +468,7 @@ def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
     b, n = C.shape
     idx = np.empty(n, np.int64)
     r = np.empty(n)
+    p3 = np.empty(3)
     seed = np.int64(2862933555777941757)
     for row in range(b):
         m = 0
@@ -474,7 +482,6 @@ def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
         R = room
         while m > 0 and R > 0.0:
             # pivot: median of three random candidate ratios
-            p3 = np.empty(3)
             for t in range(3):
                 seed = seed * 6364136223846793005 + 1442695040888963407
                 p3[t] = r[idx[((seed >> 20) & 0x7FFFFFFFFFF) % m]]
