@@ -9,51 +9,71 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-# Michelot passes allowed before falling back to the sort-based threshold
+# clean-up passes allowed before falling back to the sort-based threshold
 _MAX_PASSES = 64
 
 
 @njit(cache=True)
-def _simplex_tau(y, total, buf):
-    """Threshold tau with sum max(y - tau, 0) = total (total > 0), by Michelot's fixed point.
+def _simplex_tau(y, total, v, vt):
+    """Threshold tau with sum max(y - tau, 0) = total (total > 0), by Condat's method.
 
-    tau = (sum_{S} y - total) / |S| over S = {y > tau}, starting from S = all;
-    tau increases and S shrinks at every pass, so it stops exactly when S is
-    stable. Each pass compacts S into ``buf``. Returns NaN after too many passes
-    (the caller then falls back to sorting). O(n) per pass, few passes in practice.
+    One pass keeps a candidate list v with rho = (sum v - total) / |v| (values that
+    cannot be above the threshold are set aside in vt and only re-examined once);
+    then passes drop the candidates <= rho until none is dropped. tau is recomputed
+    from the final list for accuracy. Returns NaN if the clean-up needs too many
+    passes (the caller then sorts). O(n) in practice.
     """
     n = y.size
-    s = 0.0
-    for i in range(n):
-        s += y[i]
-    tau = (s - total) / n
-    m = n
-    src = y
+    m = 1
+    mt = 0
+    v[0] = y[0]
+    rho = y[0] - total
+    for i in range(1, n):
+        yi = y[i]
+        if yi > rho:
+            rho += (yi - rho) / (m + 1)
+            if rho > yi - total:
+                v[m] = yi
+                m += 1
+            else:
+                for k in range(m):
+                    vt[mt] = v[k]
+                    mt += 1
+                v[0] = yi
+                m = 1
+                rho = yi - total
+    for k in range(mt):
+        yk = vt[k]
+        if yk > rho:
+            v[m] = yk
+            m += 1
+            rho += (yk - rho) / m
     for _ in range(_MAX_PASSES):
-        # branch-free compaction of {v > tau} into buf
         m2 = 0
-        s2 = 0.0
         for k in range(m):
-            v = src[k]
-            keep = v > tau
-            buf[m2] = v
-            m2 += keep
-            s2 += v * keep
+            yk = v[k]
+            if yk > rho:
+                v[m2] = yk
+                m2 += 1
+            else:
+                rho += (rho - yk) / (m - 1 - (k - m2))   # the list size after this removal
         if m2 == m:
-            return tau
+            s = 0.0
+            for k in range(m):
+                s += v[k]
+            return (s - total) / m
         m = m2
-        src = buf
-        tau = (s2 - total) / m
     return np.nan
 
 
 @njit(cache=True)
 def _simplex_rows_nb(Y, total, out):
     b, n = Y.shape
-    buf = np.empty(n)
+    cand = np.empty(n)
+    wait = np.empty(n)
     bad = 0
     for r in range(b):
-        tau = _simplex_tau(Y[r], total, buf)
+        tau = _simplex_tau(Y[r], total, cand, wait)
         if np.isnan(tau):
             bad += 1
             for j in range(n):
@@ -69,8 +89,8 @@ def project_simplex_rows(Y: np.ndarray, total: float) -> np.ndarray:
     """Project each row of Y onto {x >= 0, sum x = total}.
 
     x = max(y - tau, 0) with the threshold tau of the KKT conditions found by
-    Michelot's fixed point in compiled code (expected O(n) per row); rows where
-    it needs too many passes fall back to the sorted-prefix threshold
+    Condat's method in compiled code (O(n) per row in practice); rows where its
+    clean-up needs too many passes fall back to the sorted-prefix threshold
     (Held, Wolfe and Crowder 1974), O(n log n).
     """
     Y = np.ascontiguousarray(Y, dtype=float)
