@@ -1,6 +1,10 @@
 """The budget {lower <= x <= upper, <w, x> = total} (mode equal) or <= total (mode at_most).
 
 A weighted, capped simplex: the feasible set of the continuous knapsack.
+
+Outputs are numerical answers within the stated tolerances; where they steer the
+allocation of scarce resources they are to be reviewed by a responsible person and
+checked against local rules.
 """
 from __future__ import annotations
 

@@ -1,4 +1,8 @@
-"""The permutahedron of a weight vector: the convex hull of all its permutations."""
+"""The permutahedron of a weight vector: the convex hull of all its permutations.
+
+Outputs are numerical answers within the stated tolerances; where a ranking affects
+people it is to be reviewed by a responsible person and checked against local rules.
+"""
 from __future__ import annotations
 
 from dataclasses import dataclass
