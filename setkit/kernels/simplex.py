@@ -343,6 +343,9 @@ def _capped_search(y, lo, hi, w, total, idx, first, sbp):
     seed = np.full(1, 88172645463325252, np.int64)
     samp = np.empty(15)
     step = 1
+    secant = False
+    gL = np.inf
+    gU = -np.inf
     piv = first
     if np.isnan(piv) or not np.isfinite(piv):
         piv = _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp)
@@ -384,14 +387,23 @@ def _capped_search(y, lo, hi, w, total, idx, first, sbp):
         g = fixed + free_c - piv * free_s + gk
         if g > total:
             L = piv
+            gL = g
         elif g < total:
             U = piv
+            gU = g
         else:
             return piv
         if m == 0:
             break
         piv = np.nan
-        if sbp.size and (L == -np.inf or U == np.inf):
+        secant = not secant
+        if secant and L > -np.inf and U < np.inf:
+            # g is piecewise linear: the secant through (L, g(L)), (U, g(U)) often lands in the
+            # root's own piece; alternating with sampled medians keeps the expected O(n)
+            t = L + (gL - total) * ((U - L) / (gL - gU))
+            if t > L and t < U:
+                piv = t
+        elif sbp.size and (L == -np.inf or U == np.inf):
             # one-sided bracket: step back across the root along the sample's breakpoints,
             # 4, 16, 64, ... sample breakpoints away (a few of all breakpoints in between)
             step *= 4
