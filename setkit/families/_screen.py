@@ -13,6 +13,11 @@ import numpy as np
 def screened_contains(X, tol, violation, distance, lipschitz):
     """dist(X_i, K) <= tol_i for each row, computing distances only for borderline rows."""
     v = violation(X)
+    if v.shape[0] == 1:                  # one point: scalar logic, no temporary arrays
+        v0, t0 = float(v[0]), float(tol[0])
+        if v0 == 0.0 or v0 > t0 * lipschitz:
+            return np.array([v0 == 0.0])
+        return distance(X) <= tol
     res = v == 0.0
     unsure = ~res & (v <= tol * lipschitz)
     if unsure.any():

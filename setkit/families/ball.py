@@ -9,8 +9,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
-from ..kernels.simplex import project_simplex_rows
-from ..kernels.vector_ops import ball_lmo, ball_violation, l2_ball_project
+from ..kernels.vector_ops import ball_lmo, ball_violation, l1_ball_project, l2_ball_project
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -60,6 +59,8 @@ class Ball(Family):
     def __post_init__(self):
         object.__setattr__(self, "center", np.ascontiguousarray(self.center, dtype=float))
         object.__setattr__(self, "_p", 0 if self.norm == "inf" else int(self.norm))   # 0 means inf
+        object.__setattr__(self, "_lo", self.center - self.radius)
+        object.__setattr__(self, "_hi", self.center + self.radius)
 
     # -- description -----------------------------------------------------------------------
     @property
@@ -117,20 +118,10 @@ class Ball(Family):
         c, r = self.center, self.radius
         if self.norm == 2:
             return l2_ball_project(Y, c, r)
-        V = Y - c
-        if self.norm == "inf":
-            return c + np.clip(V, -r, r)
-        nv = self._norm(V)
-        out = nv > r
-        if not out.any():
-            return Y.copy()
-        if self.norm == 2:
-            f = np.divide(r, nv, out=np.ones_like(nv), where=out)
-            P = c + V * f[:, None]
-        else:
-            P = c + np.sign(V) * project_simplex_rows(np.abs(V), r)
-        # points inside are returned unchanged (not re-rounded through c + (y - c))
-        return P if out.all() else np.where(out[:, None], P, Y)
+        if self.norm == 1:
+            return l1_ball_project(Y, c, r)
+        # p = inf: clip to the box [c - r, c + r] (points inside come back unchanged)
+        return np.clip(Y, self._lo, self._hi)
 
     @kernel("distance")
     def distance(self, Y):

@@ -9,6 +9,7 @@ from ..errors import UnboundedDirectionError
 from ..forms import LinearForm
 from ..kernels.vector_ops import bounds_sum_violation
 from . import Family, kernel, register
+from ._screen import screened_contains
 
 
 @register("box")
@@ -128,6 +129,11 @@ class Box(Family):
         if self._all_finite:
             return np.where(C > 0, C * self.upper, C * self.lower).sum(axis=1)
         return np.einsum("ij,ij->i", C, self.lmo(-C))
+
+    @kernel("contains")
+    def contains(self, X, tol):
+        """Bound-violation screen, the distance only for borderline points, O(n)."""
+        return screened_contains(X, tol, self.violation, self.distance, 1.0)
 
     @kernel("violation")
     def violation(self, X):

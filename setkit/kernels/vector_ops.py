@@ -9,6 +9,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from .simplex import _simplex_tau
+
 
 @njit(cache=True)
 def bounds_sum_violation(X, lo, hi, w, total, equal):
@@ -107,4 +109,48 @@ def ball_violation(X, c, radius, p):
         if p == 2:
             s = np.sqrt(s)
         out[r] = max(s - radius, 0.0)
+    return out
+
+
+@njit(cache=True)
+def l1_ball_project(Y, c, radius):
+    """Rows onto {||x - c||_1 <= r}: unchanged inside, else c + sign(v) max(|v| - tau, 0), v = y - c.
+
+    tau is the simplex threshold of |v| for the total r (Condat's method), O(n).
+    """
+    b, n = Y.shape
+    out = np.empty_like(Y)
+    a = np.empty(n)
+    cand = np.empty(n)
+    wait = np.empty(n)
+    for r in range(b):
+        s = 0.0
+        for j in range(n):
+            a[j] = abs(Y[r, j] - c[j])
+            s += a[j]
+        if s <= radius:
+            for j in range(n):
+                out[r, j] = Y[r, j]
+            continue
+        if radius == 0.0:
+            for j in range(n):
+                out[r, j] = c[j]
+            continue
+        tau = _simplex_tau(a, radius, cand, wait)
+        if np.isnan(tau):          # clean-up did not settle: the sorted threshold
+            u = -np.sort(-a)
+            cs = 0.0
+            tau = 0.0
+            for k in range(n):
+                cs += u[k]
+                t = (cs - radius) / (k + 1)
+                if u[k] > t:
+                    tau = t
+        for j in range(n):
+            d = Y[r, j] - c[j]
+            m = abs(d) - tau
+            if m > 0.0:
+                out[r, j] = c[j] + (m if d > 0 else -m)
+            else:
+                out[r, j] = c[j]
     return out
