@@ -41,8 +41,11 @@ How answers are obtained (first that applies)
 
 Hit-and-run
 -----------
-Chains start at the Chebyshev center (largest inscribed ball, one LP) of the
-reduced polytope, or at the mean of LMO answers for non-polyhedral sets. Each
+Chains start at dispersed points: half-way between the Chebyshev center
+(largest inscribed ball, one LP) of the reduced polytope and vertices for random
+directions (one LP per chain), or half-way between the mean of LMO answers and
+some of them for non-polyhedral sets, so that chains which have not forgotten
+their starts disagree visibly (R-hat). Each
 step draws a direction from a fixed centrally symmetric law N(0, S) and moves
 to a uniform point of the chord (polytopes) or to a shrinkage draw on the chord
 (membership sets); both leave the uniform distribution invariant. S rounds
@@ -60,17 +63,20 @@ from __future__ import annotations
 
 import math
 import time
+import warnings
 import weakref
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
-from .errors import EmptySetError, InputError, SolveError, UnboundedDirectionError, UnsupportedOperationError
+from .errors import AccuracyWarning, EmptySetError, InputError, SolveError, UnboundedDirectionError, UnsupportedOperationError
 
 MEASURES = ("volume", "vertices", "directions")
 EXACT_MAX_DIM = 8
 MAX_VERTICES = 200_000
+RHAT_WARN = 1.05      # hit-and-run estimates warn above this R-hat ...
+ESS_WARN = 50.0       # ... or below this effective sample size
 
 
 @dataclass(frozen=True)
@@ -79,7 +85,8 @@ class MeasureResult:
 
     ``point`` has the set's point shape; ``std_error`` too (zeros when exact);
     ``ess`` is the effective sample size (``inf`` when exact; for hit-and-run
-    the smallest over coordinates); ``samples`` the number of points used.
+    the smallest over coordinates); ``samples`` the number of points used;
+    ``rhat`` the largest Gelman-Rubin R-hat of the hit-and-run chains (NaN otherwise).
     """
 
     point: Any
@@ -91,6 +98,7 @@ class MeasureResult:
     samples: int
     seconds: float
     note: str = ""
+    rhat: float = float("nan")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -384,6 +392,7 @@ class _MembershipFrame:
     x0: np.ndarray
     N: np.ndarray
     L: np.ndarray
+    T: np.ndarray          # the LMO answers in affine-hull coordinates
 
 
 def _membership_frame(K, rng):
@@ -400,7 +409,7 @@ def _membership_frame(K, rng):
     x0 = Pts.mean(axis=0)
     U, s, _ = np.linalg.svd((Pts - x0).T, full_matrices=False)
     if s.size == 0 or s[0] == 0:
-        return _MembershipFrame(x0, np.zeros((d, 0)), np.zeros((0, 0)))
+        return _MembershipFrame(x0, np.zeros((d, 0)), np.zeros((0, 0)), np.zeros((0, 0)))
     r = int(np.sum(s > 1e-9 * s[0]))
     N = U[:, :r]
     T = (Pts - x0) @ N
@@ -409,7 +418,7 @@ def _membership_frame(K, rng):
         L = np.linalg.cholesky(S + 1e-9 * float(np.trace(S)) / r * np.eye(r))
     except np.linalg.LinAlgError:
         L = np.eye(r)
-    return _MembershipFrame(x0, N, L)
+    return _MembershipFrame(x0, N, L, T)
 
 
 def _membership_step(K, frame, max_shrink=60):
@@ -469,16 +478,31 @@ def _membership_step(K, frame, max_shrink=60):
 
 
 def _volume_chain_setup(K, rng):
-    """(step, start row, to_x, m, direction factor L) for hit-and-run in K's affine hull."""
+    """(step, starts(C, rng) -> (C, m), to_x, m, direction factor L) for hit-and-run in K's affine hull."""
     P = reduced(K)
     if P is not None:
         if not P.bounded:
             raise UnsupportedOperationError(
                 f"volume measure on {K.node.label}: the set is unbounded, so it has no uniform distribution; "
                 f"bound it (e.g. intersect it with a box).")
-        return _polytope_step(P, K.node.label), P.center, P.to_x, P.m, _dikin_factor(P)
+
+        def starts(C, g):
+            # half-way from the Chebyshev center to vertices of random directions (one LP each)
+            out = np.repeat(P.center[None, :], C, axis=0)
+            for i in range(C):
+                res = _linprog(g.standard_normal(P.m), A_ub=P.M, b_ub=P.q, bounds=[(None, None)] * P.m)
+                if res.status == 0:
+                    out[i] = 0.5 * (P.center + res.x)
+            return out
+        return _polytope_step(P, K.node.label), starts, P.to_x, P.m, _dikin_factor(P)
     frame = _membership_frame(K, rng)
-    return (_membership_step(K, frame), np.zeros(frame.N.shape[1]), (lambda T: frame.x0 + T @ frame.N.T),
+
+    def starts(C, g):
+        # half-way from the mean of the LMO answers (relative interior) to some of them
+        if frame.T.shape[0] == 0:
+            return np.zeros((C, frame.N.shape[1]))
+        return 0.5 * frame.T[g.integers(0, frame.T.shape[0], size=C)]
+    return (_membership_step(K, frame), starts, (lambda T: frame.x0 + T @ frame.N.T),
             frame.N.shape[1], frame.L)
 
 
@@ -488,8 +512,8 @@ def hit_and_run(K, n, rng, chains=None, burn_in=None, thin=None):
     chains, burn_in, thin = _defaults(m, chains, burn_in, thin)
     per = max(1, -(-n // chains))
     if m == 0:
-        return np.broadcast_to(to_x(start[None, :]), (chains, per, K.dim)).copy()
-    T0 = np.repeat(start[None, :], chains, axis=0)
+        return np.broadcast_to(to_x(np.zeros((1, 0))), (chains, per, K.dim)).copy()
+    T0 = start(chains, rng)
     S = _run_chains(step, T0, per, burn_in, thin, rng, L)
     C = S.shape[0]
     return to_x(S.reshape(-1, m)).reshape(C, per, K.dim)
@@ -519,28 +543,48 @@ def _ips_tau(S):
     return tau
 
 
-def batch_means(S):
-    """Mean, per-coordinate standard error and smallest effective sample size of chains S (C, n, d).
+def chain_summary(S):
+    """Mean, per-coordinate standard error, smallest effective sample size and largest R-hat of chains
+    S (C, n, d).
 
-    The standard error is the larger of two estimates: batch means (5 batches per chain) and the
-    initial-positive-sequence autocorrelation time (Geyer, 1992); the larger one is kept because both
-    tend to understate the error of slowly mixing chains.
+    The standard error is the largest of three estimates, because each can understate the error of
+    slowly mixing chains: batch means (5 batches per chain), the initial-positive-sequence
+    autocorrelation time (Geyer, 1992) and the spread of the chain means (chains start dispersed).
+    R-hat is the potential scale reduction of Gelman and Rubin (1992); values well above 1 mean the
+    chains have not mixed.
     """
     C, n, d = S.shape
     flat = S.reshape(-1, d)
     mean = flat.mean(axis=0)
     if C * n < 2:
-        return mean, np.full(d, np.nan), float("nan")
+        return mean, np.full(d, np.nan), float("nan"), float("nan")
     var = flat.var(axis=0, ddof=1)
     B = max(1, min(n, 5))
     size = n // B
     bm = S[:, :B * size].reshape(C, B, size, d).mean(axis=2).reshape(C * B, d)
     se_b = bm.std(axis=0, ddof=1) / math.sqrt(C * B) if C * B > 1 else np.zeros(d)
     se_t = np.sqrt(var * _ips_tau(S) / (C * n)) if n > 1 else np.zeros(d)
-    se = np.maximum(se_b, se_t)
+    cm = S.mean(axis=1)
+    se_c = cm.std(axis=0, ddof=1) / math.sqrt(C) if C > 1 else np.zeros(d)
+    se = np.maximum(np.maximum(se_b, se_t), se_c)
     live = se > 1e-14 * max(1.0, float(np.abs(mean).max()))
     ess = float(np.min(var[live] / se[live] ** 2)) if live.any() else float(C * n)
-    return mean, se, min(ess, float(C * n))
+    rhat = float("nan")
+    if C > 1 and n > 1:
+        W = S.var(axis=1, ddof=1).mean(axis=0)
+        Bv = n * cm.var(axis=0, ddof=1)
+        ok = W > 1e-300
+        if ok.any():
+            rhat = float(np.sqrt(((n - 1) / n * W[ok] + Bv[ok] / n) / W[ok]).max())
+        else:
+            rhat = 1.0
+    return mean, se, min(ess, float(C * n)), rhat
+
+
+def batch_means(S):
+    """Mean, per-coordinate standard error and smallest effective sample size of chains S (see chain_summary)."""
+    mean, se, ess, _ = chain_summary(S)
+    return mean, se, ess
 
 
 # ---------------------------------------------------------------------------------------------
@@ -623,12 +667,18 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
                           seconds=time.perf_counter() - t0, note="iid Gaussian directions")
         return r if details else r.point
     S = hit_and_run(K, samples, g, chains=chains, burn_in=burn_in, thin=thin)
-    mean, se, ess = batch_means(S)
+    mean, se, ess, rhat = chain_summary(S)
     how = "chord from the constraints" if reduced(K) is not None else "membership chord with shrinkage"
+    if not rhat <= RHAT_WARN or ess < ESS_WARN:
+        warnings.warn(AccuracyWarning(
+            f"centroid(measure='volume') on {node.label}: the hit-and-run chains mix slowly (R-hat {rhat:.3f}, "
+            f"effective sample size {ess:.0f} of {S.shape[0] * S.shape[1]}); the standard error may be "
+            f"understated - pass a larger burn_in, thin or samples."), stacklevel=3)
     r = MeasureResult(point=mean.reshape(K.shape), measure=measure, method="hit-and-run", exact=False,
                       std_error=se.reshape(K.shape), ess=ess, samples=S.shape[0] * S.shape[1],
-                      seconds=time.perf_counter() - t0,
-                      note=f"{S.shape[0]} chains, {how}; standard error: max of batch means and autocorrelation time")
+                      seconds=time.perf_counter() - t0, rhat=rhat,
+                      note=f"{S.shape[0]} chains, {how}; standard error: the largest of batch means, "
+                           f"autocorrelation time and spread of chain means")
     return r if details else r.point
 
 

@@ -432,3 +432,16 @@ def test_intersection_of_simplex_and_box_is_triangulated():
     np.testing.assert_allclose(r.point, [2 / 3] * 3, atol=1e-12)
     X = K.sample(400, rng=3)
     assert K.contains(X).all() and X.max() <= 0.9 + 1e-12
+
+
+def test_slow_mixing_is_reported():
+    # far too short chains on a 40-dimensional simplex: dispersed starts have not been forgotten,
+    # so R-hat is large and the estimate warns instead of posing as accurate
+    from setkit.errors import AccuracyWarning
+    K = setkit.compile({"kind": "simplex", "dim": 40, "mode": "at_most"})
+    with pytest.warns(AccuracyWarning, match="R-hat"):
+        r = K.centroid(exact=False, details=True, rng=0, samples=400, burn_in=20, thin=1)
+    assert r.rhat > 1.05
+    # well-mixed chains: R-hat close to 1
+    K3 = setkit.compile({"kind": "simplex", "dim": 3, "mode": "at_most"})
+    assert K3.centroid(exact=False, details=True, rng=0).rhat < 1.02

@@ -89,6 +89,25 @@ class AffineImage(Family):
         cap = r.integer("max_iterations", 50_000, min=1)
         return make_affine(part, scale=a, shift=s, matrix=M, accuracy=acc, max_iterations=cap, name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (scalar images and linear images)."""
+        return [
+            {"kind": "affine", "set": {"kind": "simplex", "dim": 3}, "scale": -2.0, "shift": [1.0, 0.0, 0.5]},
+            {"kind": "affine", "set": {"kind": "box", "dim": 3, "lower": -1, "upper": 1},
+             "matrix": [[1.0, 2.0, 0.0], [0.0, 1.0, -1.0]], "shift": 0.5},
+            {"kind": "affine", "set": {"kind": "ball", "dim": 2, "radius": 1.0},
+             "matrix": [[2.0, 0.0], [0.5, 1.0], [0.0, -1.0]]},
+        ]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random scaled and shifted simplex."""
+        n = int(rng.integers(2, 6))
+        a = float(np.round(rng.choice([-1, 1]) * rng.uniform(0.5, 3.0), 3))
+        return {"kind": "affine", "set": {"kind": "simplex", "dim": n}, "scale": a,
+                "shift": np.round(rng.normal(size=n), 3).tolist()}
+
     def children(self):
         return (self.part,)
 

@@ -6,6 +6,7 @@ Description keys::
     of: [set, set, ...]        # the parts, all of one point shape
     accuracy: 1.0e-7           # splitting methods only: relative target of gap and residual
     max_iterations: 20000      # splitting methods only: cap on sweeps / evaluations
+    splitting: accelerated     # general parts only: accelerated (dual proximal gradient) | dykstra
 
 How each operator is served (chosen once, when the description is read):
 
@@ -17,8 +18,10 @@ How each operator is served (chosen once, when the description is read):
 * else, every part has a linear form without auxiliary variables (boxes,
   simplices, polyhedra...): the forms are merged into one linear form, so the
   OSQP projection serves the intersection, compiled once;
-* otherwise: Dykstra's method on the parts' own projections
-  (:func:`setkit.kernels.splitting.dykstra`).
+* otherwise: a splitting method on the parts' own projections: the accelerated
+  dual proximal gradient (:func:`setkit.kernels.splitting.fast_dual_projections`,
+  default) or Dykstra's method (:func:`setkit.kernels.splitting.dykstra`,
+  ``splitting: dykstra``), which slows down for points far from the set.
 
 In every case the LMO and the support function use the merged linear form when
 every part has one (auxiliary variables allowed: extended formulations such as
@@ -43,7 +46,7 @@ import scipy.sparse as sp
 from ..errors import AccuracyWarning, EmptySetError, SolveError
 from ..families import Family, kernel, register
 from ..forms import LinearForm
-from ..kernels.splitting import dykstra, project_with_cuts
+from ..kernels.splitting import dykstra, fast_dual_projections, project_with_cuts
 from . import cached, loose_of, lp_form, part_violation
 
 CUT_LIMIT = 64           # a part with at most this many linear rows counts as a few cuts
@@ -153,10 +156,35 @@ class Intersection(Family):
                              f"part {i} ({p.label}) has shape {tuple(p.shape)}.")
         acc = r.number("accuracy", 1e-7, min=1e-14, max=1e-2)
         cap = r.integer("max_iterations", 20_000, min=1)
+        splitting = r.choice("splitting", ("accelerated", "dykstra"), "accelerated")
         try:
-            return make_intersection(parts, accuracy=acc, max_iterations=cap, name=r.name)
+            return make_intersection(parts, accuracy=acc, max_iterations=cap, name=r.name, splitting=splitting)
         except EmptySetError as exc:
             r.fail("of", str(exc), cls=EmptySetError)
+
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks: one per projection route."""
+        return [
+            {"kind": "intersection", "of": [{"kind": "simplex", "dim": 4},
+                                            {"kind": "box", "dim": 4, "lower": 0, "upper": 0.4}]},
+            {"kind": "intersection", "of": [{"kind": "permutahedron", "weights": [3.0, 2.0, 1.0, 0.5, 0.0]},
+                                            {"kind": "polyhedron", "A": [[1, 1, 0, 0, 0], [0, 0, 0, 1, 1]],
+                                             "b": [4.0, 2.0]}]},
+            {"kind": "intersection", "of": [{"kind": "ball", "dim": 3, "radius": 1.0},
+                                            {"kind": "ball", "dim": 3, "radius": 1.0, "center": [0.5, 0.5, 0.0]}]},
+            {"kind": "intersection", "of": [{"kind": "polyhedron", "A": [[1, 1, 1]], "b": [1.0],
+                                             "lower": -1, "upper": 1},
+                                            {"kind": "polyhedron", "A": [[1, -1, 0]], "b": [0.5]}]},
+        ]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random capped simplex: simplex(n) ∩ box with caps summing to at least 1."""
+        n = int(rng.integers(3, 7))
+        caps = np.round(rng.uniform(1.2 / n, 0.9, n), 3)
+        return {"kind": "intersection", "of": [{"kind": "simplex", "dim": n},
+                                               {"kind": "box", "dim": n, "lower": 0, "upper": caps.tolist()}]}
 
     @property
     def shape(self):
@@ -196,7 +224,12 @@ class Intersection(Family):
         """Every part contains the point within tol, O(sum of the parts' membership costs)."""
         ok = np.ones(X.shape[0], bool)
         for p in parts:
-            v, _ = p._run("contains", X, tol=tol)
+            r = p.routes()
+            if r["contains"].provider == "derived" and r["violation"].provider == "form":
+                # a bare linear form: its largest constraint violation, not a projection per point
+                v = p._run("violation", X)[0] <= tol
+            else:
+                v, _ = p._run("contains", X, tol=tol)
             ok &= np.asarray(v, bool)
         return ok
 
@@ -260,19 +293,22 @@ class CutIntersection(Intersection):
 
 @dataclass(frozen=True, eq=False, kw_only=True)
 class SplitIntersection(Intersection):
-    """General parts: Dykstra's method on the parts' own projections."""
+    """General parts: accelerated dual splitting (or Dykstra's method) on the parts' own projections."""
+
+    splitting: str = "accelerated"
 
     @kernel("project")
     def project(self, Y, parts):
-        """Dykstra's alternating projections, stopped on the duality gap and residual, O(sweeps * sum of part costs)."""
+        """Accelerated dual proximal gradient on the parts' projections (splitting: dykstra for Dykstra's method), stopped on the duality gap and residual, O(iterations * sum of part costs)."""
         projs = [(lambda Z, p=p: p._run("project", Z)[0]) for p in parts]
         sc = self._row_scale(Y)
-        X, info = dykstra(projs, Y, sc, accuracy=self.accuracy,
-                          max_iterations=self.max_iterations, feasibility_scale=max(1.0, self.scale()))
-        return self._accept(X, info, parts, "Dykstra", sc)
+        method = dykstra if self.splitting == "dykstra" else fast_dual_projections
+        X, info = method(projs, Y, sc, accuracy=self.accuracy,
+                         max_iterations=self.max_iterations, feasibility_scale=max(1.0, self.scale()))
+        return self._accept(X, info, parts, "Dykstra" if self.splitting == "dykstra" else "dual splitting", sc)
 
 
-def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None):
+def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None, splitting="accelerated"):
     """Choose the intersection node for ``parts`` (see the module docstring) and check emptiness."""
     parts = tuple(parts)
     forms = [p.linear_form() for p in parts]
@@ -298,11 +334,33 @@ def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None):
             A = np.vstack([c[0] for c in rest])
             rhs = np.concatenate([c[1] for c in rest])
             eq = np.concatenate([np.arange(c[0].shape[0]) < c[2] for c in rest])
+            keep = ~_implied_bounds(A, rhs, eq, forms[base])
+            A, rhs, eq = A[keep], rhs[keep], eq[keep]
             order = np.concatenate([np.flatnonzero(eq), np.flatnonzero(~eq)])
-            return CutIntersection(base=base, cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()), **kw)
+            if order.size:
+                return CutIntersection(base=base, cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()),
+                                       **kw)
     if all(f is not None and f.n_aux == 0 for f in forms):
         return Intersection(**kw)
-    return SplitIntersection(**kw)
+    return SplitIntersection(splitting=splitting, **kw)
+
+
+def _implied_bounds(A, rhs, eq, base_form):
+    """Cut rows that are coordinate bounds the base already enforces (redundant multipliers make the
+    dual degenerate): -x_i <= -l with base lower bound >= l, or x_i <= u with base upper bound <= u."""
+    out = np.zeros(A.shape[0], bool)
+    if base_form is None or base_form.n_aux:
+        return out
+    for j, (a, c) in enumerate(zip(A, rhs)):
+        if eq[j]:
+            continue
+        nz = np.flatnonzero(a)
+        if nz.size != 1:
+            continue
+        i = int(nz[0])
+        bound = c / a[i]            # a_i x_i <= c:  x_i >= bound (a_i < 0) or x_i <= bound (a_i > 0)
+        out[j] = base_form.lo[i] >= bound if a[i] < 0 else base_form.hi[i] <= bound
+    return out
 
 
 def _check_feasible(form, parts):

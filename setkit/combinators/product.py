@@ -11,7 +11,10 @@ block. Identical blocks (same family and the same data, e.g. 10,000 per-user
 simplices) are grouped when the description is read and served by ONE batched
 call of the block's operator on a (batch * copies, block dim) array, so the cost
 of a product of many small sets is that of one vectorized kernel, not of a
-Python loop over blocks.
+Python loop over blocks. Blocks of one family and shape that differ only in
+data can share one call too when the family offers the optional stacking hooks
+``stack_key()``, ``stack_params(nodes)`` and ``stacked(op, params, X)`` (the
+simplex does: per-user budgets with different totals are one scaled call).
 
 ``contains`` means every block contains its coordinates within ``tol``;
 ``support`` is the sum of the blocks' supports; ``distance`` the root of the sum
@@ -23,6 +26,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import UnsupportedOperationError
 from ..families import Family, kernel, register
 from ..forms import stack_blocks
 from . import cached, lp_form, node_key, part_violation
@@ -57,10 +61,34 @@ class Product(Family):
         copies = r.integer("copies", 1, min=1)
         return make_product(list(nodes) * copies, name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (grouped blocks, mixed blocks, nesting)."""
+        return [
+            {"kind": "product", "of": [{"kind": "simplex", "dim": 3}], "copies": 3},
+            {"kind": "product", "of": [{"kind": "simplex", "dim": 2, "total": 2.0},
+                                       {"kind": "box", "dim": 2, "lower": -1, "upper": 1},
+                                       {"kind": "simplex", "dim": 2, "total": 2.0}]},
+            {"kind": "product", "of": [{"kind": "intersection", "of": [
+                {"kind": "simplex", "dim": 3}, {"kind": "box", "dim": 3, "lower": 0, "upper": 0.5}]},
+                {"kind": "ball", "dim": 2, "radius": 2.0}]},
+        ]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A product of 2..4 random simplices."""
+        k = int(rng.integers(2, 5))
+        return {"kind": "product", "of": [{"kind": "simplex", "dim": int(rng.integers(2, 5)),
+                                           "total": float(np.round(rng.uniform(0.5, 3.0), 3))} for _ in range(k)]}
+
     # -- structure --------------------------------------------------------------------------
     @property
     def shape(self):
-        return (sum(self.blocks[g].dim for g in self.layout),)
+        return cached(self, "shape", lambda: (int(sum(self.blocks[g].dim for g in self.layout)),))
+
+    @property
+    def dim(self):
+        return self.shape[0]
 
     def children(self):
         return tuple(self.blocks)
@@ -69,17 +97,64 @@ class Product(Family):
         return max(b.scale() for b in self.blocks)
 
     def _groups(self):
-        """For each distinct block: the (copies, block dim) array of its columns in x."""
+        """How the positions are served, one entry per batched call.
+
+        ("block", g, cols, contiguous): every position of distinct block g in one call of its
+        operators; ("stack", (cls, params), cols, contiguous): distinct blocks of one family,
+        shape and ``stack_key()`` whose class offers the optional hooks ``stack_key()``,
+        ``stack_params(nodes)`` and ``stacked(op, params, X)`` (e.g. simplices with different
+        totals), served by one call of the class's hook.
+        ``cols`` is the (copies, block dim) array of the positions' coordinates.
+        """
         def build():
             offs = np.cumsum([0] + [self.blocks[g].dim for g in self.layout])
-            out = []
+            cols_of = lambda pos: np.array([np.arange(offs[i], offs[i] + self.blocks[self.layout[i]].dim)
+                                            for i in pos], dtype=np.intp)
+            out, used = [], set()
+            # families with a stacking hook: group distinct blocks by (class, shape)
+            fam = {}
             for g, blk in enumerate(self.blocks):
+                if callable(getattr(type(blk), "stack_params", None)) and callable(getattr(blk, "stack_key", None)):
+                    key = blk.stack_key()
+                    if key is not None:
+                        fam.setdefault((type(blk), tuple(blk.shape), key), []).append(g)
+            for (cls, _, _), gs in fam.items():
+                if len(gs) < 2:
+                    continue
+                gset = set(gs)
+                pos = [i for i, h in enumerate(self.layout) if h in gset]
+                params = cls.stack_params([self.blocks[self.layout[i]] for i in pos])
+                if params is None:
+                    continue
+                used |= gset
+                out.append(("stack", (cls, params), cols_of(pos), len(pos) == len(self.layout)))
+            for g, blk in enumerate(self.blocks):
+                if g in used:
+                    continue
                 pos = [i for i, h in enumerate(self.layout) if h == g]
-                cols = np.array([np.arange(offs[i], offs[i] + blk.dim) for i in pos], dtype=np.intp)
-                contiguous = len(self.blocks) == 1
-                out.append((g, cols, contiguous))
+                out.append(("block", g, cols_of(pos), len(self.blocks) == 1))
             return out
         return cached(self, "groups", build)
+
+    def _call(self, entry, op, sub, parts, tol=None):
+        how, what, _, _ = entry
+        if how == "stack":
+            cls, params = what
+            base = "project" if op in ("distance", "contains") else op
+            res = cls.stacked(base, params, sub)
+            if res is None:
+                raise UnsupportedOperationError(f"{self.label}: the stacked {cls.kind} blocks offer no {op}.")
+            if op == "distance":
+                return np.linalg.norm(sub - res, axis=1)
+            if op == "contains":
+                return np.linalg.norm(sub - res, axis=1) <= tol
+            return res
+        part = parts[what]
+        if op == "contains":
+            return part._run(op, sub, tol=tol)[0]
+        if op == "violation":
+            return part_violation(part, sub)
+        return part._run(op, sub)[0]
 
     def positions(self):
         """The block node at each position (expanded layout)."""
@@ -141,9 +216,10 @@ class Product(Family):
     def _points(self, op, X, parts):
         b = X.shape[0]
         out = np.empty_like(X)
-        for g, cols, contiguous in self._groups():
+        for entry in self._groups():
+            cols, contiguous = entry[2], entry[3]
             k, d = cols.shape
-            res, _ = parts[g]._run(op, self._gather(X, cols, contiguous))
+            res = self._call(entry, op, self._gather(X, cols, contiguous), parts)
             if contiguous:
                 return np.asarray(res, dtype=float).reshape(b, k * d)
             out[:, cols.ravel()] = np.asarray(res).reshape(b, k * d)
@@ -152,15 +228,11 @@ class Product(Family):
     def _values(self, op, X, parts, tol=None):
         b = X.shape[0]
         vals = []
-        for g, cols, contiguous in self._groups():
+        for entry in self._groups():
+            cols, contiguous = entry[2], entry[3]
             k, d = cols.shape
-            sub = self._gather(X, cols, contiguous)
-            if op == "contains":
-                res, _ = parts[g]._run(op, sub, tol=np.repeat(tol, k))
-            elif op == "violation":
-                res = part_violation(parts[g], sub)
-            else:
-                res, _ = parts[g]._run(op, sub)
+            t = None if tol is None else np.repeat(tol, k)
+            res = self._call(entry, op, self._gather(X, cols, contiguous), parts, tol=t)
             vals.append(np.asarray(res).reshape(b, k))
         return np.concatenate(vals, axis=1)
 

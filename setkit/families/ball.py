@@ -152,3 +152,38 @@ class Ball(Family):
     def violation(self, X):
         """max(||x - c||_p - r, 0), O(n)."""
         return ball_violation(X, self.center, self.radius, self._p)
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def exact_centroid(self, measure):
+        """The center, for every measure: the ball, its extreme points and the law of lmo(g) (g and -g
+        have the same law) are all symmetric about the center."""
+        return self.center.copy()
+
+    def exact_sample(self, k, measure, rng):
+        """Exact draws for every norm.
+
+        volume: p = 2, a uniform direction times radius * U^(1/n); p = inf, independent uniform
+        coordinates; p = 1, a uniform point of {y >= 0, sum y <= 1} (normalized exponential spacings
+        with a slack coordinate) with independent random signs. vertices and directions (the same
+        law: lmo(g) = center - radius * (unit maximizer of <g, u>) and g is symmetric): p = 2, a
+        uniform point of the sphere; p = inf, a random corner; p = 1, a random signed axis point.
+        """
+        n, r, c = self.center.size, self.radius, self.center
+        if measure == "volume":
+            if self.norm == 2:
+                Z = rng.standard_normal((k, n))
+                Z /= np.linalg.norm(Z, axis=1, keepdims=True)
+                return c + r * Z * rng.random((k, 1)) ** (1.0 / n)
+            if self.norm == "inf":
+                return c + r * (2.0 * rng.random((k, n)) - 1.0)
+            E = rng.standard_exponential((k, n + 1))
+            Y = (E / E.sum(axis=1, keepdims=True))[:, :n]
+            return c + r * Y * rng.choice([-1.0, 1.0], size=(k, n))
+        if self.norm == 2:
+            Z = rng.standard_normal((k, n))
+            return c + r * Z / np.linalg.norm(Z, axis=1, keepdims=True)
+        if self.norm == "inf":
+            return c + r * rng.choice([-1.0, 1.0], size=(k, n))
+        X = np.broadcast_to(c, (k, n)).copy()
+        X[np.arange(k), rng.integers(0, n, size=k)] += r * rng.choice([-1.0, 1.0], size=k)
+        return X

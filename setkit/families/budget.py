@@ -157,3 +157,78 @@ class Budget(Family):
     def violation(self, X):
         """Largest violation of the bounds and of the weighted sum, O(n)."""
         return bounds_sum_violation(X, self.lower, self.upper, self.weights, self.total, self.mode == "equal")
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def _symmetric(self):
+        """(l, c, room) in x units when lower, effective caps and weights are the same for every
+        coordinate (c = cap - l, room = total / w - n l), else None."""
+        caps = self._caps
+        if not (np.all(self.lower == self.lower[0]) and np.all(caps == caps[0])
+                and np.all(self.weights == self.weights[0])):
+            return None
+        n = self.lower.size
+        l, w = float(self.lower[0]), float(self.weights[0])
+        c = float(caps[0]) - l
+        room = max(0.0, min(self.total / w - n * l, n * c))
+        return l, c, room
+
+    def _vertex_types(self, l, c, room):
+        """Vertex classes of a symmetric budget: (count, number of coordinates at the cap, fractional part)."""
+        import math
+        n = self.lower.size
+        if c <= 0 or room <= 0:
+            return [(1, 0, 0.0)]
+        j0 = min(n, int(np.floor(room / c + 1e-12)))
+        f = room - j0 * c
+        if abs(f) <= 1e-12 * max(1.0, room):
+            f = 0.0
+        types = []
+        if self.mode == "at_most":
+            types += [(math.comb(n, j), j, 0.0) for j in range(j0 + 1)]
+            if f > 0 and j0 < n:
+                types.append((n * math.comb(n - 1, j0), j0, f))
+        else:
+            types.append(((n - j0) * math.comb(n, j0) if f > 0 else math.comb(n, j0), j0, f))
+        return types
+
+    def exact_centroid(self, measure):
+        """Closed forms for a symmetric budget (equal lower bounds, effective caps and weights):
+        mode equal, every measure: l + room/n by symmetry; mode at_most: vertices, the count-weighted
+        mean over the vertex classes; directions, l + E[min(room, N c)]/n with N ~ Binomial(n, 1/2)
+        the number of negative direction coordinates (the greedy fills those up to the budget).
+        Otherwise None (triangulation or an estimate)."""
+        import math
+        sym = self._symmetric()
+        if sym is None:
+            return None
+        l, c, room = sym
+        n = self.lower.size
+        if self.mode == "equal":
+            return np.full(n, l + room / n)
+        if measure == "volume":
+            return None
+        if measure == "directions":
+            e = sum(math.comb(n, j) * min(room, j * c) for j in range(n + 1)) / 2.0 ** n
+            return np.full(n, l + e / n)
+        types = self._vertex_types(l, c, room)
+        total = sum(cnt for cnt, _, _ in types)
+        extra = sum(cnt * (j * c + f) for cnt, j, f in types) / total
+        return np.full(n, l + extra / n)
+
+    def exact_sample(self, k, measure, rng):
+        """Symmetric budgets: vertices (and directions in mode equal, where lmo(g) is the base vertex in
+        the order of g) are a vertex class drawn by its count, then a uniformly random placement."""
+        sym = self._symmetric()
+        if sym is None or measure == "volume" or (measure == "directions" and self.mode == "at_most"):
+            return None
+        l, c, room = sym
+        n = self.lower.size
+        types = self._vertex_types(l, c, room)
+        cnt = np.array([float(t[0]) for t in types])
+        pick = rng.choice(len(types), size=k, p=cnt / cnt.sum())
+        base = np.full((len(types), n), l)
+        for i, (_, j, f) in enumerate(types):
+            base[i, :j] = l + c
+            if f > 0:
+                base[i, j] = l + f
+        return rng.permuted(base[pick], axis=1)

@@ -86,6 +86,15 @@ class Permutahedron(Family):
         from ..combinators.extended import permutahedron_form
         return permutahedron_form(self.weights)
 
+    def extended_form(self):
+        """Optional hook for combinators: x = W w over doubly stochastic W (n^2 auxiliaries).
+
+        Lets an intersection with a polyhedron be one LP for its LMO; the family's own
+        routes are unchanged (see setkit.combinators.lp_form).
+        """
+        from ..combinators.extended import permutahedron_form
+        return permutahedron_form(self.weights)
+
     # -- native kernels ----------------------------------------------------------------------
     @kernel("project")
     def project(self, Y):
@@ -130,3 +139,16 @@ class Permutahedron(Family):
             Xu = X[unsure]
             res[unsure] = np.linalg.norm(Xu - self.project(Xu), axis=1) <= tol[unsure]
         return res
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def exact_centroid(self, measure):
+        """mean(w) * 1 for every measure: each measure is invariant under permuting coordinates, and
+        the only permutation-invariant point of the set is its center."""
+        return np.full(self.weights.size, float(self.weights.mean()))
+
+    def exact_sample(self, k, measure, rng):
+        """vertices and directions: the weights in a uniformly random order (lmo(g) puts the weights in
+        the order of g, and the order of a Gaussian vector is uniform); volume: None (hit-and-run)."""
+        if measure == "volume":
+            return None
+        return rng.permuted(np.broadcast_to(self.weights, (k, self.weights.size)), axis=1)

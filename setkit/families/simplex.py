@@ -114,6 +114,34 @@ class Simplex(Family):
         return bounds_sum_violation(X, self._zeros, self._inf, self._ones, self.total, self.mode == "equal")
 
     # -- exact knowledge for setkit.measures ------------------------------------------------------
+    # -- optional stacking hooks (read by the product combinator): blocks of this family with one
+    # dimension and mode but different totals are served by ONE batched call, because
+    # {x >= 0, sum x (=|<=) t} = t * {x >= 0, sum x (=|<=) 1} for t > 0.
+    def stack_key(self):
+        """Blocks with equal keys (and shapes) can share one stacked call; None: never stacked."""
+        return self.mode if self.total > 0.0 else None
+
+    @classmethod
+    def stack_params(cls, nodes):
+        """Per-block totals for a stacked call of blocks with one stack_key."""
+        totals = np.array([nd.total for nd in nodes], dtype=float)
+        return {"unit": cls(n=nodes[0].n, total=1.0, mode=nodes[0].mode), "total": totals}
+
+    @classmethod
+    def stacked(cls, op, params, X):
+        """Operator ``op`` on rows of X where row r belongs to block r mod k (k = number of totals)."""
+        unit, tk = params["unit"], params["total"]
+        t = np.tile(tk, X.shape[0] // tk.size)
+        if op == "project":
+            return t[:, None] * unit.project(X / t[:, None])
+        if op == "lmo":
+            return t[:, None] * unit.lmo(X)
+        if op == "support":
+            return t * unit.support(X)
+        if op == "violation":
+            return t * unit.violation(X / t[:, None])
+        return None
+
     def exact_centroid(self, measure):
         """Closed forms by symmetry: total/n (equal); total/(n+1) (at_most, volume and vertices, the
         origin being a vertex); total (1 - 2^-n)/n for directions at_most (lmo(g) is the origin iff g >= 0)."""

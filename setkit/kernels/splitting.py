@@ -11,7 +11,7 @@ compute exactly, never on an iteration count alone, and reports per row::
 
 What the certificates bound (p the returned point, p* the exact projection):
 
-* :func:`dykstra` and :func:`project_with_cuts` return a point exactly in one
+* :func:`dykstra`, :func:`fast_dual_projections` and :func:`project_with_cuts` return a point exactly in one
   part (up to that part's rounding) and within ``residual`` of the others. Their
   gap is a Lagrangian duality gap computed without cancellation. If
   ``residual`` is 0 the gap bounds (1/2)||p - p*||^2 exactly (weak duality plus
@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["dykstra", "project_with_cuts", "project_linear_image"]
+__all__ = ["dykstra", "fast_dual_projections", "project_with_cuts", "project_linear_image"]
 
 # gaps are sums of products of O(scale) numbers: below ~ a few ulps of scale^2 they are rounding noise,
 # so the gap tolerance never goes below GAP_FLOOR * (number of terms) * scale^2
@@ -107,6 +107,85 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
             if not keep.any():
                 break
             rows, X, Yact, Q, Xi = rows[keep], X[keep], Yact[keep], Q[:, keep], Xi[:, keep]
+    return out, info
+
+
+def fast_dual_projections(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, divergence=1e4,
+                          feasibility_scale=None, check_every=5):
+    """Accelerated dual proximal gradient for the projection onto K_1 ∩ ... ∩ K_m, batched over rows.
+
+    The dual of min (1/2)||x - y||^2 + i_{K_1}(x) + sum_{i>=2} i_{K_i}(z_i), z_i = x, has a smooth
+    part (gradient x(w) = proj_1(y - sum w_i), Lipschitz constant L = m - 1) and the supports
+    sigma_i(w_i), whose proximal steps are projections onto K_i:
+    w_i <- w_i + (x - proj_i(x + L w_i)) / L (Beck and Teboulle's fast dual proximal
+    gradient, with FISTA momentum and adaptive restart). Dykstra's method is the
+    unaccelerated case; this one stays fast for points far from the set. After a step
+    each w_i is an outer normal of K_i at z_i, so sigma_i(w_i) = <w_i, z_i> and, at the
+    checked point x = proj_1(y - sum w_i) (in K_1), the duality gap is
+
+        gap = sum_i <w_i, z_i - x>        (no cancellation)
+
+    with residual max_i ||z_i - x|| >= max_i dist(x, K_i). Stopping rule and meaning as in
+    :func:`dykstra`. O(iterations * sum of the parts' projection costs).
+    """
+    Y = np.asarray(Y, dtype=float)
+    b, d = Y.shape
+    P1, rest = projections[0], list(projections[1:])
+    m = len(rest)
+    info = _new_info(b)
+    out = Y.copy()
+    if m == 0:
+        out = P1(Y)
+        info["status"] = ["solved"] * b
+        info["iterations"] = [1] * b
+        info["gap"][:] = 0.0
+        info["residual"][:] = 0.0
+        return out, info
+    L = float(m)
+    scale = np.broadcast_to(np.asarray(scale, dtype=float), (b,)).copy()
+    fs = scale if feasibility_scale is None else np.broadcast_to(np.asarray(feasibility_scale, float), (b,))
+    tol_r = accuracy * fs
+    tol_g = np.maximum(0.5 * (accuracy * scale) ** 2, GAP_FLOOR * m * scale ** 2)
+    big = divergence * (scale + np.abs(Y).max(axis=1))
+    rows = np.arange(b)
+    Ya = Y.copy()
+    W = np.zeros((m, b, d))
+    Wh = W.copy()
+    t = np.ones(b)
+    for it in range(1, max_iterations + 1):
+        X = P1(Ya - Wh.sum(axis=0))
+        Z = np.stack([P(X + L * Wh[i]) for i, P in enumerate(rest)])
+        Wn = Wh + (X[None] - Z) / L
+        tn = 0.5 * (1.0 + np.sqrt(1.0 + 4.0 * t * t))
+        # adaptive restart (O'Donoghue and Candes 2015): drop the momentum when it points backwards
+        restart = np.einsum("mbd,mbd->b", Wn - Wh, Wn - W) < 0
+        mom = np.where(restart, 0.0, (t - 1.0) / tn)
+        Wh = Wn + mom[None, :, None] * (Wn - W)
+        W = Wn
+        t = np.where(restart, 1.0, tn)
+        last = it == max_iterations
+        if it % check_every and not last:
+            continue
+        Xc = P1(Ya - W.sum(axis=0))
+        diff = Z - Xc[None]
+        res = np.sqrt(np.einsum("mbd,mbd->mb", diff, diff)).max(axis=0)
+        gap = np.einsum("mbd,mbd->b", W, diff)
+        done = (res <= tol_r[rows]) & (np.abs(gap) <= tol_g[rows])
+        wmax = np.sqrt(np.einsum("mbd,mbd->mb", W, W)).max(axis=0)
+        empty = ~done & (wmax > big[rows])
+        finish = done | empty | last
+        if finish.any():
+            for j in np.flatnonzero(finish):
+                r = rows[j]
+                out[r] = Xc[j]
+                info["status"][r] = "solved" if done[j] else ("empty" if empty[j] else "not_converged")
+                info["iterations"][r] = it
+                info["gap"][r] = gap[j]
+                info["residual"][r] = res[j]
+            keep = ~finish
+            if not keep.any():
+                break
+            rows, Ya, W, Wh, t = rows[keep], Ya[keep], W[:, keep], Wh[:, keep], t[keep]
     return out, info
 
 

@@ -1,4 +1,4 @@
-"""Intersections: merged linear form, cut dual and Dykstra routes against the cvxpy reference."""
+"""Intersections: merged linear form, cut dual and splitting routes against the cvxpy reference."""
 import numpy as np
 import pytest
 
@@ -78,12 +78,15 @@ def test_hand_solved_ball_and_halfspace():
     assert np.allclose(d.point[1], [0.1, 0.2])
 
 
-def test_dykstra_route_two_balls(rng):
+def test_splitting_route_two_balls(rng):
     n = 5
     K = setkit.compile({"kind": "intersection", "of": [ball(np.zeros(n), 1.0), ball(0.6 * np.ones(n), 1.2)]})
-    assert _node_type(K) is SplitIntersection
-    # Dykstra slows down for points far from the set; moderate scales here, far points in test_splitting
-    check_against_reference(K, rng, scales=(1e-3, 1.0, 3.0))
+    assert _node_type(K) is SplitIntersection and K.node.splitting == "accelerated"
+    check_against_reference(K, rng, scales=(1e-3, 1.0, 1e3))
+    # Dykstra's method slows down for far points; at moderate scales it agrees too
+    D = setkit.compile({"kind": "intersection", "splitting": "dykstra",
+                        "of": [ball(np.zeros(n), 1.0), ball(0.6 * np.ones(n), 1.2)]})
+    check_against_reference(D, rng, scales=(1e-3, 1.0, 3.0))
 
 
 def test_hand_solved_lens():
@@ -128,3 +131,24 @@ def test_pickles_and_runs_after_unpickling(rng):
     y = rng.standard_normal(n) * 2
     K2 = pickle.loads(pickle.dumps(K))
     assert np.allclose(K.project(y), K2.project(y))
+
+
+def test_empty_permutahedron_cut_is_reported_at_compile_time():
+    # the floors ask items 0 and 1 for more exposure than the two largest weights can give (3 + 2 < 5.5):
+    # infeasible on the Birkhoff extended form, found by one LP when the description is read
+    with pytest.raises(EmptySetError, match="no common point"):
+        setkit.compile({"kind": "intersection", "of": [
+            {"kind": "permutahedron", "weights": [3.0, 2.0, 1.0, 0.0]},
+            {"kind": "polyhedron", "A": [[-1, -1, 0, 0]], "b": [-5.5]}]})
+
+
+def test_explain_names_the_route():
+    K = setkit.compile({"kind": "intersection", "of": [
+        {"kind": "permutahedron", "weights": [3.0, 2.0, 1.0, 0.0]},
+        {"kind": "polyhedron", "A": [[-1, -1, 0, 0]], "b": [-4.0]}]})
+    text = K.explain()
+    assert "Dual over the few cut multipliers" in text and "highs" in text
+    assert isinstance(K.node, CutIntersection) and K.node.base == 0
+    # the answer meets the floor and keeps the total (a permutahedron point sums to sum(w) = 6)
+    x = K.project([0.0, 0.0, 5.0, 5.0])
+    assert x[0] + x[1] >= 4.0 - 1e-8 and abs(x.sum() - 6.0) <= 1e-8

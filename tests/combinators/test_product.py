@@ -99,3 +99,39 @@ def test_linear_form_is_block_diagonal(rng):
     y = rng.standard_normal(9)
     assert np.allclose(K.with_backends(project="osqp").project(y), K.project(y), atol=1e-7)
     assert isinstance(K.node, Product)
+
+
+def test_simplices_with_different_totals_are_one_stacked_call(rng, monkeypatch):
+    # per-user budgets differ: {x >= 0, sum x = t} = t {x >= 0, sum x = 1} lets one call serve them all
+    totals = np.round(rng.uniform(0.5, 5.0, 300), 3)
+    K = setkit.compile({"kind": "product", "of": [{"kind": "simplex", "dim": 5, "total": float(t)} for t in totals]})
+    assert len(K.node.blocks) == len(set(totals.tolist())) > 250
+    from setkit.families.simplex import Simplex
+    calls = []
+    orig = Simplex.project
+
+    def counting(self, Y):
+        calls.append(Y.shape)
+        return orig(self, Y)
+    monkeypatch.setattr(Simplex, "project", counting)
+    Y = rng.standard_normal((2, K.dim)) * 3
+    P = K.project(Y)
+    assert calls == [(600, 5)]
+    for j in (0, 123, 299):
+        blk = Y[:, 5 * j:5 * j + 5]
+        assert np.allclose(P[:, 5 * j:5 * j + 5], project_simplex_rows(blk, totals[j]), atol=1e-12)
+    c = rng.standard_normal(K.dim)
+    assert K.support(c) == pytest.approx(float(np.sum(totals * c.reshape(300, 5).max(axis=1))))
+    L = K.lmo(c).reshape(300, 5)
+    assert np.allclose(L.sum(axis=1), totals)
+    assert np.allclose(K.violation(P), 0.0, atol=1e-12) and K.contains(P).all()
+
+
+def test_stacked_blocks_against_reference(rng):
+    K = setkit.compile({"kind": "product", "of": [
+        {"kind": "simplex", "dim": 3, "total": 2.0}, {"kind": "simplex", "dim": 3, "total": 0.5},
+        {"kind": "box", "dim": 2, "lower": 0, "upper": 1}, {"kind": "simplex", "dim": 3, "total": 7.0, "mode": "at_most"},
+        {"kind": "simplex", "dim": 3, "total": 1.5, "mode": "at_most"}]})
+    kinds = [e[0] for e in K.node._groups()]
+    assert kinds.count("stack") == 2 and kinds.count("block") == 1
+    check_against_reference(K, rng)

@@ -6,7 +6,7 @@ import pytest
 
 import setkit
 from setkit.errors import AccuracyWarning, SolveError
-from setkit.kernels.splitting import dykstra, project_linear_image, project_with_cuts
+from setkit.kernels.splitting import dykstra, fast_dual_projections, project_linear_image, project_with_cuts
 
 from .fixtures import REF, ball, halfspaces
 
@@ -29,6 +29,23 @@ def test_dykstra_gap_bounds_the_error_at_every_stage(rng):
         half_err = 0.5 * np.sum((X - Pstar) ** 2, axis=1)
         bound = np.abs(info["gap"]) + 4 * info["residual"] * np.linalg.norm(Y - Pstar, axis=1) + 1e-10
         assert np.all(half_err <= bound), (cap, half_err, bound)
+    assert set(info["status"]) == {"solved"}
+
+
+def test_accelerated_splitting_gap_bounds_the_error_at_every_stage(rng):
+    n = 5
+    b1, b2 = _two_balls(n)
+    b3 = ball(np.array([0.3, -0.2, 0.0, 0.1, 0.4]), 1.1)
+    K = setkit.compile({"kind": "intersection", "of": [b1, b2, b3]})
+    projs = [setkit.compile(b).project for b in (b1, b2, b3)]
+    Y = rng.standard_normal((6, n)) * 5.0
+    Pstar = K.with_backends(**REF, loose=True).project(Y)
+    for cap in (5, 10, 40, 400):
+        X, info = fast_dual_projections(projs, Y, np.maximum(1.0, np.abs(Y).max(axis=1)), max_iterations=cap)
+        half_err = 0.5 * np.sum((X - Pstar) ** 2, axis=1)
+        bound = np.abs(info["gap"]) + 4 * info["residual"] * np.linalg.norm(Y - Pstar, axis=1) + 1e-10
+        assert np.all(half_err <= bound), (cap, half_err, bound)
+        assert np.all(setkit.compile(b1).contains(X))   # the point always lies in the first part
     assert set(info["status"]) == {"solved"}
 
 
@@ -78,22 +95,35 @@ def test_certificate_in_details_bounds_the_error(rng):
 
 
 def test_non_converged_dykstra_raises():
-    K = setkit.compile({"kind": "intersection", "of": list(_two_balls()), "max_iterations": 3})
+    K = setkit.compile({"kind": "intersection", "of": list(_two_balls()), "max_iterations": 3, "splitting": "dykstra"})
     y = np.array([40.0, -30.0, 5.0, 0.0, 1.0])
     with pytest.raises(SolveError, match=r"Dykstra did not reach the accuracy 1e-07 on 1 of 1 points within 3 steps"):
         K.project(y)
 
 
 def test_far_points_that_dykstra_cannot_finish_raise():
-    # Dykstra slows down badly for points far from two round sets: it must say so, not return a point
-    K = setkit.compile({"kind": "intersection", "of": list(_two_balls()), "max_iterations": 2000})
-    with pytest.raises(SolveError, match="did not reach"):
-        K.project(np.array([1e4, -3e3, 2e3, 0.0, 5.0]))
+    # Dykstra slows down badly for points far from two round sets: it must say so, not return a point;
+    # the accelerated default finishes the same point
+    y = np.array([1e4, -3e3, 2e3, 0.0, 5.0])
+    K = setkit.compile({"kind": "intersection", "of": list(_two_balls()), "max_iterations": 2000,
+                        "splitting": "dykstra"})
+    with pytest.raises(SolveError, match="Dykstra did not reach"):
+        K.project(y)
+    A = setkit.compile({"kind": "intersection", "of": list(_two_balls())})
+    d = A.project(y, details=True)
+    assert d.status == "solved" and "dual splitting" in d.backend_status
+    assert np.allclose(d.point, A.with_backends(**REF, loose=True).project(y), atol=1e-6 * 1e4)
+
+
+def test_non_converged_accelerated_splitting_raises():
+    K = setkit.compile({"kind": "intersection", "of": list(_two_balls()), "max_iterations": 4})
+    with pytest.raises(SolveError, match="dual splitting did not reach the accuracy 1e-07"):
+        K.project(np.array([40.0, -30.0, 5.0, 0.0, 1.0]))
 
 
 def test_loose_run_warns_when_close(rng):
     K = setkit.compile({"kind": "intersection", "of": list(_two_balls()), "max_iterations": 40,
-                        "accuracy": 1e-6})
+                        "accuracy": 1e-6, "splitting": "dykstra"})
     y = np.array([3.0, -2.0, 1.0, 0.5, 0.0])
     with pytest.raises(SolveError):
         K.project(y)
