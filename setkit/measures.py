@@ -30,10 +30,13 @@ How answers are obtained (first that applies)
    from an interior point); the vertex centroid is the mean of the vertices.
 3. Otherwise an estimate: ``directions`` by Monte Carlo over the LMO (iid, so
    the effective sample size is the number of draws); ``volume`` by hit-and-run
-   (chord endpoints from the constraints for polytopes, or a support-bracketed
-   membership chord with Neal's shrinkage for other sets). Estimates carry a
-   standard error per coordinate (batch means and autocorrelation time over parallel chains) and an
-   effective sample size, available with ``details=True``.
+   (chord endpoints from the constraints for polytopes, or a membership chord
+   bracketed by the support function or the bounding box, with Neal's
+   shrinkage, for other sets). Estimates carry a standard error per coordinate
+   (the largest of batch means, Geyer's autocorrelation time and the spread of
+   chain means), an effective sample size and the Gelman-Rubin R-hat, all
+   available with ``details=True``; slowly mixing chains (R-hat > 1.05 or
+   effective sample size < 50) raise an AccuracyWarning.
 4. Where no honest estimate exists (uniform over the extreme points of a large
    polytope, or of a non-polyhedral set without family knowledge; volume of an
    unbounded set) an :class:`~setkit.errors.UnsupportedOperationError` says why
@@ -45,8 +48,7 @@ Chains start at dispersed points: half-way between the Chebyshev center
 (largest inscribed ball, one LP) of the reduced polytope and vertices for random
 directions (one LP per chain), or half-way between the mean of LMO answers and
 some of them for non-polyhedral sets, so that chains which have not forgotten
-their starts disagree visibly (R-hat). Each
-step draws a direction from a fixed centrally symmetric law N(0, S) and moves
+their starts disagree visibly (R-hat). Each step draws a direction from a fixed centrally symmetric law N(0, S) and moves
 to a uniform point of the chord (polytopes) or to a shrinkage draw on the chord
 (membership sets); both leave the uniform distribution invariant. S rounds
 elongated sets: for polytopes the inverse Dikin matrix of the constraints at
@@ -70,7 +72,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import AccuracyWarning, EmptySetError, InputError, SolveError, UnboundedDirectionError, UnsupportedOperationError
+from .errors import (AccuracyWarning, EmptySetError, InputError, SolveError, UnboundedDirectionError,
+                     UnsupportedOperationError)
 
 MEASURES = ("volume", "vertices", "directions")
 EXACT_MAX_DIM = 8
@@ -617,6 +620,9 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
     >>> import setkit
     >>> setkit.compile({"kind": "simplex", "dim": 4}).centroid().tolist()
     [0.25, 0.25, 0.25, 0.25]
+    >>> r = setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}).centroid(details=True)
+    >>> r.method, r.exact, r.point.tolist()
+    ('closed form', True, [0.5, 0.5])
     """
     _check_measure(K, measure, "centroid")
     t0 = time.perf_counter()
