@@ -48,7 +48,8 @@ Chains start at dispersed points: half-way between the Chebyshev center
 (largest inscribed ball, one LP) of the reduced polytope and vertices for random
 directions (one LP per chain), or half-way between the mean of LMO answers and
 some of them for non-polyhedral sets, so that chains which have not forgotten
-their starts disagree visibly (R-hat). Each step draws a direction from a fixed centrally symmetric law N(0, S) and moves
+their starts disagree visibly (R-hat). Each step draws a direction from a
+fixed centrally symmetric law N(0, S) and moves
 to a uniform point of the chord (polytopes) or to a shrinkage draw on the chord
 (membership sets); both leave the uniform distribution invariant. S rounds
 elongated sets: for polytopes the inverse Dikin matrix of the constraints at

@@ -175,8 +175,11 @@ def test_batched_shapes_and_extension_agree():
     v, g = P.value_and_grad(X)
     np.testing.assert_array_equal(v, P.value(X))
     np.testing.assert_array_equal(g, P.grad(X))
-    f = lambda x: float(np.sum(x ** 2))
-    gf = lambda x: 2 * x
+    def f(x):
+        return float(np.sum(x ** 2))
+
+    def gf(x):
+        return 2 * x
     E1 = P.extend(f, gf)
     E2 = P.extend(lambda Z: np.sum(Z ** 2, axis=-1), lambda Z: 2 * Z, batched=True)
     np.testing.assert_allclose(E1.value(X), E2.value(X))
