@@ -27,7 +27,9 @@ How answers are obtained (first that applies)
    dimension is at most ``exact_max_dim`` (default 8) the vertices are
    enumerated (scipy.spatial.HalfspaceIntersection) and the volume centroid is
    computed exactly by a triangulation (scipy.spatial.ConvexHull facets coned
-   from an interior point); the vertex centroid is the mean of the vertices.
+   from an interior point); the vertex centroid is the mean of the vertices;
+   when the reduced dimension is at most 2 the directions centroid is exact
+   too (normal-cone angles of the polygon).
 3. Otherwise an estimate: ``directions`` by Monte Carlo over the LMO (iid, so
    the effective sample size is the number of draws); ``volume`` by hit-and-run
    (chord endpoints from the constraints for polytopes, or a membership chord
@@ -320,6 +322,27 @@ def simplex_volume_centroid(V):
     vol = np.abs(np.linalg.det(D)) / math.factorial(m)
     cents = (F.sum(axis=1) + c) / (m + 1)
     return (vol[:, None] * cents).sum(axis=0) / vol.sum()
+
+
+def normal_cone_weights(V):
+    """P(lmo(g) = v) for a standard Gaussian g, for the vertices V (k x m) of a polytope with m <= 2.
+
+    Only the component of g in the affine hull matters (orthonormal coordinates keep it standard
+    Gaussian), and its direction is uniform on the circle, so a vertex is chosen with probability
+    (exterior angle at v) / (2 pi), the angle of its normal cone; the two ends of a segment have 1/2
+    each. Returns (weights, vertices in matching order). O(k log k).
+    """
+    k, m = V.shape
+    if m == 0 or k == 1:
+        return np.ones(1), V[:1]
+    if m == 1:
+        return np.array([0.5, 0.5]), np.array([[V.min()], [V.max()]])
+    from scipy.spatial import ConvexHull
+    W = V[ConvexHull(V).vertices]                  # counter-clockwise
+    e_in = W - np.roll(W, 1, axis=0)               # edge arriving at each vertex
+    e_out = np.roll(W, -1, axis=0) - W             # edge leaving it
+    turn = np.arctan2(e_in[:, 0] * e_out[:, 1] - e_in[:, 1] * e_out[:, 0], np.einsum("ij,ij->i", e_in, e_out))
+    return turn / turn.sum(), W
 
 
 def _reduced_dim_ok(P, exact_max_dim):
@@ -652,6 +675,14 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
                         r = _exact_result(K, x, measure, "triangulation", t0,
                                           f"{V.shape[0]} vertices, affine hull of dimension {P.m}")
                     return r if details else r.point
+        if measure == "directions":
+            P = reduced(K)
+            if P is not None and P.bounded and P.m <= 2:
+                w, V = normal_cone_weights(polytope_vertices(P, node.label))
+                x = P.to_x((w @ V)[None, :])[0]
+                r = _exact_result(K, x, measure, "normal-cone angles", t0,
+                                  f"{V.shape[0]} vertices, affine hull of dimension {P.m}")
+                return r if details else r.point
     if measure == "vertices":
         raise UnsupportedOperationError(_no_vertex_reason(K, exact_max_dim))
     if exact:

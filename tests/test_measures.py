@@ -445,3 +445,22 @@ def test_slow_mixing_is_reported():
     # well-mixed chains: R-hat close to 1
     K3 = setkit.compile({"kind": "simplex", "dim": 3, "mode": "at_most"})
     assert K3.centroid(exact=False, details=True, rng=0).rhat < 1.02
+
+
+def test_directions_centroid_of_a_polygon_by_normal_cones(rng):
+    # independent: draw Gaussian directions and take the best of the polygon's scipy ConvexHull
+    # vertices by a plain scan (no set operator involved)
+    ang = np.sort(rng.uniform(0, 2 * np.pi, 8))
+    V = np.c_[2 * np.cos(ang), np.sin(ang)] + [1.0, 4.0]
+    K = hpoly_from_points(V)
+    r = K.centroid("directions", details=True)
+    assert r.exact and r.method == "normal-cone angles"
+    ext = V[ConvexHull(V).vertices]
+    Gd = np.random.default_rng(1).standard_normal((200000, 2))
+    picks = ext[np.argmin(Gd @ ext.T, axis=1)]
+    mc, se = picks.mean(axis=0), picks.std(axis=0) / np.sqrt(len(picks))
+    assert np.all(np.abs(r.point - mc) <= 4.5 * se)
+    # a segment in R^3 (x + y = 1, z = 0, 0 <= x, y): the two ends with probability 1/2 each
+    A = np.array([[1.0, 1, 0], [-1, -1, 0], [-1, 0, 0], [0, -1, 0], [0, 0, 1], [0, 0, -1]])
+    S = DecisionSet(HPoly(A=A, b=np.array([1.0, -1, 0, 0, 0, 0])))
+    np.testing.assert_allclose(S.centroid("directions"), [0.5, 0.5, 0.0], atol=1e-12)
