@@ -7,7 +7,7 @@ from scipy.optimize import linear_sum_assignment
 import setkit
 from setkit.errors import DescriptionError
 
-from setcheck import check_against_reference
+from .setcheck import check_against_reference
 
 
 @pytest.mark.parametrize("n", [2, 4])

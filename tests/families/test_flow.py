@@ -10,7 +10,7 @@ import setkit
 from setkit.errors import DescriptionError, EmptySetError, SolveError, UnboundedDirectionError
 from setkit.families._network import projector
 
-from setcheck import check_against_reference
+from .setcheck import check_against_reference
 
 
 def random_flow(rng, n=6, m=11, integral=False, lower=True):

@@ -6,7 +6,7 @@ import setkit.families.hull as hull_module
 from setkit.errors import DescriptionError, SolveError
 from setkit.kernels.hull import nearest_in_hull
 
-from setcheck import check_against_reference
+from .setcheck import check_against_reference
 
 
 @pytest.mark.parametrize("k, d", [(6, 3), (12, 4), (3, 5)])

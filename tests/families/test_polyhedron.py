@@ -6,7 +6,7 @@ from scipy.optimize import linprog
 import setkit
 from setkit.errors import DescriptionError, EmptySetError, SolveError, UnboundedDirectionError
 
-from setcheck import check_against_reference
+from .setcheck import check_against_reference
 
 
 def random_polytope(rng, n=4, m=8):

@@ -5,7 +5,7 @@ from scipy.optimize import linprog
 import setkit
 from setkit.errors import DescriptionError, EmptySetError, InputError
 
-from setcheck import check_against_reference
+from .setcheck import check_against_reference
 
 
 @pytest.mark.parametrize("rows, cols", [([1, 2, 4], [2, 1, 3, 1]), ([0.5, 0.25], [0.125, 0.5, 0.125]),
