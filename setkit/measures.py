@@ -632,8 +632,9 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
     measure : "volume" | "vertices" | "directions"
     details : return a :class:`MeasureResult` (point, method, exact, std_error, ess, ...)
     rng : Generator or int seed for estimates (None: seed 0, reproducible)
-    samples : number of draws for an estimate (default 4000; 400 for directions when the LMO is not a
-        native kernel, since each draw is then an LP or conic solve)
+    samples : number of draws for an estimate (default: 4000 for volume; for directions 100000 when the
+        vertices are enumerated (each draw is then a scan), else 1000 with a native LMO and 400 with a
+        generic one, since each draw is then an LP or conic solve)
     exact : True to refuse estimates (raise instead), False to force an estimate, None for the best available
     exact_max_dim : largest affine-hull dimension for vertex enumeration / triangulation
     chains, burn_in, thin : hit-and-run settings (see the module docstring)
@@ -691,18 +692,28 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
             f"(no closed form, and it is not a polytope of affine dimension <= {exact_max_dim}); "
             f"call it with exact=None to get an estimate with its standard error.")
     g = as_generator(rng, 0)
+    samples_given = samples
     if samples is None:
-        samples = 400 if measure == "directions" and K.routes()["lmo"].provider != "native" else 4000
+        samples = 4000 if measure == "volume" else (1000 if K.routes()["lmo"].provider == "native" else 400)
     samples = int(samples)
     if samples < 2:
         raise InputError(f"centroid on {node.label}: samples must be at least 2; got {samples}.")
     if measure == "directions":
-        X = _direction_draws(K, samples, g)
+        Vx = _enumerated_vertices(K, exact_max_dim)
+        if Vx is not None:
+            if samples_given is None:
+                samples = 100_000
+            X = _vertex_scan_draws(Vx, samples, g)
+            method, note = "Monte Carlo over enumerated vertices", (
+                f"iid Gaussian directions, best of {Vx.shape[0]} enumerated vertices by a scan")
+        else:
+            X = _direction_draws(K, samples, g)
+            method, note = "Monte Carlo over LMO", "iid Gaussian directions"
         mean = X.mean(axis=0)
         se = X.std(axis=0, ddof=1) / math.sqrt(samples)
-        r = MeasureResult(point=mean.reshape(K.shape), measure=measure, method="Monte Carlo over LMO",
+        r = MeasureResult(point=mean.reshape(K.shape), measure=measure, method=method,
                           exact=False, std_error=se.reshape(K.shape), ess=float(samples), samples=samples,
-                          seconds=time.perf_counter() - t0, note="iid Gaussian directions")
+                          seconds=time.perf_counter() - t0, note=note)
         return r if details else r.point
     S = hit_and_run(K, samples, g, chains=chains, burn_in=burn_in, thin=thin)
     mean, se, ess, rhat = chain_summary(S)
@@ -738,6 +749,31 @@ def _no_vertex_reason(K, exact_max_dim):
     return (f"centroid/sample(measure='vertices') on {node.label}: no exact answer and no honest estimate, "
             f"because {why}. measure='directions' (LMO of a Gaussian direction, also a law on extreme "
             f"points) or measure='volume' can be estimated with a standard error.")
+
+
+def _enumerated_vertices(K, exact_max_dim):
+    """The vertices (in x) of a small polytope whose vertices can be enumerated, else None."""
+    try:
+        P = reduced(K)
+    except SolveError:
+        return None
+    if not _reduced_dim_ok(P, exact_max_dim):
+        return None
+    V = polytope_vertices(P, K.node.label)
+    if V.shape[0] > MAX_VERTICES:
+        return None
+    return P.to_x(V)
+
+
+def _vertex_scan_draws(Vx, k, g, chunk=20_000):
+    """lmo(g) for k Gaussian directions g by scanning the vertex list Vx (exact law of lmo(g))."""
+    d = Vx.shape[1]
+    out = np.empty((k, d))
+    for a in range(0, k, chunk):
+        b = min(k, a + chunk)
+        Gd = g.standard_normal((b - a, d))
+        out[a:b] = Vx[np.argmin(Gd @ Vx.T, axis=1)]
+    return out
 
 
 def _direction_draws(K, k, g):
@@ -780,6 +816,9 @@ def sample(K, k: int, measure: str = "volume", rng=None, *, chains=None, burn_in
     if X is not None:
         return np.asarray(X, dtype=float).reshape(out_shape)
     if measure == "directions":
+        Vx = _enumerated_vertices(K, exact_max_dim)
+        if Vx is not None:
+            return _vertex_scan_draws(Vx, k, g).reshape(out_shape)
         return _direction_draws(K, k, g).reshape(out_shape)
     if measure == "vertices":
         P = reduced(K)
