@@ -305,7 +305,8 @@ def _short(v):
 
 
 def _cmd_inspect(args) -> int:
-    path, K = _load(args.file, args.dir)
+    with Progress(f"inspect {args.file}", enabled=not args.quiet):
+        path, K = _load(args.file, args.dir)
     t = tree(K.node)
     plan = {op: {"provider": r.provider, "reason": r.reason} for op, r in K.routes().items()}
     if args.json:
@@ -567,6 +568,17 @@ def _cmd_run(args) -> int:
 
 
 # -- catalog ---------------------------------------------------------------------------------------
+def _catalog_row(p, load):
+    try:
+        K = load(p)
+        kind, shape = K.node.label, str(K.shape)
+    except SetkitError as exc:
+        msg = str(exc)
+        why = msg[msg.index("unknown kind"):].split(";")[0] if "unknown kind" in msg else "see: setkit inspect"
+        kind, shape = "(does not compile here)", f"- ({why})"
+    return (p.stem, kind, shape, _about(str(p)))
+
+
 def _cmd_catalog(args) -> int:
     folder = Path(args.dir) if args.dir else catalog_dir()
     if args.name:
@@ -588,15 +600,10 @@ def _cmd_catalog(args) -> int:
                                f"SETKIT_CATALOG or --dir to the catalog folder.")
     from . import load
     rows = []
-    for p in entries:
-        try:
-            K = load(p)
-            kind, shape = K.node.label, str(K.shape)
-        except SetkitError as exc:
-            msg = str(exc)
-            why = msg[msg.index("unknown kind"):].split(";")[0] if "unknown kind" in msg else "see: setkit inspect"
-            kind, shape = "(does not compile here)", f"- ({why})"
-        rows.append((p.stem, kind, shape, _about(str(p))))
+    with Progress("catalog", total=len(entries), enabled=not args.quiet) as prog:
+        for p in entries:
+            prog.advance(p.stem)
+            rows.append(_catalog_row(p, load))
     if args.json:
         print(json.dumps([dict(name=a, set=b, shape=c, about=d) for a, b, c, d in rows], indent=2))
         return EXIT_OK

@@ -3,6 +3,7 @@
 tests/test_conformance.py uses a family's own ``examples()`` / ``random_example(rng)``
 when present and these otherwise, so that every registered family meets the bar.
 """
+import numpy as np
 
 FALLBACK_EXAMPLES = {
     "budget": [
@@ -41,3 +42,46 @@ FALLBACK_EXAMPLES = {
         {"points": [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0], [1.0, 1.0, 1.0]]},
     ],
 }
+
+
+# -- one seeded random instance per family (for families without random_example(rng)) ------------
+def _budget(rng):
+    n = int(rng.integers(2, 7))
+    hi = rng.uniform(0.3, 1.0, n).round(3)
+    return {"dim": n, "total": float(np.round(0.6 * hi.sum(), 3)), "upper": hi.tolist(),
+            "weights": rng.uniform(0.5, 2.0, n).round(2).tolist()}
+
+
+def _ball(rng):
+    n = int(rng.integers(2, 6))
+    return {"dim": n, "norm": [1, 2, "inf"][int(rng.integers(3))], "radius": round(float(rng.uniform(0.2, 3)), 3),
+            "center": rng.normal(size=n).round(3).tolist()}
+
+
+def _permutahedron(rng):
+    return {"weights": np.sort(rng.uniform(0, 2, int(rng.integers(2, 7))).round(3))[::-1].tolist()}
+
+
+def _transport(rng):
+    m, n = int(rng.integers(2, 4)), int(rng.integers(2, 5))
+    rows = rng.uniform(0.5, 3, m).round(3)
+    cols = rng.dirichlet(np.ones(n)) * rows.sum()
+    cols[-1] = rows.sum() - cols[:-1].sum()
+    return {"rows": rows.tolist(), "cols": cols.tolist()}
+
+
+def _hull(rng):
+    n = int(rng.integers(2, 4))
+    return {"points": rng.normal(size=(int(rng.integers(n + 1, n + 6)), n)).round(3).tolist()}
+
+
+def _polyhedron(rng):
+    n = int(rng.integers(2, 5))
+    A = rng.normal(size=(int(rng.integers(1, 4)), n)).round(3)
+    return {"A": A.tolist(), "b": (np.abs(A).sum(axis=1) * 0.5).round(3).tolist(),
+            "lower": [-1.0] * n, "upper": [1.0] * n}
+
+
+FALLBACK_RANDOM = {"budget": _budget, "ball": _ball, "permutahedron": _permutahedron,
+                   "transport": _transport, "birkhoff": lambda rng: {"n": int(rng.integers(2, 5))},
+                   "hull": _hull, "polyhedron": _polyhedron}

@@ -8,7 +8,8 @@ import pytest
 from setkit.families import _FAMILIES, known_kinds
 from setkit.testing import CHECKS, checks, family_checks
 
-from conformance_examples import FALLBACK_EXAMPLES
+import numpy as np
+from conformance_examples import FALLBACK_EXAMPLES, FALLBACK_RANDOM
 
 
 def _builtin_kinds():
@@ -24,7 +25,10 @@ def _params():
             continue
         own = getattr(cls, "examples", None) or getattr(cls, "random_example", None)
         if not own and kind in FALLBACK_EXAMPLES:
-            for i, spec in enumerate(FALLBACK_EXAMPLES[kind]):
+            specs = list(FALLBACK_EXAMPLES[kind])
+            if kind in FALLBACK_RANDOM:
+                specs.append(FALLBACK_RANDOM[kind](np.random.default_rng([7, len(kind)])))
+            for i, spec in enumerate(specs):
                 out.extend(pytest.param(fn, id=f"{kind}[{i}]:{name}")
                            for name, fn in _lazy(dict(spec, kind=kind)))
             continue
