@@ -13,9 +13,8 @@ To add a builder for a new family::
         return {"kind": "mykind", "dim": n, ...}
 
 Builders must be cheap (they run at every size, including 1e6) and seeded.
-The other benchmark scripts (``bench_vector.py``, ``bench_flow.py``,
-``bench_combinators.py``) import their instances from here, so a workload is
-written once.
+Instances that a focused benchmark script already builds are imported from it
+(the flow polytope comes from ``bench_flow.make_instance``), so each is written once.
 """
 from __future__ import annotations
 
@@ -128,32 +127,13 @@ def birkhoff(n, rng):
     return {"kind": "birkhoff", "n": _side(n)}
 
 
-def random_flow_network(n_nodes, n_edges, rng):
-    """A connected random digraph with capacities and a supply met by a random feasible flow."""
-    n_nodes = max(3, n_nodes)
-    ring_from = np.arange(n_nodes)
-    ring_to = (ring_from + 1) % n_nodes
-    extra = max(0, n_edges - n_nodes)
-    a = rng.integers(0, n_nodes, extra)
-    b = (a + rng.integers(1, n_nodes, extra)) % n_nodes
-    src = np.concatenate([ring_from, a])[:n_edges]
-    dst = np.concatenate([ring_to, b])[:n_edges]
-    cap = rng.uniform(1.0, 4.0, src.size)
-    flow = rng.uniform(0.0, 1.0, src.size) * cap
-    supply = np.zeros(n_nodes)
-    np.add.at(supply, src, flow)
-    np.subtract.at(supply, dst, flow)
-    return src, dst, cap, supply
-
-
-@workload("flow", "flow polytope, n edges on n/4 nodes",
-          sizes_full=(100, 1_000, 10_000, 100_000, 1_000_000), sizes_quick=(24,))
+@workload("flow", "flow polytope, n edges on n/4 nodes", sizes_full=(100, 1_000, 10_000, 100_000),
+          sizes_quick=(24,))
 def flow(n, rng):
-    src, dst, cap, supply = random_flow_network(max(3, n // 4), n, rng)
-    names = [f"v{i}" for i in range(supply.size)]
-    edges = [{"from": names[s], "to": names[t], "capacity": float(c)} for s, t, c in zip(src, dst, cap)]
-    return {"kind": "flow", "nodes": names, "edges": edges,
-            "supply": {names[i]: float(v) for i, v in enumerate(supply)}}
+    # the instance of benchmarks/bench_flow.py: a random connected digraph with lower bounds,
+    # capacities and the supplies of a random feasible flow
+    from .bench_flow import make_instance
+    return make_instance(max(3, n // 4), n, rng)[0]
 
 
 @workload("polyhedron", "polyhedron in R^n, n/10 random halfspaces and a box",
@@ -180,20 +160,12 @@ def hull(n, rng):
 # ---------------------------------------------------------------------------------------------
 # combinators
 # ---------------------------------------------------------------------------------------------
-def permutahedron_with_cuts(n, rng, k=3):
-    """A permutahedron of n weights intersected with k halfspaces through points near its centre."""
-    w = np.round(rng.uniform(0.0, 10.0, n), 3)
-    A = rng.uniform(0.0, 1.0, (k, n))
-    centre = np.full(n, w.mean())
-    b = A @ centre + 0.05 * np.abs(A).sum(axis=1) * w.std()
-    return {"kind": "intersection", "of": [{"kind": "permutahedron", "weights": w},
-                                           {"kind": "polyhedron", "A": A, "b": b}]}
-
-
 @workload("intersection", "permutahedron(n) with 3 halfspaces", sizes_full=(100, 1_000, 10_000),
           sizes_quick=(12,), needs=("permutahedron", "polyhedron"), floors={"project": "sort+isotonic", "distance": "sort+isotonic"})
 def intersection(n, rng):
-    return permutahedron_with_cuts(n, rng)
+    # the instance of benchmarks/bench_combinators.py: halfspaces through points near the centre
+    from .bench_combinators import cut_permutahedron
+    return cut_permutahedron(n, rng)
 
 
 @workload("product", "product of n/50 simplices of dim 50", sizes_full=(100, 1_000, 10_000, 100_000, 1_000_000),

@@ -27,13 +27,18 @@ How answers are obtained (first that applies)
    dimension is at most ``exact_max_dim`` (default 8) the vertices are
    enumerated (scipy.spatial.HalfspaceIntersection) and the volume centroid is
    computed exactly by a triangulation (scipy.spatial.ConvexHull facets coned
-   from an interior point); the vertex centroid is the mean of the vertices.
+   from an interior point); the vertex centroid is the mean of the vertices;
+   when the reduced dimension is at most 2 the directions centroid is exact
+   too (normal-cone angles of the polygon).
 3. Otherwise an estimate: ``directions`` by Monte Carlo over the LMO (iid, so
    the effective sample size is the number of draws); ``volume`` by hit-and-run
-   (chord endpoints from the constraints for polytopes, or a support-bracketed
-   membership chord with Neal's shrinkage for other sets). Estimates carry a
-   standard error per coordinate (batch means and autocorrelation time over parallel chains) and an
-   effective sample size, available with ``details=True``.
+   (chord endpoints from the constraints for polytopes, or a membership chord
+   bracketed by the support function or the bounding box, with Neal's
+   shrinkage, for other sets). Estimates carry a standard error per coordinate
+   (the largest of batch means, Geyer's autocorrelation time and the spread of
+   chain means), an effective sample size and the Gelman-Rubin R-hat, all
+   available with ``details=True``; slowly mixing chains (R-hat > 1.05 or
+   effective sample size < 50) raise an AccuracyWarning.
 4. Where no honest estimate exists (uniform over the extreme points of a large
    polytope, or of a non-polyhedral set without family knowledge; volume of an
    unbounded set) an :class:`~setkit.errors.UnsupportedOperationError` says why
@@ -41,9 +46,12 @@ How answers are obtained (first that applies)
 
 Hit-and-run
 -----------
-Chains start at the Chebyshev center (largest inscribed ball, one LP) of the
-reduced polytope, or at the mean of LMO answers for non-polyhedral sets. Each
-step draws a direction from a fixed centrally symmetric law N(0, S) and moves
+Chains start at dispersed points: half-way between the Chebyshev center
+(largest inscribed ball, one LP) of the reduced polytope and vertices for random
+directions (one LP per chain), or half-way between the mean of LMO answers and
+some of them for non-polyhedral sets, so that chains which have not forgotten
+their starts disagree visibly (R-hat). Each step draws a direction from a
+fixed centrally symmetric law N(0, S) and moves
 to a uniform point of the chord (polytopes) or to a shrinkage draw on the chord
 (membership sets); both leave the uniform distribution invariant. S rounds
 elongated sets: for polytopes the inverse Dikin matrix of the constraints at
@@ -60,17 +68,21 @@ from __future__ import annotations
 
 import math
 import time
+import warnings
 import weakref
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
-from .errors import EmptySetError, InputError, SolveError, UnboundedDirectionError, UnsupportedOperationError
+from .errors import (AccuracyWarning, EmptySetError, InputError, SolveError, UnboundedDirectionError,
+                     UnsupportedOperationError)
 
 MEASURES = ("volume", "vertices", "directions")
 EXACT_MAX_DIM = 8
 MAX_VERTICES = 200_000
+RHAT_WARN = 1.05      # hit-and-run estimates warn above this R-hat ...
+ESS_WARN = 50.0       # ... or below this effective sample size
 
 
 @dataclass(frozen=True)
@@ -79,7 +91,8 @@ class MeasureResult:
 
     ``point`` has the set's point shape; ``std_error`` too (zeros when exact);
     ``ess`` is the effective sample size (``inf`` when exact; for hit-and-run
-    the smallest over coordinates); ``samples`` the number of points used.
+    the smallest over coordinates); ``samples`` the number of points used;
+    ``rhat`` the largest Gelman-Rubin R-hat of the hit-and-run chains (NaN otherwise).
     """
 
     point: Any
@@ -91,6 +104,7 @@ class MeasureResult:
     samples: int
     seconds: float
     note: str = ""
+    rhat: float = float("nan")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -310,6 +324,27 @@ def simplex_volume_centroid(V):
     return (vol[:, None] * cents).sum(axis=0) / vol.sum()
 
 
+def normal_cone_weights(V):
+    """P(lmo(g) = v) for a standard Gaussian g, for the vertices V (k x m) of a polytope with m <= 2.
+
+    Only the component of g in the affine hull matters (orthonormal coordinates keep it standard
+    Gaussian), and its direction is uniform on the circle, so a vertex is chosen with probability
+    (exterior angle at v) / (2 pi), the angle of its normal cone; the two ends of a segment have 1/2
+    each. Returns (weights, vertices in matching order). O(k log k).
+    """
+    k, m = V.shape
+    if m == 0 or k == 1:
+        return np.ones(1), V[:1]
+    if m == 1:
+        return np.array([0.5, 0.5]), np.array([[V.min()], [V.max()]])
+    from scipy.spatial import ConvexHull
+    W = V[ConvexHull(V).vertices]                  # counter-clockwise
+    e_in = W - np.roll(W, 1, axis=0)               # edge arriving at each vertex
+    e_out = np.roll(W, -1, axis=0) - W             # edge leaving it
+    turn = np.arctan2(e_in[:, 0] * e_out[:, 1] - e_in[:, 1] * e_out[:, 0], np.einsum("ij,ij->i", e_in, e_out))
+    return turn / turn.sum(), W
+
+
 def _reduced_dim_ok(P, exact_max_dim):
     return P is not None and P.bounded and P.m <= exact_max_dim and P.M.shape[0] <= 40 * max(P.m, 1) + 200
 
@@ -384,6 +419,7 @@ class _MembershipFrame:
     x0: np.ndarray
     N: np.ndarray
     L: np.ndarray
+    T: np.ndarray          # the LMO answers in affine-hull coordinates
 
 
 def _membership_frame(K, rng):
@@ -400,7 +436,7 @@ def _membership_frame(K, rng):
     x0 = Pts.mean(axis=0)
     U, s, _ = np.linalg.svd((Pts - x0).T, full_matrices=False)
     if s.size == 0 or s[0] == 0:
-        return _MembershipFrame(x0, np.zeros((d, 0)), np.zeros((0, 0)))
+        return _MembershipFrame(x0, np.zeros((d, 0)), np.zeros((0, 0)), np.zeros((0, 0)))
     r = int(np.sum(s > 1e-9 * s[0]))
     N = U[:, :r]
     T = (Pts - x0) @ N
@@ -409,7 +445,7 @@ def _membership_frame(K, rng):
         L = np.linalg.cholesky(S + 1e-9 * float(np.trace(S)) / r * np.eye(r))
     except np.linalg.LinAlgError:
         L = np.eye(r)
-    return _MembershipFrame(x0, N, L)
+    return _MembershipFrame(x0, N, L, T)
 
 
 def _membership_step(K, frame, max_shrink=60):
@@ -469,16 +505,31 @@ def _membership_step(K, frame, max_shrink=60):
 
 
 def _volume_chain_setup(K, rng):
-    """(step, start row, to_x, m, direction factor L) for hit-and-run in K's affine hull."""
+    """(step, starts(C, rng) -> (C, m), to_x, m, direction factor L) for hit-and-run in K's affine hull."""
     P = reduced(K)
     if P is not None:
         if not P.bounded:
             raise UnsupportedOperationError(
                 f"volume measure on {K.node.label}: the set is unbounded, so it has no uniform distribution; "
                 f"bound it (e.g. intersect it with a box).")
-        return _polytope_step(P, K.node.label), P.center, P.to_x, P.m, _dikin_factor(P)
+
+        def starts(C, g):
+            # half-way from the Chebyshev center to vertices of random directions (one LP each)
+            out = np.repeat(P.center[None, :], C, axis=0)
+            for i in range(C):
+                res = _linprog(g.standard_normal(P.m), A_ub=P.M, b_ub=P.q, bounds=[(None, None)] * P.m)
+                if res.status == 0:
+                    out[i] = 0.5 * (P.center + res.x)
+            return out
+        return _polytope_step(P, K.node.label), starts, P.to_x, P.m, _dikin_factor(P)
     frame = _membership_frame(K, rng)
-    return (_membership_step(K, frame), np.zeros(frame.N.shape[1]), (lambda T: frame.x0 + T @ frame.N.T),
+
+    def starts(C, g):
+        # half-way from the mean of the LMO answers (relative interior) to some of them
+        if frame.T.shape[0] == 0:
+            return np.zeros((C, frame.N.shape[1]))
+        return 0.5 * frame.T[g.integers(0, frame.T.shape[0], size=C)]
+    return (_membership_step(K, frame), starts, (lambda T: frame.x0 + T @ frame.N.T),
             frame.N.shape[1], frame.L)
 
 
@@ -488,8 +539,8 @@ def hit_and_run(K, n, rng, chains=None, burn_in=None, thin=None):
     chains, burn_in, thin = _defaults(m, chains, burn_in, thin)
     per = max(1, -(-n // chains))
     if m == 0:
-        return np.broadcast_to(to_x(start[None, :]), (chains, per, K.dim)).copy()
-    T0 = np.repeat(start[None, :], chains, axis=0)
+        return np.broadcast_to(to_x(np.zeros((1, 0))), (chains, per, K.dim)).copy()
+    T0 = start(chains, rng)
     S = _run_chains(step, T0, per, burn_in, thin, rng, L)
     C = S.shape[0]
     return to_x(S.reshape(-1, m)).reshape(C, per, K.dim)
@@ -519,28 +570,48 @@ def _ips_tau(S):
     return tau
 
 
-def batch_means(S):
-    """Mean, per-coordinate standard error and smallest effective sample size of chains S (C, n, d).
+def chain_summary(S):
+    """Mean, per-coordinate standard error, smallest effective sample size and largest R-hat of chains
+    S (C, n, d).
 
-    The standard error is the larger of two estimates: batch means (5 batches per chain) and the
-    initial-positive-sequence autocorrelation time (Geyer, 1992); the larger one is kept because both
-    tend to understate the error of slowly mixing chains.
+    The standard error is the largest of three estimates, because each can understate the error of
+    slowly mixing chains: batch means (5 batches per chain), the initial-positive-sequence
+    autocorrelation time (Geyer, 1992) and the spread of the chain means (chains start dispersed).
+    R-hat is the potential scale reduction of Gelman and Rubin (1992); values well above 1 mean the
+    chains have not mixed.
     """
     C, n, d = S.shape
     flat = S.reshape(-1, d)
     mean = flat.mean(axis=0)
     if C * n < 2:
-        return mean, np.full(d, np.nan), float("nan")
+        return mean, np.full(d, np.nan), float("nan"), float("nan")
     var = flat.var(axis=0, ddof=1)
     B = max(1, min(n, 5))
     size = n // B
     bm = S[:, :B * size].reshape(C, B, size, d).mean(axis=2).reshape(C * B, d)
     se_b = bm.std(axis=0, ddof=1) / math.sqrt(C * B) if C * B > 1 else np.zeros(d)
     se_t = np.sqrt(var * _ips_tau(S) / (C * n)) if n > 1 else np.zeros(d)
-    se = np.maximum(se_b, se_t)
+    cm = S.mean(axis=1)
+    se_c = cm.std(axis=0, ddof=1) / math.sqrt(C) if C > 1 else np.zeros(d)
+    se = np.maximum(np.maximum(se_b, se_t), se_c)
     live = se > 1e-14 * max(1.0, float(np.abs(mean).max()))
     ess = float(np.min(var[live] / se[live] ** 2)) if live.any() else float(C * n)
-    return mean, se, min(ess, float(C * n))
+    rhat = float("nan")
+    if C > 1 and n > 1:
+        W = S.var(axis=1, ddof=1).mean(axis=0)
+        Bv = n * cm.var(axis=0, ddof=1)
+        ok = W > 1e-300
+        if ok.any():
+            rhat = float(np.sqrt(((n - 1) / n * W[ok] + Bv[ok] / n) / W[ok]).max())
+        else:
+            rhat = 1.0
+    return mean, se, min(ess, float(C * n)), rhat
+
+
+def batch_means(S):
+    """Mean, per-coordinate standard error and smallest effective sample size of chains S (see chain_summary)."""
+    mean, se, ess, _ = chain_summary(S)
+    return mean, se, ess
 
 
 # ---------------------------------------------------------------------------------------------
@@ -561,8 +632,9 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
     measure : "volume" | "vertices" | "directions"
     details : return a :class:`MeasureResult` (point, method, exact, std_error, ess, ...)
     rng : Generator or int seed for estimates (None: seed 0, reproducible)
-    samples : number of draws for an estimate (default 4000; 400 for directions when the LMO is not a
-        native kernel, since each draw is then an LP or conic solve)
+    samples : number of draws for an estimate (default: 4000 for volume; for directions 100000 when the
+        vertices are enumerated (each draw is then a scan), else 1000 with a native LMO and 400 with a
+        generic one, since each draw is then an LP or conic solve)
     exact : True to refuse estimates (raise instead), False to force an estimate, None for the best available
     exact_max_dim : largest affine-hull dimension for vertex enumeration / triangulation
     chains, burn_in, thin : hit-and-run settings (see the module docstring)
@@ -573,6 +645,9 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
     >>> import setkit
     >>> setkit.compile({"kind": "simplex", "dim": 4}).centroid().tolist()
     [0.25, 0.25, 0.25, 0.25]
+    >>> r = setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}).centroid(details=True)
+    >>> r.method, r.exact, r.point.tolist()
+    ('closed form', True, [0.5, 0.5])
     """
     _check_measure(K, measure, "centroid")
     t0 = time.perf_counter()
@@ -601,6 +676,14 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
                         r = _exact_result(K, x, measure, "triangulation", t0,
                                           f"{V.shape[0]} vertices, affine hull of dimension {P.m}")
                     return r if details else r.point
+        if measure == "directions":
+            P = reduced(K)
+            if P is not None and P.bounded and P.m <= 2:
+                w, V = normal_cone_weights(polytope_vertices(P, node.label))
+                x = P.to_x((w @ V)[None, :])[0]
+                r = _exact_result(K, x, measure, "normal-cone angles", t0,
+                                  f"{V.shape[0]} vertices, affine hull of dimension {P.m}")
+                return r if details else r.point
     if measure == "vertices":
         raise UnsupportedOperationError(_no_vertex_reason(K, exact_max_dim))
     if exact:
@@ -609,26 +692,42 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
             f"(no closed form, and it is not a polytope of affine dimension <= {exact_max_dim}); "
             f"call it with exact=None to get an estimate with its standard error.")
     g = as_generator(rng, 0)
+    samples_given = samples
     if samples is None:
-        samples = 400 if measure == "directions" and K.routes()["lmo"].provider != "native" else 4000
+        samples = 4000 if measure == "volume" else (1000 if K.routes()["lmo"].provider == "native" else 400)
     samples = int(samples)
     if samples < 2:
         raise InputError(f"centroid on {node.label}: samples must be at least 2; got {samples}.")
     if measure == "directions":
-        X = _direction_draws(K, samples, g)
+        Vx = _enumerated_vertices(K, exact_max_dim)
+        if Vx is not None:
+            if samples_given is None:
+                samples = 100_000
+            X = _vertex_scan_draws(Vx, samples, g)
+            method, note = "Monte Carlo over enumerated vertices", (
+                f"iid Gaussian directions, best of {Vx.shape[0]} enumerated vertices by a scan")
+        else:
+            X = _direction_draws(K, samples, g)
+            method, note = "Monte Carlo over LMO", "iid Gaussian directions"
         mean = X.mean(axis=0)
         se = X.std(axis=0, ddof=1) / math.sqrt(samples)
-        r = MeasureResult(point=mean.reshape(K.shape), measure=measure, method="Monte Carlo over LMO",
+        r = MeasureResult(point=mean.reshape(K.shape), measure=measure, method=method,
                           exact=False, std_error=se.reshape(K.shape), ess=float(samples), samples=samples,
-                          seconds=time.perf_counter() - t0, note="iid Gaussian directions")
+                          seconds=time.perf_counter() - t0, note=note)
         return r if details else r.point
     S = hit_and_run(K, samples, g, chains=chains, burn_in=burn_in, thin=thin)
-    mean, se, ess = batch_means(S)
+    mean, se, ess, rhat = chain_summary(S)
     how = "chord from the constraints" if reduced(K) is not None else "membership chord with shrinkage"
+    if not rhat <= RHAT_WARN or ess < ESS_WARN:
+        warnings.warn(AccuracyWarning(
+            f"centroid(measure='volume') on {node.label}: the hit-and-run chains mix slowly (R-hat {rhat:.3f}, "
+            f"effective sample size {ess:.0f} of {S.shape[0] * S.shape[1]}); the standard error may be "
+            f"understated - pass a larger burn_in, thin or samples."), stacklevel=3)
     r = MeasureResult(point=mean.reshape(K.shape), measure=measure, method="hit-and-run", exact=False,
                       std_error=se.reshape(K.shape), ess=ess, samples=S.shape[0] * S.shape[1],
-                      seconds=time.perf_counter() - t0,
-                      note=f"{S.shape[0]} chains, {how}; standard error: max of batch means and autocorrelation time")
+                      seconds=time.perf_counter() - t0, rhat=rhat,
+                      note=f"{S.shape[0]} chains, {how}; standard error: the largest of batch means, "
+                           f"autocorrelation time and spread of chain means")
     return r if details else r.point
 
 
@@ -650,6 +749,31 @@ def _no_vertex_reason(K, exact_max_dim):
     return (f"centroid/sample(measure='vertices') on {node.label}: no exact answer and no honest estimate, "
             f"because {why}. measure='directions' (LMO of a Gaussian direction, also a law on extreme "
             f"points) or measure='volume' can be estimated with a standard error.")
+
+
+def _enumerated_vertices(K, exact_max_dim):
+    """The vertices (in x) of a small polytope whose vertices can be enumerated, else None."""
+    try:
+        P = reduced(K)
+    except SolveError:
+        return None
+    if not _reduced_dim_ok(P, exact_max_dim):
+        return None
+    V = polytope_vertices(P, K.node.label)
+    if V.shape[0] > MAX_VERTICES:
+        return None
+    return P.to_x(V)
+
+
+def _vertex_scan_draws(Vx, k, g, chunk=20_000):
+    """lmo(g) for k Gaussian directions g by scanning the vertex list Vx (exact law of lmo(g))."""
+    d = Vx.shape[1]
+    out = np.empty((k, d))
+    for a in range(0, k, chunk):
+        b = min(k, a + chunk)
+        Gd = g.standard_normal((b - a, d))
+        out[a:b] = Vx[np.argmin(Gd @ Vx.T, axis=1)]
+    return out
 
 
 def _direction_draws(K, k, g):
@@ -692,6 +816,9 @@ def sample(K, k: int, measure: str = "volume", rng=None, *, chains=None, burn_in
     if X is not None:
         return np.asarray(X, dtype=float).reshape(out_shape)
     if measure == "directions":
+        Vx = _enumerated_vertices(K, exact_max_dim)
+        if Vx is not None:
+            return _vertex_scan_draws(Vx, k, g).reshape(out_shape)
         return _direction_draws(K, k, g).reshape(out_shape)
     if measure == "vertices":
         P = reduced(K)

@@ -34,7 +34,8 @@ data, ``s = max(1, K.node.scale())``):
 * membership accepts points of the set and rejects points far from it;
 * batched calls equal one-by-one calls and have the documented shapes;
 * bad inputs (wrong shape, NaN) raise :class:`~setkit.errors.InputError`;
-* when available, the penalty equals ``G * distance`` and the centroid lies in the set.
+* when available, the penalty equals ``G * distance``, the Moreau penalty's value and gradient
+  match their definitions with the reference projection, and the vertex centroid lies in the set.
 """
 from __future__ import annotations
 
@@ -100,7 +101,7 @@ class _Context:
     # inputs: (flat array (b, dim), list of labels)
     def inputs(self):
         def make():
-            K, n, d, s = self.K, self.n, self.K.dim, self.s
+            n, d, s = self.n, self.K.dim, self.s
             rng = np.random.default_rng([self.seed, 1])
             raw = rng.standard_normal((n, d)) * s
             inside = self.ref_project_rows(raw)
@@ -173,9 +174,13 @@ class _Context:
         return self._get("ref_lmo_neg", lambda: self.ref_lmo_rows(-C))
 
     def ref_support_rows(self, C):
+        """Reference support per row, computed on unit directions (the support function is
+        positively homogeneous; tiny directions such as y - p for y near K confuse the solver)."""
+        norms = np.linalg.norm(C, axis=1)
+        U = C / np.where(norms > 0, norms, 1.0)[:, None]
         vals = []
-        for c, x in zip(C, self.ref_lmo_rows(-C)):
-            vals.append(np.inf if x is None else float(c @ x))
+        for u, nrm, x in zip(U, norms, self.ref_lmo_rows(-U)):
+            vals.append(np.inf if x is None else float(nrm * (u @ x)))
         return np.array(vals)
 
     def vertices(self):
@@ -539,7 +544,23 @@ def _penalty(ctx):
     gaps = np.abs(v - G * Dr)
     _raise_worst("penalty/value", K, "penalty(G).value(x) differs from G * reference distance", gaps, allowed,
                  X, labels, v, G * Dr)
-    return len(X), float((gaps / allowed).max()), ctx.rtol
+    # the Moreau envelope (exact definition in the design): value G h(d), gradient G (x - p) / max(d, delta)
+    delta = 0.1 * ctx.s
+    pm = K.penalty(G, smoothing="moreau", width=delta)
+    Pr = ctx.ref_projection()
+    h = np.where(Dr <= delta, Dr ** 2 / (2 * delta), Dr - delta / 2)
+    vm = np.array([float(pm.value(x.reshape(K.shape))) for x in X])
+    gm = np.stack([np.asarray(pm.grad(x.reshape(K.shape)), float).reshape(-1) for x in X])
+    gr = G * (X - Pr) / np.maximum(Dr, delta)[:, None]
+    gv = np.abs(vm - G * h)
+    _raise_worst("penalty/moreau-value", K, "the Moreau penalty value differs from G h(reference distance)",
+                 gv, allowed, X, labels, vm, G * h)
+    gg = np.linalg.norm(gm - gr, axis=1)
+    # the gradient divides the projection error by max(d, delta)
+    gallowed = G * ctx.rtol * ctx.point_scale(X) / delta
+    _raise_worst("penalty/moreau-gradient", K, "the Moreau penalty gradient differs from "
+                 "G (x - p) / max(d, delta) with the reference projection", gg, gallowed, X, labels, gm, gr)
+    return 3 * len(X), float(max((gaps / allowed).max(), (gv / allowed).max(), (gg / gallowed).max())), ctx.rtol
 
 
 def _centroid(ctx):

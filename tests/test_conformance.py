@@ -6,7 +6,10 @@ Each family offers small instances through its classmethods ``examples()`` and
 import pytest
 
 from setkit.families import _FAMILIES, known_kinds
-from setkit.testing import family_checks
+from setkit.testing import CHECKS, checks, family_checks
+
+import numpy as np
+from conformance_examples import FALLBACK_EXAMPLES, FALLBACK_RANDOM
 
 
 def _builtin_kinds():
@@ -20,12 +23,36 @@ def _params():
         cls = _FAMILIES[kind]
         if kind == "custom":   # built in Python only; its conformance runs in tests/families/test_custom.py
             continue
-        if not (getattr(cls, "examples", None) or getattr(cls, "random_example", None)):
+        own = getattr(cls, "examples", None) or getattr(cls, "random_example", None)
+        if not own and kind in FALLBACK_EXAMPLES:
+            specs = list(FALLBACK_EXAMPLES[kind])
+            if kind in FALLBACK_RANDOM:
+                specs.append(FALLBACK_RANDOM[kind](np.random.default_rng([7, len(kind)])))
+            for i, spec in enumerate(specs):
+                out.extend(pytest.param(fn, id=f"{kind}[{i}]:{name}")
+                           for name, fn in _lazy(dict(spec, kind=kind)))
+            continue
+        if not own:
             out.append(pytest.param(None, id=f"{kind}:no-examples",
                                     marks=pytest.mark.skip(reason=f"{kind} offers no examples() yet")))
             continue
         out.extend(pytest.param(fn, id=name) for name, fn in family_checks(kind, seed=7, count=1, points=2))
     return out
+
+
+def _lazy(spec):
+    holder = {}
+
+    def make(name):
+        def run():
+            if "checks" not in holder:
+                holder["checks"] = dict(checks(spec, seed=7, points=2))
+            try:
+                return holder["checks"][name]()
+            except AssertionError as exc:
+                raise AssertionError(f"instance {spec!r}:\n{exc}") from None
+        return run
+    return [(name, make(name)) for name, _ in CHECKS]
 
 
 @pytest.mark.parametrize("check", _params())

@@ -135,3 +135,19 @@ def test_decorator_registration_with_derived_operators():
 def test_unknown_kind_lists_the_known_ones():
     with pytest.raises(setkit.DescriptionError, match="unknown kind 'no_such_room'.*simplex"):
         setkit.compile({"kind": "no_such_room"})
+
+
+def test_missing_measures_and_penalty_are_derived_for_a_plugin(plugin):
+    K = setkit.compile({"kind": "round_room", "center": [1.0, -2.0, 0.5], "radius": 2.0})
+    # no centroid hook: the volume centroid is estimated by sampling (hit-and-run), honestly
+    r = K.centroid(measure="volume", details=True, samples=1000, rng=3)
+    assert not r.exact and r.method == "hit-and-run"
+    # by symmetry (common practice) the centroid of a ball is its center
+    assert np.all(np.abs(r.point - [1.0, -2.0, 0.5]) <= 6 * r.std_error + 1e-3)
+    S = K.sample(50, rng=4)
+    assert S.shape == (50, 3) and K.contains(S).all()
+    # the penalty comes from the projection: G * dist, and the Moreau gradient G (x - p) / max(d, delta)
+    x = np.array([5.0, -2.0, 0.5])
+    assert K.penalty(3.0).value(x) == pytest.approx(6.0)
+    g = K.penalty(3.0, smoothing="moreau", width=0.5).grad(x)
+    np.testing.assert_allclose(g, 3.0 * (x - K.project(x)) / 2.0)

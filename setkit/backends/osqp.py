@@ -4,7 +4,9 @@ The KKT system is set up and factorized once per workspace; each call updates
 only the linear term and warm-starts from the previous answer. Each solve runs
 at eps 1e-8 and is polished (a successful polish solves the KKT system of the
 identified active set, so the answer is exact up to rounding); when polishing
-does not succeed, the point is re-solved warm at eps 1e-10. The status is
+does not succeed, the point is re-solved warm at eps 1e-10 (the first answer is
+kept if that re-solve does not finish); a solve that stalls from its warm start
+is restarted cold with rho reset. The status is
 checked and the feasibility residual measured by us before an answer is returned.
 """
 from __future__ import annotations
@@ -18,10 +20,14 @@ from ..errors import AccuracyWarning, BackendUnavailableError, SolveError
 from . import Backend, register_backend
 
 SETTINGS = dict(verbose=False, eps_abs=1e-8, eps_rel=1e-8, eps_prim_inf=1e-10, eps_dual_inf=1e-10,
-                polishing=True, polish_refine_iter=10, max_iter=200_000, warm_starting=True,
+                polishing=True, polish_refine_iter=10, max_iter=10_000, warm_starting=True,
                 adaptive_rho=True, check_termination=10)
 # when polishing does not succeed the answer is only eps-accurate: re-solve (warm) at these tolerances
 TIGHT = dict(eps_abs=1e-10, eps_rel=1e-10)
+TIGHT_MAX_ITER = 20_000
+# a warm-started solve that does not finish in SETTINGS["max_iter"] iterations is restarted cold, with
+# the step size rho reset (its adapted value from points of another scale can stall ADMM), for up to
+RESTART = dict(rho=0.1, max_iter=100_000)
 
 
 @register_backend("osqp")
@@ -52,6 +58,8 @@ class OsqpBackend(Backend):
         self.solver = osqp.OSQP()
         self.solver.setup(P, np.zeros(n), A, lo, hi, **SETTINGS)
         self._osqp = osqp
+        status_enum = getattr(osqp, "SolverStatus", None)   # osqp >= 1.0; older: the named constant
+        self._solved = int(status_enum.OSQP_SOLVED) if status_enum is not None else osqp.constant("OSQP_SOLVED")
 
     def _residual(self, z):
         f = self.form
@@ -71,16 +79,39 @@ class OsqpBackend(Backend):
             q = np.concatenate([-y, np.zeros(f.n_aux)])
             self.solver.update(q=q)
             res = self.solver.solve(raise_error=False)
-            ok = res.info.status_val == self._osqp.constant("OSQP_SOLVED")
-            tightened = False
-            if not (ok and res.info.status_polish == 1):
-                self.solver.update_settings(**TIGHT)
+            ok = res.info.status_val == self._solved
+            note = ""
+            if not ok:
+                # a warm start (and rho adapted) at a point of another scale can stall ADMM: restart cold
+                self.solver.update_settings(**RESTART)
+                self.solver.warm_start(x=np.zeros(f.n), y=np.zeros(self.A.shape[0]))
                 res = self.solver.solve(raise_error=False)
-                self.solver.update_settings(eps_abs=SETTINGS["eps_abs"], eps_rel=SETTINGS["eps_rel"])
-                ok = res.info.status_val == self._osqp.constant("OSQP_SOLVED")
-                tightened = True
-            status = res.info.status
-            z = res.x
+                self.solver.update_settings(max_iter=SETTINGS["max_iter"])
+                ok = res.info.status_val == self._solved
+                note = "; restarted cold"
+            if not (ok and res.info.status_polish == 1):
+                # polishing did not identify the active set: the answer is only eps-accurate, so
+                # re-solve warm at tighter tolerances (absolute one relative to the point's size)
+                first = (np.array(res.x, dtype=float) if res.x is not None else None, res.info.status,
+                         int(res.info.iter), res.info.status_polish)
+                yscale = max(1.0, float(np.abs(y).max(initial=0.0)))
+                self.solver.update_settings(eps_abs=TIGHT["eps_abs"] * yscale, eps_rel=TIGHT["eps_rel"],
+                                            max_iter=TIGHT_MAX_ITER)
+                res = self.solver.solve(raise_error=False)
+                self.solver.update_settings(eps_abs=SETTINGS["eps_abs"], eps_rel=SETTINGS["eps_rel"],
+                                            max_iter=SETTINGS["max_iter"])
+                tight_ok = res.info.status_val == self._solved
+                if tight_ok:
+                    note += "; re-solved at eps 1e-10"
+                elif ok and first[0] is not None:
+                    # keep the clean eps 1e-8 answer of the first solve
+                    note += f"; tight re-solve stopped ({res.info.status}), eps 1e-8 answer kept"
+                    res = None
+                ok = ok if res is None else tight_ok
+            if res is None:
+                z, status, n_it, polish = first
+            else:
+                z, status, n_it, polish = res.x, res.info.status, int(res.info.iter), res.info.status_polish
             if z is None or not np.all(np.isfinite(z)):
                 raise SolveError(f"osqp ({self.node.label}): projection failed with status {status!r}; "
                                  f"no point was returned.", status=status)
@@ -94,7 +125,6 @@ class OsqpBackend(Backend):
                 warnings.warn(msg, AccuracyWarning, stacklevel=3)
             out[i] = z[:f.n_x]
             stat.append("solved" if ok else status)
-            iters.append(int(res.info.iter))
-            bstat.append(f"{status}; polish={res.info.status_polish}"
-                         + ("; re-solved at eps 1e-10" if tightened else ""))
+            iters.append(n_it)
+            bstat.append(f"{status}; polish={polish}{note}")
         return out, {"status": stat, "iterations": iters, "backend_status": bstat}

@@ -15,6 +15,9 @@ from ..errors import AccuracyWarning, BackendUnavailableError, SolveError, Unbou
 from . import Backend, register_backend
 
 CLARABEL_SETTINGS = dict(tol_gap_abs=1e-10, tol_gap_rel=1e-10, tol_feas=1e-10, max_iter=400)
+# tried first: a duality gap of 1e-10 bounds a projection's error only by ~sqrt(gap) (1e-5 of the
+# scale); when Clarabel cannot reach these, the standard settings above are used
+CLARABEL_TIGHT = dict(tol_gap_abs=1e-13, tol_gap_rel=1e-13, tol_feas=1e-12, max_iter=400)
 
 
 @register_backend("reference")
@@ -42,21 +45,25 @@ class ReferenceBackend(Backend):
         cp = self.cp
         d, shape = self.node.dim, self.node.shape
         z = cp.Variable(d)
-        # projections work on z = x / s with s the set's data scale, so that z = O(1)
-        # (linear minimization stays unscaled: Clarabel failed on some degenerate scaled LPs)
+        # x = s z: s = 1, or the set's data scale for the fallback projection formulation
         xz = z if s == 1.0 else s * z
         x = xz if shape == (d,) else cp.reshape(xz, shape, order="C")
         cons = self.node.cvxpy_constraints(x)
         return z, cons
 
-    def _problem(self, op):
-        if op in self._problems:
-            return self._problems[op]
+    def _problem(self, op, s=1.0, classic=False):
+        key = (op, s, classic)
+        if key in self._problems:
+            return self._problems[key]
         cp = self.cp
-        z, cons = self._variable(self._set_scale if op == "project" else 1.0)
+        z, cons = self._variable(s)
         p = cp.Parameter(self.node.dim)
         inv = cp.Parameter(nonneg=True, value=1.0)
-        if op == "project":
+        if op == "project" and classic:
+            # 0.5 ||z/t - y/t||^2, t = max(1, |y|): the least accurate form, but it solves when
+            # the others stop early (for instance tiny sets far from the origin)
+            prob = cp.Problem(cp.Minimize(0.5 * cp.sum_squares(inv * z - p)), cons)
+        elif op == "project":
             # expanded objective (0.5 ||x||^2 - <y, x>) / (s t) with x = s z and
             # t = max(1, s, |y|_inf): 0.5 (s/t) ||z||^2 - <y/t, z>. The constant ||y||^2 is dropped
             # and no auxiliary equality z/t - y/t is formed, which keeps Clarabel accurate to
@@ -64,23 +71,60 @@ class ReferenceBackend(Backend):
             prob = cp.Problem(cp.Minimize(0.5 * inv * cp.sum_squares(z) - p @ z), cons)
         else:
             prob = cp.Problem(cp.Minimize(p @ z), cons)
-        self._problems[op] = (prob, z, p, inv, cons)
-        return self._problems[op]
+        self._problems[key] = (prob, z, p, inv, cons)
+        return self._problems[key]
+
+    def _attempt(self, op, v, s, settings=None, classic=False):
+        cp = self.cp
+        prob, z, p, inv, cons = self._problem(op, s, classic)
+        scale = max(1.0, float(np.abs(v).max(initial=0.0)))
+        if op == "project" and not classic:
+            scale = max(scale, s, self._set_scale)
+        p.value = v / scale
+        inv.value = s / scale
+        try:
+            with warnings.catch_warnings():
+                # cvxpy warns "Solution may be inaccurate"; the status is handled by the caller
+                warnings.filterwarnings("ignore", message="Solution may be inaccurate")
+                prob.solve(solver=cp.CLARABEL, **(settings or CLARABEL_SETTINGS))
+        except cp.error.SolverError as exc:
+            return prob, z, cons, s, exc
+        return prob, z, cons, s, None
 
     def _solve(self, op, v):
         cp = self.cp
-        prob, z, p, inv, cons = self._problem(op)
-        scale = max(1.0, float(np.abs(v).max(initial=0.0)))
+        # formulations in order of accuracy; the next one only when the previous did not solve:
+        # tight then standard tolerances, on x and (large sets) on z = x / s, then the classic form
+        attempts = [(1.0, CLARABEL_TIGHT, False), (1.0, None, False)]
+        if self._set_scale > 1.0:
+            attempts += [(self._set_scale, CLARABEL_TIGHT, False), (self._set_scale, None, False)]
         if op == "project":
-            scale = max(scale, self._set_scale)
-        p.value = v / scale
-        inv.value = self._set_scale / scale
-        try:
-            prob.solve(solver=cp.CLARABEL, **CLARABEL_SETTINGS)
-        except cp.error.SolverError as exc:
+            attempts.append((1.0, None, True))
+        kept = None
+        for s_, settings, classic in attempts:
+            prob, z, cons, s, exc = self._attempt(op, v, s_, settings, classic)
+            if exc is None and prob.status == cp.OPTIMAL:
+                break
+            if exc is None and op == "lmo" and prob.status == cp.UNBOUNDED:
+                break
+            if exc is None and prob.status == cp.OPTIMAL_INACCURATE and kept is None:
+                kept = (prob.status, np.array(z.value, dtype=float), cons, s, prob.solver_stats, None, z)
+        else:
+            if kept is not None:
+                # nothing solved cleanly: report the most accurate formulation's inaccurate answer
+                # (an error below unless loose answers were asked for)
+                return self._finish(op, *kept)
+        return self._finish(op, prob.status if exc is None else None, None if exc is not None else
+                            np.array(z.value, dtype=float) if z.value is not None else None, cons, s,
+                            prob.solver_stats if exc is None else None, exc)
+
+    def _finish(self, op, status, zval, cons, s, stats, exc=None, z=None):
+        cp = self.cp
+        if z is not None:
+            z.value = zval      # the constraints' residual below reads the variable's value
+        if exc is not None:
             raise SolveError(f"reference ({self.node.label}): Clarabel failed on {op}: {exc}",
                              status="solver_error") from None
-        status = prob.status
         if status in (cp.UNBOUNDED, cp.UNBOUNDED_INACCURATE):
             raise UnboundedDirectionError(
                 f"{self.node.label}: the set is unbounded along the direction -c, so lmo(c) has no "
@@ -95,9 +139,7 @@ class ReferenceBackend(Backend):
             else:
                 raise SolveError(f"reference ({self.node.label}): {op} did not solve cleanly "
                                  f"(status {status!r}).", status=status)
-        x = np.array(z.value, dtype=float)
-        if op == "project":
-            x *= self._set_scale
+        x = s * zval
         resid = max((float(np.max(c.violation(), initial=0.0)) for c in cons), default=0.0)
         xs = max(1.0, float(np.abs(x).max(initial=0.0)))
         if resid > 1e-6 * xs:
@@ -106,7 +148,7 @@ class ReferenceBackend(Backend):
             if not self.loose:
                 raise SolveError(msg, status="infeasible_answer")
             warnings.warn(msg, AccuracyWarning, stacklevel=4)
-        it = prob.solver_stats.num_iters if prob.solver_stats is not None else None
+        it = stats.num_iters if stats is not None else None
         return x, status, it
 
     def _loop(self, op, V):

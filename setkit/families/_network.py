@@ -253,7 +253,7 @@ class NetworkFamily(Family):
 
     @kernel("project")
     def project(self, Y):
-        """Dual semismooth Newton on node potentials (matrix-free CG, numba), warm-started; O(E) per CG step."""
+        """Dual Newton on node potentials with exact component shifts (numba, matrix-free CG); O(E) per CG step."""
         return self._project_flat(Y)
 
     @kernel("lmo")

@@ -26,6 +26,15 @@ class Birkhoff(Transport):
         n = r.integer("n", min=1)
         return cls(rows=np.ones(n), cols=np.ones(n), name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "birkhoff", "n": 2}, {"kind": "birkhoff", "n": 4}]
+
+    @classmethod
+    def random_example(cls, rng):
+        return {"kind": "birkhoff", "n": int(rng.integers(2, 5))}
+
     @property
     def n(self) -> int:
         return int(self.rows.size)
@@ -55,3 +64,22 @@ class Birkhoff(Transport):
             rr, cc = linear_sum_assignment(M, maximize=True)
             out[i] = M[rr, cc].sum()
         return out
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def exact_centroid(self, measure):
+        """J/n for every measure: each is invariant under permuting rows and columns, and J/n is the
+        only doubly-stochastic matrix fixed by all those permutations."""
+        n = self.n
+        return np.full((n, n), 1.0 / n)
+
+    def exact_sample(self, k, measure, rng):
+        """vertices and directions: uniformly random permutation matrices (the assignment minimizing
+        <g, X> for a Gaussian g is uniform, since permuting the rows of g permutes the answer);
+        volume: None (hit-and-run)."""
+        if measure == "volume":
+            return None
+        n = self.n
+        perms = rng.permuted(np.broadcast_to(np.arange(n), (k, n)), axis=1)
+        X = np.zeros((k, n, n))
+        X[np.arange(k)[:, None], np.arange(n)[None, :], perms] = 1.0
+        return X.reshape(k, n * n)

@@ -7,7 +7,9 @@ import numpy as np
 
 from ..errors import UnboundedDirectionError
 from ..forms import LinearForm
+from ..kernels.vector_ops import bounds_sum_violation
 from . import Family, kernel, register
+from ._screen import screened_contains
 
 
 @register("box")
@@ -100,24 +102,43 @@ class Box(Family):
         """Norm of the clipped-off part, O(n)."""
         return np.linalg.norm(Y - np.clip(Y, self.lower, self.upper), axis=1)
 
+    def __post_init__(self):
+        # used by every LMO call: the answer at c_i = 0, and whether any bound is infinite
+        tie = np.where(np.isfinite(self.lower), self.lower, np.where(np.isfinite(self.upper), self.upper, 0.0))
+        object.__setattr__(self, "_tie", tie)
+        object.__setattr__(self, "_zeros", np.zeros(self.lower.size))
+        object.__setattr__(self, "_all_finite", bool(np.isfinite(self.lower).all() and np.isfinite(self.upper).all()))
+
     @kernel("lmo")
     def lmo(self, C):
         """Lower bound where c > 0, upper bound where c < 0 (lower, else upper, where c = 0), O(n)."""
-        lo = np.broadcast_to(self.lower, C.shape)
-        hi = np.broadcast_to(self.upper, C.shape)
-        tie = np.where(np.isfinite(lo), lo, np.where(np.isfinite(hi), hi, 0.0))
-        X = np.where(C > 0, lo, np.where(C < 0, hi, tie))
-        if not np.all(np.isfinite(X)):
+        X = np.where(C > 0, self.lower, self.upper)
+        zero = C == 0
+        if zero.any():
+            X = np.where(zero, self._tie, X)
+        if not self._all_finite and not np.all(np.isfinite(X)):
             i, j = np.argwhere(~np.isfinite(X))[0]
             raise UnboundedDirectionError(
                 f"{self.label}: lmo(c) has no minimizer: coordinate {j} is unbounded and c[{j}] = {C[i, j]} "
                 f"(batch row {i}).")
         return X
 
+    @kernel("support")
+    def support(self, C):
+        """sum_i max(c_i lower_i, c_i upper_i), O(n); raises when unbounded along c."""
+        if self._all_finite:
+            return np.where(C > 0, C * self.upper, C * self.lower).sum(axis=1)
+        return np.einsum("ij,ij->i", C, self.lmo(-C))
+
+    @kernel("contains")
+    def contains(self, X, tol):
+        """Bound-violation screen, the distance only for borderline points, O(n)."""
+        return screened_contains(X, tol, self.violation, self.distance, 1.0)
+
     @kernel("violation")
     def violation(self, X):
         """Largest bound violation, O(n)."""
-        return np.maximum((self.lower - X).max(axis=1), (X - self.upper).max(axis=1)).clip(min=0.0)
+        return bounds_sum_violation(X, self.lower, self.upper, self._zeros, 0.0, True)
 
     # -- exact knowledge for setkit.measures ------------------------------------------------------
     def _bounded(self):
@@ -134,7 +155,8 @@ class Box(Family):
         return (self.lower + self.upper) / 2.0
 
     def exact_sample(self, k, measure, rng):
-        """Independent coordinates: uniform on [lower, upper] (volume) or a fair choice of bound (vertices, directions)."""
+        """Independent coordinates: uniform on [lower, upper] (volume) or a fair choice of a bound
+        (vertices, directions)."""
         if not self._bounded():
             return None
         U = rng.random((k, self.lower.size))

@@ -1,6 +1,10 @@
 """The budget {lower <= x <= upper, <w, x> = total} (mode equal) or <= total (mode at_most).
 
 A weighted, capped simplex: the feasible set of the continuous knapsack.
+
+Outputs are numerical answers within the stated tolerances; where they steer the
+allocation of scarce resources they are to be reviewed by a responsible person and
+checked against local rules.
 """
 from __future__ import annotations
 
@@ -9,8 +13,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
-from ..kernels.simplex import project_capped
+from ..kernels.simplex import knapsack_lmo_rows, project_capped
+from ..kernels.vector_ops import bounds_sum_violation
 from . import Family, kernel, register
+from ._screen import screened_contains
 
 
 def _fmt(v: float) -> str:
@@ -82,11 +88,13 @@ class Budget(Family):
         v = np.concatenate([self.lower, self.upper[np.isfinite(self.upper)], [self.total]])
         return float(max(1.0, np.abs(v).max()))
 
-    @property
-    def _caps(self):
-        """Effective upper bounds: the upper bound, or what the budget alone allows."""
+    def __post_init__(self):
+        # effective upper bounds (the upper bound, or what the budget alone allows) and the room
+        # above the lower bounds, used by every LMO; a Lipschitz constant for the membership screen
         room = self.total - float(self.weights @ self.lower)
-        return np.minimum(self.upper, self.lower + room / self.weights)
+        object.__setattr__(self, "_room", room)
+        object.__setattr__(self, "_caps", np.minimum(self.upper, self.lower + room / self.weights))
+        object.__setattr__(self, "_lip", float(max(1.0, np.linalg.norm(self.weights))))
 
     def cvxpy_constraints(self, x):
         cons = [x >= self.lower]
@@ -113,31 +121,114 @@ class Budget(Family):
 
     @kernel("lmo")
     def lmo(self, C):
-        """Continuous-knapsack greedy: start at lower, fill coordinates by increasing c_i / w_i, O(n log n)."""
+        """Continuous-knapsack greedy by increasing c_i / w_i, with randomized selection instead of a sort, expected O(n)."""
+        X = np.empty_like(C)
+        knapsack_lmo_rows(C, self.lower, self._caps, self.weights, self._room, self.mode == "at_most", X)
+        return X
+
+    def lmo_sorted(self, C):
+        """The same greedy by sorting the ratios, O(n log n) (kept as an independent check)."""
         b, n = C.shape
         w = self.weights
-        room = self.total - float(w @ self.lower)
         caps = w * (self._caps - self.lower)           # weighted room of each coordinate, finite
         ratio = C / w
         order = np.argsort(ratio, axis=1, kind="stable")
         cap_sorted = caps[order]
         before = np.cumsum(cap_sorted, axis=1) - cap_sorted
-        fill = np.clip(room - before, 0.0, cap_sorted)
+        fill = np.clip(self._room - before, 0.0, cap_sorted)
         if self.mode == "at_most":
             fill = np.where(np.take_along_axis(ratio, order, axis=1) < 0, fill, 0.0)
         X = np.broadcast_to(self.lower, (b, n)).copy()
         np.put_along_axis(X, order, self.lower[order] + fill / w[order], axis=1)
         return X
 
+    @kernel("contains")
+    def contains(self, X, tol):
+        """Violation screen (bounds and weighted sum), the distance only for borderline points, O(n)."""
+        return screened_contains(X, tol, self.violation,
+                                 lambda Z: np.linalg.norm(Z - self.project(Z), axis=1), self._lip)
+
     @kernel("support")
     def support(self, C):
-        """<c, lmo(-c)> by the same greedy, O(n log n)."""
+        """<c, lmo(-c)> by the same greedy, expected O(n)."""
         return np.einsum("ij,ij->i", C, self.lmo(-C))
 
     @kernel("violation")
     def violation(self, X):
         """Largest violation of the bounds and of the weighted sum, O(n)."""
-        s = X @ self.weights - self.total
-        sv = np.abs(s) if self.mode == "equal" else np.maximum(s, 0.0)
-        bounds = np.maximum((self.lower - X).max(axis=1), (X - self.upper).max(axis=1))
-        return np.maximum(bounds.clip(min=0.0), sv)
+        return bounds_sum_violation(X, self.lower, self.upper, self.weights, self.total, self.mode == "equal")
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def _symmetric(self):
+        """(l, c, room) in x units when lower, effective caps and weights are the same for every
+        coordinate (c = cap - l, room = total / w - n l), else None."""
+        caps = self._caps
+        if not (np.all(self.lower == self.lower[0]) and np.all(caps == caps[0])
+                and np.all(self.weights == self.weights[0])):
+            return None
+        n = self.lower.size
+        l, w = float(self.lower[0]), float(self.weights[0])
+        c = float(caps[0]) - l
+        room = max(0.0, min(self.total / w - n * l, n * c))
+        return l, c, room
+
+    def _vertex_types(self, l, c, room):
+        """Vertex classes of a symmetric budget: (count, number of coordinates at the cap, fractional part)."""
+        import math
+        n = self.lower.size
+        if c <= 0 or room <= 0:
+            return [(1, 0, 0.0)]
+        j0 = min(n, int(np.floor(room / c + 1e-12)))
+        f = room - j0 * c
+        if abs(f) <= 1e-12 * max(1.0, room):
+            f = 0.0
+        types = []
+        if self.mode == "at_most":
+            types += [(math.comb(n, j), j, 0.0) for j in range(j0 + 1)]
+            if f > 0 and j0 < n:
+                types.append((n * math.comb(n - 1, j0), j0, f))
+        else:
+            types.append(((n - j0) * math.comb(n, j0) if f > 0 else math.comb(n, j0), j0, f))
+        return types
+
+    def exact_centroid(self, measure):
+        """Closed forms for a symmetric budget (equal lower bounds, effective caps and weights):
+        mode equal, every measure: l + room/n by symmetry; mode at_most: vertices, the count-weighted
+        mean over the vertex classes; directions, l + E[min(room, N c)]/n with N ~ Binomial(n, 1/2)
+        the number of negative direction coordinates (the greedy fills those up to the budget).
+        Otherwise None (triangulation or an estimate)."""
+        import math
+        sym = self._symmetric()
+        if sym is None:
+            return None
+        l, c, room = sym
+        n = self.lower.size
+        if self.mode == "equal":
+            return np.full(n, l + room / n)
+        if measure == "volume":
+            return None
+        if measure == "directions":
+            e = sum(math.comb(n, j) * min(room, j * c) for j in range(n + 1)) / 2.0 ** n
+            return np.full(n, l + e / n)
+        types = self._vertex_types(l, c, room)
+        total = sum(cnt for cnt, _, _ in types)
+        extra = sum(cnt * (j * c + f) for cnt, j, f in types) / total
+        return np.full(n, l + extra / n)
+
+    def exact_sample(self, k, measure, rng):
+        """Symmetric budgets: vertices (and directions in mode equal, where lmo(g) is the base vertex in
+        the order of g) are a vertex class drawn by its count, then a uniformly random placement."""
+        sym = self._symmetric()
+        if sym is None or measure == "volume" or (measure == "directions" and self.mode == "at_most"):
+            return None
+        l, c, room = sym
+        n = self.lower.size
+        types = self._vertex_types(l, c, room)
+        cnt = np.array([float(t[0]) for t in types])
+        pick = rng.choice(len(types), size=k, p=cnt / cnt.sum())
+        base = np.full((len(types), n), l)
+        for i, (_, j, f) in enumerate(types):
+            base[i, :j] = l + c
+            if f > 0:
+                base[i, j] = l + f
+        return rng.permuted(base[pick], axis=1)

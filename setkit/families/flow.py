@@ -240,6 +240,38 @@ class Flow(NetworkFamily):
         check_feasible(node.label, node._net, names, r.fail)
         return node
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "flow", "nodes": ["farm", "hub", "store"],
+                 "edges": [{"from": "farm", "to": "hub", "capacity": 3}, {"from": "hub", "to": "store", "capacity": 4},
+                           {"from": "farm", "to": "store", "capacity": 1.5, "lower": 0.5}],
+                 "supply": {"farm": 3, "store": -3}},
+                {"kind": "flow", "nodes": 4, "edges": [[0, 1, 2], [1, 2, 2], [0, 2, 3], [2, 3, 5, 1], [3, 0, 1]],
+                 "supply": {0: 2, 3: -2}}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random connected graph on 4..7 nodes with the supplies of a flow inside its bounds."""
+        n = int(rng.integers(4, 8))
+        tails = list(range(1, n))
+        heads = [int(rng.integers(0, k)) for k in range(1, n)]
+        for _ in range(n):
+            a, b = (int(v) for v in rng.integers(0, n, 2))
+            if a != b:
+                tails.append(a)
+                heads.append(b)
+        x0 = rng.uniform(0, 4, len(tails)).round(3)
+        lo = np.maximum(0, x0 - rng.uniform(0, 2, x0.size)).round(3)
+        hi = (x0 + rng.uniform(0, 2, x0.size)).round(3)
+        s = np.zeros(n)
+        np.add.at(s, tails, x0)
+        np.add.at(s, heads, -x0)
+        return {"kind": "flow", "nodes": n,
+                "edges": [{"from": a, "to": b, "capacity": float(c), "lower": float(w)}
+                          for a, b, c, w in zip(tails, heads, hi, lo)],
+                "supply": {i: float(v) for i, v in enumerate(s.round(9))}}
+
     @property
     def shape(self):
         return (int(self.tail.size),)

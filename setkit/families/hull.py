@@ -40,6 +40,18 @@ class Hull(Family):
                 r.fail("dim", f"dim is {n} but the points have {V.shape[1]} coordinates.")
         return cls(points=np.ascontiguousarray(V, dtype=float), name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "hull", "points": [[0, 0], [2, 0], [0, 2], [1, 0.5]]},
+                {"kind": "hull", "points": [[1, 0, 0], [0, 1, 0], [0, 0, 1], [1, 1, 1], [0.5, 0.5, 0]]}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """3..10 random points in 2..5 dimensions."""
+        k, d = int(rng.integers(3, 11)), int(rng.integers(2, 6))
+        return {"kind": "hull", "points": rng.standard_normal((k, d)).round(3).tolist()}
+
     @property
     def shape(self):
         return (int(self.points.shape[1]),)
@@ -82,3 +94,62 @@ class Hull(Family):
     def support(self, C):
         """max_i <c, v_i> by a scan; O(k d)."""
         return (C @ self.points.T).max(axis=1)
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def _extreme(self):
+        """(x0, N, T_ext, V_ext): the affine hull x0 + N t of the points, their extreme points in t
+        coordinates and as given.
+
+        Extreme points: scipy.spatial.ConvexHull in the affine hull when its dimension is 2..8 (interval
+        ends in dimension 1); beyond, one LP per distinct point (is it a convex combination of the
+        others?). Cached on the node.
+        """
+        got = self.__dict__.get("_measure_cache")
+        if got is not None:
+            return got
+        from scipy.optimize import linprog
+        V = np.unique(self.points, axis=0)
+        x0 = V.mean(axis=0)
+        U, s, _ = np.linalg.svd((V - x0).T, full_matrices=False)
+        r = int(np.sum(s > 1e-10 * s[0])) if s.size and s[0] > 0 else 0
+        N = U[:, :r]
+        T = (V - x0) @ N
+        if r == 0:
+            keep = [0]
+        elif r == 1:
+            keep = [int(np.argmin(T[:, 0])), int(np.argmax(T[:, 0]))]
+        elif r <= 8:
+            from scipy.spatial import ConvexHull
+            keep = list(ConvexHull(T).vertices)
+        else:
+            keep = []
+            for i in range(T.shape[0]):
+                others = np.delete(T, i, axis=0)
+                A_eq = np.vstack([others.T, np.ones((1, others.shape[0]))])
+                res = linprog(np.zeros(others.shape[0]), A_eq=A_eq, b_eq=np.concatenate([T[i], [1.0]]),
+                              bounds=[(0, None)] * others.shape[0], method="highs")
+                if res.status != 0:          # infeasible: not a convex combination of the others
+                    keep.append(i)
+        out = (x0, N, T[keep], V[keep])
+        object.__setattr__(self, "_measure_cache", out)
+        return out
+
+    def exact_centroid(self, measure):
+        """vertices: the mean of the extreme points; volume: exact triangulation in the affine hull
+        when its dimension is at most 8; directions: None (Monte Carlo over the LMO)."""
+        if measure == "directions":
+            return None
+        x0, N, ext, vext = self._extreme()
+        if measure == "vertices":
+            return vext.mean(axis=0)
+        if N.shape[1] > 8:
+            return None
+        from ..measures import simplex_volume_centroid
+        return x0 + simplex_volume_centroid(ext) @ N.T
+
+    def exact_sample(self, k, measure, rng):
+        """vertices: a uniformly chosen extreme point; otherwise None."""
+        if measure != "vertices":
+            return None
+        vext = self._extreme()[3]
+        return vext[rng.integers(0, vext.shape[0], size=k)].copy()

@@ -1,4 +1,8 @@
-"""The permutahedron of a weight vector: the convex hull of all its permutations."""
+"""The permutahedron of a weight vector: the convex hull of all its permutations.
+
+Outputs are numerical answers within the stated tolerances; where a ranking affects
+people it is to be reviewed by a responsible person and checked against local rules.
+"""
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -50,9 +54,15 @@ class Permutahedron(Family):
     def scale(self):
         return float(max(1.0, np.abs(self.weights).max()))
 
+    def __post_init__(self):
+        # sorted once: every projection, LMO and membership test uses the weights in decreasing order
+        object.__setattr__(self, "_wd", np.ascontiguousarray(np.sort(self.weights)[::-1]))
+        object.__setattr__(self, "_wa", np.sort(self.weights))
+        object.__setattr__(self, "_ps", np.cumsum(self._wd))
+
     @property
     def _wdesc(self):
-        return np.sort(self.weights)[::-1].copy()
+        return self._wd
 
     def cvxpy_constraints(self, x):
         import cvxpy as cp
@@ -66,7 +76,15 @@ class Permutahedron(Family):
 
     # linear_form: none. The majorization inequalities are 2^n - 2 facets; the compact
     # extended formulations (Birkhoff, O(n^2) variables; sorting networks) are not worth
-    # it next to the native kernels, so generic LP/QP backends do not serve this family.
+    # it next to the native kernels, so generic LP/QP backends do not serve this family alone.
+
+    def extended_form(self):
+        """The Birkhoff extended formulation {x = W w, W doubly stochastic}, n^2 auxiliaries.
+
+        Built only on request (by combinators that need one LP for an intersection).
+        """
+        from ..combinators.extended import permutahedron_form
+        return permutahedron_form(self.weights)
 
     def extended_form(self):
         """Optional hook for combinators: x = W w over doubly stochastic W (n^2 auxiliaries).
@@ -94,10 +112,10 @@ class Permutahedron(Family):
     @kernel("support")
     def support(self, C):
         """Sorted c against sorted w (both increasing), O(n log n)."""
-        return np.sort(C, axis=1) @ np.sort(self.weights)
+        return np.sort(C, axis=1) @ self._wa
 
     def _majorization_gap(self, X):
-        ps_w = np.cumsum(self._wdesc)
+        ps_w = self._ps
         ps_x = np.cumsum(-np.sort(-X, axis=1), axis=1)
         over = (ps_x[:, :-1] - ps_w[:-1]).max(axis=1, initial=0.0)
         return np.maximum(over.clip(min=0.0), np.abs(ps_x[:, -1] - ps_w[-1]))
@@ -121,3 +139,16 @@ class Permutahedron(Family):
             Xu = X[unsure]
             res[unsure] = np.linalg.norm(Xu - self.project(Xu), axis=1) <= tol[unsure]
         return res
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def exact_centroid(self, measure):
+        """mean(w) * 1 for every measure: each measure is invariant under permuting coordinates, and
+        the only permutation-invariant point of the set is its center."""
+        return np.full(self.weights.size, float(self.weights.mean()))
+
+    def exact_sample(self, k, measure, rng):
+        """vertices and directions: the weights in a uniformly random order (lmo(g) puts the weights in
+        the order of g, and the order of a Gaussian vector is uniform); volume: None (hit-and-run)."""
+        if measure == "volume":
+            return None
+        return rng.permuted(np.broadcast_to(self.weights, (k, self.weights.size)), axis=1)

@@ -23,6 +23,8 @@ def _matrix(r, key, n_cols):
         r.raw(key, None)
         return None
     v = r.raw(key)
+    if isinstance(v, str) and v.lower().endswith(".npz"):
+        v = r._to_array(key, v, float)     # a .npz file may hold a scipy.sparse matrix
     if sp.issparse(v):
         M = sp.csr_matrix(v, dtype=float)
         if M.nnz and not np.all(np.isfinite(M.data)):
@@ -62,6 +64,9 @@ class Polyhedron(Family):
     @classmethod
     def from_spec(cls, r):
         n = r.integer("dim", None, min=1)
+        for mat, rhs, rel in (("A", "b", "A x <= b"), ("C", "d", "C x = d")):
+            if r.has(rhs) and not r.has(mat):
+                r.fail(rhs, f"{rhs} is given but {mat} is missing; {rel} needs both.")
         A = _matrix(r, "A", n)
         if n is None and A is not None:
             n = A.shape[1]
@@ -115,6 +120,22 @@ class Polyhedron(Family):
         node = cls(n=n, A=A, b=b, C=C, d=d, lower=lo, upper=hi, name=r.name)
         node._check_nonempty(r)
         return node
+
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "polyhedron", "A": [[1, 1], [-1, 2]], "b": [1, 2], "lower": [-1, -1], "upper": [3, 3]},
+                {"kind": "polyhedron", "A": [[1, 1, 1]], "b": [2], "C": [[1, -1, 0]], "d": [0.5], "lower": 0}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random bounded polytope in 2..4 dimensions around a known interior point."""
+        n = int(rng.integers(2, 5))
+        m = int(rng.integers(n + 1, 2 * n + 2))
+        A = rng.standard_normal((m, n)).round(3)
+        x0 = rng.uniform(-0.5, 0.5, n)
+        b = (A @ x0 + rng.uniform(0.1, 1.0, m)).round(3)
+        return {"kind": "polyhedron", "A": A.tolist(), "b": b.tolist(), "lower": -2.0, "upper": 2.0}
 
     def _check_nonempty(self, r):
         """Elastic LP: minimize the total violation; a positive optimum means the set is empty."""

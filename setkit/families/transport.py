@@ -61,6 +61,21 @@ class Transport(NetworkFamily):
         rows, cols = read_margins(r)
         return cls(rows=rows, cols=cols, name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "transport", "rows": [1, 2, 4], "cols": [2, 1, 3, 1]},
+                {"kind": "transport", "rows": [0, 3, 1], "cols": [0, 4]}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """Random margins of a 2..4 x 2..4 plan with equal totals."""
+        m, n = (int(v) for v in rng.integers(2, 5, 2))
+        rows = rng.uniform(0, 3, m).round(3)
+        cols = rng.dirichlet(np.ones(n)) * rows.sum()
+        cols[-1] = rows.sum() - cols[:-1].sum()
+        return {"kind": "transport", "rows": rows.tolist(), "cols": cols.tolist()}
+
     @property
     def shape(self):
         return (int(self.rows.size), int(self.cols.size))

@@ -110,8 +110,21 @@ def test_bad_constraints_are_rejected_clearly(build, shape, words):
 
 
 def test_description_file_cannot_use_kind_custom(tmp_path):
+    # custom sets carry Python code, so they are not a registered kind of description files
     f = tmp_path / "c.yaml"
     f.write_text("set:\n  kind: custom\n  dim: 3\n")
-    with pytest.raises(DescriptionError, match="from_cvxpy") as info:
+    with pytest.raises(DescriptionError, match="unknown kind 'custom'") as info:
         setkit.load(f)
-    assert "c.yaml" in str(info.value)
+    assert "c.yaml: set.kind" in str(info.value)
+    assert "custom" not in setkit.families.known_kinds()
+
+
+def test_penalty_and_centroid_are_derived():
+    K = setkit.from_cvxpy(capped_simplex, 3)
+    y = np.array([1.0, 1.0, 1.0])
+    assert K.penalty(2.0).value(y) == pytest.approx(2.0 * K.distance(y))
+    # the 'directions' centroid: mean LMO answer of Gaussian directions, each an LP solve here
+    r = K.centroid(measure="directions", details=True, samples=60, rng=0)
+    assert not r.exact and K.contains(r.point, tol=1e-6)
+    # lmo answers are vertices (0,0,0), (0.25,0,0), (0,1,0), (0,0,1): by symmetry x1 and x2 agree in law
+    assert abs(r.point[1] - r.point[2]) <= 6 * max(r.std_error[1], r.std_error[2]) + 1e-9

@@ -1,0 +1,107 @@
+"""Shared checks for the family tests: every operator against the cvxpy reference."""
+from __future__ import annotations
+
+import numpy as np
+
+import setkit
+
+REFERENCE = dict(project="reference", lmo="reference", support="reference")
+# the interior-point reference stops at a relative duality gap of 1e-10, which bounds its point
+# error only by ~sqrt(gap): about 1e-5 of the scale near faces (the certificates check tighter)
+RTOL = 2e-5
+
+
+def reference(K):
+    # loose: an answer Clarabel flags as inaccurate is still compared (within RTOL) instead of raising
+    return K.with_backends(**REFERENCE, loose=True)
+
+
+def point_scale(K, Y):
+    Y = np.asarray(Y, float).reshape(-1, K.dim)
+    return np.maximum(np.abs(Y).max(axis=1), K.node.scale()).clip(min=1.0)
+
+
+def sample_points(K, rng, k=3, ties=True):
+    """Points inside, near and far from K (and with tied coordinates), as one batch (rows)."""
+    s = K.node.scale()
+    n = K.dim
+    ref = reference(K)
+    raw = rng.standard_normal((k, n)) * s
+    # inside: convex combinations of LMO answers (vertices for polytopes)
+    V = K.lmo(rng.standard_normal((4 * k, n)))
+    lam = rng.dirichlet(np.ones(4), size=k)
+    inside = np.einsum("kj,kjn->kn", lam, V.reshape(k, 4, n))
+    near = ref.project(raw) + 1e-4 * s * rng.standard_normal((k, n))
+    far = 1e3 * s * rng.standard_normal((k, n))
+    rows = [inside, near, raw, far]
+    if ties and n >= 3:
+        t = np.round(2 * rng.standard_normal((k, n))) * (s / 2)   # many equal coordinates
+        t[:, 1] = t[:, 0]
+        rows.append(t)
+    return np.concatenate(rows)
+
+
+def check_against_reference(K, Y, C, rtol=RTOL):
+    """Compare project, distance, contains, violation, lmo, support and the certificate with the reference."""
+    ref = reference(K)
+    Y = np.asarray(Y, float)
+    C = np.asarray(C, float)
+    sc = point_scale(K, Y)
+    P = K.project(Y)
+    Pr = ref.project(Y)
+    err = np.linalg.norm(P - Pr, axis=1) / sc
+    assert err.max() <= rtol, f"projection differs from the reference by {err.max():.3g} (relative)"
+    # the native projection lies in K (to rounding) and is at least as close as the reference's
+    assert (K.violation(P) <= 1e-10 * sc * K.dim).all()
+    dist = np.linalg.norm(Y - P, axis=1)
+    assert (dist <= np.linalg.norm(Y - Pr, axis=1) + 1e-9 * sc).all()
+    np.testing.assert_allclose(K.distance(Y), dist, rtol=1e-12, atol=1e-12 * sc.max())
+    # membership: projections are in, far points out
+    assert K.contains(P, tol=1e-9 * sc).all()
+    far = dist > 1e-3 * sc
+    assert not K.contains(Y[far]).any()
+    # certificate: sqrt(2 gap) bounds ||p - p*||; tiny for the native answer
+    det = K.project(Y, details=True)
+    assert np.all(np.sqrt(2 * np.maximum(det.certificate, 0)) <= 1e-6 * sc)
+    assert np.all(det.residual <= 1e-10 * sc * K.dim)
+    # linear minimization and support: same optimal values, answers in K
+    cs = np.linalg.norm(C, axis=1) * K.node.scale()
+    L = K.lmo(C)
+    Lr = ref.lmo(C)
+    v = np.einsum("ij,ij->i", C, L)
+    vr = np.einsum("ij,ij->i", C, Lr)
+    assert (np.abs(v - vr) <= rtol * cs).all(), f"lmo values differ by {np.abs(v - vr).max():.3g}"
+    assert (v <= vr + 1e-9 * cs).all()           # native is at least as good as the reference
+    assert (K.violation(L) <= 1e-10 * K.node.scale() * K.dim).all()
+    S = K.support(C)
+    Sr = ref.support(C)
+    assert (np.abs(S - Sr) <= rtol * cs).all(), f"support differs by {np.abs(S - Sr).max():.3g}"
+    np.testing.assert_allclose(S, -np.einsum("ij,ij->i", -C, K.lmo(-C)), rtol=1e-9, atol=1e-9 * cs.max())
+    return P, Pr
+
+
+def check_inside_fixed(K, X):
+    """Points of K are their own projections, at distance 0, contained."""
+    X = np.asarray(X, float)
+    sc = point_scale(K, X)
+    P = K.project(X)
+    assert (np.linalg.norm(P - X, axis=1) <= 1e-9 * sc).all()
+    assert K.contains(X, tol=1e-9 * sc).all()
+
+
+def check_batch_shapes(K, rng):
+    n = K.dim
+    Y = rng.standard_normal((2, 3, n)) * K.node.scale()
+    P = K.project(Y)
+    assert P.shape == (2, 3, n)
+    np.testing.assert_allclose(P[1, 2], K.project(Y[1, 2]), rtol=0, atol=1e-12 * np.abs(Y).max())
+    assert K.distance(Y).shape == (2, 3)
+    assert np.ndim(K.distance(Y[0, 0])) == 0
+    assert K.lmo(Y).shape == (2, 3, n)
+    assert K.support(Y).shape == (2, 3)
+    assert K.contains(P).shape == (2, 3)
+    assert isinstance(K.support(Y[0, 0]), float)
+
+
+def compile_kind(kind, **params):
+    return setkit.compile({"kind": kind, **params})
