@@ -86,15 +86,6 @@ class Permutahedron(Family):
         from ..combinators.extended import permutahedron_form
         return permutahedron_form(self.weights)
 
-    def extended_form(self):
-        """Optional hook for combinators: x = W w over doubly stochastic W (n^2 auxiliaries).
-
-        Lets an intersection with a polyhedron be one LP for its LMO; the family's own
-        routes are unchanged (see setkit.combinators.lp_form).
-        """
-        from ..combinators.extended import permutahedron_form
-        return permutahedron_form(self.weights)
-
     # -- native kernels ----------------------------------------------------------------------
     @kernel("project")
     def project(self, Y):
