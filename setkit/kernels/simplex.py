@@ -283,16 +283,16 @@ def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
 def _capped_lambda(y, lo, hi, w, total, idx):
     """Multiplier of the capped weighted simplex; see :func:`_capped_search`.
 
-    Longer vectors (n > 256) first solve the same problem on a random sample of
-    min(1024, n/8) coordinates (with the total scaled down) and use its root as the first
+    Long vectors (n > 4096) first solve the same problem on a random sample of
+    1024 coordinates (with the total scaled down) and use its root as the first
     pivot; the sorted breakpoints of the sample then supply pivots stepping
     back across the root, so that two full passes settle almost every coordinate.
     """
     n = y.size
     first = np.nan
     sbp = np.empty(0)
-    if n > 256:
-        k = min(1024, n // 8)
+    if n > 4096:
+        k = 1024
         ys = np.empty(k)
         los = np.empty(k)
         his = np.empty(k)
