@@ -157,34 +157,15 @@ def hull(n, rng):
     return {"kind": "hull", "points": rng.standard_normal((k, d))}
 
 
-@workload("custom", "custom: cvxpy constraints x >= 0, sum x <= 1, x_0 <= 1/(2n)",
-          sizes_full=(100, 1_000, 10_000), sizes_quick=(24,))
-def custom(n, rng):
-    # a custom set cannot come from a description: builders may return a compiled set
-    import cvxpy as cp
-
-    import setkit
-    cap = 0.5 / n
-    return setkit.from_cvxpy(lambda x: [x >= 0, cp.sum(x) <= 1, x[0] <= cap], n)
-
-
 # ---------------------------------------------------------------------------------------------
 # combinators
 # ---------------------------------------------------------------------------------------------
-def permutahedron_with_cuts(n, rng, k=3):
-    """A permutahedron of n weights intersected with k halfspaces through points near its centre."""
-    w = np.round(rng.uniform(0.0, 10.0, n), 3)
-    A = rng.uniform(0.0, 1.0, (k, n))
-    centre = np.full(n, w.mean())
-    b = A @ centre + 0.05 * np.abs(A).sum(axis=1) * w.std()
-    return {"kind": "intersection", "of": [{"kind": "permutahedron", "weights": w},
-                                           {"kind": "polyhedron", "A": A, "b": b}]}
-
-
 @workload("intersection", "permutahedron(n) with 3 halfspaces", sizes_full=(100, 1_000, 10_000),
           sizes_quick=(12,), needs=("permutahedron", "polyhedron"), floors={"project": "sort+isotonic", "distance": "sort+isotonic"})
 def intersection(n, rng):
-    return permutahedron_with_cuts(n, rng)
+    # the instance of benchmarks/bench_combinators.py: halfspaces through points near the centre
+    from .bench_combinators import cut_permutahedron
+    return cut_permutahedron(n, rng)
 
 
 @workload("product", "product of n/50 simplices of dim 50", sizes_full=(100, 1_000, 10_000, 100_000, 1_000_000),

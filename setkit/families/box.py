@@ -154,7 +154,8 @@ class Box(Family):
         return (self.lower + self.upper) / 2.0
 
     def exact_sample(self, k, measure, rng):
-        """Independent coordinates: uniform on [lower, upper] (volume) or a fair choice of bound (vertices, directions)."""
+        """Independent coordinates: uniform on [lower, upper] (volume) or a fair choice of a bound
+        (vertices, directions)."""
         if not self._bounded():
             return None
         U = rng.random((k, self.lower.size))
