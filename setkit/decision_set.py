@@ -70,6 +70,7 @@ class DecisionSet:
         self._dim = int(node.dim)
         self._kernels = {op: getattr(node, name) for op, name in node.kernels.items()}
         self._has_children = bool(node.children())
+        self._scale = None
 
     # -- pickling: workspaces are rebuilt lazily on the other side -------------------------
     def __getstate__(self):
@@ -203,7 +204,9 @@ class DecisionSet:
         return getattr(ws, op)(X)
 
     def _default_tol(self, X):
-        return 1e-7 * np.maximum(1.0, np.maximum(np.abs(X).max(axis=1), self.node.scale()))
+        if self._scale is None:
+            self._scale = max(1.0, float(self.node.scale()))   # nodes are immutable: computed once
+        return 1e-7 * np.maximum(np.abs(X).max(axis=1), self._scale)
 
     # -- operators ------------------------------------------------------------------------------
     def project(self, y, details: bool = False):

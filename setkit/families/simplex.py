@@ -6,7 +6,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
-from ..kernels.simplex import project_simplex_rows
+from ..kernels.simplex import project_simplex_rows, simplex_distance_rows
 from ..kernels.vector_ops import bounds_sum_violation
 from . import Family, kernel, register
 from ._screen import screened_contains
@@ -81,6 +81,11 @@ class Simplex(Family):
             X[over] = project_simplex_rows(Y[over], self.total)
         return X
 
+    @kernel("distance")
+    def distance(self, Y):
+        """||y - max(y - tau, 0)|| with the threshold of the projection, without forming it, O(n)."""
+        return simplex_distance_rows(Y, self.total, self.mode == "at_most")
+
     @kernel("lmo")
     def lmo(self, C):
         """The vertex total * e_i at the smallest c_i (the origin when at_most and min c >= 0), O(n)."""
@@ -97,10 +102,7 @@ class Simplex(Family):
     @kernel("contains")
     def contains(self, X, tol):
         """Violation screen (x >= 0 and the sum), the distance only for borderline points, O(n)."""
-        return screened_contains(X, tol, self.violation, self._distance, np.sqrt(self.n))
-
-    def _distance(self, X):
-        return np.linalg.norm(X - self.project(X), axis=1)
+        return screened_contains(X, tol, self.violation, self.distance, np.sqrt(self.n))
 
     @kernel("support")
     def support(self, C):

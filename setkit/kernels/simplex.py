@@ -283,16 +283,16 @@ def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
 def _capped_lambda(y, lo, hi, w, total, idx):
     """Multiplier of the capped weighted simplex; see :func:`_capped_search`.
 
-    Longer vectors (n > 256) first solve the same problem on a random sample of
-    min(1024, n/8) coordinates (with the total scaled down) and use its root as the first
+    Long vectors (n > 4096) first solve the same problem on a random sample of
+    1024 coordinates (with the total scaled down) and use its root as the first
     pivot; the sorted breakpoints of the sample then supply pivots stepping
     back across the root, so that two full passes settle almost every coordinate.
     """
     n = y.size
     first = np.nan
     sbp = np.empty(0)
-    if n > 256:
-        k = min(1024, n // 8)
+    if n > 4096:
+        k = 1024
         ys = np.empty(k)
         los = np.empty(k)
         his = np.empty(k)
@@ -565,3 +565,46 @@ def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
                     idx[m2] = j
                     m2 += 1
             m = m2
+
+
+@njit(cache=True)
+def simplex_distance_rows(Y, total, at_most):
+    """||y - proj(y)|| per row for {x >= 0, sum x = total} (or <= total), without forming proj(y).
+
+    The threshold tau by Condat's method (sorted fallback); O(n) per row.
+    """
+    b, n = Y.shape
+    out = np.empty(b)
+    cand = np.empty(n)
+    wait = np.empty(n)
+    for r in range(b):
+        y = Y[r]
+        if at_most:
+            s = 0.0
+            for j in range(n):
+                s += max(y[j], 0.0)
+            if s <= total:
+                d = 0.0
+                for j in range(n):
+                    m = min(y[j], 0.0)
+                    d += m * m
+                out[r] = np.sqrt(d)
+                continue
+        if total == 0.0:
+            tau = np.inf
+        else:
+            tau = _simplex_tau(y, total, cand, wait)
+            if np.isnan(tau):
+                u = -np.sort(-y)
+                cs = 0.0
+                for k in range(n):
+                    cs += u[k]
+                    t = (cs - total) / (k + 1)
+                    if u[k] > t:
+                        tau = t
+        d = 0.0
+        for j in range(n):
+            e = y[j] - max(y[j] - tau, 0.0)
+            d += e * e
+        out[r] = np.sqrt(d)
+    return out

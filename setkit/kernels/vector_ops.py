@@ -154,3 +154,41 @@ def l1_ball_project(Y, c, radius):
             else:
                 out[r, j] = c[j]
     return out
+
+
+@njit(cache=True)
+def box_ops(X, lo, hi, tie, op):
+    """Box kernels in one pass per row. op 0: projection (clip); 1: LMO (lower where c > 0, upper
+    where c < 0, ``tie`` where c = 0); returns (points, index of an unbounded coordinate or -1)."""
+    b, n = X.shape
+    out = np.empty_like(X)
+    bad = -1
+    for r in range(b):
+        for j in range(n):
+            v = X[r, j]
+            if op == 0:
+                out[r, j] = min(max(v, lo[j]), hi[j])
+            else:
+                x = lo[j] if v > 0.0 else (hi[j] if v < 0.0 else tie[j])
+                if bad < 0 and not (x - x == 0.0):
+                    bad = r * n + j
+                out[r, j] = x
+    return out, bad
+
+
+@njit(cache=True)
+def box_values(X, lo, hi, op):
+    """Box values per row. op 0: distance ||x - clip(x)||; 1: support sum max(c lo, c hi) (finite bounds)."""
+    b, n = X.shape
+    out = np.empty(b)
+    for r in range(b):
+        s = 0.0
+        for j in range(n):
+            v = X[r, j]
+            if op == 0:
+                d = v - min(max(v, lo[j]), hi[j])
+                s += d * d
+            else:
+                s += v * hi[j] if v > 0.0 else v * lo[j]
+        out[r] = np.sqrt(s) if op == 0 else s
+    return out
