@@ -141,14 +141,6 @@ class Intersection(Family):
     [0.5, 0.25, 0.25]
     """
 
-    @classmethod
-    def examples(cls):
-        """Small instances for the conformance checks (tests/test_conformance.py)."""
-        return [{"kind": "intersection", "of": [{"kind": "simplex", "dim": 3},
-                                                 {"kind": "box", "dim": 3, "lower": 0, "upper": 0.5}]},
-                {"kind": "intersection", "of": [{"kind": "simplex", "dim": 4, "total": 2.0, "mode": "at_most"},
-                                                 {"kind": "box", "lower": [0, 0, 0.2, 0], "upper": [1, 0.5, 1, 1]}]}]
-
     parts: tuple
     accuracy: float = 1e-7
     max_iterations: int = 20_000
