@@ -60,7 +60,8 @@ def product_row(blocks, dim, rng, varied=False):
     ok = np.allclose(P.sum(axis=1), totals) and P.min() >= 0.0
     what = "with different totals" if varied else "(identical)"
     return {"row": f"product of {blocks:,} simplices of dim {dim} {what}, one call",
-            "ours_ms": 1e3 * tk, "yardstick_ms": 1e3 * ts, "ratio": tk / ts, "target": "<= 3x",
+            "ours_ms": 1e3 * tk, "yardstick_ms": 1e3 * ts, "ratio": tk / ts,
+            "target": "<= 3x" + (" (informative: the stated target is for identical blocks)" if varied else ""),
             "met": tk / ts <= 3.0 and ok,
             "note": f"row-wise np.sort {1e3 * ts:.3g} ms; flat np.sort of all numbers {1e3 * tflat:.3g} ms "
                     f"(ratio {tk / tflat:.2f}x); feasible answers: {ok}"}
@@ -108,6 +109,22 @@ def intersection_row(n, points, rng):
                     f"max violation ours {viol:.1e} vs reference {viol_ref:.1e}"}
 
 
+def intersection_lmo_row(n, points, rng):
+    """Informative row: the cut intersection's LMO (column generation) against the cvxpy reference."""
+    K = setkit.compile(cut_permutahedron(n, rng))
+    ref = K.with_backends(lmo="reference")
+    C = rng.standard_normal((points, n))
+    tk, tr = interleaved(lambda: K.lmo(C), lambda: ref.lmo(C), repeats=3)
+    v = np.einsum("ij,ij->i", C, K.lmo(C))
+    vr = np.einsum("ij,ij->i", C, ref.lmo(C))
+    gap = float((np.abs(v - vr) / np.linalg.norm(C, axis=1)).max())
+    return {"row": f"permutahedron({n}) cut by 3 halfspaces, LMO of {points} directions",
+            "ours_ms": 1e3 * tk / points, "yardstick_ms": 1e3 * tr / points, "ratio": tr / tk,
+            "target": "(no stated target) vs the cvxpy reference", "met": gap <= 1e-6,
+            "note": f"route {K.routes()['lmo'].provider} (column generation); max objective difference "
+                    f"{gap:.1e} relative to ||c||"}
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="reduced sizes (not a verdict)")
@@ -116,7 +133,8 @@ def main(argv=None):
     rng = np.random.default_rng(args.seed)
     rows = [product_row(500 if args.quick else 10_000, 50, rng),
             product_row(500 if args.quick else 10_000, 50, rng, varied=True),
-            intersection_row(30 if args.quick else 200, 3 if args.quick else 10, rng)]
+            intersection_row(30 if args.quick else 200, 3 if args.quick else 10, rng),
+            intersection_lmo_row(30 if args.quick else 200, 3 if args.quick else 5, rng)]
     print(f"{'row':<72} {'ours ms':>10} {'yardstick ms':>13} {'ratio':>8}  target / verdict")
     for r in rows:
         verdict = "met" if r["met"] else "MISSED"

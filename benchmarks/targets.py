@@ -7,7 +7,6 @@ it; its verdicts are marked as not binding.
 """
 from __future__ import annotations
 
-import time
 import warnings
 from dataclasses import dataclass
 

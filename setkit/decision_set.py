@@ -44,6 +44,13 @@ def _flat_info(info, key, b, default):
     return list(v)
 
 
+def _all_finite(a):
+    from .kernels.checks import all_finite   # numba-compiled; imported on first use
+    global _all_finite
+    _all_finite = all_finite
+    return all_finite(a)
+
+
 class DecisionSet:
     """A compiled convex set with its operators.
 
@@ -58,6 +65,12 @@ class DecisionSet:
         self._local = threading.local()
         self._parts = None
         self._form_cache = None
+        # cached for the per-call path (a call at n = 1000 costs a few microseconds)
+        self._shape = tuple(node.shape)
+        self._dim = int(node.dim)
+        self._kernels = {op: getattr(node, name) for op, name in node.kernels.items()}
+        self._has_children = bool(node.children())
+        self._scale = None
 
     # -- pickling: workspaces are rebuilt lazily on the other side -------------------------
     def __getstate__(self):
@@ -69,11 +82,11 @@ class DecisionSet:
     # -- description --------------------------------------------------------------------------
     @property
     def shape(self) -> tuple:
-        return tuple(self.node.shape)
+        return self._shape
 
     @property
     def dim(self) -> int:
-        return int(self.node.dim)
+        return self._dim
 
     @property
     def kind(self) -> str:
@@ -124,16 +137,17 @@ class DecisionSet:
         except (TypeError, ValueError):
             raise InputError(f"{op} on {self.node.label}: argument {argname} must be numeric with trailing "
                              f"shape {self.shape}; got {type(arr).__name__}.") from None
-        k = len(self.shape)
-        if a.ndim < k or tuple(a.shape[a.ndim - k:]) != self.shape:
+        shape = self._shape
+        k = len(shape)
+        if a.ndim < k or a.shape[a.ndim - k:] != shape:
             raise InputError(f"{op} on {self.node.label}: argument {argname} must have trailing shape "
                              f"{self.shape} (leading axes are a batch); got shape {a.shape}.")
-        if not np.all(np.isfinite(a)):
+        if not _all_finite(a):
             bad = np.argwhere(~np.isfinite(a))[0]
             raise InputError(f"{op} on {self.node.label}: argument {argname} must be finite; got "
                              f"{a[tuple(bad)]} at index {tuple(int(i) for i in bad)}.")
         lead = a.shape[: a.ndim - k]
-        return np.ascontiguousarray(a.reshape(-1, self.dim)), lead
+        return np.ascontiguousarray(a.reshape(-1, self._dim)), lead
 
     def _out_points(self, P, lead):
         return P.reshape(lead + self.shape)
@@ -163,9 +177,9 @@ class DecisionSet:
         r = self._routes[op]
         p = r.provider
         if p == "native":
-            fn = getattr(self.node, self.node.kernels[op])
+            fn = self._kernels[op]
             args = (X, tol) if op == "contains" else (X,)
-            if self.node.children():
+            if self._has_children:
                 args = args + (self.parts,)
             out = fn(*args)
             # a kernel may return (out, info) to report status/iterations for details=True
@@ -190,7 +204,9 @@ class DecisionSet:
         return getattr(ws, op)(X)
 
     def _default_tol(self, X):
-        return 1e-7 * np.maximum(1.0, np.maximum(np.abs(X).max(axis=1), self.node.scale()))
+        if self._scale is None:
+            self._scale = max(1.0, float(self.node.scale()))   # nodes are immutable: computed once
+        return 1e-7 * np.maximum(np.abs(X).max(axis=1), self._scale)
 
     # -- operators ------------------------------------------------------------------------------
     def project(self, y, details: bool = False):

@@ -12,7 +12,7 @@ import json
 import os
 from dataclasses import dataclass
 from numbers import Integral, Real
-from typing import Any, Mapping
+from typing import Mapping
 
 import numpy as np
 

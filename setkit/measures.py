@@ -27,13 +27,18 @@ How answers are obtained (first that applies)
    dimension is at most ``exact_max_dim`` (default 8) the vertices are
    enumerated (scipy.spatial.HalfspaceIntersection) and the volume centroid is
    computed exactly by a triangulation (scipy.spatial.ConvexHull facets coned
-   from an interior point); the vertex centroid is the mean of the vertices.
+   from an interior point); the vertex centroid is the mean of the vertices;
+   when the reduced dimension is at most 2 the directions centroid is exact
+   too (normal-cone angles of the polygon).
 3. Otherwise an estimate: ``directions`` by Monte Carlo over the LMO (iid, so
    the effective sample size is the number of draws); ``volume`` by hit-and-run
-   (chord endpoints from the constraints for polytopes, or a support-bracketed
-   membership chord with Neal's shrinkage for other sets). Estimates carry a
-   standard error per coordinate (batch means and autocorrelation time over parallel chains) and an
-   effective sample size, available with ``details=True``.
+   (chord endpoints from the constraints for polytopes, or a membership chord
+   bracketed by the support function or the bounding box, with Neal's
+   shrinkage, for other sets). Estimates carry a standard error per coordinate
+   (the largest of batch means, Geyer's autocorrelation time and the spread of
+   chain means), an effective sample size and the Gelman-Rubin R-hat, all
+   available with ``details=True``; slowly mixing chains (R-hat > 1.05 or
+   effective sample size < 50) raise an AccuracyWarning.
 4. Where no honest estimate exists (uniform over the extreme points of a large
    polytope, or of a non-polyhedral set without family knowledge; volume of an
    unbounded set) an :class:`~setkit.errors.UnsupportedOperationError` says why
@@ -45,8 +50,8 @@ Chains start at dispersed points: half-way between the Chebyshev center
 (largest inscribed ball, one LP) of the reduced polytope and vertices for random
 directions (one LP per chain), or half-way between the mean of LMO answers and
 some of them for non-polyhedral sets, so that chains which have not forgotten
-their starts disagree visibly (R-hat). Each
-step draws a direction from a fixed centrally symmetric law N(0, S) and moves
+their starts disagree visibly (R-hat). Each step draws a direction from a
+fixed centrally symmetric law N(0, S) and moves
 to a uniform point of the chord (polytopes) or to a shrinkage draw on the chord
 (membership sets); both leave the uniform distribution invariant. S rounds
 elongated sets: for polytopes the inverse Dikin matrix of the constraints at
@@ -70,7 +75,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import AccuracyWarning, EmptySetError, InputError, SolveError, UnboundedDirectionError, UnsupportedOperationError
+from .errors import (AccuracyWarning, EmptySetError, InputError, SolveError, UnboundedDirectionError,
+                     UnsupportedOperationError)
 
 MEASURES = ("volume", "vertices", "directions")
 EXACT_MAX_DIM = 8
@@ -316,6 +322,27 @@ def simplex_volume_centroid(V):
     vol = np.abs(np.linalg.det(D)) / math.factorial(m)
     cents = (F.sum(axis=1) + c) / (m + 1)
     return (vol[:, None] * cents).sum(axis=0) / vol.sum()
+
+
+def normal_cone_weights(V):
+    """P(lmo(g) = v) for a standard Gaussian g, for the vertices V (k x m) of a polytope with m <= 2.
+
+    Only the component of g in the affine hull matters (orthonormal coordinates keep it standard
+    Gaussian), and its direction is uniform on the circle, so a vertex is chosen with probability
+    (exterior angle at v) / (2 pi), the angle of its normal cone; the two ends of a segment have 1/2
+    each. Returns (weights, vertices in matching order). O(k log k).
+    """
+    k, m = V.shape
+    if m == 0 or k == 1:
+        return np.ones(1), V[:1]
+    if m == 1:
+        return np.array([0.5, 0.5]), np.array([[V.min()], [V.max()]])
+    from scipy.spatial import ConvexHull
+    W = V[ConvexHull(V).vertices]                  # counter-clockwise
+    e_in = W - np.roll(W, 1, axis=0)               # edge arriving at each vertex
+    e_out = np.roll(W, -1, axis=0) - W             # edge leaving it
+    turn = np.arctan2(e_in[:, 0] * e_out[:, 1] - e_in[:, 1] * e_out[:, 0], np.einsum("ij,ij->i", e_in, e_out))
+    return turn / turn.sum(), W
 
 
 def _reduced_dim_ok(P, exact_max_dim):
@@ -605,8 +632,9 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
     measure : "volume" | "vertices" | "directions"
     details : return a :class:`MeasureResult` (point, method, exact, std_error, ess, ...)
     rng : Generator or int seed for estimates (None: seed 0, reproducible)
-    samples : number of draws for an estimate (default 4000; 400 for directions when the LMO is not a
-        native kernel, since each draw is then an LP or conic solve)
+    samples : number of draws for an estimate (default: 4000 for volume; for directions 100000 when the
+        vertices are enumerated (each draw is then a scan), else 1000 with a native LMO and 400 with a
+        generic one, since each draw is then an LP or conic solve)
     exact : True to refuse estimates (raise instead), False to force an estimate, None for the best available
     exact_max_dim : largest affine-hull dimension for vertex enumeration / triangulation
     chains, burn_in, thin : hit-and-run settings (see the module docstring)
@@ -617,6 +645,9 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
     >>> import setkit
     >>> setkit.compile({"kind": "simplex", "dim": 4}).centroid().tolist()
     [0.25, 0.25, 0.25, 0.25]
+    >>> r = setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}).centroid(details=True)
+    >>> r.method, r.exact, r.point.tolist()
+    ('closed form', True, [0.5, 0.5])
     """
     _check_measure(K, measure, "centroid")
     t0 = time.perf_counter()
@@ -645,6 +676,14 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
                         r = _exact_result(K, x, measure, "triangulation", t0,
                                           f"{V.shape[0]} vertices, affine hull of dimension {P.m}")
                     return r if details else r.point
+        if measure == "directions":
+            P = reduced(K)
+            if P is not None and P.bounded and P.m <= 2:
+                w, V = normal_cone_weights(polytope_vertices(P, node.label))
+                x = P.to_x((w @ V)[None, :])[0]
+                r = _exact_result(K, x, measure, "normal-cone angles", t0,
+                                  f"{V.shape[0]} vertices, affine hull of dimension {P.m}")
+                return r if details else r.point
     if measure == "vertices":
         raise UnsupportedOperationError(_no_vertex_reason(K, exact_max_dim))
     if exact:
@@ -653,18 +692,28 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
             f"(no closed form, and it is not a polytope of affine dimension <= {exact_max_dim}); "
             f"call it with exact=None to get an estimate with its standard error.")
     g = as_generator(rng, 0)
+    samples_given = samples
     if samples is None:
-        samples = 400 if measure == "directions" and K.routes()["lmo"].provider != "native" else 4000
+        samples = 4000 if measure == "volume" else (1000 if K.routes()["lmo"].provider == "native" else 400)
     samples = int(samples)
     if samples < 2:
         raise InputError(f"centroid on {node.label}: samples must be at least 2; got {samples}.")
     if measure == "directions":
-        X = _direction_draws(K, samples, g)
+        Vx = _enumerated_vertices(K, exact_max_dim)
+        if Vx is not None:
+            if samples_given is None:
+                samples = 100_000
+            X = _vertex_scan_draws(Vx, samples, g)
+            method, note = "Monte Carlo over enumerated vertices", (
+                f"iid Gaussian directions, best of {Vx.shape[0]} enumerated vertices by a scan")
+        else:
+            X = _direction_draws(K, samples, g)
+            method, note = "Monte Carlo over LMO", "iid Gaussian directions"
         mean = X.mean(axis=0)
         se = X.std(axis=0, ddof=1) / math.sqrt(samples)
-        r = MeasureResult(point=mean.reshape(K.shape), measure=measure, method="Monte Carlo over LMO",
+        r = MeasureResult(point=mean.reshape(K.shape), measure=measure, method=method,
                           exact=False, std_error=se.reshape(K.shape), ess=float(samples), samples=samples,
-                          seconds=time.perf_counter() - t0, note="iid Gaussian directions")
+                          seconds=time.perf_counter() - t0, note=note)
         return r if details else r.point
     S = hit_and_run(K, samples, g, chains=chains, burn_in=burn_in, thin=thin)
     mean, se, ess, rhat = chain_summary(S)
@@ -700,6 +749,31 @@ def _no_vertex_reason(K, exact_max_dim):
     return (f"centroid/sample(measure='vertices') on {node.label}: no exact answer and no honest estimate, "
             f"because {why}. measure='directions' (LMO of a Gaussian direction, also a law on extreme "
             f"points) or measure='volume' can be estimated with a standard error.")
+
+
+def _enumerated_vertices(K, exact_max_dim):
+    """The vertices (in x) of a small polytope whose vertices can be enumerated, else None."""
+    try:
+        P = reduced(K)
+    except SolveError:
+        return None
+    if not _reduced_dim_ok(P, exact_max_dim):
+        return None
+    V = polytope_vertices(P, K.node.label)
+    if V.shape[0] > MAX_VERTICES:
+        return None
+    return P.to_x(V)
+
+
+def _vertex_scan_draws(Vx, k, g, chunk=20_000):
+    """lmo(g) for k Gaussian directions g by scanning the vertex list Vx (exact law of lmo(g))."""
+    d = Vx.shape[1]
+    out = np.empty((k, d))
+    for a in range(0, k, chunk):
+        b = min(k, a + chunk)
+        Gd = g.standard_normal((b - a, d))
+        out[a:b] = Vx[np.argmin(Gd @ Vx.T, axis=1)]
+    return out
 
 
 def _direction_draws(K, k, g):
@@ -742,6 +816,9 @@ def sample(K, k: int, measure: str = "volume", rng=None, *, chains=None, burn_in
     if X is not None:
         return np.asarray(X, dtype=float).reshape(out_shape)
     if measure == "directions":
+        Vx = _enumerated_vertices(K, exact_max_dim)
+        if Vx is not None:
+            return _vertex_scan_draws(Vx, k, g).reshape(out_shape)
         return _direction_draws(K, k, g).reshape(out_shape)
     if measure == "vertices":
         P = reduced(K)

@@ -272,21 +272,31 @@ def test_membership_hit_and_run_on_a_round_ball():
 
 def test_directions_monte_carlo_matches_closed_form():
     K = setkit.compile({"kind": "simplex", "dim": 5, "mode": "at_most"})
-    r = K.centroid("directions", exact=False, details=True, rng=11)
-    assert r.method == "Monte Carlo over LMO" and r.ess == r.samples == 4000
-    _within(r, np.full(5, (1 - 2.0 ** -5) / 5))
+    exact = np.full(5, (1 - 2.0 ** -5) / 5)
+    r = K.centroid("directions", exact=False, details=True, rng=11, exact_max_dim=0)
+    assert r.method == "Monte Carlo over LMO" and r.ess == r.samples == 1000
+    _within(r, exact)
+    # small polytope: lmo(g) by scanning the enumerated vertices, many cheap draws
+    rv = K.centroid("directions", exact=False, details=True, rng=11)
+    assert rv.method == "Monte Carlo over enumerated vertices" and rv.samples == 100_000
+    assert np.all(rv.std_error < 0.25 * r.std_error)
+    _within(rv, exact)
     B = setkit.compile({"kind": "box", "lower": [0, -1, 2], "upper": [1, 3, 2.5]})
     rb = B.centroid("directions", exact=False, details=True, rng=12)
     _within(rb, [0.5, 1.0, 2.25])
 
 
 def test_directions_draws_agree_with_reference_lmo():
-    # the LMO answers behind measure='directions' agree with the cvxpy reference LMO
+    # the answers behind measure='directions' (a scan of the enumerated vertices, or the set's LMO)
+    # agree with the cvxpy reference LMO on the same Gaussian directions
     ang = np.linspace(0, 2 * np.pi, 7)[:-1]
     K = hpoly_from_points(np.c_[np.cos(ang), 2 * np.sin(ang)])
     a = K.sample(6, "directions", rng=4)
-    b = K.with_backends(lmo="reference").sample(6, "directions", rng=4)
-    np.testing.assert_allclose(a, b, atol=1e-6)
+    G = np.random.default_rng(4).standard_normal((6, 2))
+    ref = K.with_backends(lmo="reference").lmo(G)
+    np.testing.assert_allclose(a, ref, atol=1e-6)
+    b = K.sample(6, "directions", rng=4, exact_max_dim=0)          # through K.lmo (HiGHS)
+    np.testing.assert_allclose(b, ref, atol=1e-6)
 
 
 # ------------------------------------------------------------------------------------------------------
@@ -445,3 +455,22 @@ def test_slow_mixing_is_reported():
     # well-mixed chains: R-hat close to 1
     K3 = setkit.compile({"kind": "simplex", "dim": 3, "mode": "at_most"})
     assert K3.centroid(exact=False, details=True, rng=0).rhat < 1.02
+
+
+def test_directions_centroid_of_a_polygon_by_normal_cones(rng):
+    # independent: draw Gaussian directions and take the best of the polygon's scipy ConvexHull
+    # vertices by a plain scan (no set operator involved)
+    ang = np.sort(rng.uniform(0, 2 * np.pi, 8))
+    V = np.c_[2 * np.cos(ang), np.sin(ang)] + [1.0, 4.0]
+    K = hpoly_from_points(V)
+    r = K.centroid("directions", details=True)
+    assert r.exact and r.method == "normal-cone angles"
+    ext = V[ConvexHull(V).vertices]
+    Gd = np.random.default_rng(1).standard_normal((200000, 2))
+    picks = ext[np.argmin(Gd @ ext.T, axis=1)]
+    mc, se = picks.mean(axis=0), picks.std(axis=0) / np.sqrt(len(picks))
+    assert np.all(np.abs(r.point - mc) <= 4.5 * se)
+    # a segment in R^3 (x + y = 1, z = 0, 0 <= x, y): the two ends with probability 1/2 each
+    A = np.array([[1.0, 1, 0], [-1, -1, 0], [-1, 0, 0], [0, -1, 0], [0, 0, 1], [0, 0, -1]])
+    S = DecisionSet(HPoly(A=A, b=np.array([1.0, -1, 0, 0, 0, 0])))
+    np.testing.assert_allclose(S.centroid("directions"), [0.5, 0.5, 0.0], atol=1e-12)

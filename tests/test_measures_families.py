@@ -3,7 +3,6 @@ checked against outside facts, generic triangulation and Monte Carlo over the fa
 from __future__ import annotations
 
 import itertools
-import math
 
 import numpy as np
 import pytest

@@ -175,8 +175,11 @@ def test_batched_shapes_and_extension_agree():
     v, g = P.value_and_grad(X)
     np.testing.assert_array_equal(v, P.value(X))
     np.testing.assert_array_equal(g, P.grad(X))
-    f = lambda x: float(np.sum(x ** 2))
-    gf = lambda x: 2 * x
+    def f(x):
+        return float(np.sum(x ** 2))
+
+    def gf(x):
+        return 2 * x
     E1 = P.extend(f, gf)
     E2 = P.extend(lambda Z: np.sum(Z ** 2, axis=-1), lambda Z: 2 * Z, batched=True)
     np.testing.assert_allclose(E1.value(X), E2.value(X))
@@ -200,3 +203,25 @@ def test_bad_arguments():
         K.penalty(1.0, "ball", 0.5, samples=7)
     with pytest.raises(InputError, match="trailing shape"):
         K.penalty(1.0).value([1.0, 2.0])
+
+
+@pytest.mark.parametrize("spec", [{"kind": "birkhoff", "n": 3},
+                                  {"kind": "permutahedron", "weights": [3.0, 1.0, 0.0, -1.0]},
+                                  {"kind": "ball", "dim": 3, "norm": 1, "radius": 2.0},
+                                  {"kind": "budget", "dim": 4, "total": 3.0, "upper": 1.0}])
+def test_moreau_gradient_against_reference_projection(spec, rng):
+    # grad = G (x - proj(x)) / max(d, delta), with proj from the cvxpy reference, on sets with
+    # matrix points and with iterative or sorting-based projections
+    K = setkit.compile(spec)
+    R = K.with_backends(project="reference")
+    G, delta = 1.5, 0.3
+    X = 2.0 * rng.standard_normal((5,) + K.shape)
+    P = R.project(X)
+    ax = tuple(range(1, 1 + len(K.shape)))
+    d = np.sqrt(np.sum((X - P) ** 2, axis=ax))
+    expect = G * (X - P) / np.maximum(d, delta).reshape((5,) + (1,) * len(K.shape))
+    pen = K.penalty(G, "moreau", delta)
+    assert pen.grad(X).shape == X.shape
+    np.testing.assert_allclose(pen.grad(X), expect, atol=1e-5)
+    np.testing.assert_allclose(pen.value(X), G * np.where(d <= delta, d * d / (2 * delta), d - delta / 2),
+                               rtol=1e-6, atol=1e-7)

@@ -10,10 +10,10 @@ module import, so ``import setkit`` stays fast.
 from __future__ import annotations
 
 import importlib
-import pkgutil
 import threading
 from typing import ClassVar
 
+from .._discovery import import_submodules
 from ..errors import BackendUnavailableError
 
 _BACKENDS: dict[str, type] = {}
@@ -78,9 +78,7 @@ def _load():
     with _lock:
         if _loaded:
             return
-        for info in pkgutil.iter_modules(__path__):
-            if not info.name.startswith("_"):
-                importlib.import_module(f"{__name__}.{info.name}")
+        import_submodules(__name__)
         _loaded = True
 
 

@@ -45,13 +45,6 @@ from . import cached, loose_of, lp_form, part_violation
 class AffineImage(Family):
     """Common node of affine images; :func:`make_affine` picks the subclass."""
 
-    @classmethod
-    def examples(cls):
-        """Small instances for the conformance checks (tests/test_conformance.py)."""
-        return [{"kind": "affine", "set": {"kind": "simplex", "dim": 3}, "scale": 2.0, "shift": -0.5},
-                {"kind": "affine", "set": {"kind": "box", "dim": 2, "lower": 0, "upper": 1}, "scale": -3.0,
-                 "shift": [1.0, 2.0]}]
-
     part: Family
     scale_factor: float = 1.0
     shift: np.ndarray = None             # flat, length dim of the image

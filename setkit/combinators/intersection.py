@@ -10,20 +10,25 @@ Description keys::
 
 How each operator is served (chosen once, when the description is read):
 
-* one part (the *base*, e.g. a permutahedron, a ball or a simplex) has its own
+* every part has a linear form without auxiliary variables (boxes, simplices,
+  polyhedra...): the forms are merged into one linear form, so the OSQP
+  projection and the HiGHS LMO serve the intersection, compiled once (except
+  when a part with its own projection leaves at most ``POLYHEDRAL_CUTS`` other
+  rows, e.g. a simplex with per-coordinate caps: then the cut dual below, a
+  one- or two-dimensional search);
+* else one part (the *base*, e.g. a permutahedron or a ball) has its own
   projection and the others are a few linear constraints (at most ``CUT_LIMIT``
-  rows in all, bounds included): the projection solves the dual over the cut
-  multipliers, each step one projection onto the base
-  (:func:`setkit.kernels.splitting.project_with_cuts`);
-* else, every part has a linear form without auxiliary variables (boxes,
-  simplices, polyhedra...): the forms are merged into one linear form, so the
-  OSQP projection serves the intersection, compiled once;
+  rows in all, bounds included; rows the base's own bounds imply are dropped):
+  the projection solves the dual over the cut multipliers, each step one
+  projection onto the base (:func:`setkit.kernels.splitting.project_with_cuts`);
 * otherwise: a splitting method on the parts' own projections: the accelerated
   dual proximal gradient (:func:`setkit.kernels.splitting.fast_dual_projections`,
   default) or Dykstra's method (:func:`setkit.kernels.splitting.dykstra`,
   ``splitting: dykstra``), which slows down for points far from the set.
 
-In every case the LMO and the support function use the merged linear form when
+The LMO of a cut intersection is column generation on the base's own LMO (a
+small master LP per call, exact for polytopes; :func:`setkit.kernels.splitting.lmo_with_cuts`).
+Otherwise the LMO and the support function use the merged linear form when
 every part has one (auxiliary variables allowed: extended formulations such as
 a permutahedron written as the image of the Birkhoff polytope, offered by a
 family's optional ``extended_form()`` hook, see :func:`setkit.combinators.lp_form`),
@@ -46,11 +51,13 @@ import scipy.sparse as sp
 from ..errors import AccuracyWarning, EmptySetError, SolveError
 from ..families import Family, kernel, register
 from ..forms import LinearForm
-from ..kernels.splitting import dykstra, fast_dual_projections, project_with_cuts
+from ..kernels.splitting import dykstra, fast_dual_projections, lmo_with_cuts, project_with_cuts
 from . import cached, loose_of, lp_form, part_violation
 
 CUT_LIMIT = 64           # a part with at most this many linear rows counts as a few cuts
+POLYHEDRAL_CUTS = 2     # all-polyhedral parts: a native base with at most this many other rows uses the cut dual
 FEASIBILITY_CHECK_LIMIT = 200_000   # variables of the merged form up to which emptiness is checked by LP
+AUX_CHECK_LIMIT = 2_000  # beyond this many auxiliaries, a cut intersection is checked by column generation instead
 
 
 def merge_forms(forms):
@@ -133,14 +140,6 @@ class Intersection(Family):
     >>> K.project([1.0, 0.0, 0.0]).round(6).tolist()
     [0.5, 0.25, 0.25]
     """
-
-    @classmethod
-    def examples(cls):
-        """Small instances for the conformance checks (tests/test_conformance.py)."""
-        return [{"kind": "intersection", "of": [{"kind": "simplex", "dim": 3},
-                                                 {"kind": "box", "dim": 3, "lower": 0, "upper": 0.5}]},
-                {"kind": "intersection", "of": [{"kind": "simplex", "dim": 4, "total": 2.0, "mode": "at_most"},
-                                                 {"kind": "box", "lower": [0, 0, 0.2, 0], "upper": [1, 0.5, 1, 1]}]}]
 
     parts: tuple
     accuracy: float = 1e-7
@@ -278,7 +277,7 @@ class CutIntersection(Intersection):
 
     @kernel("project")
     def project(self, Y, parts):
-        """Dual over the few cut multipliers (L-BFGS-B + Newton), one base projection per step, O(steps * base cost)."""
+        """Dual over the few cut multipliers (semismooth Newton, L-BFGS-B fallback), one base projection per step, O(steps * base cost)."""
         base = parts[self.base]
 
         def proj(Z):
@@ -289,6 +288,28 @@ class CutIntersection(Intersection):
                                     accuracy=self.accuracy, max_iterations=self.max_iterations,
                                     feasibility_scale=max(1.0, self.scale()))
         return self._accept(X, info, parts, "cut dual", sc)
+
+    @kernel("lmo")
+    def lmo(self, C, parts):
+        """Column generation (Dantzig-Wolfe): a small master LP over vertices from the base's own LMO, O(columns * (base LMO + small LP))."""
+        base = parts[self.base]
+        X, info = lmo_with_cuts(lambda Q: base._run("lmo", Q)[0], C, self.cut_matrix, self.cut_rhs, self.n_eq,
+                                max(1.0, self.scale()))
+        status = info["status"]
+        if "empty" in status:
+            raise EmptySetError(f"{self.label}: the cuts leave no point of {parts[self.base].node.label} "
+                                f"(column generation ends with nonzero elastic slack).")
+        bad = [i for i, s in enumerate(status) if s != "solved"]
+        if bad:
+            # the master did not settle within its column budget: the merged LP (extended form) or the
+            # reference answers those rows exactly
+            from ..backends import get_backend
+            name = "highs" if self.linear_form() is not None else "reference"
+            ws = get_backend(name)(self, loose=loose_of(parts))
+            X[bad] = ws.lmo(C[bad])[0]
+        return X, {"status": ["solved"] * len(status), "iterations": info["iterations"],
+                   "backend_status": [f"column generation: {s}, {n} columns" for s, n in
+                                      zip(status, info["iterations"])]}
 
 
 @dataclass(frozen=True, eq=False, kw_only=True)
@@ -309,24 +330,34 @@ class SplitIntersection(Intersection):
 
 
 def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None, splitting="accelerated"):
-    """Choose the intersection node for ``parts`` (see the module docstring) and check emptiness."""
-    parts = tuple(parts)
+    """Choose the intersection node for ``parts`` (see the module docstring) and check emptiness.
+
+    Nested intersections are flattened first: (A ∩ B) ∩ C is served as A ∩ B ∩ C, so no
+    iterative projection ever serves as the base of another.
+    """
+    flat = []
+    for p in parts:
+        flat.extend(p.parts if isinstance(p, Intersection) else (p,))
+    parts = tuple(flat)
     forms = [p.linear_form() for p in parts]
     kw = dict(parts=parts, accuracy=accuracy, max_iterations=max_iterations, name=name)
     lp_forms = [lp_form(p) for p in parts]
-    if all(f is not None for f in lp_forms):
-        merged = merge_forms(lp_forms)
-        _check_feasible(merged, parts)
+    checked = False
+    if all(f is not None for f in lp_forms) and sum(f.n_aux for f in lp_forms) <= AUX_CHECK_LIMIT:
+        _check_feasible(merge_forms(lp_forms), parts)
+        checked = True
+    polyhedral = all(f is not None and f.n_aux == 0 for f in forms)
     cuts = [cut_rows(f) if f is not None and f.n_aux == 0 else None for f in forms]
     others = [i for i, c in enumerate(cuts) if c is None]
     native = [i for i, p in enumerate(parts) if "project" in p.kernels]
     base = None
-    if len(parts) > 1:
-        if len(others) == 1:
-            base = others[0]
-        elif not others and native:
-            # every part is a few linear rows: the part with the most rows and its own projection is the base
-            base = max(native, key=lambda i: cuts[i][0].shape[0])
+    if len(parts) > 1 and len(others) == 1 and not polyhedral:
+        # one part is not a few linear rows (a permutahedron, a ball): it is the base
+        base = others[0]
+    elif len(parts) > 1 and not others and native:
+        # all polyhedral and small: the native part with the most rows is the base, but only when
+        # at most POLYHEDRAL_CUTS rows remain once its own bounds are taken out (else one OSQP QP)
+        base = max(native, key=lambda i: cuts[i][0].shape[0])
     if base is not None:
         rest = [cuts[i] for i in range(len(parts)) if i != base]
         n_rows = sum(c[0].shape[0] for c in rest)
@@ -337,10 +368,13 @@ def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None, sp
             keep = ~_implied_bounds(A, rhs, eq, forms[base])
             A, rhs, eq = A[keep], rhs[keep], eq[keep]
             order = np.concatenate([np.flatnonzero(eq), np.flatnonzero(~eq)])
-            if order.size:
-                return CutIntersection(base=base, cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()),
+            if order.size and (not polyhedral or order.size <= POLYHEDRAL_CUTS):
+                node = CutIntersection(base=base, cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()),
                                        **kw)
-    if all(f is not None and f.n_aux == 0 for f in forms):
+                if not checked and "lmo" in parts[base].kernels:
+                    _check_cuts_feasible(node)
+                return node
+    if polyhedral:
         return Intersection(**kw)
     return SplitIntersection(splitting=splitting, **kw)
 
@@ -361,6 +395,17 @@ def _implied_bounds(A, rhs, eq, base_form):
         bound = c / a[i]            # a_i x_i <= c:  x_i >= bound (a_i < 0) or x_i <= bound (a_i > 0)
         out[j] = base_form.lo[i] >= bound if a[i] < 0 else base_form.hi[i] <= bound
     return out
+
+
+def _check_cuts_feasible(node):
+    """Phase one of the column generation (c = 0): nonzero elastic slack means the cuts miss the base."""
+    from ..decision_set import DecisionSet
+    base = DecisionSet(node.parts[node.base])
+    _, info = lmo_with_cuts(lambda Q: base._run("lmo", Q)[0], np.zeros((1, node.dim)), node.cut_matrix,
+                            node.cut_rhs, node.n_eq, max(1.0, node.scale()))
+    if info["status"][0] == "empty":
+        raise EmptySetError(f"the parts have no common point: the cuts miss {node.parts[node.base].label} "
+                            f"(the elastic slack of the column generation stays {info['residual'][0]:.3g})")
 
 
 def _check_feasible(form, parts):

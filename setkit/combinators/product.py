@@ -43,13 +43,6 @@ class Product(Family):
     [1.0, 0.0, 1.0, 0.0]
     """
 
-    @classmethod
-    def examples(cls):
-        """Small instances for the conformance checks (tests/test_conformance.py)."""
-        return [{"kind": "product", "of": [{"kind": "simplex", "dim": 3},
-                                            {"kind": "box", "dim": 2, "lower": -1, "upper": 1}]},
-                {"kind": "product", "of": [{"kind": "simplex", "dim": 2, "total": 3.0}], "copies": 3}]
-
     blocks: tuple          # the distinct block nodes
     layout: tuple          # for each position, the index of its block in ``blocks``
 

@@ -6,12 +6,11 @@ entry points of the group ``setkit.families`` that third-party packages declare.
 """
 from __future__ import annotations
 
-import importlib
-import pkgutil
 import threading
 from dataclasses import dataclass
 from typing import ClassVar
 
+from .._discovery import import_submodules
 from ..errors import DescriptionError
 
 ENTRY_POINT_GROUP = "setkit.families"
@@ -130,15 +129,7 @@ def _load_builtins():
         if _loaded:
             return
         for pkg_name in ("setkit.families", "setkit.combinators"):
-            try:
-                pkg = importlib.import_module(pkg_name)
-            except ModuleNotFoundError as exc:
-                if exc.name != pkg_name:
-                    raise
-                continue  # an optional built-in package not present (yet)
-            for info in pkgutil.iter_modules(pkg.__path__):
-                if not info.name.startswith("_"):
-                    importlib.import_module(f"{pkg_name}.{info.name}")
+            import_submodules(pkg_name)
         _loaded = True
 
 

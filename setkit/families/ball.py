@@ -9,8 +9,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
-from ..kernels.simplex import project_simplex_rows
+from ..kernels.vector_ops import ball_lmo, ball_violation, l1_ball_project, l2_ball_project
 from . import Family, kernel, register
+from ._screen import screened_contains
 
 NORMS = (1, 2, "inf")
 
@@ -54,6 +55,12 @@ class Ball(Family):
         norm = r.choice("norm", NORMS, 2)
         radius = r.number("radius", min=0.0)
         return cls(center=np.asarray(c, float), radius=radius, norm=norm, name=r.name)
+
+    def __post_init__(self):
+        object.__setattr__(self, "center", np.ascontiguousarray(self.center, dtype=float))
+        object.__setattr__(self, "_p", 0 if self.norm == "inf" else int(self.norm))   # 0 means inf
+        object.__setattr__(self, "_lo", self.center - self.radius)
+        object.__setattr__(self, "_hi", self.center + self.radius)
 
     # -- description -----------------------------------------------------------------------
     @property
@@ -109,20 +116,12 @@ class Ball(Family):
     def project(self, Y):
         """Radial scaling (p=2), clipping (p=inf), or the simplex projection of |y - c| with signs restored (p=1), O(n)."""
         c, r = self.center, self.radius
-        V = Y - c
-        if self.norm == "inf":
-            return c + np.clip(V, -r, r)
-        nv = self._norm(V)
-        out = nv > r
-        X = Y.copy()
-        if not out.any():
-            return X
         if self.norm == 2:
-            X[out] = c + V[out] * (r / nv[out])[:, None]
-        else:
-            A = np.abs(V[out])
-            X[out] = c + np.sign(V[out]) * project_simplex_rows(A, r)
-        return X
+            return l2_ball_project(Y, c, r)
+        if self.norm == 1:
+            return l1_ball_project(Y, c, r)
+        # p = inf: clip to the box [c - r, c + r] (points inside come back unchanged)
+        return np.clip(Y, self._lo, self._hi)
 
     @kernel("distance")
     def distance(self, Y):
@@ -134,30 +133,25 @@ class Ball(Family):
     @kernel("lmo")
     def lmo(self, C):
         """c0 - r c/||c||_2 (p=2), c0 - r sign(c) (p=inf), c0 - r sign(c_j) e_j at the largest |c_j| (p=1), O(n)."""
-        b, n = C.shape
-        r = self.radius
-        X = np.broadcast_to(self.center, (b, n)).copy()
-        if self.norm == 2:
-            nc = np.linalg.norm(C, axis=1)
-            nz = nc > 0
-            X[nz] -= r * C[nz] / nc[nz, None]
-        elif self.norm == "inf":
-            X -= r * np.sign(C)
-        else:
-            j = np.argmax(np.abs(C), axis=1)
-            rows = np.arange(b)
-            X[rows, j] -= r * np.sign(C[rows, j])
-        return X
+        return ball_lmo(C, self.center, self.radius, self._p)
 
     @kernel("support")
     def support(self, C):
         """<c, center> + r ||c||_q with q the dual exponent, O(n)."""
         return C @ self.center + self.radius * self._dual_norm(C)
 
+    @kernel("contains")
+    def contains(self, X, tol):
+        """||x - c||_p <= r screen, the distance only for borderline points (p = 1, inf), O(n)."""
+        if self.norm == 2:
+            return self.distance(X) <= tol
+        lip = np.sqrt(self.dim) if self.norm == 1 else 1.0   # ||u||_p <= lip ||u||_2
+        return screened_contains(X, tol, self.violation, self.distance, lip)
+
     @kernel("violation")
     def violation(self, X):
         """max(||x - c||_p - r, 0), O(n)."""
-        return np.maximum(self._norm(X - self.center) - self.radius, 0.0)
+        return ball_violation(X, self.center, self.radius, self._p)
 
     # -- exact knowledge for setkit.measures ------------------------------------------------------
     def exact_centroid(self, measure):

@@ -7,7 +7,9 @@ import numpy as np
 
 from ..errors import UnboundedDirectionError
 from ..forms import LinearForm
+from ..kernels.vector_ops import bounds_sum_violation, box_ops, box_values
 from . import Family, kernel, register
+from ._screen import screened_contains
 
 
 @register("box")
@@ -90,34 +92,52 @@ class Box(Family):
     def linear_form(self):
         return LinearForm.build(self.dim, lo=self.lower, hi=self.upper)
 
+    def __post_init__(self):
+        # used by every call: contiguous bounds, the LMO answer at c_i = 0, whether all bounds are finite
+        object.__setattr__(self, "lower", np.ascontiguousarray(self.lower, dtype=float))
+        object.__setattr__(self, "upper", np.ascontiguousarray(self.upper, dtype=float))
+        tie = np.where(np.isfinite(self.lower), self.lower, np.where(np.isfinite(self.upper), self.upper, 0.0))
+        object.__setattr__(self, "_tie", tie)
+        object.__setattr__(self, "_zeros", np.zeros(self.lower.size))
+        object.__setattr__(self, "_all_finite", bool(np.isfinite(self.lower).all() and np.isfinite(self.upper).all()))
+
     @kernel("project")
     def project(self, Y):
         """Clipping to the bounds, O(n)."""
-        return np.clip(Y, self.lower, self.upper)
+        return box_ops(Y, self.lower, self.upper, self._tie, 0)[0]
 
     @kernel("distance")
     def distance(self, Y):
         """Norm of the clipped-off part, O(n)."""
-        return np.linalg.norm(Y - np.clip(Y, self.lower, self.upper), axis=1)
+        return box_values(Y, self.lower, self.upper, 0)
 
     @kernel("lmo")
     def lmo(self, C):
         """Lower bound where c > 0, upper bound where c < 0 (lower, else upper, where c = 0), O(n)."""
-        lo = np.broadcast_to(self.lower, C.shape)
-        hi = np.broadcast_to(self.upper, C.shape)
-        tie = np.where(np.isfinite(lo), lo, np.where(np.isfinite(hi), hi, 0.0))
-        X = np.where(C > 0, lo, np.where(C < 0, hi, tie))
-        if not np.all(np.isfinite(X)):
-            i, j = np.argwhere(~np.isfinite(X))[0]
+        X, bad = box_ops(C, self.lower, self.upper, self._tie, 1)
+        if bad >= 0:
+            i, j = divmod(int(bad), C.shape[1])
             raise UnboundedDirectionError(
                 f"{self.label}: lmo(c) has no minimizer: coordinate {j} is unbounded and c[{j}] = {C[i, j]} "
                 f"(batch row {i}).")
         return X
 
+    @kernel("support")
+    def support(self, C):
+        """sum_i max(c_i lower_i, c_i upper_i), O(n); raises when unbounded along c."""
+        if self._all_finite:
+            return box_values(C, self.lower, self.upper, 1)
+        return np.einsum("ij,ij->i", C, self.lmo(-C))
+
+    @kernel("contains")
+    def contains(self, X, tol):
+        """Bound-violation screen, the distance only for borderline points, O(n)."""
+        return screened_contains(X, tol, self.violation, self.distance, 1.0)
+
     @kernel("violation")
     def violation(self, X):
         """Largest bound violation, O(n)."""
-        return np.maximum((self.lower - X).max(axis=1), (X - self.upper).max(axis=1)).clip(min=0.0)
+        return bounds_sum_violation(X, self.lower, self.upper, self._zeros, 0.0, True)
 
     # -- exact knowledge for setkit.measures ------------------------------------------------------
     def _bounded(self):
@@ -134,7 +154,8 @@ class Box(Family):
         return (self.lower + self.upper) / 2.0
 
     def exact_sample(self, k, measure, rng):
-        """Independent coordinates: uniform on [lower, upper] (volume) or a fair choice of bound (vertices, directions)."""
+        """Independent coordinates: uniform on [lower, upper] (volume) or a fair choice of a bound
+        (vertices, directions)."""
         if not self._bounded():
             return None
         U = rng.random((k, self.lower.size))

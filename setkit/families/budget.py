@@ -1,6 +1,10 @@
 """The budget {lower <= x <= upper, <w, x> = total} (mode equal) or <= total (mode at_most).
 
 A weighted, capped simplex: the feasible set of the continuous knapsack.
+
+Outputs are numerical answers within the stated tolerances; where they steer the
+allocation of scarce resources they are to be reviewed by a responsible person and
+checked against local rules.
 """
 from __future__ import annotations
 
@@ -9,8 +13,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
-from ..kernels.simplex import project_capped
+from ..kernels.simplex import knapsack_lmo_rows, project_capped
+from ..kernels.vector_ops import bounds_sum_violation
 from . import Family, kernel, register
+from ._screen import screened_contains
 
 
 def _fmt(v: float) -> str:
@@ -82,11 +88,13 @@ class Budget(Family):
         v = np.concatenate([self.lower, self.upper[np.isfinite(self.upper)], [self.total]])
         return float(max(1.0, np.abs(v).max()))
 
-    @property
-    def _caps(self):
-        """Effective upper bounds: the upper bound, or what the budget alone allows."""
+    def __post_init__(self):
+        # effective upper bounds (the upper bound, or what the budget alone allows) and the room
+        # above the lower bounds, used by every LMO; a Lipschitz constant for the membership screen
         room = self.total - float(self.weights @ self.lower)
-        return np.minimum(self.upper, self.lower + room / self.weights)
+        object.__setattr__(self, "_room", room)
+        object.__setattr__(self, "_caps", np.minimum(self.upper, self.lower + room / self.weights))
+        object.__setattr__(self, "_lip", float(max(1.0, np.linalg.norm(self.weights))))
 
     def cvxpy_constraints(self, x):
         cons = [x >= self.lower]
@@ -113,34 +121,42 @@ class Budget(Family):
 
     @kernel("lmo")
     def lmo(self, C):
-        """Continuous-knapsack greedy: start at lower, fill coordinates by increasing c_i / w_i, O(n log n)."""
+        """Continuous-knapsack greedy by increasing c_i / w_i, with randomized selection instead of a sort, expected O(n)."""
+        X = np.empty_like(C)
+        knapsack_lmo_rows(C, self.lower, self._caps, self.weights, self._room, self.mode == "at_most", X)
+        return X
+
+    def lmo_sorted(self, C):
+        """The same greedy by sorting the ratios, O(n log n) (kept as an independent check)."""
         b, n = C.shape
         w = self.weights
-        room = self.total - float(w @ self.lower)
         caps = w * (self._caps - self.lower)           # weighted room of each coordinate, finite
         ratio = C / w
         order = np.argsort(ratio, axis=1, kind="stable")
         cap_sorted = caps[order]
         before = np.cumsum(cap_sorted, axis=1) - cap_sorted
-        fill = np.clip(room - before, 0.0, cap_sorted)
+        fill = np.clip(self._room - before, 0.0, cap_sorted)
         if self.mode == "at_most":
             fill = np.where(np.take_along_axis(ratio, order, axis=1) < 0, fill, 0.0)
         X = np.broadcast_to(self.lower, (b, n)).copy()
         np.put_along_axis(X, order, self.lower[order] + fill / w[order], axis=1)
         return X
 
+    @kernel("contains")
+    def contains(self, X, tol):
+        """Violation screen (bounds and weighted sum), the distance only for borderline points, O(n)."""
+        return screened_contains(X, tol, self.violation,
+                                 lambda Z: np.linalg.norm(Z - self.project(Z), axis=1), self._lip)
+
     @kernel("support")
     def support(self, C):
-        """<c, lmo(-c)> by the same greedy, O(n log n)."""
+        """<c, lmo(-c)> by the same greedy, expected O(n)."""
         return np.einsum("ij,ij->i", C, self.lmo(-C))
 
     @kernel("violation")
     def violation(self, X):
         """Largest violation of the bounds and of the weighted sum, O(n)."""
-        s = X @ self.weights - self.total
-        sv = np.abs(s) if self.mode == "equal" else np.maximum(s, 0.0)
-        bounds = np.maximum((self.lower - X).max(axis=1), (X - self.upper).max(axis=1))
-        return np.maximum(bounds.clip(min=0.0), sv)
+        return bounds_sum_violation(X, self.lower, self.upper, self.weights, self.total, self.mode == "equal")
 
     # -- exact knowledge for setkit.measures ------------------------------------------------------
     def _symmetric(self):

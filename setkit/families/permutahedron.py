@@ -1,4 +1,8 @@
-"""The permutahedron of a weight vector: the convex hull of all its permutations."""
+"""The permutahedron of a weight vector: the convex hull of all its permutations.
+
+Outputs are numerical answers within the stated tolerances; where a ranking affects
+people it is to be reviewed by a responsible person and checked against local rules.
+"""
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -72,13 +76,12 @@ class Permutahedron(Family):
 
     # linear_form: none. The majorization inequalities are 2^n - 2 facets; the compact
     # extended formulations (Birkhoff, O(n^2) variables; sorting networks) are not worth
-    # it next to the native kernels, so generic LP/QP backends do not serve this family.
+    # it next to the native kernels, so generic LP/QP backends do not serve this family alone.
 
     def extended_form(self):
-        """Optional hook for combinators: x = W w over doubly stochastic W (n^2 auxiliaries).
+        """The Birkhoff extended formulation {x = W w, W doubly stochastic}, n^2 auxiliaries.
 
-        Lets an intersection with a polyhedron be one LP for its LMO; the family's own
-        routes are unchanged (see setkit.combinators.lp_form).
+        Built only on request (by combinators that need one LP for an intersection).
         """
         from ..combinators.extended import permutahedron_form
         return permutahedron_form(self.weights)

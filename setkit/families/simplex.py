@@ -6,8 +6,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
-from ..kernels.simplex import project_simplex_rows
+from ..kernels.simplex import project_simplex_rows, simplex_distance_rows
+from ..kernels.vector_ops import bounds_sum_violation
 from . import Family, kernel, register
+from ._screen import screened_contains
 
 
 @register("simplex")
@@ -45,6 +47,11 @@ class Simplex(Family):
         return {"kind": "simplex", "dim": int(rng.integers(2, 9)), "total": float(np.round(rng.uniform(0.1, 5), 3)),
                 "mode": str(rng.choice(["equal", "at_most"]))}
 
+    def __post_init__(self):
+        object.__setattr__(self, "_zeros", np.zeros(self.n))
+        object.__setattr__(self, "_ones", np.ones(self.n))
+        object.__setattr__(self, "_inf", np.full(self.n, np.inf))
+
     @property
     def shape(self):
         return (self.n,)
@@ -74,15 +81,28 @@ class Simplex(Family):
             X[over] = project_simplex_rows(Y[over], self.total)
         return X
 
+    @kernel("distance")
+    def distance(self, Y):
+        """||y - max(y - tau, 0)|| with the threshold of the projection, without forming it, O(n)."""
+        return simplex_distance_rows(Y, self.total, self.mode == "at_most")
+
     @kernel("lmo")
     def lmo(self, C):
         """The vertex total * e_i at the smallest c_i (the origin when at_most and min c >= 0), O(n)."""
         b = C.shape[0]
         X = np.zeros_like(C)
         j = np.argmin(C, axis=1)
-        take = np.ones(b, bool) if self.mode == "equal" else C[np.arange(b), j] < 0
-        X[np.arange(b)[take], j[take]] = self.total
+        rows = np.arange(b)
+        if self.mode == "equal":
+            X[rows, j] = self.total
+        else:
+            X[rows, j] = np.where(C[rows, j] < 0, self.total, 0.0)
         return X
+
+    @kernel("contains")
+    def contains(self, X, tol):
+        """Violation screen (x >= 0 and the sum), the distance only for borderline points, O(n)."""
+        return screened_contains(X, tol, self.violation, self.distance, np.sqrt(self.n))
 
     @kernel("support")
     def support(self, C):
@@ -93,9 +113,7 @@ class Simplex(Family):
     @kernel("violation")
     def violation(self, X):
         """Largest violation of x >= 0 and of the sum constraint, O(n)."""
-        s = X.sum(axis=1) - self.total
-        sv = np.abs(s) if self.mode == "equal" else np.maximum(s, 0.0)
-        return np.maximum((-X).max(axis=1).clip(min=0.0), sv)
+        return bounds_sum_violation(X, self._zeros, self._inf, self._ones, self.total, self.mode == "equal")
 
     # -- exact knowledge for setkit.measures ------------------------------------------------------
     # -- optional stacking hooks (read by the product combinator): blocks of this family with one

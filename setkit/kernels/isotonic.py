@@ -49,17 +49,33 @@ def pav_decreasing(s, out):
 
 @njit(cache=True)
 def _permutahedron_rows(Y, order, wdesc, out):
-    """Rows of Y onto P(w) given each row's decreasing order: x_sigma = y_sigma - PAV(y_sigma - w)."""
+    """Rows of Y onto P(w) given each row's decreasing order: x_sigma = y_sigma - PAV(y_sigma - w).
+
+    One gather (y in decreasing order), the pooling on y_sigma - w, and one scatter
+    that writes y_sigma - (block mean) straight to the answer.
+    """
     b, n = Y.shape
-    s = np.empty(n)
-    v = np.empty(n)
+    ys = np.empty(n)
+    sums = np.empty(n)
+    cnts = np.empty(n, np.int64)
     for r in range(b):
         for i in range(n):
-            s[i] = Y[r, order[r, i]] - wdesc[i]
-        pav_decreasing(s, v)
+            ys[i] = Y[r, order[r, i]]
+        nb = 0
         for i in range(n):
-            j = order[r, i]
-            out[r, j] = Y[r, j] - v[i]
+            sums[nb] = ys[i] - wdesc[i]
+            cnts[nb] = 1
+            nb += 1
+            while nb > 1 and sums[nb - 2] * cnts[nb - 1] < sums[nb - 1] * cnts[nb - 2]:
+                sums[nb - 2] += sums[nb - 1]
+                cnts[nb - 2] += cnts[nb - 1]
+                nb -= 1
+        k = 0
+        for blk in range(nb):
+            v = sums[blk] / cnts[blk]
+            for _ in range(cnts[blk]):
+                out[r, order[r, k]] = ys[k] - v
+                k += 1
 
 
 @njit(cache=True)

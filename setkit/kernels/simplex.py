@@ -9,51 +9,71 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-# Michelot passes allowed before falling back to the sort-based threshold
+# clean-up passes allowed before falling back to the sort-based threshold
 _MAX_PASSES = 64
 
 
 @njit(cache=True)
-def _simplex_tau(y, total, buf):
-    """Threshold tau with sum max(y - tau, 0) = total (total > 0), by Michelot's fixed point.
+def _simplex_tau(y, total, v, vt):
+    """Threshold tau with sum max(y - tau, 0) = total (total > 0), by Condat's method.
 
-    tau = (sum_{S} y - total) / |S| over S = {y > tau}, starting from S = all;
-    tau increases and S shrinks at every pass, so it stops exactly when S is
-    stable. Each pass compacts S into ``buf``. Returns NaN after too many passes
-    (the caller then falls back to sorting). O(n) per pass, few passes in practice.
+    One pass keeps a candidate list v with rho = (sum v - total) / |v| (values that
+    cannot be above the threshold are set aside in vt and only re-examined once);
+    then passes drop the candidates <= rho until none is dropped. tau is recomputed
+    from the final list for accuracy. Returns NaN if the clean-up needs too many
+    passes (the caller then sorts). O(n) in practice.
     """
     n = y.size
-    s = 0.0
-    for i in range(n):
-        s += y[i]
-    tau = (s - total) / n
-    m = n
-    src = y
+    m = 1
+    mt = 0
+    v[0] = y[0]
+    rho = y[0] - total
+    for i in range(1, n):
+        yi = y[i]
+        if yi > rho:
+            rho += (yi - rho) / (m + 1)
+            if rho > yi - total:
+                v[m] = yi
+                m += 1
+            else:
+                for k in range(m):
+                    vt[mt] = v[k]
+                    mt += 1
+                v[0] = yi
+                m = 1
+                rho = yi - total
+    for k in range(mt):
+        yk = vt[k]
+        if yk > rho:
+            v[m] = yk
+            m += 1
+            rho += (yk - rho) / m
     for _ in range(_MAX_PASSES):
-        # branch-free compaction of {v > tau} into buf
         m2 = 0
-        s2 = 0.0
         for k in range(m):
-            v = src[k]
-            keep = v > tau
-            buf[m2] = v
-            m2 += keep
-            s2 += v * keep
+            yk = v[k]
+            if yk > rho:
+                v[m2] = yk
+                m2 += 1
+            else:
+                rho += (rho - yk) / (m - 1 - (k - m2))   # the list size after this removal
         if m2 == m:
-            return tau
+            s = 0.0
+            for k in range(m):
+                s += v[k]
+            return (s - total) / m
         m = m2
-        src = buf
-        tau = (s2 - total) / m
     return np.nan
 
 
 @njit(cache=True)
 def _simplex_rows_nb(Y, total, out):
     b, n = Y.shape
-    buf = np.empty(n)
+    cand = np.empty(n)
+    wait = np.empty(n)
     bad = 0
     for r in range(b):
-        tau = _simplex_tau(Y[r], total, buf)
+        tau = _simplex_tau(Y[r], total, cand, wait)
         if np.isnan(tau):
             bad += 1
             for j in range(n):
@@ -69,8 +89,8 @@ def project_simplex_rows(Y: np.ndarray, total: float) -> np.ndarray:
     """Project each row of Y onto {x >= 0, sum x = total}.
 
     x = max(y - tau, 0) with the threshold tau of the KKT conditions found by
-    Michelot's fixed point in compiled code (expected O(n) per row); rows where
-    it needs too many passes fall back to the sorted-prefix threshold
+    Condat's method in compiled code (O(n) per row in practice); rows where its
+    clean-up needs too many passes fall back to the sorted-prefix threshold
     (Held, Wolfe and Crowder 1974), O(n log n).
     """
     Y = np.ascontiguousarray(Y, dtype=float)
@@ -249,15 +269,22 @@ def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
             if bp > L and bp < U:
                 return bp
         return np.nan
-    return np.sort(samp[:cnt])[cnt // 2]
+    for a in range(1, cnt):                 # insertion sort of the small sample, in place
+        v = samp[a]
+        c = a - 1
+        while c >= 0 and samp[c] > v:
+            samp[c + 1] = samp[c]
+            c -= 1
+        samp[c + 1] = v
+    return samp[cnt // 2]
 
 
 @njit(cache=True)
 def _capped_lambda(y, lo, hi, w, total, idx):
     """Multiplier of the capped weighted simplex; see :func:`_capped_search`.
 
-    Long vectors first solve the same problem on a random sample of 1024
-    coordinates (with the total scaled down) and use its root as the first
+    Long vectors (n > 4096) first solve the same problem on a random sample of
+    1024 coordinates (with the total scaled down) and use its root as the first
     pivot; the sorted breakpoints of the sample then supply pivots stepping
     back across the root, so that two full passes settle almost every coordinate.
     """
@@ -316,6 +343,9 @@ def _capped_search(y, lo, hi, w, total, idx, first, sbp):
     seed = np.full(1, 88172645463325252, np.int64)
     samp = np.empty(15)
     step = 1
+    secant = False
+    gL = np.inf
+    gU = -np.inf
     piv = first
     if np.isnan(piv) or not np.isfinite(piv):
         piv = _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp)
@@ -357,14 +387,23 @@ def _capped_search(y, lo, hi, w, total, idx, first, sbp):
         g = fixed + free_c - piv * free_s + gk
         if g > total:
             L = piv
+            gL = g
         elif g < total:
             U = piv
+            gU = g
         else:
             return piv
         if m == 0:
             break
         piv = np.nan
-        if sbp.size and (L == -np.inf or U == np.inf):
+        secant = not secant
+        if secant and L > -np.inf and U < np.inf:
+            # g is piecewise linear: the secant through (L, g(L)), (U, g(U)) often lands in the
+            # root's own piece; alternating with sampled medians keeps the expected O(n)
+            t = L + (gL - total) * ((U - L) / (gL - gU))
+            if t > L and t < U:
+                piv = t
+        elif sbp.size and (L == -np.inf or U == np.inf):
             # one-sided bracket: step back across the root along the sample's breakpoints,
             # 4, 16, 64, ... sample breakpoints away (a few of all breakpoints in between)
             step *= 4
@@ -420,6 +459,12 @@ def _capped_rows_nb(Y, lo, hi, w, total, rows, out):
             out[r, j] = min(max(Y[r, j] - lam * w[j], lo[j]), hi[j])
 
 
+def _vector(v, shape):
+    if isinstance(v, np.ndarray) and v.dtype == np.float64 and v.shape == shape and v.flags.c_contiguous:
+        return v
+    return np.ascontiguousarray(np.broadcast_to(np.asarray(v, dtype=float), shape))
+
+
 def project_capped(Y, lo, hi, w, total, mode="equal"):
     """Project rows of Y onto {lo <= x <= hi, <w, x> = total} (mode "equal") or <= total ("at_most").
 
@@ -428,9 +473,7 @@ def project_capped(Y, lo, hi, w, total, mode="equal"):
     upper bounds may be +inf, weights positive, and the total reachable.
     """
     Y = np.ascontiguousarray(Y, dtype=float)
-    lo = np.ascontiguousarray(np.broadcast_to(np.asarray(lo, float), Y.shape[1:]))
-    hi = np.ascontiguousarray(np.broadcast_to(np.asarray(hi, float), Y.shape[1:]))
-    w = np.ascontiguousarray(np.broadcast_to(np.asarray(w, float), Y.shape[1:]))
+    lo, hi, w = (_vector(v, Y.shape[1:]) for v in (lo, hi, w))
     if mode == "at_most":
         X = np.clip(Y, lo, hi)
         rows = np.flatnonzero(X @ w > total)
@@ -439,5 +482,129 @@ def project_capped(Y, lo, hi, w, total, mode="equal"):
     else:
         X = np.empty_like(Y)
         rows = np.arange(Y.shape[0])
-    _capped_rows_nb(Y, lo, hi, w, float(total), rows.astype(np.int64), X)
+    _capped_rows_nb(Y, lo, hi, w, float(total), rows, X)
     return X
+
+
+@njit(cache=True)
+def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
+    """Rows of argmin <c, x> over {lo <= x <= cap, <w, x> = lo.w + room} (<= when ``at_most``).
+
+    The continuous-knapsack greedy fills coordinates by increasing ratio c_i / w_i
+    (only the negative ratios when at_most); instead of sorting, a randomized
+    selection finds the ratio where the budget runs out: each round partitions the
+    candidates around a pivot ratio, fills the cheaper side completely when it fits
+    and recurses into the side that holds the last unit. Expected O(n) per row.
+    ``cap`` must be finite (the budget bounds every coordinate).
+    """
+    b, n = C.shape
+    idx = np.empty(n, np.int64)
+    r = np.empty(n)
+    p3 = np.empty(3)
+    seed = np.int64(2862933555777941757)
+    for row in range(b):
+        m = 0
+        for i in range(n):
+            out[row, i] = lo[i]
+            ri = C[row, i] / w[i]
+            r[i] = ri
+            if cap[i] > lo[i] and (not at_most or ri < 0.0):
+                idx[m] = i
+                m += 1
+        R = room
+        while m > 0 and R > 0.0:
+            # pivot: median of three random candidate ratios
+            for t in range(3):
+                seed = seed * 6364136223846793005 + 1442695040888963407
+                p3[t] = r[idx[((seed >> 20) & 0x7FFFFFFFFFF) % m]]
+            p = max(min(p3[0], p3[1]), min(max(p3[0], p3[1]), p3[2]))
+            s_less = 0.0
+            s_eq = 0.0
+            for k in range(m):
+                j = idx[k]
+                if r[j] < p:
+                    s_less += w[j] * (cap[j] - lo[j])
+                elif r[j] == p:
+                    s_eq += w[j] * (cap[j] - lo[j])
+            if s_less >= R:
+                m2 = 0
+                for k in range(m):
+                    j = idx[k]
+                    if r[j] < p:
+                        idx[m2] = j
+                        m2 += 1
+                m = m2
+                continue
+            # everything cheaper than the pivot fits: fill it completely
+            for k in range(m):
+                j = idx[k]
+                if r[j] < p:
+                    out[row, j] = cap[j]
+            R -= s_less
+            if s_eq >= R:
+                for k in range(m):
+                    j = idx[k]
+                    if r[j] == p and R > 0.0:
+                        room_j = w[j] * (cap[j] - lo[j])
+                        if room_j <= R:
+                            out[row, j] = cap[j]
+                            R -= room_j
+                        else:
+                            out[row, j] = lo[j] + R / w[j]
+                            R = 0.0
+                break
+            for k in range(m):
+                j = idx[k]
+                if r[j] == p:
+                    out[row, j] = cap[j]
+            R -= s_eq
+            m2 = 0
+            for k in range(m):
+                j = idx[k]
+                if r[j] > p:
+                    idx[m2] = j
+                    m2 += 1
+            m = m2
+
+
+@njit(cache=True)
+def simplex_distance_rows(Y, total, at_most):
+    """||y - proj(y)|| per row for {x >= 0, sum x = total} (or <= total), without forming proj(y).
+
+    The threshold tau by Condat's method (sorted fallback); O(n) per row.
+    """
+    b, n = Y.shape
+    out = np.empty(b)
+    cand = np.empty(n)
+    wait = np.empty(n)
+    for r in range(b):
+        y = Y[r]
+        if at_most:
+            s = 0.0
+            for j in range(n):
+                s += max(y[j], 0.0)
+            if s <= total:
+                d = 0.0
+                for j in range(n):
+                    m = min(y[j], 0.0)
+                    d += m * m
+                out[r] = np.sqrt(d)
+                continue
+        if total == 0.0:
+            tau = np.inf
+        else:
+            tau = _simplex_tau(y, total, cand, wait)
+            if np.isnan(tau):
+                u = -np.sort(-y)
+                cs = 0.0
+                for k in range(n):
+                    cs += u[k]
+                    t = (cs - total) / (k + 1)
+                    if u[k] > t:
+                        tau = t
+        d = 0.0
+        for j in range(n):
+            e = y[j] - max(y[j] - tau, 0.0)
+            d += e * e
+        out[r] = np.sqrt(d)
+    return out

@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["dykstra", "fast_dual_projections", "project_with_cuts", "project_linear_image"]
+__all__ = ["dykstra", "fast_dual_projections", "project_with_cuts", "project_linear_image", "lmo_with_cuts"]
 
 # gaps are sums of products of O(scale) numbers: below ~ a few ulps of scale^2 they are rounding noise,
 # so the gap tolerance never goes below GAP_FLOOR * (number of terms) * scale^2
@@ -78,7 +78,6 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
     tol_g = np.maximum(0.5 * (accuracy * scale) ** 2, GAP_FLOOR * m * scale ** 2)
     big = divergence * (scale + np.abs(Y).max(axis=1))
     X = Y.copy()
-    Yact = Y.copy()
     Q = np.zeros((m, b, d))
     Xi = np.zeros((m, b, d))
     for it in range(1, max_iterations + 1):
@@ -106,7 +105,7 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
             keep = ~finish
             if not keep.any():
                 break
-            rows, X, Yact, Q, Xi = rows[keep], X[keep], Yact[keep], Q[:, keep], Xi[:, keep]
+            rows, X, Q, Xi = rows[keep], X[keep], Q[:, keep], Xi[:, keep]
     return out, info
 
 
@@ -291,22 +290,35 @@ def _lbfgsb_dual(state, lam, ineq, tol_r, big, budget):
 
 
 def _dual_step(state, lam, x, r, g, v, ineq, L):
-    """One ascent step on the concave dual: projected Newton on the active cuts, else projected gradient."""
+    """One ascent step on the concave dual.
+
+    Semismooth Newton on the natural residual of the KKT conditions: cuts with
+    lam_j + r_j > 0 (and all equalities) are *free* and solve r_F(lam) = 0 by Newton (Jacobian
+    of r in lam_F by finite differences), the others are set to lam_j = 0. The step is kept
+    when it increases the dual (Armijo) or halves the violation; otherwise a projected gradient
+    step lam + t r with a growing t (t = 1/L always ascends, L = ||A||_2^2).
+    """
     k = lam.size
-    active = ~ineq | (lam > 0) | (r > 0)
-    S = np.flatnonzero(active)
+    free = ~ineq | (lam + r > 0)
+    base = lam.copy()
+    base[~free] = 0.0
+    if np.any(base != lam):
+        xb, rb, gb, vb = state(base)
+    else:
+        xb, rb, gb, vb = x, r, g, v
+    S = np.flatnonzero(free)
     if S.size:
-        h = 1e-7 * max(1.0, float(np.abs(lam).max(initial=0.0)))
+        h = 1e-7 * max(1.0, float(np.abs(base).max(initial=0.0)))
         J = np.empty((S.size, S.size))
         for c, j in enumerate(S):
-            lj = lam.copy()
+            lj = base.copy()
             lj[j] += h
             _, rj, _, _ = state(lj)
-            J[:, c] = (rj[S] - r[S]) / h
+            J[:, c] = (rj[S] - rb[S]) / h
         # J = -A_S D A_S^T is negative semidefinite; a tiny shift keeps the solve well posed
         mu = 1e-12 * max(1.0, float(np.abs(J).max(initial=0.0)))
         try:
-            step = np.linalg.solve(J - mu * np.eye(S.size), -r[S])
+            step = np.linalg.solve(J - mu * np.eye(S.size), -rb[S])
         except np.linalg.LinAlgError:
             step = None
         if step is not None and np.all(np.isfinite(step)):
@@ -314,7 +326,7 @@ def _dual_step(state, lam, x, r, g, v, ineq, L):
             dlam[S] = step
             t = 1.0
             for _ in range(10):
-                new = lam + t * dlam
+                new = base + t * dlam
                 new[ineq] = np.maximum(new[ineq], 0.0)
                 x2, r2, g2, v2 = state(new)
                 if g2 >= g + 1e-4 * float(r @ (new - lam)) or (v2 < 0.5 * v and g2 >= g - 1e-12 * abs(g)):
@@ -400,4 +412,71 @@ def project_linear_image(project_part, support_part, M, shift, Y, scale, accurac
             if not keep.any():
                 break
             rows, X, Z, Ya, t = rows[keep], X[keep], Z[keep], Ya[keep], t[keep]
+    return out, info
+
+
+def lmo_with_cuts(lmo_base, C, A, rhs, n_eq, scale, max_columns=400, tol=1e-9):
+    """argmin <c, x> over B ∩ {a_j·x = rhs_j (j < n_eq), a_j·x <= rhs_j} by column generation.
+
+    Dantzig-Wolfe decomposition: a master LP (HiGHS) over convex combinations of vertices of
+    B found so far, with the cuts as rows and elastic slacks priced at a big M; the pricing
+    problem is one LMO of B at c - A^T pi (pi the duals of the cut rows). It stops when no
+    vertex has a negative reduced cost (exact optimality of the master for B ∩ cuts) and the
+    slacks are zero. The answer is a convex combination of at most k + 1 vertices of B.
+    Returns (X, info) with per-row status "solved" | "empty" | "not_converged" and the number
+    of columns generated. O(columns * (LMO of B + a small LP)).
+    """
+    from scipy.optimize import linprog
+
+    C = np.asarray(C, dtype=float)
+    b, d = C.shape
+    k = A.shape[0]
+    out = np.empty_like(C)
+    info = {"status": ["not_converged"] * b, "iterations": [0] * b, "gap": np.full(b, np.nan),
+            "residual": np.full(b, np.nan)}
+    eq, ub = slice(0, n_eq), slice(n_eq, k)
+    for row in range(b):
+        c = C[row]
+        cs = max(1.0, float(np.abs(c).max()))
+        M = 1e6 * cs * max(1.0, float(scale))
+        V = [lmo_base(c[None, :])[0]]
+        status, x = "not_converged", V[0]
+        for it in range(1, max_columns + 1):
+            Vm = np.array(V)                      # (p, d)
+            AV = A @ Vm.T                         # (k, p)
+            p = Vm.shape[0]
+            # variables: mu (p), s_plus (k), s_minus (n_eq); minimize c.V mu + M (s)
+            cost = np.concatenate([Vm @ c, np.full(k, M), np.full(n_eq, M)])
+            A_eq = np.zeros((1 + n_eq, p + k + n_eq))
+            A_eq[0, :p] = 1.0
+            A_eq[1:, :p] = AV[eq]
+            A_eq[1:, p:p + n_eq] = -np.eye(n_eq)
+            A_eq[1:, p + k:] = np.eye(n_eq)
+            b_eq = np.concatenate([[1.0], rhs[eq]])
+            A_ub = np.zeros((k - n_eq, p + k + n_eq))
+            A_ub[:, :p] = AV[ub]
+            A_ub[:, p + n_eq:p + k] = -np.eye(k - n_eq)
+            res = linprog(cost, A_ub=A_ub if k > n_eq else None, b_ub=rhs[ub] if k > n_eq else None,
+                          A_eq=A_eq, b_eq=b_eq, bounds=[(0, None)] * (p + k + n_eq), method="highs")
+            if res.status != 0:
+                break
+            mu = res.x[:p]
+            slack = float(res.x[p:].sum())
+            pi_0 = float(res.eqlin.marginals[0])
+            pi = np.zeros(k)
+            pi[eq] = res.eqlin.marginals[1:]
+            if k > n_eq:
+                pi[ub] = res.ineqlin.marginals
+            x = mu @ Vm
+            v = lmo_base((c - A.T @ pi)[None, :])[0]
+            reduced = float(c @ v - pi @ (A @ v) - pi_0)
+            if reduced >= -tol * cs * max(1.0, float(np.abs(v).max())):
+                status = "solved" if slack <= 1e-9 * max(1.0, float(scale)) else "empty"
+                info["gap"][row] = max(0.0, -reduced)
+                info["residual"][row] = slack
+                break
+            V.append(v)
+        out[row] = x
+        info["status"][row] = status
+        info["iterations"][row] = len(V)
     return out, info

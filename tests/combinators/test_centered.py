@@ -51,3 +51,17 @@ def test_centroid_hooks_of_products_and_images():
     assert np.allclose(A.centroid("vertices"), [0.0, 0.0])
     C = P.centered()
     assert np.allclose(C.centroid(), 0.0, atol=1e-12)
+
+
+def test_centered_capped_simplex_uses_the_measures_module():
+    # a small polytope: setkit.measures computes its volume centroid exactly (triangulation);
+    # the centred set then has centroid 0 and the same shape of support function, shifted
+    K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 3},
+                                                       {"kind": "box", "dim": 3, "lower": 0, "upper": 0.6}]})
+    c = K.centroid("volume")
+    # the set is symmetric under permutations of the coordinates, so its centroid is (1/3, 1/3, 1/3)
+    assert np.allclose(c, 1.0 / 3.0, atol=1e-9)
+    C = K.centered("volume")
+    d = np.array([0.3, -1.0, 2.0])
+    assert C.support(d) == pytest.approx(K.support(d) - d @ c)
+    assert np.allclose(C.centroid("volume"), 0.0, atol=1e-9)

@@ -4,7 +4,7 @@ import pytest
 
 import setkit
 from setkit.combinators.intersection import CutIntersection, Intersection, SplitIntersection
-from setkit.errors import EmptySetError, SolveError
+from setkit.errors import EmptySetError
 
 from .fixtures import ball, check_against_reference, halfspaces
 
@@ -26,15 +26,24 @@ def test_polyhedral_parts_merge_into_one_linear_form(rng):
     check_against_reference(K, rng, scales=(1e-3, 1.0, 30.0))
 
 
-def test_capped_simplex_uses_a_native_base_and_the_merged_form(rng):
+def test_capped_simplex_uses_the_cut_dual_and_caps_with_sectors_one_qp(rng):
     for n in (3, 7):
         caps = {"kind": "box", "dim": n, "lower": 0, "upper": rng.uniform(0.3, 0.9, n).tolist()}
         K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": n}, caps]})
-        assert _node_type(K) is CutIntersection
-        assert K.routes()["lmo"].provider == "highs"        # LMO on the merged linear form
+        # the box is the base; of the simplex only sum x = 1 remains (x >= 0 is implied by the box)
+        assert _node_type(K) is CutIntersection and K.node.cut_matrix.shape == (1, n)
+        assert K.routes()["lmo"].provider == "native"      # column generation on the box's LMO
         check_against_reference(K, rng)
+        c = rng.standard_normal((3, n))
+        assert np.allclose(np.einsum("ij,ij->i", c, K.lmo(c)),
+                           np.einsum("ij,ij->i", c, K.with_backends(lmo="highs").lmo(c)), atol=1e-9)
         y = rng.standard_normal((3, n))
         assert np.allclose(K.with_backends(project="osqp").project(y), K.project(y), atol=1e-6)
+    sectors = halfspaces([[1, 1, 0, 0, 0], [0, 0, 1, 1, 0], [0, 0, 0, 1, 1]], [0.5, 0.6, 0.5])
+    K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 5}, sectors,
+                                                       {"kind": "box", "dim": 5, "lower": 0, "upper": 0.4}]})
+    assert _node_type(K) is Intersection and K.routes()["project"].provider == "osqp"
+    check_against_reference(K, rng, scales=(1e-3, 1.0, 30.0))
 
 
 def test_hand_solved_capped_simplex():
@@ -52,7 +61,7 @@ def test_cut_dual_route_ball_and_halfspaces(rng):
     K = setkit.compile({"kind": "intersection", "of": [ball(np.zeros(n), 1.0), halfspaces(A, 0.3 * np.ones(3))]})
     assert _node_type(K) is CutIntersection
     assert K.routes()["project"].provider == "native"
-    assert K.routes()["lmo"].provider == "reference"     # no linear form for the ball
+    assert K.routes()["lmo"].provider == "native"     # column generation on the ball's LMO
     check_against_reference(K, rng, scales=(1e-3, 1.0, 1e3))
 
 
@@ -102,13 +111,26 @@ def test_empty_polyhedral_intersection_is_reported_at_compile_time():
                                                        {"kind": "box", "dim": 3, "lower": 0, "upper": 0.1}]})
 
 
-@pytest.mark.parametrize("second", ["ball", "halfspace"])
-def test_empty_intersection_is_reported_at_run_time(second):
+def test_empty_intersection_is_reported_at_run_time():
     n = 4
-    other = ball(3 * np.ones(n), 1.0) if second == "ball" else halfspaces(-np.eye(n)[:1], [-5.0])
-    K = setkit.compile({"kind": "intersection", "of": [ball(np.zeros(n), 1.0), other]})
+    K = setkit.compile({"kind": "intersection", "of": [ball(np.zeros(n), 1.0), ball(3 * np.ones(n), 1.0)]})
     with pytest.raises(EmptySetError, match="no common point"):
         K.project(np.ones(n))
+
+
+def test_ball_missed_by_a_cut_is_reported_at_compile_time_and_at_run_time():
+    n = 3
+    parts = [ball(np.zeros(n), 1.0), halfspaces(-np.eye(n)[:1], [-5.0])]
+    # column generation with c = 0 (phase one) finds the nonzero slack when the description is read
+    with pytest.raises(EmptySetError, match="no common point"):
+        setkit.compile({"kind": "intersection", "of": parts})
+    # the same node built without that check: the dual diverges and the LMO's slack stays, both say so
+    node = CutIntersection(parts=tuple(parts), base=0, cut_matrix=-np.eye(n)[:1], cut_rhs=np.array([-5.0]), n_eq=0)
+    K = setkit.compile(node)
+    with pytest.raises(EmptySetError, match="no common point"):
+        K.project(np.ones(n))
+    with pytest.raises(EmptySetError, match="no point"):
+        K.lmo(np.ones(n))
 
 
 def test_shapes_must_agree():
@@ -152,3 +174,27 @@ def test_explain_names_the_route():
     # the answer meets the floor and keeps the total (a permutahedron point sums to sum(w) = 6)
     x = K.project([0.0, 0.0, 5.0, 5.0])
     assert x[0] + x[1] >= 4.0 - 1e-8 and abs(x.sum() - 6.0) <= 1e-8
+
+
+def test_cut_lmo_by_column_generation_matches_a_birkhoff_lp(rng):
+    # min <c, x> over conv{permutations of w} ∩ {A x <= b}: by Birkhoff-von Neumann x = W w with W doubly
+    # stochastic, an LP in W solved here directly with scipy.optimize.linprog (independent formulation)
+    from scipy.optimize import linprog
+    n = 6
+    w = np.array([5.0, 3.0, 2.0, 1.0, 0.5, 0.0])
+    A = rng.uniform(0.0, 1.0, (3, n))
+    b = A @ np.full(n, w.mean()) + 0.1
+    K = setkit.compile({"kind": "intersection", "of": [{"kind": "permutahedron", "weights": w.tolist()},
+                                                       {"kind": "polyhedron", "A": A.tolist(), "b": b.tolist()}]})
+    assert K.routes()["lmo"].provider == "native"
+    E_rows = np.kron(np.eye(n), np.ones((1, n)))          # sum_j W_ij = 1
+    E_cols = np.kron(np.ones((1, n)), np.eye(n))          # sum_i W_ij = 1
+    Wx = np.kron(np.eye(n), w[None, :])                   # x_i = sum_j W_ij w_j
+    for _ in range(4):
+        c = rng.standard_normal(n)
+        lp = linprog(c @ Wx, A_ub=A @ Wx, b_ub=b, A_eq=np.vstack([E_rows, E_cols]), b_eq=np.ones(2 * n),
+                     bounds=[(0, None)] * (n * n), method="highs")
+        x = K.lmo(c)
+        assert c @ x == pytest.approx(lp.fun, abs=1e-8)
+        assert np.all(A @ x <= b + 1e-9) and abs(x.sum() - w.sum()) <= 1e-9
+        assert K.support(-c) == pytest.approx(-lp.fun, abs=1e-8)

@@ -135,3 +135,13 @@ def test_stacked_blocks_against_reference(rng):
     kinds = [e[0] for e in K.node._groups()]
     assert kinds.count("stack") == 2 and kinds.count("block") == 1
     check_against_reference(K, rng)
+
+
+def test_nested_intersections_and_images(rng):
+    # (simplex ∩ box) ∩ halfspace, and an affine image of that, against the reference
+    inner = {"kind": "intersection", "of": [{"kind": "simplex", "dim": 4},
+                                            {"kind": "box", "dim": 4, "lower": 0, "upper": 0.6}]}
+    K = setkit.compile({"kind": "intersection", "of": [inner, halfspaces([[1.0, -1.0, 0.0, 0.0]], [0.1])]})
+    check_against_reference(K, rng, n=2)
+    A = setkit.compile({"kind": "affine", "set": inner, "scale": -3.0, "shift": [1.0, 2.0, 3.0, 4.0]})
+    check_against_reference(A, rng, n=2)

@@ -68,6 +68,13 @@ def test_simplex_kernel_paths_agree(rng):
         assert np.abs(a - b).max() <= 1e-12 * np.abs(Y).max()
         np.testing.assert_allclose(a.sum(axis=1), 1.5, rtol=1e-12)
         assert (a >= 0).all()
+    # orders that stress the one-pass candidate list: increasing, decreasing, geometric, constant
+    n = 300
+    hard = np.stack([np.arange(n, dtype=float), -np.arange(n, dtype=float), 0.5 ** np.arange(n),
+                     2.0 ** -np.arange(n)[::-1], np.full(n, 3.0), np.linspace(0, 1e-9, n)])
+    for total in (1e-6, 1.0, 1e3):
+        np.testing.assert_allclose(project_simplex_rows(hard, total), project_simplex_sorted(hard, total),
+                                   atol=1e-12 * max(1.0, total) * n)
 
 
 def test_simplex_lmo_vertex_and_support():
