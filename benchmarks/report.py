@@ -234,6 +234,11 @@ def targets_section(res):
 def write(res, out_dir, plots=True):
     os.makedirs(out_dir, exist_ok=True)
     files = {}
+    old = os.path.join(out_dir, "plots")
+    if os.path.isdir(old):   # plots of an earlier run must not be published with this one
+        for f in os.listdir(old):
+            if f.endswith(".png"):
+                os.remove(os.path.join(old, f))
     if plots:
         try:
             files = plot(res, out_dir)
