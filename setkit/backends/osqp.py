@@ -8,6 +8,15 @@ does not succeed, the point is re-solved warm at eps 1e-10 (the first answer is
 kept if that re-solve does not finish); a solve that stalls from its warm start
 is restarted cold with rho reset. The status is
 checked and the feasibility residual measured by us before an answer is returned.
+
+OSQP fixes its cost scaling at setup from P and q; set up with q = 0, a point far
+from a small set (|y| ~ 4e3 against a set of diameter 2) leaves the scaled linear
+term thousands of times larger than the quadratic one, adaptive rho runs to its
+upper limit and ADMM stalls (maximum iterations, residual 2.5e-4, even from a
+cold start). So a workspace keeps one solver per decade of max(1, |y|_inf), up
+to 1e5 (OSQP clamps its cost scaling at 1e-4), each set up with a linear term of
+that decade so that its cost scaling fits the points it serves; solvers are
+built on first use and each keeps its own warm start.
 """
 from __future__ import annotations
 
@@ -28,6 +37,8 @@ TIGHT_MAX_ITER = 20_000
 # a warm-started solve that does not finish in SETTINGS["max_iter"] iterations is restarted cold, with
 # the step size rho reset (its adapted value from points of another scale can stall ADMM), for up to
 RESTART = dict(rho=0.1, max_iter=100_000)
+# solvers per decade of max(1, |y|_inf): 1, 10, ..., 1e5 (OSQP's cost scaling is clamped at 1e-4 anyway)
+MAX_DECADE = 5
 
 
 @register_backend("osqp")
@@ -55,11 +66,30 @@ class OsqpBackend(Backend):
         lo = np.concatenate([f.b_eq, np.full(f.A_ub.shape[0], -np.inf), f.lo])
         hi = np.concatenate([f.b_eq, f.b_ub, f.hi])
         self.A, self.l, self.u = A, lo, hi
-        self.solver = osqp.OSQP()
-        self.solver.setup(P, np.zeros(n), A, lo, hi, **SETTINGS)
+        self.P = P
         self._osqp = osqp
+        self._solvers = {}
+        self.solver = self._solver_for(0)     # the solver of points with |y|_inf <= 10
         status_enum = getattr(osqp, "SolverStatus", None)   # osqp >= 1.0; older: the named constant
         self._solved = int(status_enum.OSQP_SOLVED) if status_enum is not None else osqp.constant("OSQP_SOLVED")
+
+    @staticmethod
+    def decade(y) -> int:
+        """Which solver serves the point y: floor(log10(max(1, |y|_inf))), at most MAX_DECADE."""
+        m = float(np.abs(y).max(initial=0.0))
+        return 0 if m < 10.0 else min(MAX_DECADE, int(np.floor(np.log10(m))))
+
+    def _solver_for(self, k):
+        """The solver of decade k, set up (factorized) on first use with a linear term of size 10^k."""
+        s = self._solvers.get(k)
+        if s is None:
+            f = self.form
+            q_rep = np.concatenate([np.full(f.n_x, -(10.0 ** k)), np.zeros(f.n_aux)])
+            s = self._osqp.OSQP()
+            s.setup(self.P, q_rep, self.A, self.l, self.u, **SETTINGS)
+            s.warm_start(x=np.zeros(f.n), y=np.zeros(self.A.shape[0]))
+            self._solvers[k] = s
+        return s
 
     def _residual(self, z):
         f = self.form
@@ -77,6 +107,7 @@ class OsqpBackend(Backend):
         stat, iters, bstat = [], [], []
         for i, y in enumerate(Y):
             q = np.concatenate([-y, np.zeros(f.n_aux)])
+            self.solver = self._solver_for(self.decade(y))
             self.solver.update(q=q)
             res = self.solver.solve(raise_error=False)
             ok = res.info.status_val == self._solved

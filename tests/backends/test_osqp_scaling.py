@@ -1,0 +1,58 @@
+"""Regression: OSQP projection of points far from a small set (an affine image of a simplex).
+
+OSQP fixes its cost scaling at setup; set up with q = 0 it stalled (maximum iterations,
+constraint residual 2.5e-4) on the point below, which `setkit compare` of the catalog entry
+centered-forecast-weights.yaml produces. The backend now keeps one solver per decade of |y|.
+"""
+import numpy as np
+import pytest
+
+import setkit
+from setkit.backends.osqp import OsqpBackend
+
+CENTRED = {"kind": "affine", "scale": 2.0, "shift": -0.5, "set": {"kind": "simplex", "dim": 4}}
+
+
+def _sort_projection(y, total):
+    # projection onto {x >= 0, sum x = total} by sorting: Held, Wolfe and Crowder, "Validation of
+    # subgradient optimization", 1974 (the sort-and-threshold rule, from memory)
+    u = np.sort(y)[::-1]
+    css = np.cumsum(u) - total
+    k = np.nonzero(u - css / np.arange(1, y.size + 1) > 0)[0][-1]
+    return np.maximum(y - css[k] / (k + 1), 0.0)
+
+
+def _expected(y):
+    # {2 (w - 1/4) : w in the simplex} = {x >= -1/2, sum x = 0}: shift by 1/2, project onto the
+    # simplex of total 2, shift back
+    return _sort_projection(y + 0.5, 2.0) - 0.5
+
+
+def test_far_point_on_a_fresh_workspace():
+    K = setkit.compile(CENTRED).with_backends(project="osqp")
+    y = np.array([-755.21001425, 4085.54321498, 1293.4059924, 1326.12674475])
+    det = K.project(y, details=True)
+    assert det.status == "solved"
+    # worked by hand as well: the far largest coordinate takes all the mass, the vertex (-.5, 1.5, -.5, -.5)
+    np.testing.assert_allclose(det.point, [-0.5, 1.5, -0.5, -0.5], atol=1e-9)
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_points_of_every_scale_in_one_workspace(seed):
+    rng = np.random.default_rng(seed)
+    K = setkit.compile(CENTRED).with_backends(project="osqp")
+    scales = 10.0 ** rng.uniform(-3, 6, 40)
+    Y = rng.standard_normal((40, 4)) * scales[:, None]
+    P = K.project(Y)
+    for y, p in zip(Y, P):
+        np.testing.assert_allclose(p, _expected(y), atol=1e-7 * max(1.0, np.abs(y).max()) ** 0.5)
+    # and against the cvxpy reference on a few of them
+    R = K.with_backends(project="reference").project(Y[:6])
+    np.testing.assert_allclose(P[:6], R, atol=1e-6)
+
+
+def test_decades_pick_solvers():
+    assert OsqpBackend.decade(np.array([0.5, -3.0])) == 0
+    assert OsqpBackend.decade(np.array([12.0])) == 1
+    assert OsqpBackend.decade(np.array([-4085.5])) == 3
+    assert OsqpBackend.decade(np.array([1e9])) == 5
