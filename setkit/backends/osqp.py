@@ -106,6 +106,14 @@ class OsqpBackend(Backend):
         out = np.empty_like(Y)
         stat, iters, bstat = [], [], []
         for i, y in enumerate(Y):
+            if f.n_aux == 0 and self._residual(y) == 0.0:
+                # y is in the set: it is its own projection (and OSQP, finding no active constraint to
+                # polish on, would print a note on stdout)
+                out[i] = y
+                stat.append("solved")
+                iters.append(0)
+                bstat.append("the point satisfies every constraint: its own projection")
+                continue
             q = np.concatenate([-y, np.zeros(f.n_aux)])
             self.solver = self._solver_for(self.decade(y))
             self.solver.update(q=q)

@@ -56,3 +56,17 @@ def test_decades_pick_solvers():
     assert OsqpBackend.decade(np.array([12.0])) == 1
     assert OsqpBackend.decade(np.array([-4085.5])) == 3
     assert OsqpBackend.decade(np.array([1e9])) == 5
+
+
+def test_points_inside_are_their_own_projection_and_print_nothing(capsys):
+    # OSQP 1.x prints "Polishing not needed" on stdout when no constraint is active; the backend
+    # returns a point of the set as its own projection (exact) without a solve
+    K = setkit.compile({"kind": "polyhedron", "A": [[1, 1], [-1, 2]], "b": [1, 2], "lower": [-1, -1],
+                        "upper": [3, 3]}).with_backends(project="osqp")
+    Y = np.array([[0.1, 0.2], [-0.5, 0.3], [0.5, 0.5]])      # the last one on the facet x1 + x2 = 1
+    det = K.project(Y, details=True)
+    np.testing.assert_array_equal(det.point, Y)
+    assert list(det.iterations) == [0, 0, 0]
+    # a point outside still goes to OSQP: worked by hand, (2, 2) projects onto x1 + x2 = 1 at (0.5, 0.5)
+    np.testing.assert_allclose(K.project([2.0, 2.0]), [0.5, 0.5], atol=1e-9)
+    assert capsys.readouterr().out == ""
