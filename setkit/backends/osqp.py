@@ -6,7 +6,8 @@ at eps 1e-8 and is polished (a successful polish solves the KKT system of the
 identified active set, so the answer is exact up to rounding); when polishing
 does not succeed, the point is re-solved warm at eps 1e-10 (the first answer is
 kept if that re-solve does not finish); a solve that stalls from its warm start
-is restarted cold with rho reset. The status is
+is restarted cold on a second solver with rho fixed (adaptive rho is what stalls
+there, and OSQP cannot switch it off after setup). The status is
 checked and the feasibility residual measured by us before an answer is returned.
 
 OSQP fixes its cost scaling at setup from P and q; set up with q = 0, a point far
@@ -36,7 +37,10 @@ TIGHT = dict(eps_abs=1e-10, eps_rel=1e-10)
 TIGHT_MAX_ITER = 20_000
 # a warm-started solve that does not finish in SETTINGS["max_iter"] iterations is restarted cold, with
 # the step size rho reset (its adapted value from points of another scale can stall ADMM), for up to
-RESTART = dict(rho=0.1, max_iter=100_000)
+# rho held fixed: adaptive rho is what stalls (it runs to its upper limit on the far points of a small
+# set, and cycles on the degenerate auxiliaries of extended formulations). OSQP ignores a change of
+# adaptive_rho after setup, so the restart runs on a second solver (per decade, built on first need).
+RESTART = dict(rho=0.1, max_iter=100_000, adaptive_rho=False)
 # solvers per decade of max(1, |y|_inf): 1, 10, ..., 1e5 (OSQP's cost scaling is clamped at 1e-4 anyway)
 MAX_DECADE = 5
 
@@ -79,16 +83,19 @@ class OsqpBackend(Backend):
         m = float(np.abs(y).max(initial=0.0))
         return 0 if m < 10.0 else min(MAX_DECADE, int(np.floor(np.log10(m))))
 
-    def _solver_for(self, k):
-        """The solver of decade k, set up (factorized) on first use with a linear term of size 10^k."""
-        s = self._solvers.get(k)
+    def _solver_for(self, k, fixed=False):
+        """The solver of decade k, set up (factorized) on first use with a linear term of size 10^k.
+
+        ``fixed=True``: the restart solver of that decade (rho fixed, more iterations).
+        """
+        s = self._solvers.get((k, fixed))
         if s is None:
             f = self.form
             q_rep = np.concatenate([np.full(f.n_x, -(10.0 ** k)), np.zeros(f.n_aux)])
             s = self._osqp.OSQP()
-            s.setup(self.P, q_rep, self.A, self.l, self.u, **SETTINGS)
+            s.setup(self.P, q_rep, self.A, self.l, self.u, **(dict(SETTINGS, **RESTART) if fixed else SETTINGS))
             s.warm_start(x=np.zeros(f.n), y=np.zeros(self.A.shape[0]))
-            self._solvers[k] = s
+            self._solvers[(k, fixed)] = s
         return s
 
     def _residual(self, z):
@@ -120,14 +127,16 @@ class OsqpBackend(Backend):
             res = self.solver.solve(raise_error=False)
             ok = res.info.status_val == self._solved
             note = ""
+            max_iter = SETTINGS["max_iter"]
             if not ok:
                 # a warm start (and rho adapted) at a point of another scale can stall ADMM: restart cold
-                self.solver.update_settings(**RESTART)
+                self.solver = self._solver_for(self.decade(y), fixed=True)
+                self.solver.update(q=q)
                 self.solver.warm_start(x=np.zeros(f.n), y=np.zeros(self.A.shape[0]))
                 res = self.solver.solve(raise_error=False)
-                self.solver.update_settings(max_iter=SETTINGS["max_iter"])
                 ok = res.info.status_val == self._solved
-                note = "; restarted cold"
+                note = "; restarted cold with rho fixed"
+                max_iter = RESTART["max_iter"]
             if not (ok and res.info.status_polish == 1):
                 # polishing did not identify the active set: the answer is only eps-accurate, so
                 # re-solve warm at tighter tolerances (absolute one relative to the point's size)
@@ -138,7 +147,7 @@ class OsqpBackend(Backend):
                                             max_iter=TIGHT_MAX_ITER)
                 res = self.solver.solve(raise_error=False)
                 self.solver.update_settings(eps_abs=SETTINGS["eps_abs"], eps_rel=SETTINGS["eps_rel"],
-                                            max_iter=SETTINGS["max_iter"])
+                                            max_iter=max_iter)
                 tight_ok = res.info.status_val == self._solved
                 if tight_ok:
                     note += "; re-solved at eps 1e-10"

@@ -70,3 +70,18 @@ def test_points_inside_are_their_own_projection_and_print_nothing(capsys):
     # a point outside still goes to OSQP: worked by hand, (2, 2) projects onto x1 + x2 = 1 at (0.5, 0.5)
     np.testing.assert_allclose(K.project([2.0, 2.0]), [0.5, 0.5], atol=1e-9)
     assert capsys.readouterr().out == ""
+
+
+def test_extended_formulation_with_degenerate_auxiliaries():
+    # the fair-exposure catalog set: a permutahedron (64 auxiliary doubly-stochastic variables with no
+    # quadratic term in the projection QP) cut by two floors. Adaptive rho cycled there for 10^5
+    # iterations on 3 of these points (setkit compare, seed 0); the fixed-rho restart solver solves them
+    from setkit.checks import test_points
+    K = setkit.load("catalog/fair-exposure-ranking.yaml")
+    Y = test_points(K, 4, np.random.default_rng(0)).reshape((-1,) + K.shape)
+    det = K.with_backends(project="osqp").project(Y, details=True)
+    assert all(s == "solved" for s in det.status)
+    assert any("rho fixed" in b for b in det.backend_status)
+    R = K.with_backends(project="reference").project(Y[[0, 11, 13, 15]])
+    np.testing.assert_allclose(det.point[[0, 11, 13, 15]], R, atol=1e-6 * np.abs(Y[[0, 11, 13, 15]]).max())
+    assert np.all(det.residual <= 1e-7)
