@@ -272,6 +272,7 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
     sizes = getattr(wl, mode.sizes)
     stopped = {}      # (op, label) -> reason larger sizes are skipped
     last = {}         # (op, label) -> (n, first-call seconds)
+    slopes = {}       # (op, label) -> growth exponent measured between the last two sizes
     missing = [k for k in wl.needs if k not in known_kinds()]
     if missing:
         return [Row(wl.kind, wl.label, "-", "-", 0, status=f"not available: needs the kind(s) "
@@ -340,8 +341,11 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
                     row.status = stopped[key] = f"skipped: {src} by {_base(label)} is skipped from this size on"
                     continue
                 if key in last:
+                    # extrapolate with the slope measured so far (clipped to [1, 3]); with one size
+                    # only, assume 1.5: generic solvers on extended formulations grow faster than n
                     n0, t0 = last[key]
-                    guess = t0 * (n / n0) ** 1.2
+                    k = slopes.get(key, 1.5)
+                    guess = t0 * (n / n0) ** k
                     if guess > 2 * budget:
                         row.status = stopped[key] = (f"skipped: predicted {guess:.3g} s per call from n={n0}, "
                                                      f"over the {budget:g} s budget")
@@ -367,7 +371,11 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
                     continue
                 outs[label] = out
                 row.seconds, row.setup, row.repeats = med, max(0.0, first - med), reps
-                last[key] = (n, med if _base(label) == "native" else first)
+                t_now = med if _base(label) == "native" else first
+                if key in last and n > last[key][0] and last[key][1] > 0 and t_now > 0:
+                    n0, t0 = last[key]
+                    slopes[key] = float(np.clip(np.log(t_now / t0) / np.log(n / n0), 1.0, 3.0))
+                last[key] = (n, t_now)
                 if med > budget:
                     stopped[key] = f"skipped: one call took {med:.3g} s at n={n}, over the {budget:g} s budget"
             jl, jout = _judge(outs)
