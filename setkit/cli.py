@@ -691,6 +691,14 @@ def main(argv=None) -> int:
     except (ImportError, ModuleNotFoundError) as exc:
         print(f"setkit: this operator is not available in this installation: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
+    except BrokenPipeError:
+        # the reader of our output went away (e.g. `setkit verify ... | head`): stop quietly with
+        # the shell's status for a closed pipe, 128 + SIGPIPE (common practice); the verdict is unknown
+        try:
+            sys.stdout = open(os.devnull, "w")
+        except OSError:
+            pass
+        return 141
     except KeyboardInterrupt:
         print("setkit: interrupted", file=sys.stderr)
         return 130

@@ -1,10 +1,17 @@
-"""Linear minimization by HiGHS (through scipy.optimize.linprog) on the linear form."""
+"""Linear minimization by HiGHS on the linear form, in a persistent LP workspace.
+
+The LP {A_eq z = b_eq, A_ub z <= b_ub, lo <= z <= hi} is handed to HiGHS once per
+workspace (see :mod:`setkit.backends._lp`); each direction only changes the costs
+and re-solves from the previous basis or cold, whichever the recent calls favour.
+Without highspy the same workspace runs through scipy.optimize.linprog.
+"""
 from __future__ import annotations
 
 import numpy as np
 
-from ..errors import EmptySetError, SolveError, UnboundedDirectionError
+from ..errors import EmptySetError, UnboundedDirectionError
 from . import Backend, register_backend
+from ._lp import form_workspace, highspy_available, lp_workspace
 
 
 @register_backend("highs")
@@ -15,28 +22,24 @@ class HighsBackend(Backend):
     priority = 20
     tolerance = 1e-9
     package = "scipy"
-    about = "HiGHS dual simplex through scipy.optimize.linprog, explicit bounds, residual measured"
+    about = ("HiGHS simplex on a persistent model of the linear form (costs changed per call, warm or cold "
+             "re-solve), residual measured")
 
     def __init__(self, node, loose=False):
         super().__init__(node, loose)
         f = node.linear_form()
         self.form = f
-        # linprog defaults every variable to >= 0: always pass explicit bounds
-        self.bounds = np.column_stack([f.lo, f.hi])
+        self.ws = form_workspace(f, node.label)
+        self._ray_ws = None
 
     def lmo(self, C):
-        from scipy.optimize import linprog
         f = self.form
         out = np.empty_like(C)
-        stat, iters = [], []
+        stat, iters, bstat = [], [], []
         for i, c in enumerate(C):
             cz = np.concatenate([c, np.zeros(f.n_aux)])
-            res = linprog(cz, A_ub=f.A_ub if f.A_ub.shape[0] else None, b_ub=f.b_ub if f.A_ub.shape[0] else None,
-                          A_eq=f.A_eq if f.A_eq.shape[0] else None, b_eq=f.b_eq if f.A_eq.shape[0] else None,
-                          bounds=self.bounds, method="highs",
-                          options=dict(primal_feasibility_tolerance=1e-10, dual_feasibility_tolerance=1e-10))
-            if res.status in (2, 3):
-                # HiGHS may report 'infeasible or unbounded'; a recession direction decides which
+            ans = self.ws.minimize(cz)
+            if ans.status == "unbounded":
                 ray = self._descent_ray(cz)
                 if ray is not None:
                     d = ray[:f.n_x]
@@ -45,48 +48,40 @@ class HighsBackend(Backend):
                         f"{self.node.label}: lmo(c) has no minimizer: the set is unbounded along the direction "
                         f"d = [{shown}] (a recession direction with <c, d> = {float(cz @ ray):.6g} < 0; batch row "
                         f"{i}).", ray=d)
-                if res.status == 3:
-                    raise UnboundedDirectionError(
-                        f"{self.node.label}: the set is unbounded along the direction -c, so lmo(c) has no "
-                        f"minimizer (HiGHS: {res.message}).")
-                raise EmptySetError(f"{self.node.label}: the set is empty (HiGHS: {res.message}).")
-            if res.status != 0 or res.x is None:
-                raise SolveError(f"highs ({self.node.label}): the LP did not solve (status {res.status}: "
-                                 f"{res.message}).", status=str(res.status))
-            z = res.x
-            resid = 0.0
-            if f.A_eq.shape[0]:
-                resid = max(resid, float(np.abs(f.A_eq @ z - f.b_eq).max()))
-            if f.A_ub.shape[0]:
-                resid = max(resid, float((f.A_ub @ z - f.b_ub).max(initial=0.0)))
-            if resid > 1e-7 * max(1.0, float(np.abs(z).max())):
-                raise SolveError(f"highs ({self.node.label}): LP answer violates constraints by {resid:.3g}.",
-                                 status="infeasible_answer")
-            out[i] = z[:f.n_x]
+                raise UnboundedDirectionError(
+                    f"{self.node.label}: the set is unbounded along the direction -c, so lmo(c) has no "
+                    f"minimizer (HiGHS: {ans.text}; batch row {i}).")
+            if ans.status == "infeasible":
+                raise EmptySetError(f"{self.node.label}: the set is empty (HiGHS: {ans.text}).")
+            out[i] = ans.z[:f.n_x]
             stat.append("solved")
-            iters.append(int(getattr(res, "nit", 0)))
-        return out, {"status": stat, "iterations": iters, "backend_status": [ "optimal" ] * len(stat)}
+            iters.append(ans.iterations)
+            bstat.append(ans.text)
+        return out, {"status": stat, "iterations": iters, "backend_status": bstat}
 
     def _descent_ray(self, cz):
         """A recession direction d of the form with <c, d> < 0 (normalized to max |d| = 1), or None.
 
         Solves min <c, d> over {A_eq d = 0, A_ub d <= 0, d_i >= 0 where lo_i is finite,
-        d_i <= 0 where hi_i is finite, -1 <= d <= 1}.
+        d_i <= 0 where hi_i is finite, -1 <= d <= 1} (a second workspace, built on first need).
         """
-        from scipy.optimize import linprog
         f = self.form
-        lo = np.where(np.isfinite(f.lo), 0.0, -1.0)
-        hi = np.where(np.isfinite(f.hi), 0.0, 1.0)
-        res = linprog(cz, A_ub=f.A_ub if f.A_ub.shape[0] else None,
-                      b_ub=np.zeros(f.A_ub.shape[0]) if f.A_ub.shape[0] else None,
-                      A_eq=f.A_eq if f.A_eq.shape[0] else None,
-                      b_eq=np.zeros(f.A_eq.shape[0]) if f.A_eq.shape[0] else None,
-                      bounds=np.column_stack([lo, hi]), method="highs")
-        if res.status != 0 or res.x is None or not res.fun < -1e-9 * max(1.0, float(np.abs(cz).max())):
+        if self._ray_ws is None:
+            lo = np.where(np.isfinite(f.lo), 0.0, -1.0)
+            hi = np.where(np.isfinite(f.hi), 0.0, 1.0)
+            self._ray_ws = lp_workspace(f.A_eq, np.zeros(f.A_eq.shape[0]), f.A_ub, np.zeros(f.A_ub.shape[0]),
+                                        lo, hi, self.node.label + " (recession cone)")
+        ans = self._ray_ws.minimize(cz)
+        if ans.status != "optimal" or not float(cz @ ans.z) < -1e-9 * max(1.0, float(np.abs(cz).max())):
             return None
-        d = res.x
+        d = ans.z
         return d / max(1e-300, float(np.abs(d).max()))
 
     def support(self, C):
         X, info = self.lmo(-C)   # max <c, x> = <c, argmin <-c, x>>
         return np.einsum("ij,ij->i", C, X), info
+
+    @staticmethod
+    def engine() -> str:
+        """Which LP engine the workspaces use: 'highspy' (persistent model) or 'linprog' (fallback)."""
+        return "highspy" if highspy_available() else "linprog"

@@ -6,8 +6,18 @@ at eps 1e-8 and is polished (a successful polish solves the KKT system of the
 identified active set, so the answer is exact up to rounding); when polishing
 does not succeed, the point is re-solved warm at eps 1e-10 (the first answer is
 kept if that re-solve does not finish); a solve that stalls from its warm start
-is restarted cold with rho reset. The status is
+is restarted cold on a second solver with rho fixed (adaptive rho is what stalls
+there, and OSQP cannot switch it off after setup). The status is
 checked and the feasibility residual measured by us before an answer is returned.
+
+OSQP fixes its cost scaling at setup from P and q; set up with q = 0, a point far
+from a small set (|y| ~ 4e3 against a set of diameter 2) leaves the scaled linear
+term thousands of times larger than the quadratic one, adaptive rho runs to its
+upper limit and ADMM stalls (maximum iterations, residual 2.5e-4, even from a
+cold start). So a workspace keeps one solver per decade of max(1, |y|_inf), up
+to 1e5 (OSQP clamps its cost scaling at 1e-4), each set up with a linear term of
+that decade so that its cost scaling fits the points it serves; solvers are
+built on first use and each keeps its own warm start.
 """
 from __future__ import annotations
 
@@ -27,7 +37,12 @@ TIGHT = dict(eps_abs=1e-10, eps_rel=1e-10)
 TIGHT_MAX_ITER = 20_000
 # a warm-started solve that does not finish in SETTINGS["max_iter"] iterations is restarted cold, with
 # the step size rho reset (its adapted value from points of another scale can stall ADMM), for up to
-RESTART = dict(rho=0.1, max_iter=100_000)
+# rho held fixed: adaptive rho is what stalls (it runs to its upper limit on the far points of a small
+# set, and cycles on the degenerate auxiliaries of extended formulations). OSQP ignores a change of
+# adaptive_rho after setup, so the restart runs on a second solver (per decade, built on first need).
+RESTART = dict(rho=0.1, max_iter=100_000, adaptive_rho=False)
+# solvers per decade of max(1, |y|_inf): 1, 10, ..., 1e5 (OSQP's cost scaling is clamped at 1e-4 anyway)
+MAX_DECADE = 5
 
 
 @register_backend("osqp")
@@ -55,11 +70,33 @@ class OsqpBackend(Backend):
         lo = np.concatenate([f.b_eq, np.full(f.A_ub.shape[0], -np.inf), f.lo])
         hi = np.concatenate([f.b_eq, f.b_ub, f.hi])
         self.A, self.l, self.u = A, lo, hi
-        self.solver = osqp.OSQP()
-        self.solver.setup(P, np.zeros(n), A, lo, hi, **SETTINGS)
+        self.P = P
         self._osqp = osqp
+        self._solvers = {}
+        self.solver = self._solver_for(0)     # the solver of points with |y|_inf <= 10
         status_enum = getattr(osqp, "SolverStatus", None)   # osqp >= 1.0; older: the named constant
         self._solved = int(status_enum.OSQP_SOLVED) if status_enum is not None else osqp.constant("OSQP_SOLVED")
+
+    @staticmethod
+    def decade(y) -> int:
+        """Which solver serves the point y: floor(log10(max(1, |y|_inf))), at most MAX_DECADE."""
+        m = float(np.abs(y).max(initial=0.0))
+        return 0 if m < 10.0 else min(MAX_DECADE, int(np.floor(np.log10(m))))
+
+    def _solver_for(self, k, fixed=False):
+        """The solver of decade k, set up (factorized) on first use with a linear term of size 10^k.
+
+        ``fixed=True``: the restart solver of that decade (rho fixed, more iterations).
+        """
+        s = self._solvers.get((k, fixed))
+        if s is None:
+            f = self.form
+            q_rep = np.concatenate([np.full(f.n_x, -(10.0 ** k)), np.zeros(f.n_aux)])
+            s = self._osqp.OSQP()
+            s.setup(self.P, q_rep, self.A, self.l, self.u, **(dict(SETTINGS, **RESTART) if fixed else SETTINGS))
+            s.warm_start(x=np.zeros(f.n), y=np.zeros(self.A.shape[0]))
+            self._solvers[(k, fixed)] = s
+        return s
 
     def _residual(self, z):
         f = self.form
@@ -76,19 +113,30 @@ class OsqpBackend(Backend):
         out = np.empty_like(Y)
         stat, iters, bstat = [], [], []
         for i, y in enumerate(Y):
+            if f.n_aux == 0 and self._residual(y) == 0.0:
+                # y is in the set: it is its own projection (and OSQP, finding no active constraint to
+                # polish on, would print a note on stdout)
+                out[i] = y
+                stat.append("solved")
+                iters.append(0)
+                bstat.append("the point satisfies every constraint: its own projection")
+                continue
             q = np.concatenate([-y, np.zeros(f.n_aux)])
+            self.solver = self._solver_for(self.decade(y))
             self.solver.update(q=q)
             res = self.solver.solve(raise_error=False)
             ok = res.info.status_val == self._solved
             note = ""
+            max_iter = SETTINGS["max_iter"]
             if not ok:
                 # a warm start (and rho adapted) at a point of another scale can stall ADMM: restart cold
-                self.solver.update_settings(**RESTART)
+                self.solver = self._solver_for(self.decade(y), fixed=True)
+                self.solver.update(q=q)
                 self.solver.warm_start(x=np.zeros(f.n), y=np.zeros(self.A.shape[0]))
                 res = self.solver.solve(raise_error=False)
-                self.solver.update_settings(max_iter=SETTINGS["max_iter"])
                 ok = res.info.status_val == self._solved
-                note = "; restarted cold"
+                note = "; restarted cold with rho fixed"
+                max_iter = RESTART["max_iter"]
             if not (ok and res.info.status_polish == 1):
                 # polishing did not identify the active set: the answer is only eps-accurate, so
                 # re-solve warm at tighter tolerances (absolute one relative to the point's size)
@@ -99,7 +147,7 @@ class OsqpBackend(Backend):
                                             max_iter=TIGHT_MAX_ITER)
                 res = self.solver.solve(raise_error=False)
                 self.solver.update_settings(eps_abs=SETTINGS["eps_abs"], eps_rel=SETTINGS["eps_rel"],
-                                            max_iter=SETTINGS["max_iter"])
+                                            max_iter=max_iter)
                 tight_ok = res.info.status_val == self._solved
                 if tight_ok:
                     note += "; re-solved at eps 1e-10"

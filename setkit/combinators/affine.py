@@ -239,7 +239,8 @@ class LinearImage(AffineImage):
             M = sp.csr_matrix(self.matrix)
             # z = (u, x_part, aux): u - M x_part = s, and the part's constraints on (x_part, aux)
             link = sp.hstack([sp.eye(m), -M, sp.csr_matrix((m, f.n_aux))], format="csr")
-            pad = lambda A: sp.hstack([sp.csr_matrix((A.shape[0], m)), A], format="csr")
+            def pad(A):
+                return sp.hstack([sp.csr_matrix((A.shape[0], m)), A], format="csr")
             A_eq = sp.vstack([link, pad(f.A_eq)], format="csr")
             A_ub = pad(f.A_ub)
             return LinearForm(m, f.n, A_eq, np.concatenate([self.shift, f.b_eq]), A_ub, f.b_ub.copy(),

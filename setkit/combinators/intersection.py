@@ -320,7 +320,7 @@ class SplitIntersection(Intersection):
 
     @kernel("project")
     def project(self, Y, parts):
-        """Accelerated dual proximal gradient on the parts' projections (splitting: dykstra for Dykstra's method), stopped on the duality gap and residual, O(iterations * sum of part costs)."""
+        """Accelerated dual proximal gradient on the parts' projections (splitting: dykstra for Dykstra's method), stopped on the duality gap and residual, O(iterations * sum of part costs)."""  # noqa: E501 (one line: explain() shows it)
         projs = [(lambda Z, p=p: p._run("project", Z)[0]) for p in parts]
         sc = self._row_scale(Y)
         method = dykstra if self.splitting == "dykstra" else fast_dual_projections

@@ -101,8 +101,9 @@ class Product(Family):
         """
         def build():
             offs = np.cumsum([0] + [self.blocks[g].dim for g in self.layout])
-            cols_of = lambda pos: np.array([np.arange(offs[i], offs[i] + self.blocks[self.layout[i]].dim)
-                                            for i in pos], dtype=np.intp)
+            def cols_of(pos):
+                return np.array([np.arange(offs[i], offs[i] + self.blocks[self.layout[i]].dim)
+                                                        for i in pos], dtype=np.intp)
             out, used = [], set()
             # families with a stacking hook: group distinct blocks by (class, shape)
             fam = {}

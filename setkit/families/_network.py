@@ -4,9 +4,9 @@ A network family is {x : B x = s, lo <= x <= hi} with B the node-arc incidence
 matrix of a directed graph ((B x)_v = flow out of v - flow into v) and s the
 net supplies. This module holds what the three families share: the per-thread
 projection workspace (dual Newton kernel with warm-started potentials), the LMO
-by HiGHS dual simplex on the incidence matrix (vertex answers, integral for
-integral data), the unbounded-direction search (a negative-cost cycle of
-uncapacitated edges), and the compile-time feasibility check that names the
+by HiGHS simplex on a persistent per-thread model of the incidence-matrix LP
+(vertex answers, integral for integral data), the unbounded-direction search
+(a negative-cost cycle of uncapacitated edges), and the compile-time feasibility check that names the
 node set whose supply cannot be shipped (Hoffman's circulation condition).
 """
 from __future__ import annotations
@@ -52,12 +52,20 @@ class Network:
                              shape=(self.n_nodes, m))
 
     def is_integral(self) -> bool:
-        vals = np.concatenate([self.lo[np.isfinite(self.lo)], self.hi[np.isfinite(self.hi)], self.supply])
-        return bool(np.all(vals == np.round(vals)))
+        got = self.__dict__.get("_is_integral")      # memoized: the arrays never change
+        if got is None:
+            vals = np.concatenate([self.lo[np.isfinite(self.lo)], self.hi[np.isfinite(self.hi)], self.supply])
+            got = bool(np.all(vals == np.round(vals)))
+            object.__setattr__(self, "_is_integral", got)
+        return got
 
     def scale(self) -> float:
-        vals = np.concatenate([self.lo[np.isfinite(self.lo)], self.hi[np.isfinite(self.hi)], self.supply])
-        return float(max(1.0, np.abs(vals).max(initial=0.0)))
+        got = self.__dict__.get("_scale")
+        if got is None:
+            vals = np.concatenate([self.lo[np.isfinite(self.lo)], self.hi[np.isfinite(self.hi)], self.supply])
+            got = float(max(1.0, np.abs(vals).max(initial=0.0)))
+            object.__setattr__(self, "_scale", got)
+        return got
 
 
 def _thread_state(node):
@@ -118,17 +126,28 @@ def negative_cycle(g: Network, c: np.ndarray):
     return d if float(c @ d) < 0 else None
 
 
-def lmo_network(label: str, g: Network, C: np.ndarray, B=None):
-    """Rows of C -> vertex minimizers of <c, x> by HiGHS dual simplex on the incidence matrix."""
-    from scipy.optimize import linprog
+def lmo_workspace(label: str, g: Network, B=None):
+    """A persistent LP workspace for min <c, x> over {B x = s, lo <= x <= hi} (one per thread)."""
+    from ..backends._lp import lp_workspace
     B = g.incidence() if B is None else B
-    bounds = np.column_stack([g.lo, g.hi])   # linprog defaults to x >= 0: always pass bounds
+    return lp_workspace(B, g.supply, sp.csr_matrix((0, g.n_edges)), np.zeros(0), g.lo, g.hi, label)
+
+
+def lmo_network(label: str, g: Network, C: np.ndarray, B=None, ws=None):
+    """Rows of C -> vertex minimizers of <c, x> by HiGHS simplex on the incidence matrix.
+
+    ``ws`` is this thread's :func:`lmo_workspace` (built here when not given): the
+    model is kept and only the costs change, re-solved warm or cold.
+    Returns ``(points, info)``.
+    """
+    B = g.incidence() if B is None else B
+    ws = lmo_workspace(label, g, B) if ws is None else ws
     integral = g.is_integral()
     out = np.empty_like(C)
+    iters, texts = [], []
     for i, c in enumerate(C):
-        res = linprog(c, A_eq=B, b_eq=g.supply, bounds=bounds, method="highs-ds",
-                      options=dict(primal_feasibility_tolerance=1e-10, dual_feasibility_tolerance=1e-10))
-        if res.status in (2, 3):
+        ans = ws.minimize(c)
+        if ans.status == "unbounded":
             d = negative_cycle(g, c)
             if d is not None:
                 used = np.flatnonzero(d)
@@ -136,12 +155,11 @@ def lmo_network(label: str, g: Network, C: np.ndarray, B=None):
                     f"{label}: lmo(c) has no minimizer: the set is unbounded along the cycle of "
                     f"uncapacitated edges {used.tolist()} (direction d with <c, d> = {float(c @ d):.6g} < 0); "
                     f"give those edges a capacity (or a lower bound).", ray=d)
-            raise SolveError(f"{label}: the LP of lmo reported status {res.status} ({res.message}) but no "
-                             f"unbounded cycle exists.", status=str(res.status))
-        if res.status != 0 or res.x is None:
-            raise SolveError(f"{label}: the LP of lmo did not solve (status {res.status}: {res.message}).",
-                             status=str(res.status))
-        x = np.clip(res.x, g.lo, g.hi)
+            raise SolveError(f"{label}: the LP of lmo reported an unbounded direction ({ans.text}) but no "
+                             f"unbounded cycle exists.", status="unbounded")
+        if ans.status == "infeasible":
+            raise EmptySetError(f"{label}: no flow meets the supplies and the edge bounds ({ans.text}).")
+        x = np.clip(ans.z, g.lo, g.hi)
         if integral:
             # a vertex of a network polytope with integral data is integral (total unimodularity)
             xr = np.round(x)
@@ -152,7 +170,9 @@ def lmo_network(label: str, g: Network, C: np.ndarray, B=None):
             raise SolveError(f"{label}: the LP answer of lmo misses the node balances by {resid:.3g}.",
                              status="infeasible_answer")
         out[i] = x
-    return out
+        iters.append(ans.iterations)
+        texts.append(ans.text)
+    return out, {"status": ["solved"] * len(texts), "iterations": iters, "backend_status": texts}
 
 
 def check_feasible(label: str, g: Network, names, where_fail):
@@ -258,8 +278,16 @@ class NetworkFamily(Family):
 
     @kernel("lmo")
     def lmo(self, C):
-        """HiGHS dual simplex on the node-arc incidence matrix; vertex answers (integral for integral data)."""
-        return lmo_network(self.label, self.network(), C, self._incidence())
+        """HiGHS simplex on a persistent incidence-matrix LP (costs changed per call, warm or cold); vertex answers."""
+        return lmo_network(self.label, self.network(), C, self._incidence(), self._lmo_workspace())
+
+    def _lmo_workspace(self):
+        """This thread's LP workspace (thread-local state outside the node, so the node pickles)."""
+        st = _thread_state(self)
+        ws = getattr(st, "lp", None)
+        if ws is None:
+            ws = st.lp = lmo_workspace(self.label, self.network(), self._incidence())
+        return ws
 
     def _incidence(self):
         st = _thread_state(self)

@@ -305,7 +305,7 @@ def _dual_step(state, lam, x, r, g, v, ineq, L):
     if np.any(base != lam):
         xb, rb, gb, vb = state(base)
     else:
-        xb, rb, gb, vb = x, r, g, v
+        _xb, rb, _gb, _vb = x, r, g, v
     S = np.flatnonzero(free)
     if S.size:
         h = 1e-7 * max(1.0, float(np.abs(base).max(initial=0.0)))
