@@ -23,22 +23,25 @@ __all__ = ["load", "compile", "verify", "build", "from_cvxpy", "DecisionSet", "r
            "AccuracyWarning"]
 
 
-def compile(description, *, source: str = "<dict>", base_dir: str | None = None, **backends):
+def compile(description, *, source: str = "<dict>", base_dir: str | None = None, loose: bool = False,
+            **backends):
     """Compile a description (dict, node or DecisionSet) into a :class:`DecisionSet`.
 
-    Keyword arguments choose backends per operator, as in ``K.with_backends``.
+    Keyword arguments choose backends per operator, as in ``K.with_backends``; ``loose=True``
+    lets iterative methods return answers above their tolerance with an AccuracyWarning
+    instead of raising.
     """
     from .decision_set import DecisionSet
     from .description import parse
     node = parse(description, source=source, base_dir=base_dir)
-    return DecisionSet(node, backends or None)
+    return DecisionSet(node, backends or None, loose=loose)
 
 
-def load(path, **backends):
+def load(path, *, loose: bool = False, **backends):
     """Read a YAML or JSON description file and compile it."""
     from .decision_set import DecisionSet
     from .description import load_file
-    return DecisionSet(load_file(os.fspath(path)), backends or None)
+    return DecisionSet(load_file(os.fspath(path)), backends or None, loose=loose)
 
 
 def verify(target, **kw):

@@ -151,3 +151,12 @@ def test_to_cvxpy_round_trip(rng):
     prob = cp.Problem(cp.Minimize(cp.sum_squares(x - y)), K.to_cvxpy(x))
     prob.solve(solver=cp.CLARABEL)
     np.testing.assert_allclose(x.value, K.project(y), atol=1e-6)
+
+
+def test_compile_and_load_take_loose():
+    # loose is an option of the compiled set, not an operator route
+    import setkit
+    K = setkit.compile({"kind": "simplex", "dim": 3}, loose=True)
+    assert K._loose and K.with_backends(loose=False)._loose is False
+    L = setkit.load("catalog/starter-simplex.yaml", loose=True, project="osqp")
+    assert L._loose and L.routes()["project"].provider == "osqp"
