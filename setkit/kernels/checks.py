@@ -20,3 +20,35 @@ def all_finite(a: np.ndarray) -> bool:
     if flat.size < 64:
         return bool(np.isfinite(flat).all())
     return bool(_all_finite(flat))
+
+
+@njit(cache=True, fastmath=True)
+def _max_abs(a):
+    # the maximum is exact in any order (callers pass finite arrays); four independent running
+    # maxima let the loop pipeline / vectorize
+    m0 = 0.0
+    m1 = 0.0
+    m2 = 0.0
+    m3 = 0.0
+    n = a.size
+    i = 0
+    while i + 4 <= n:
+        v0 = abs(a[i])
+        v1 = abs(a[i + 1])
+        v2 = abs(a[i + 2])
+        v3 = abs(a[i + 3])
+        m0 = m0 if m0 > v0 else v0
+        m1 = m1 if m1 > v1 else v1
+        m2 = m2 if m2 > v2 else v2
+        m3 = m3 if m3 > v3 else v3
+        i += 4
+    while i < n:
+        v0 = abs(a[i])
+        m0 = m0 if m0 > v0 else v0
+        i += 1
+    return max(max(m0, m1), max(m2, m3))
+
+
+def max_abs(a: np.ndarray) -> float:
+    """max |a_i| of a float64 array (0 for an empty one); one pass, no temporary array."""
+    return float(_max_abs(a.reshape(-1)))
