@@ -221,8 +221,15 @@ class Product(Family):
 
     def _values(self, op, X, parts, tol=None):
         b = X.shape[0]
+        groups = self._groups()
+        if len(groups) == 1:             # one group (e.g. copies of one block): no concatenation
+            entry = groups[0]
+            cols, contiguous = entry[2], entry[3]
+            k = cols.shape[0]
+            t = None if tol is None else np.repeat(tol, k)
+            return np.asarray(self._call(entry, op, self._gather(X, cols, contiguous), parts, tol=t)).reshape(b, k)
         vals = []
-        for entry in self._groups():
+        for entry in groups:
             cols, contiguous = entry[2], entry[3]
             k, d = cols.shape
             t = None if tol is None else np.repeat(tol, k)
