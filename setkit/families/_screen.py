@@ -22,8 +22,11 @@ def screened_contains(X, tol, violation, distance, lipschitz, screen=None):
         if v0 == 0.0 or v0 > t0 * lipschitz:
             return np.array([v0 == 0.0])
         return distance(X) <= tol
+    near = v <= tol * lipschitz
+    if not near.any():                   # every row clearly outside
+        return near
     res = v == 0.0
-    unsure = ~res & (v <= tol * lipschitz)
+    unsure = ~res & near
     if unsure.any():
         res[unsure] = distance(X[unsure]) <= tol[unsure]
     return res
