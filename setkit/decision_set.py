@@ -51,13 +51,6 @@ def _all_finite(a):
     return all_finite(a)
 
 
-def _max_abs(a):
-    from .kernels.checks import max_abs      # numba-compiled; imported on first use
-    global _max_abs
-    _max_abs = max_abs
-    return max_abs(a)
-
-
 def _finite_1d(a):
     """all_finite for a 1-d float64 array, calling the compiled loop directly for long ones."""
     from .kernels.checks import _all_finite as nb
@@ -66,6 +59,13 @@ def _finite_1d(a):
     def _finite_1d(a):
         return bool(np.isfinite(a).all()) if a.size < 64 else nb(a)
     return _finite_1d(a)
+
+
+def _finite_max_abs(a):
+    from .kernels.checks import finite_max_abs   # numba-compiled; imported on first use
+    global _finite_max_abs
+    _finite_max_abs = finite_max_abs
+    return finite_max_abs(a)
 
 
 _F64 = np.dtype(np.float64)
@@ -325,11 +325,15 @@ class DecisionSet:
         if tol is None:
             fn = self._direct.get("contains")
             if fn is not None:
-                X = self._one(x)
-                if X is not None:
+                m = -1.0
+                if (type(x) is np.ndarray and x.shape == self._shape and x.dtype == _F64
+                        and x.flags.c_contiguous):
+                    m = _finite_max_abs(x.reshape(-1))      # -1 when some entry is not finite
+                if m >= 0.0:
+                    X = x.reshape(1, self._dim)
                     if self._scale is None:
                         self._scale = max(1.0, float(self.node.scale()))
-                    t = np.array([1e-7 * max(_max_abs(x), self._scale)])
+                    t = np.array([1e-7 * max(m, self._scale)])
                     v = fn(X, t)
                     if isinstance(v, tuple):
                         v = v[0]
