@@ -130,6 +130,10 @@ class Ball(Family):
         """max(||y - c||_2 - r, 0) for p=2; the norm of y - project(y) otherwise, O(n)."""
         if self.norm == 2:
             return np.maximum(np.linalg.norm(Y - self.center, axis=1) - self.radius, 0.0)
+        if self.norm == "inf":
+            # y - clip(y): maximum/minimum instead of np.clip (less overhead); they can differ from
+            # clip only in the sign of a zero, which the squares in the norm do not see
+            return np.linalg.norm(Y - np.minimum(np.maximum(Y, self._lo), self._hi), axis=1)
         return np.linalg.norm(Y - self.project(Y), axis=1)
 
     @kernel("lmo")
