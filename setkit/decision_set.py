@@ -51,6 +51,26 @@ def _all_finite(a):
     return all_finite(a)
 
 
+def _finite_1d(a):
+    """all_finite for a 1-d float64 array, calling the compiled loop directly for long ones."""
+    from .kernels.checks import _all_finite as nb
+    global _finite_1d
+
+    def _finite_1d(a):
+        return bool(np.isfinite(a).all()) if a.size < 64 else nb(a)
+    return _finite_1d(a)
+
+
+def _finite_max_abs(a):
+    from .kernels.checks import finite_max_abs   # numba-compiled; imported on first use
+    global _finite_max_abs
+    _finite_max_abs = finite_max_abs
+    return finite_max_abs(a)
+
+
+_F64 = np.dtype(np.float64)
+
+
 class DecisionSet:
     """A compiled convex set with its operators.
 
@@ -71,6 +91,15 @@ class DecisionSet:
         self._kernels = {op: getattr(node, name) for op, name in node.kernels.items()}
         self._has_children = bool(node.children())
         self._scale = None
+        # bound native kernels, called directly by the single-point fast path of each operator
+        self._direct = {op: self._bind(self._kernels[op]) for op, r in self._routes.items()
+                        if r.provider == "native" and op in self._kernels}
+
+    def _bind(self, fn):
+        """The kernel as a callable of (X) or (X, tol); a combinator's also receives its parts."""
+        if not self._has_children:
+            return fn
+        return lambda *args: fn(*args, self.parts)
 
     # -- pickling: workspaces are rebuilt lazily on the other side -------------------------
     def __getstate__(self):
@@ -149,6 +178,18 @@ class DecisionSet:
         lead = a.shape[: a.ndim - k]
         return np.ascontiguousarray(a.reshape(-1, self._dim)), lead
 
+    def _one(self, a):
+        """The common case: one point of exact shape, float64, C-contiguous, finite -> (1, dim) view.
+
+        None for anything else (the general path in :meth:`_batch` then validates and reports)."""
+        if type(a) is np.ndarray and a.shape == self._shape and a.dtype == _F64 and a.flags.c_contiguous:
+            if a.ndim == 1:
+                if _finite_1d(a):
+                    return a.reshape(1, self._dim)
+            elif _all_finite(a):
+                return a.reshape(1, self._dim)
+        return None
+
     def _out_points(self, P, lead):
         return P.reshape(lead + self.shape)
 
@@ -211,6 +252,15 @@ class DecisionSet:
     # -- operators ------------------------------------------------------------------------------
     def project(self, y, details: bool = False):
         """Euclidean projection onto the set: argmin_{x in K} ||x - y||."""
+        if not details:
+            fn = self._direct.get("project")
+            if fn is not None:
+                Y = self._one(y)
+                if Y is not None:
+                    P = fn(Y)
+                    if isinstance(P, tuple):
+                        P = P[0]
+                    return P.reshape(self._shape)
         Y, lead = self._batch(y, "y", "project")
         t0 = time.perf_counter()
         P, info = self._run("project", Y)
@@ -221,12 +271,29 @@ class DecisionSet:
 
     def distance(self, y):
         """Euclidean distance to the set: ||y - project(y)||."""
+        fn = self._direct.get("distance")
+        if fn is not None:
+            Y = self._one(y)
+            if Y is not None:
+                d = fn(Y)
+                if isinstance(d, tuple):
+                    d = d[0]
+                return d[0] if type(d) is np.ndarray and d.shape == (1,) else self._out_values(d, ())
         Y, lead = self._batch(y, "y", "distance")
         d, _ = self._run("distance", Y)
         return self._out_values(d, lead)
 
     def lmo(self, c, details: bool = False):
         """Linear minimization oracle: a minimizer of <c, x> over the set."""
+        if not details:
+            fn = self._direct.get("lmo")
+            if fn is not None:
+                C = self._one(c)
+                if C is not None:
+                    L = fn(C)
+                    if isinstance(L, tuple):
+                        L = L[0]
+                    return L.reshape(self._shape)
         C, lead = self._batch(c, "c", "lmo")
         t0 = time.perf_counter()
         L, info = self._run("lmo", C)
@@ -237,6 +304,14 @@ class DecisionSet:
 
     def support(self, c):
         """Support function: max over the set of <c, x>."""
+        fn = self._direct.get("support")
+        if fn is not None:
+            C = self._one(c)
+            if C is not None:
+                v = fn(C)
+                if isinstance(v, tuple):
+                    v = v[0]
+                return v[0] if type(v) is np.ndarray and v.shape == (1,) else self._out_values(v, ())
         C, lead = self._batch(c, "c", "support")
         # sigma(c) = -min <-c, x>
         v, _ = self._run("support", C)
@@ -247,6 +322,24 @@ class DecisionSet:
 
         ``tol`` is absolute; by default 1e-7 * max(1, ||x||_inf, scale of the set's data).
         """
+        if tol is None:
+            fn = self._direct.get("contains")
+            if fn is not None:
+                m = -1.0
+                if (type(x) is np.ndarray and x.shape == self._shape and x.dtype == _F64
+                        and x.flags.c_contiguous):
+                    m = _finite_max_abs(x.reshape(-1))      # -1 when some entry is not finite
+                if m >= 0.0:
+                    X = x.reshape(1, self._dim)
+                    if self._scale is None:
+                        self._scale = max(1.0, float(self.node.scale()))
+                    t = np.array([1e-7 * max(m, self._scale)])
+                    v = fn(X, t)
+                    if isinstance(v, tuple):
+                        v = v[0]
+                    if type(v) is np.ndarray and v.shape == (1,):
+                        return v.astype(bool, copy=False)[0]
+                    return self._out_values(np.asarray(v, dtype=bool), ())
         X, lead = self._batch(x, "x", "contains")
         if tol is None:
             t = self._default_tol(X)

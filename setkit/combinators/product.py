@@ -144,10 +144,17 @@ class Product(Family):
                 return np.linalg.norm(sub - res, axis=1) <= tol
             return res
         part = parts[what]
+        fn = getattr(part, "_direct", {}).get(op)     # the part's bound native kernel, if it has one
         if op == "contains":
+            if fn is not None:
+                res = fn(sub, tol)
+                return res[0] if isinstance(res, tuple) else res
             return part._run(op, sub, tol=tol)[0]
         if op == "violation":
             return part_violation(part, sub)
+        if fn is not None:
+            res = fn(sub)
+            return res[0] if isinstance(res, tuple) else res
         return part._run(op, sub)[0]
 
     def positions(self):
@@ -209,20 +216,29 @@ class Product(Family):
 
     def _points(self, op, X, parts):
         b = X.shape[0]
-        out = np.empty_like(X)
+        out = None
         for entry in self._groups():
             cols, contiguous = entry[2], entry[3]
             k, d = cols.shape
             res = self._call(entry, op, self._gather(X, cols, contiguous), parts)
             if contiguous:
                 return np.asarray(res, dtype=float).reshape(b, k * d)
+            if out is None:
+                out = np.empty_like(X)
             out[:, cols.ravel()] = np.asarray(res).reshape(b, k * d)
-        return out
+        return out if out is not None else np.empty_like(X)
 
     def _values(self, op, X, parts, tol=None):
         b = X.shape[0]
+        groups = self._groups()
+        if len(groups) == 1:             # one group (e.g. copies of one block): no concatenation
+            entry = groups[0]
+            cols, contiguous = entry[2], entry[3]
+            k = cols.shape[0]
+            t = None if tol is None else np.repeat(tol, k)
+            return np.asarray(self._call(entry, op, self._gather(X, cols, contiguous), parts, tol=t)).reshape(b, k)
         vals = []
-        for entry in self._groups():
+        for entry in groups:
             cols, contiguous = entry[2], entry[3]
             k, d = cols.shape
             t = None if tol is None else np.repeat(tol, k)

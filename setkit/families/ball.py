@@ -9,7 +9,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
-from ..kernels.vector_ops import ball_lmo, ball_violation, l1_ball_project, l2_ball_project
+from ..kernels.vector_ops import ball_lmo, ball_screen, ball_violation, l1_ball_project, l2_ball_project, l2_dist_rows
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -61,6 +61,8 @@ class Ball(Family):
         object.__setattr__(self, "_p", 0 if self.norm == "inf" else int(self.norm))   # 0 means inf
         object.__setattr__(self, "_lo", self.center - self.radius)
         object.__setattr__(self, "_hi", self.center + self.radius)
+        # ||u||_p <= lip ||u||_2 (the membership screen's constant for p = 1, inf)
+        object.__setattr__(self, "_lip", float(np.sqrt(self.center.size)) if self.norm == 1 else 1.0)
 
     # -- description -----------------------------------------------------------------------
     @property
@@ -128,6 +130,10 @@ class Ball(Family):
         """max(||y - c||_2 - r, 0) for p=2; the norm of y - project(y) otherwise, O(n)."""
         if self.norm == 2:
             return np.maximum(np.linalg.norm(Y - self.center, axis=1) - self.radius, 0.0)
+        if self.norm == "inf":
+            # y - clip(y): maximum/minimum instead of np.clip (less overhead); they can differ from
+            # clip only in the sign of a zero, which the squares in the norm do not see
+            return np.linalg.norm(Y - np.minimum(np.maximum(Y, self._lo), self._hi), axis=1)
         return np.linalg.norm(Y - self.project(Y), axis=1)
 
     @kernel("lmo")
@@ -144,9 +150,36 @@ class Ball(Family):
     def contains(self, X, tol):
         """||x - c||_p <= r screen, the distance only for borderline points (p = 1, inf), O(n)."""
         if self.norm == 2:
+            return self._contains_l2(X, tol)
+        return screened_contains(X, tol, self.violation, self.distance, self._lip, self._screen)
+
+    def _contains_l2(self, X, tol):
+        """distance(X) <= tol, deciding from a compiled norm where it is clear by a rounding margin.
+
+        The compiled and the NumPy norm of x - c differ by far less than 4 (n + 8) eps (||x - c|| + r)
+        (both sums of n squares), so a screened value that far from tol gives the same answer as the
+        exact distance; the exact distance decides the rest."""
+        s = l2_dist_rows(X, self.center)
+        r = self.radius
+        f = 4.0 * (X.shape[1] + 8) * 2.220446049250313e-16
+        if s.shape[0] == 1:                  # one point: scalar logic
+            s0, t0 = float(s[0]), float(tol[0])
+            m = f * (s0 + r)
+            if s0 - r <= t0 - m:
+                return np.array([True])
+            if s0 - r > t0 + m:
+                return np.array([False])
             return self.distance(X) <= tol
-        lip = np.sqrt(self.dim) if self.norm == 1 else 1.0   # ||u||_p <= lip ||u||_2
-        return screened_contains(X, tol, self.violation, self.distance, lip)
+        v = s - r
+        m = f * (s + r)
+        res = v <= tol - m
+        unsure = ~res & (v <= tol + m)
+        if unsure.any():
+            res[unsure] = self.distance(X[unsure]) <= tol[unsure]
+        return res
+
+    def _screen(self, X, tol, lip):
+        return ball_screen(X, self.center, self.radius, self._p, tol, lip)
 
     @kernel("violation")
     def violation(self, X):

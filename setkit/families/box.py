@@ -7,7 +7,7 @@ import numpy as np
 
 from ..errors import UnboundedDirectionError
 from ..forms import LinearForm
-from ..kernels.vector_ops import bounds_sum_violation, box_ops, box_values
+from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation, box_lmo_bounded, box_ops, box_values
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -114,6 +114,8 @@ class Box(Family):
     @kernel("lmo")
     def lmo(self, C):
         """Lower bound where c > 0, upper bound where c < 0 (lower, else upper, where c = 0), O(n)."""
+        if self._all_finite:
+            return box_lmo_bounded(C, self.lower, self.upper, self._tie)
         X, bad = box_ops(C, self.lower, self.upper, self._tie, 1)
         if bad >= 0:
             i, j = divmod(int(bad), C.shape[1])
@@ -132,7 +134,10 @@ class Box(Family):
     @kernel("contains")
     def contains(self, X, tol):
         """Bound-violation screen, the distance only for borderline points, O(n)."""
-        return screened_contains(X, tol, self.violation, self.distance, 1.0)
+        return screened_contains(X, tol, self.violation, self.distance, 1.0, self._screen)
+
+    def _screen(self, X, tol, lip):
+        return bounds_sum_screen(X, self.lower, self.upper, self._zeros, 0.0, True, tol, lip)
 
     @kernel("violation")
     def violation(self, X):

@@ -14,7 +14,7 @@ import numpy as np
 
 from ..forms import LinearForm
 from ..kernels.simplex import knapsack_lmo_rows, project_capped
-from ..kernels.vector_ops import bounds_sum_violation
+from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -146,12 +146,16 @@ class Budget(Family):
     def contains(self, X, tol):
         """Violation screen (bounds and weighted sum), the distance only for borderline points, O(n)."""
         return screened_contains(X, tol, self.violation,
-                                 lambda Z: np.linalg.norm(Z - self.project(Z), axis=1), self._lip)
+                                 lambda Z: np.linalg.norm(Z - self.project(Z), axis=1), self._lip,
+                                 self._screen)
 
     @kernel("support")
     def support(self, C):
         """<c, lmo(-c)> by the same greedy, expected O(n)."""
         return np.einsum("ij,ij->i", C, self.lmo(-C))
+
+    def _screen(self, X, tol, lip):
+        return bounds_sum_screen(X, self.lower, self.upper, self.weights, self.total, self.mode == "equal", tol, lip)
 
     @kernel("violation")
     def violation(self, X):

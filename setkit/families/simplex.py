@@ -7,7 +7,7 @@ import numpy as np
 
 from ..forms import LinearForm
 from ..kernels.simplex import project_simplex_rows, simplex_distance_rows
-from ..kernels.vector_ops import bounds_sum_violation
+from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation, simplex_lmo_rows, simplex_support_rows
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -51,6 +51,7 @@ class Simplex(Family):
         object.__setattr__(self, "_zeros", np.zeros(self.n))
         object.__setattr__(self, "_ones", np.ones(self.n))
         object.__setattr__(self, "_inf", np.full(self.n, np.inf))
+        object.__setattr__(self, "_lip", float(np.sqrt(self.n)))
 
     @property
     def shape(self):
@@ -89,26 +90,20 @@ class Simplex(Family):
     @kernel("lmo")
     def lmo(self, C):
         """The vertex total * e_i at the smallest c_i (the origin when at_most and min c >= 0), O(n)."""
-        b = C.shape[0]
-        X = np.zeros_like(C)
-        j = np.argmin(C, axis=1)
-        rows = np.arange(b)
-        if self.mode == "equal":
-            X[rows, j] = self.total
-        else:
-            X[rows, j] = np.where(C[rows, j] < 0, self.total, 0.0)
-        return X
+        return simplex_lmo_rows(C, float(self.total), self.mode == "at_most")
 
     @kernel("contains")
     def contains(self, X, tol):
         """Violation screen (x >= 0 and the sum), the distance only for borderline points, O(n)."""
-        return screened_contains(X, tol, self.violation, self.distance, np.sqrt(self.n))
+        return screened_contains(X, tol, self.violation, self.distance, self._lip, self._screen)
 
     @kernel("support")
     def support(self, C):
         """total * max(c) (and at least 0 when at_most), O(n)."""
-        m = C.max(axis=1)
-        return self.total * (m if self.mode == "equal" else np.maximum(m, 0.0))
+        return simplex_support_rows(C, float(self.total), self.mode == "at_most")
+
+    def _screen(self, X, tol, lip):
+        return bounds_sum_screen(X, self._zeros, self._inf, self._ones, self.total, self.mode == "equal", tol, lip)
 
     @kernel("violation")
     def violation(self, X):
@@ -127,12 +122,18 @@ class Simplex(Family):
     def stack_params(cls, nodes):
         """Per-block totals for a stacked call of blocks with one stack_key."""
         totals = np.array([nd.total for nd in nodes], dtype=float)
-        return {"unit": cls(n=nodes[0].n, total=1.0, mode=nodes[0].mode), "total": totals}
+        return {"unit": cls(n=nodes[0].n, total=1.0, mode=nodes[0].mode), "total": totals,
+                "all_one": bool(np.all(totals == 1.0))}
 
     @classmethod
     def stacked(cls, op, params, X):
         """Operator ``op`` on rows of X where row r belongs to block r mod k (k = number of totals)."""
         unit, tk = params["unit"], params["total"]
+        if params.get("all_one"):
+            # every total is 1: X / 1 and 1 * x are exact, so the unit operator is the answer
+            if op in ("project", "lmo", "support", "violation"):
+                return getattr(unit, op)(X)
+            return None
         t = np.tile(tk, X.shape[0] // tk.size)
         if op == "project":
             return t[:, None] * unit.project(X / t[:, None])

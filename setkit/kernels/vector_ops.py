@@ -192,3 +192,118 @@ def box_values(X, lo, hi, op):
                 s += v * hi[j] if v > 0.0 else v * lo[j]
         out[r] = np.sqrt(s) if op == 0 else s
     return out
+
+
+@njit(cache=True)
+def bounds_sum_screen(X, lo, hi, w, total, equal, tol, lip):
+    """bounds_sum_violation per row, except that a row stops early (returning a partial value
+    > tol[r] * lip) as soon as a bound is violated by more than tol[r] * lip: a membership screen
+    needs no more."""
+    b, n = X.shape
+    out = np.empty(b)
+    for r in range(b):
+        lim = tol[r] * lip
+        v = 0.0
+        s = 0.0
+        j = 0
+        while j < n:
+            e = min(j + 32, n)
+            for k in range(j, e):
+                x = X[r, k]
+                s += w[k] * x
+                v = max(v, lo[k] - x, x - hi[k])
+            j = e
+            if v > lim:
+                break
+        if v > lim:
+            out[r] = v
+            continue
+        d = s - total
+        if equal:
+            d = abs(d)
+        out[r] = max(v, d)
+    return out
+
+
+@njit(cache=True)
+def ball_screen(X, c, radius, p, tol, lip):
+    """ball_violation per row for p = 1 or 0 (inf), stopping early (with a partial value > tol[r] * lip)
+    once the partial norm already exceeds radius + tol[r] * lip."""
+    b, n = X.shape
+    out = np.empty(b)
+    for r in range(b):
+        lim = tol[r] * lip
+        s = 0.0
+        j = 0
+        while j < n:
+            e = min(j + 32, n)
+            for k in range(j, e):
+                d = abs(X[r, k] - c[k])
+                if p == 1:
+                    s += d
+                else:
+                    s = max(s, d)
+            j = e
+            if s - radius > lim:
+                break
+        out[r] = max(s - radius, 0.0)
+    return out
+
+
+@njit(cache=True)
+def l2_dist_rows(X, c):
+    """||x - c||_2 per row (sequential sum; used as a screen beside the exact NumPy distance)."""
+    b, n = X.shape
+    out = np.empty(b)
+    for r in range(b):
+        s = 0.0
+        for j in range(n):
+            d = X[r, j] - c[j]
+            s += d * d
+        out[r] = np.sqrt(s)
+    return out
+
+
+@njit(cache=True)
+def box_lmo_bounded(C, lo, hi, tie):
+    """box_ops(C, lo, hi, tie, 1)[0] for finite bounds (no unboundedness check, one return value)."""
+    b, n = C.shape
+    out = np.empty_like(C)
+    for r in range(b):
+        for j in range(n):
+            v = C[r, j]
+            out[r, j] = lo[j] if v > 0.0 else (hi[j] if v < 0.0 else tie[j])
+    return out
+
+
+@njit(cache=True)
+def simplex_lmo_rows(C, total, at_most):
+    """Simplex LMO per row: total e_j at the first smallest c_j (the origin when at_most and c_j >= 0)."""
+    b, n = C.shape
+    out = np.zeros((b, n))
+    for r in range(b):
+        j = 0
+        m = C[r, 0]
+        for k in range(1, n):
+            if C[r, k] < m:
+                m = C[r, k]
+                j = k
+        if not at_most or m < 0.0:
+            out[r, j] = total
+    return out
+
+
+@njit(cache=True)
+def simplex_support_rows(C, total, at_most):
+    """Simplex support per row: total max c (max(c) replaced by 0 when at_most and it is below 0)."""
+    b, n = C.shape
+    out = np.empty(b)
+    for r in range(b):
+        M = C[r, 0]
+        for k in range(1, n):
+            if C[r, k] > M:
+                M = C[r, k]
+        if at_most and not (M >= 0.0):
+            M = 0.0
+        out[r] = total * M
+    return out
