@@ -1,7 +1,6 @@
 """Centroids and samplers (setkit.measures) against outside facts and closed forms."""
 from __future__ import annotations
 
-import itertools
 import math
 from dataclasses import dataclass
 
@@ -16,6 +15,8 @@ from setkit.decision_set import DecisionSet
 from setkit.errors import InputError, UnsupportedOperationError
 from setkit.families import Family, kernel
 from setkit.forms import LinearForm
+
+from polygon_cases import shoelace_centroid, transport_2x3_polygon
 
 
 # -- two unregistered test families: a polytope given by its inequalities (no exact knowledge, so the
@@ -77,16 +78,6 @@ def hpoly_from_points(P):
     """H-representation of conv(P) from scipy.spatial.ConvexHull equations (a x + b <= 0)."""
     eq = ConvexHull(P).equations
     return DecisionSet(HPoly(A=eq[:, :-1], b=-eq[:, -1]))
-
-
-def shoelace_centroid(V):
-    """Centroid of a simple polygon with vertices V in order: the shoelace-type formula
-    (Bourke, Calculating the area and centroid of a polygon, 1988; from memory)."""
-    x, y = V[:, 0], V[:, 1]
-    x1, y1 = np.roll(x, -1), np.roll(y, -1)
-    cr = x * y1 - x1 * y
-    area = cr.sum() / 2
-    return np.array([((x + x1) * cr).sum(), ((y + y1) * cr).sum()]) / (6 * area)
 
 
 def delaunay_centroid(P):
@@ -163,18 +154,7 @@ def test_centroid_in_affine_hull_of_2x3_transport_polytope():
         x11, x12 = u
         x13 = r_[0] - x11 - x12
         return np.array([x11, x12, x13, c_[0] - x11, c_[1] - x12, c_[2] - x13])
-    # x >= 0 as rows g.u <= h in u = (x11, x12)
-    Gu = np.array([[-1, 0], [0, -1], [1, 1], [1, 0], [0, 1], [-1, -1]], float)
-    hu = np.array([0, 0, r_[0], c_[0], c_[1], c_[2] - r_[0]])
-    pts = []
-    for i, j in itertools.combinations(range(6), 2):
-        M = Gu[[i, j]]
-        if abs(np.linalg.det(M)) > 1e-12:
-            u = np.linalg.solve(M, hu[[i, j]])
-            if np.all(Gu @ u <= hu + 1e-9):
-                pts.append(u)
-    pts = np.unique(np.round(np.array(pts), 12), axis=0)
-    ordered = pts[ConvexHull(pts).vertices]
+    ordered = transport_2x3_polygon(r_, c_)
     expect = full(shoelace_centroid(ordered))       # affine maps carry uniform laws to uniform laws
     r = K.centroid(details=True)
     assert r.exact and "dimension 2" in r.note

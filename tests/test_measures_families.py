@@ -11,6 +11,8 @@ from scipy.spatial import ConvexHull, Delaunay
 
 import setkit
 
+from polygon_cases import shoelace_centroid, transport_2x3_polygon
+
 
 def _within(point, exact, se, k=4.5):
     z = np.abs(np.asarray(point) - exact) / np.maximum(np.asarray(se), 1e-300)
@@ -228,21 +230,7 @@ def test_transport_centroid_matches_shoelace():
     # formula (Bourke, Calculating the area and centroid of a polygon, 1988; from memory)
     r_, c_ = [4.0, 5.0], [2.0, 3.0, 4.0]
     K = setkit.compile({"kind": "transport", "rows": r_, "cols": c_})
-    Gu = np.array([[-1, 0], [0, -1], [1, 1], [1, 0], [0, 1], [-1, -1]], float)
-    hu = np.array([0, 0, r_[0], c_[0], c_[1], c_[2] - r_[0]])
-    pts = []
-    for i, j in itertools.combinations(range(6), 2):
-        M = Gu[[i, j]]
-        if abs(np.linalg.det(M)) > 1e-12:
-            u = np.linalg.solve(M, hu[[i, j]])
-            if np.all(Gu @ u <= hu + 1e-9):
-                pts.append(u)
-    V = np.unique(np.round(np.array(pts), 12), axis=0)
-    V = V[ConvexHull(V).vertices]
-    x, y = V[:, 0], V[:, 1]
-    x1, y1 = np.roll(x, -1), np.roll(y, -1)
-    cr = x * y1 - x1 * y
-    u = np.array([((x + x1) * cr).sum(), ((y + y1) * cr).sum()]) / (3 * cr.sum())
+    u = shoelace_centroid(transport_2x3_polygon(r_, c_))
     x13 = r_[0] - u.sum()
     expect = np.array([[u[0], u[1], x13], [c_[0] - u[0], c_[1] - u[1], c_[2] - x13]])
     np.testing.assert_allclose(K.centroid(), expect, atol=1e-10)
