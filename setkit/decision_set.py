@@ -134,6 +134,36 @@ class DecisionSet:
     def routes(self) -> dict:
         return dict(self._routes)
 
+    # -- flat-batch interface for combinators, penalties, measures and extensions -------------
+    @property
+    def loose(self) -> bool:
+        """Whether iterative methods may return answers above tolerance with an AccuracyWarning."""
+        return self._loose
+
+    def run(self, op: str, X, tol=None):
+        """Run operator ``op`` on a validated flat batch ``X`` of shape (b, dim); returns (out, info)."""
+        return self._run(op, X, tol=tol)
+
+    def native(self, op: str):
+        """The bound native kernel serving ``op`` (a callable of flat batches), or None."""
+        return self._direct.get(op)
+
+    def flatten(self, y, argname: str = "y", operator: str = "call"):
+        """Validate an array-like of trailing shape K.shape; returns (flat (b, dim) batch, leading shape)."""
+        return self._batch(y, argname, operator)
+
+    def unflatten_points(self, P, lead):
+        """Reshape a flat batch of points (b, dim) to lead + K.shape."""
+        return self._out_points(P, lead)
+
+    def unflatten_values(self, v, lead):
+        """Reshape (b,) values to the leading shape (a scalar for a single point)."""
+        return self._out_values(v, lead)
+
+    def linear_form(self):
+        """The set's linear form {A_eq z = b_eq, A_ub z <= b_ub, lo <= z <= hi}, or None (computed once)."""
+        return self._form()
+
     def explain(self) -> str:
         """Which algorithm or backend serves each operator, and why."""
         lines = [f"{self.node.label}: shape {self.shape}, dim {self.dim}"]

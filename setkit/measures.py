@@ -259,7 +259,7 @@ def reduced(K):
     node = K.node
     if node in _REDUCED:
         return _REDUCED[node]
-    form = K._form()
+    form = K.linear_form()
     P = None
     if form is not None and form.n_aux == 0:
         P = reduce_form(form, node.label)

@@ -129,7 +129,7 @@ class DistancePenalty:
 
     # -- core ------------------------------------------------------------------------------------
     def _dist_proj(self, X):
-        P, _ = self.K._run("project", X)
+        P, _ = self.K.run("project", X)
         R = X - P
         d = np.linalg.norm(R, axis=1)
         tol = 1e-12 * np.maximum(1.0, np.abs(X).max(axis=1))
@@ -178,29 +178,29 @@ class DistancePenalty:
     # -- public ----------------------------------------------------------------------------------
     def value(self, x, details: bool = False):
         """P(x) for one point (a float) or a batch (an array of the batch shape)."""
-        X, lead = self.K._batch(x, "x", "penalty.value")
+        X, lead = self.K.flatten(x, "x", "penalty.value")
         v, se, _, _ = self._compute(X, False)
-        out = self.K._out_values(v, lead)
+        out = self.K.unflatten_values(v, lead)
         if not details:
             return out
-        return PenaltyEstimate(out, self.K._out_values(se, lead), self.samples, self._estimator("value"))
+        return PenaltyEstimate(out, self.K.unflatten_values(se, lead), self.samples, self._estimator("value"))
 
     __call__ = value
 
     def grad(self, x, details: bool = False):
         """grad P(x) (a subgradient for smoothing=None), of the same shape as x."""
-        X, lead = self.K._batch(x, "x", "penalty.grad")
+        X, lead = self.K.flatten(x, "x", "penalty.grad")
         _, _, g, gse = self._compute(X, True)
-        out = self.K._out_points(g, lead)
+        out = self.K.unflatten_points(g, lead)
         if not details:
             return out
-        return PenaltyEstimate(out, self.K._out_points(gse, lead), self.samples, self._estimator("grad"))
+        return PenaltyEstimate(out, self.K.unflatten_points(gse, lead), self.samples, self._estimator("grad"))
 
     def value_and_grad(self, x):
         """(P(x), grad P(x)) from one set of projections (and, for the ball, the same samples)."""
-        X, lead = self.K._batch(x, "x", "penalty.value_and_grad")
+        X, lead = self.K.flatten(x, "x", "penalty.value_and_grad")
         v, _, g, _ = self._compute(X, True)
-        return self.K._out_values(v, lead), self.K._out_points(g, lead)
+        return self.K.unflatten_values(v, lead), self.K.unflatten_points(g, lead)
 
     def extend(self, f, grad_f=None, *, batched: bool = False) -> "ExtendedLoss":
         """The loss f + P on the whole space, with value and gradient.
@@ -222,14 +222,14 @@ class ExtendedLoss:
 
     def _apply(self, fn, x, kind):
         K = self.penalty.K
-        X, lead = K._batch(x, "x", f"extended loss {kind}")
+        X, lead = K.flatten(x, "x", f"extended loss {kind}")
         if self.batched:
-            out = np.asarray(fn(K._out_points(X, lead)), dtype=float)
+            out = np.asarray(fn(K.unflatten_points(X, lead)), dtype=float)
             return out.reshape(lead + (() if kind == "value" else K.shape))
         rows = [np.asarray(fn(r.reshape(K.shape)), dtype=float) for r in X]
         if kind == "value":
-            return K._out_values(np.array([float(r) for r in rows]), lead)
-        return K._out_points(np.stack([r.reshape(K.dim) for r in rows]) if rows else np.zeros((0, K.dim)), lead)
+            return K.unflatten_values(np.array([float(r) for r in rows]), lead)
+        return K.unflatten_points(np.stack([r.reshape(K.dim) for r in rows]) if rows else np.zeros((0, K.dim)), lead)
 
     def value(self, x):
         """f(x) + P(x)."""

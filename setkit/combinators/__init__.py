@@ -71,9 +71,9 @@ def part_violation(part, X):
     """A part's violation of each row, NaN where the part has no independent check."""
     if part.routes()["violation"].provider == "none":
         return np.full(X.shape[0], np.nan)
-    v, _ = part._run("violation", X)
+    v, _ = part.run("violation", X)
     return np.asarray(v, dtype=float)
 
 
 def loose_of(parts) -> bool:
-    return any(getattr(p, "_loose", False) for p in parts)
+    return any(p.loose for p in parts)

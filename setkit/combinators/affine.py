@@ -183,31 +183,31 @@ class ScaledSet(AffineImage):
     @kernel("project")
     def project(self, Y, parts):
         """a·P_K((y - s)/a) + s: the part's projection after an exact change of variables."""
-        P, info = parts[0]._run("project", self._pre(Y))
+        P, info = parts[0].run("project", self._pre(Y))
         return self.scale_factor * P + self.shift, info
 
     @kernel("distance")
     def distance(self, Y, parts):
         """|a|·d_K((y - s)/a): the part's distance after an exact change of variables."""
-        d, _ = parts[0]._run("distance", self._pre(Y))
+        d, _ = parts[0].run("distance", self._pre(Y))
         return abs(self.scale_factor) * np.asarray(d)
 
     @kernel("lmo")
     def lmo(self, C, parts):
         """a·lmo_K(a·c) + s: the part's LMO after an exact change of variables."""
-        L, info = parts[0]._run("lmo", self.scale_factor * C)
+        L, info = parts[0].run("lmo", self.scale_factor * C)
         return self.scale_factor * L + self.shift, info
 
     @kernel("support")
     def support(self, C, parts):
         """sigma_K(a·c) + <c, s>: the part's support after an exact change of variables."""
-        v, _ = parts[0]._run("support", self.scale_factor * C)
+        v, _ = parts[0].run("support", self.scale_factor * C)
         return np.asarray(v) + C @ self.shift
 
     @kernel("contains")
     def contains(self, X, tol, parts):
         """(x - s)/a in K within tol/|a|: the part's membership after a change of variables."""
-        v, _ = parts[0]._run("contains", self._pre(X), tol=tol / abs(self.scale_factor))
+        v, _ = parts[0].run("contains", self._pre(X), tol=tol / abs(self.scale_factor))
         return np.asarray(v, bool)
 
     @kernel("violation")
@@ -251,13 +251,13 @@ class LinearImage(AffineImage):
     @kernel("lmo")
     def lmo(self, C, parts):
         """M·lmo_K(M^T c) + s: the part's LMO on the pulled-back direction, O(part LMO + b m d)."""
-        L, info = parts[0]._run("lmo", C @ self.matrix)
+        L, info = parts[0].run("lmo", C @ self.matrix)
         return L @ self.matrix.T + self.shift, info
 
     @kernel("support")
     def support(self, C, parts):
         """sigma_K(M^T c) + <c, s>: the part's support on the pulled-back direction, O(part + b m d)."""
-        v, _ = parts[0]._run("support", C @ self.matrix)
+        v, _ = parts[0].run("support", C @ self.matrix)
         return np.asarray(v) + C @ self.shift
 
 
@@ -270,8 +270,8 @@ class LinearImageGradient(LinearImage):
         """Accelerated projected gradient on the preimage, stopped on the Frank-Wolfe gap, O(steps * part cost)."""
         part = parts[0]
         sc = np.maximum(max(1.0, self.scale()), np.abs(Y).max(axis=1))
-        X, info = project_linear_image(lambda Z: part._run("project", Z)[0],
-                                       lambda C: np.asarray(part._run("support", C)[0]),
+        X, info = project_linear_image(lambda Z: part.run("project", Z)[0],
+                                       lambda C: np.asarray(part.run("support", C)[0]),
                                        self.matrix, self.shift, Y, sc, accuracy=self.accuracy,
                                        max_iterations=self.max_iterations)
         bad = [i for i, s in enumerate(info["status"]) if s != "solved"]
@@ -331,4 +331,4 @@ def centered(K, measure: str = "volume", **kw):
         raise SolveError(f"centered: the centroid of {K.node.label} has shape {c.shape}; expected {K.shape}.")
     label = K.node.name or K.node.kind
     node = make_affine(K.node, scale=1.0, shift=-c.reshape(-1), name=f"{label} centered ({measure})")
-    return DecisionSet(node, loose=getattr(K, "_loose", False))
+    return DecisionSet(node, loose=K.loose)

@@ -226,9 +226,9 @@ class Intersection(Family):
             r = p.routes()
             if r["contains"].provider == "derived" and r["violation"].provider == "form":
                 # a bare linear form: its largest constraint violation, not a projection per point
-                v = p._run("violation", X)[0] <= tol
+                v = p.run("violation", X)[0] <= tol
             else:
-                v, _ = p._run("contains", X, tol=tol)
+                v, _ = p.run("contains", X, tol=tol)
             ok &= np.asarray(v, bool)
         return ok
 
@@ -281,7 +281,7 @@ class CutIntersection(Intersection):
         base = parts[self.base]
 
         def proj(Z):
-            return base._run("project", Z)[0]
+            return base.run("project", Z)[0]
 
         sc = self._row_scale(Y)
         X, info = project_with_cuts(proj, Y, self.cut_matrix, self.cut_rhs, self.n_eq, sc,
@@ -293,7 +293,7 @@ class CutIntersection(Intersection):
     def lmo(self, C, parts):
         """Column generation (Dantzig-Wolfe): a small master LP over vertices from the base's own LMO, O(columns * (base LMO + small LP))."""
         base = parts[self.base]
-        X, info = lmo_with_cuts(lambda Q: base._run("lmo", Q)[0], C, self.cut_matrix, self.cut_rhs, self.n_eq,
+        X, info = lmo_with_cuts(lambda Q: base.run("lmo", Q)[0], C, self.cut_matrix, self.cut_rhs, self.n_eq,
                                 max(1.0, self.scale()))
         status = info["status"]
         if "empty" in status:
@@ -321,7 +321,7 @@ class SplitIntersection(Intersection):
     @kernel("project")
     def project(self, Y, parts):
         """Accelerated dual proximal gradient on the parts' projections (splitting: dykstra for Dykstra's method), stopped on the duality gap and residual, O(iterations * sum of part costs)."""  # noqa: E501 (one line: explain() shows it)
-        projs = [(lambda Z, p=p: p._run("project", Z)[0]) for p in parts]
+        projs = [(lambda Z, p=p: p.run("project", Z)[0]) for p in parts]
         sc = self._row_scale(Y)
         method = dykstra if self.splitting == "dykstra" else fast_dual_projections
         X, info = method(projs, Y, sc, accuracy=self.accuracy,
@@ -401,7 +401,7 @@ def _check_cuts_feasible(node):
     """Phase one of the column generation (c = 0): nonzero elastic slack means the cuts miss the base."""
     from ..decision_set import DecisionSet
     base = DecisionSet(node.parts[node.base])
-    _, info = lmo_with_cuts(lambda Q: base._run("lmo", Q)[0], np.zeros((1, node.dim)), node.cut_matrix,
+    _, info = lmo_with_cuts(lambda Q: base.run("lmo", Q)[0], np.zeros((1, node.dim)), node.cut_matrix,
                             node.cut_rhs, node.n_eq, max(1.0, node.scale()))
     if info["status"][0] == "empty":
         raise EmptySetError(f"the parts have no common point: the cuts miss {node.parts[node.base].label} "

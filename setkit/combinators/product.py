@@ -144,18 +144,18 @@ class Product(Family):
                 return np.linalg.norm(sub - res, axis=1) <= tol
             return res
         part = parts[what]
-        fn = getattr(part, "_direct", {}).get(op)     # the part's bound native kernel, if it has one
+        fn = part.native(op)     # the part's bound native kernel, if it has one
         if op == "contains":
             if fn is not None:
                 res = fn(sub, tol)
                 return res[0] if isinstance(res, tuple) else res
-            return part._run(op, sub, tol=tol)[0]
+            return part.run(op, sub, tol=tol)[0]
         if op == "violation":
             return part_violation(part, sub)
         if fn is not None:
             res = fn(sub)
             return res[0] if isinstance(res, tuple) else res
-        return part._run(op, sub)[0]
+        return part.run(op, sub)[0]
 
     def positions(self):
         """The block node at each position (expanded layout)."""
