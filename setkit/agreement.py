@@ -4,8 +4,9 @@
 own tests all take from here:
 
 * the reference routes: :data:`REFERENCE_ROUTES` and :func:`reference` make a set whose
-  projection, LMO and support are solved by the cvxpy reference backend (Clarabel); distance
-  and membership follow from the projection by the derived rules;
+  projection, LMO and support are solved by the cvxpy reference backend (Clarabel); the other
+  operators keep their routes, so reference distances are always measured from the reference
+  projection, ``||x - p_ref||`` (:meth:`ReferenceComparison.ref_distances`);
 * the seeded inputs: :func:`seeded_points` (inside, near, at the set's scale, far, tiny 1e-3,
   huge 1e6) and :func:`seeded_directions` (Gaussian, rounded so that ties occur, all-ones,
   tiny, huge);
@@ -48,8 +49,8 @@ def reference(K, loose: bool = False):
 
     >>> import setkit
     >>> R = reference(setkit.compile({"kind": "simplex", "dim": 3}))
-    >>> R.routes()["project"].provider, R.routes()["distance"].provider
-    ('reference', 'derived')
+    >>> R.routes()["project"].provider, R.routes()["lmo"].provider
+    ('reference', 'reference')
     """
     return K.with_backends(**REFERENCE_ROUTES, loose=True) if loose else K.with_backends(**REFERENCE_ROUTES)
 
@@ -99,7 +100,7 @@ def value_gaps(v, w) -> np.ndarray:
     same_inf = np.isinf(v) & np.isinf(w) & (np.sign(v) == np.sign(w))
     with np.errstate(invalid="ignore"):
         gaps = np.where(same_inf, 0.0, np.abs(v - w))
-    return np.nan_to_num(gaps, nan=np.inf)
+    return np.nan_to_num(gaps, nan=np.inf, posinf=np.inf)
 
 
 def objective_gaps(C, L, Lr):
