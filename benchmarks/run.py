@@ -30,6 +30,7 @@ if __package__ in (None, ""):  # python benchmarks/run.py
     __package__ = "benchmarks"
 
 import setkit  # noqa: E402
+from setkit.agreement import DEFAULT_RTOL  # noqa: E402
 from setkit.backends import all_backends  # noqa: E402
 from setkit.families import known_kinds  # noqa: E402
 
@@ -37,7 +38,7 @@ from ._workloads import workloads_for  # noqa: E402
 
 OPERATORS = ("project", "distance", "lmo", "support", "contains")
 HERE = os.path.dirname(os.path.abspath(__file__))
-AGREE_RTOL = 2e-5          # same tolerance as setkit.checks.verify
+AGREE_RTOL = DEFAULT_RTOL  # the tolerance of setkit.agreement.verify
 
 
 @dataclass(frozen=True)
