@@ -451,11 +451,14 @@ def verify(K, n_points: int = 4, seed: int = 0, rtol: float = DEFAULT_RTOL) -> R
 
 # -- backend comparison ------------------------------------------------------------------------------
 def providers(K, op: str) -> list[str]:
-    """Every provider that can serve ``op`` on ``K``, as the routing registry declares them.
+    """Every provider that can serve ``op`` on ``K``, as the registries declare them, in the
+    order routing prefers them.
 
-    "native" when the family has a kernel for ``op``, "derived" when routing has a rule deriving
-    it from another operator, then each registered backend (by priority) that serves ``op``,
-    is installed and accepts the set.
+    "native" when the family has a kernel for ``op``; each combinator strategy declared for the
+    set's kind that serves ``op`` and accepts the set (by priority); "derived" when routing has
+    a rule deriving ``op`` from another operator; then each registered backend (by priority)
+    that serves ``op``, is installed and accepts the set. Each name is a valid
+    ``K.with_backends(op=name)``.
 
     >>> import setkit
     >>> providers(setkit.compile({"kind": "simplex", "dim": 3}), "distance")[:2]
@@ -463,9 +466,11 @@ def providers(K, op: str) -> list[str]:
     """
     from .backends import all_backends
     from .routing import DERIVED_RULES
+    from .strategies import strategies_for
     out = []
     if op in K.node.kernels:
         out.append("native")
+    out.extend(cls.name for cls in strategies_for(K.node.kind) if op in cls.operators and cls.accepts(K.node)[0])
     if op in DERIVED_RULES:
         out.append("derived")
     for name, cls in sorted(all_backends().items(), key=lambda kv: kv[1].priority):
