@@ -45,7 +45,7 @@ from typing import Callable
 
 import numpy as np
 
-from .agreement import (DEFAULT_RTOL, REFERENCE_ROUTES, ReferenceComparison, lmo_rows, objective_gaps,
+from .agreement import (DEFAULT_RTOL, REFERENCE_ROUTES, ReferenceComparison, data_scale, lmo_rows, objective_gaps,
                         point_gaps, support_rows, value_gaps)
 from .errors import InputError, SetkitError, UnboundedDirectionError, UnsupportedOperationError
 
@@ -599,7 +599,7 @@ def points(K, where: str = "anywhere", scale: float = 10.0):
     from hypothesis import strategies as st
     from hypothesis.extra.numpy import arrays
     K = _as_set(K)
-    s = max(1.0, float(K.node.scale()))
+    s = data_scale(K)
     bound = float(scale) * s
     elems = st.floats(-bound, bound, allow_nan=False, allow_infinity=False, width=64)
     base = arrays(np.float64, K.shape, elements=elems)
