@@ -144,3 +144,17 @@ def test_an_impossible_tolerance_fails(rtol):
     # the check can fail: at rtol = 1e-30 the interior-point reference never matches exactly
     rep = A.verify(setkit.compile({"kind": "ball", "dim": 3, "radius": 1.0}), n_points=1, rtol=rtol)
     assert not rep.ok
+
+
+def test_the_first_provider_is_the_default_route_on_every_catalog_entry():
+    # providers() lists what the registries declare in routing's order of preference, so its first
+    # entry is the route the plan chose; every listed name is accepted by with_backends
+    from pathlib import Path
+    folder = Path(__file__).resolve().parent.parent / "catalog"
+    for path in sorted(folder.glob("*.yaml")):
+        K = setkit.load(path)
+        for op in A.COMPARED_OPERATORS:
+            got = A.providers(K, op)
+            assert got and got[0] == K.routes()[op].provider, (path.stem, op, got)
+            for name in got:
+                assert K.with_backends(**{op: name}).routes()[op].provider == name
