@@ -281,13 +281,7 @@ class ReferenceComparison:
 
     def ref_lmo_rows(self, C):
         """Reference LMO per row; None where the set is unbounded along -c."""
-        out = []
-        for c in C:
-            try:
-                out.append(self.flat(self.ref.lmo(c.reshape(self.K.shape)), 1)[0])
-            except UnboundedDirectionError:
-                out.append(None)
-        return out
+        return lmo_rows(self.ref, C)
 
     def ref_lmo(self):
         C, _ = self.directions()
