@@ -7,12 +7,13 @@ from __future__ import annotations
 
 import threading
 import time
+import warnings
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
-from .errors import InputError, SolveError
+from .errors import AccuracyWarning, InputError, SolveError
 from .routing import build_plan, check_nonempty
 
 
@@ -228,6 +229,17 @@ class DecisionSet:
 
     # -- input handling -------------------------------------------------------------------------
     def _batch(self, arr, argname: str, op: str):
+        kind = getattr(getattr(arr, "dtype", None), "kind", None)
+        if kind is None:
+            try:
+                kind = np.asarray(arr).dtype.kind
+            except (TypeError, ValueError):
+                kind = "O"
+        if kind not in "biuf":
+            what = {"c": "complex", "U": "text", "S": "bytes", "O": "object", "M": "datetime", "m": "timedelta"}
+            raise InputError(f"{op} on {self.node.label}: argument {argname} must be real numbers (bool, int or "
+                             f"float dtypes); got {what.get(kind, kind)} data of type {type(arr).__name__}. "
+                             f"Convert it with numpy.asarray(..., dtype=float) after dropping non-real parts.")
         try:
             a = np.asarray(arr, dtype=float)
         except (TypeError, ValueError):
@@ -494,6 +506,19 @@ class DecisionSet:
         status = _flat_info(info, "status", b, "solved")
         iters = _flat_info(info, "iterations", b, 0)
         bstat = _flat_info(info, "backend_status", b, "exact")
+        # the accuracy contract: a record never says "solved" above the tolerance the set states
+        allowed = self._default_tol(np.concatenate([X, P], axis=1)) if b else np.zeros(0)
+        over = np.flatnonzero(np.asarray(resid, dtype=float) > allowed)
+        if over.size:
+            i = int(over[0])
+            msg = (f"{op} on {self.node.label}: the answer for batch row {i} violates the set's constraints by "
+                   f"{float(resid[i]):.3g}, above the allowed {float(allowed[i]):.3g} (route {self._routes[op].provider}, "
+                   f"input magnitude {float(np.abs(X[i]).max(initial=0.0)):.3g}). Try with_backends({op}=\"reference\").")
+            if not self._loose:
+                raise SolveError(msg, status="inaccurate")
+            warnings.warn(msg, AccuracyWarning, stacklevel=3)
+            for j in over:
+                status[j] = "inaccurate"
 
         def pack(v, dtype=None):
             arr = np.asarray(v, dtype=dtype)

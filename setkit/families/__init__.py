@@ -147,6 +147,14 @@ class Family:
         """
         return None
 
+    def membership_screen(self, X, tol, parts):
+        """A cheap membership verdict per row: +1 in, -1 farther than tol, 0 undecided; or None.
+
+        Used by routing's derived membership rule before any distance is computed (only the
+        undecided rows are projected). ``parts`` are the compiled parts of a combinator.
+        """
+        return None
+
     def new_workspace(self):
         """A fresh per-thread workspace for kernels marked ``@kernel(op, workspace=True)``, or None."""
         return None
