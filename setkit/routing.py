@@ -45,6 +45,17 @@ def _support_from_lmo(run, node, context):
     return support
 
 
+def _vjp_from_jvp(source):
+    def build(run, node, context):
+        def vjp(Y, U):
+            # the Jacobian is symmetric: a Euclidean projection is the gradient of the convex function
+            # (1/2)||y||^2 - (1/2)d_K(y)^2, and the KL projection in log coordinates the gradient of the
+            # conjugate of the entropy restricted to K; so J^T u = J u
+            return run(source, Y, U)
+        return vjp
+    return build
+
+
 def _contains_from_distance(run, node, context):
     def screen(X, tol):
         # the family's own screen, else one from its constraints (a linear form without auxiliaries)
@@ -79,6 +90,11 @@ class DerivedRule:
 DERIVED_RULES = {
     "distance": DerivedRule("project", "distance = ||y - project(y)||", _distance_from_projection),
     "support": DerivedRule("lmo", "support(c) = <c, lmo(-c)>", _support_from_lmo),
+    "project_vjp": DerivedRule("project_jvp", "J^T u = J u (the Jacobian of a Euclidean projection is symmetric: "
+                                              "the Hessian of (1/2)||y||^2 - (1/2)d(y)^2)", _vjp_from_jvp("project_jvp")),
+    "project_kl_vjp": DerivedRule("project_kl_jvp", "J^T u = J u (in log coordinates the KL projection is the gradient "
+                                                    "of a convex conjugate, so its Jacobian is symmetric)",
+                                  _vjp_from_jvp("project_kl_jvp")),
     "contains": DerivedRule("distance", "contains(x) = distance(x) <= tol, after a screen by the constraints "
                                         "where the set has one (only undecided points are projected)",
                             _contains_from_distance),
@@ -99,7 +115,8 @@ def derived_call(op: str, run, node=None):
 FORM_RULES = {
     "violation": "largest violated constraint of the linear form",
 }
-TAKES_TOL = frozenset({"contains"})
+TAKES_TOL = frozenset({"contains", "project_jvp", "project_vjp", "project_kl_jvp", "project_kl_vjp"})
+# (operators whose kernels take a second flat array: the tolerance, or the tangent / cotangent)
 CHAINED = frozenset({"project"})     # operators whose generic backends fall back to the next one on a failed solve
 
 
@@ -116,7 +133,7 @@ class Route:
     category: str = ""
 
     def describe(self) -> str:
-        return f"{self.operator:<10} {self.provider:<10} {self.reason}"
+        return f"{self.operator:<14} {self.provider:<10} {self.reason}"
 
 
 @dataclass(frozen=True)
@@ -267,6 +284,14 @@ def choose(node, overrides: dict | None = None) -> dict:
         else:
             r = _generic(op, node)
             routes[op] = r if r is not None else Route(op, "none", "no implementation can serve it", category="none")
+    # a derived route whose source has no implementation has none either (in dependency order)
+    changed = True
+    while changed:
+        changed = False
+        for op, r in routes.items():
+            if r.category == "derived" and routes[r.source].provider == "none":
+                routes[op] = Route(op, "none", f"derived from {r.source}, which has no implementation", category="none")
+                changed = True
     return routes
 
 
