@@ -482,6 +482,21 @@ def _median_time(fn, arg, repeat):
     return out, float(np.median(times))
 
 
+def _answered_elsewhere(Kp, op, prov, X) -> list:
+    """Notes of the rows that ``prov`` failed and the next backend of its fallback chain answered.
+
+    Routing lets a failed generic solve fall back to the next backend (``routing.CHAINED``);
+    judging a provider means judging its own answers, so such rows count as failures.
+    """
+    from .routing import CHAINED
+    route = Kp.routes()[op]
+    if op not in CHAINED or route.category != "backend":
+        return []
+    _, info = Kp.run(op, X)
+    notes = [str(n) for n in (info.get("backend_status") or [])]
+    return [n for n in notes if "answered by " in n and not n.endswith("answered by " + prov)]
+
+
 def _reference_answers(cmp):
     """Reference answer per compared operator (an exception where the reference failed)."""
     out = {}
@@ -527,10 +542,16 @@ def compare_backends(K, n_points=4, seed=0, repeat=3, rtol=DEFAULT_RTOL, progres
             row = {"operator": op, "provider": prov, "cases": len(inp), "ms_per_call": None,
                    "max_gap": None, "allowed": rtol, "agrees": None, "failed": False, "note": ""}
             try:
-                out, t = _median_time(getattr(K.with_backends(**{op: prov}), op), inp, repeat)
+                Kp = K.with_backends(**{op: prov})
+                out, t = _median_time(getattr(Kp, op), inp, repeat)
                 row["ms_per_call"] = 1e3 * t / len(inp)
                 want = baseline[op]
-                if isinstance(want, Exception):
+                elsewhere = _answered_elsewhere(Kp, op, prov, X if points else C)
+                if elsewhere:
+                    row["failed"] = True
+                    row["note"] = (f"{len(elsewhere)} of {len(inp)} rows failed and were answered by the "
+                                   f"fallback: {elsewhere[0]}")[:200]
+                elif isinstance(want, Exception):
                     row["note"] = f"no reference answer: {want}"[:100]
                 else:
                     if op == "project":

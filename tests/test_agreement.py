@@ -158,3 +158,24 @@ def test_the_first_provider_is_the_default_route_on_every_catalog_entry():
             assert got and got[0] == K.routes()[op].provider, (path.stem, op, got)
             for name in got:
                 assert K.with_backends(**{op: name}).routes()[op].provider == name
+
+
+def test_compare_judges_a_backend_by_its_own_answers_not_its_fallback(monkeypatch):
+    # a failed generic projection falls back to the next backend; the comparison must still
+    # report the failing backend as failed rather than credit it with the fallback's answers
+    from setkit.errors import SolveError
+
+    class Failing(Backend):
+        operators = ("project",)
+        requires = "cvxpy"
+        priority = 10_000
+        about = "fails on purpose (tests)"
+
+        def project(self, Y):
+            raise SolveError("always fails (on purpose)", status="max_iter")
+    all_backends()
+    monkeypatch.setitem(_BACKENDS, "fails_for_agreement_tests", Failing)
+    rows = A.compare_backends(setkit.compile({"kind": "simplex", "dim": 3}), n_points=1, repeat=1)
+    row = next(r for r in rows if r["provider"] == "fails_for_agreement_tests")
+    assert row["failed"] and row["agrees"] is None and "answered by" in row["note"], row
+    assert not any(r["failed"] for r in rows if r is not row)
