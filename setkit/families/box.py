@@ -64,7 +64,7 @@ class Box(Family):
     def benchmark_example(cls, n, rng):
         """A box with random bounds in R^n (benchmarks/run.py)."""
         lo = -rng.uniform(0.5, 1.5, n)
-        return {"kind": "box", "about": "box with random bounds, dim n", "lower": lo,
+        return {"kind": "box", "about": "box with random bounds, dim n", "dim": n, "lower": lo,
                 "upper": lo + rng.uniform(0.5, 3.0, n)}
 
     @classmethod
