@@ -30,7 +30,7 @@ from typing import Callable
 import numpy as np
 
 from setkit.errors import DescriptionError
-from setkit.families import known_kinds, lookup
+from setkit.families import Family, known_kinds, lookup
 
 QUICK_SIZES = (24,)
 FULL_SIZES = (100, 1_000, 10_000, 100_000, 1_000_000)
@@ -60,10 +60,13 @@ def benchmark_specs(family, n: int, rng) -> list:
     """The family's scalable benchmark descriptions at size ``n`` (an empty list when it has none).
 
     The one place that reads the optional ``benchmark_example`` hook (see the module docstring);
-    combinators whose modules do not declare it yet are served by :data:`HELD`.
+    combinators whose modules do not declare it yet are served by :data:`HELD`. A hook a family
+    inherits unchanged from ``Family`` (the default, "no instance") is not called.
     """
     hook = getattr(family, HOOK, None)
-    got = hook(n, rng) if hook is not None else None
+    declared = hook is not None and getattr(hook, "__func__", hook) is not getattr(getattr(Family, HOOK, None),
+                                                                                  "__func__", None)
+    got = hook(n, rng) if declared else None
     if got is None and family.kind in HELD:
         got = HELD[family.kind](n, rng)
     if got is None:
@@ -77,10 +80,9 @@ def benchmark_specs(family, n: int, rng) -> list:
 
 def first_example(family, rng):
     """The family's first declared example (``examples()``, else ``random_example(rng)``), or None."""
-    specs = list(getattr(family, "examples", lambda: [])() or [])
-    if not specs and getattr(family, "random_example", None) is not None:
-        specs = [family.random_example(rng)]
-    specs = [s for s in specs if s is not None]
+    specs = list(family.examples() or [])
+    if not specs:
+        specs = [s for s in (family.random_example(rng),) if s is not None]
     return dict(specs[0], kind=specs[0].get("kind", family.kind)) if specs else None
 
 
