@@ -389,7 +389,13 @@ def sweep(mode: Mode, kinds=None, ops=OPERATORS, log=print, seed=0) -> list:
     an entry point are found by name)."""
     rows = []
     for kind in sorted(kinds) if kinds else known_kinds():
-        wls = workloads(kind, mode.sizes, seed)
+        try:
+            wls = workloads(kind, mode.sizes, seed)
+        except Exception as exc:   # a family whose instances cannot be built is a row of the report
+            rows.append(Row(kind, kind, "-", "-", 0, status=f"error: no instance: {type(exc).__name__}: "
+                                                            f"{str(exc)[:160]}"))
+            log(f"{kind}: no instance: {exc}")
+            continue
         if not wls:
             rows.append(Row(kind, kind, "-", "-", 0, status=f"no benchmark instance: the family declares neither "
                                                             f"{HOOK}(n, rng) nor examples()"))

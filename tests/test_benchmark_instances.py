@@ -77,3 +77,38 @@ def test_providers_are_the_declared_backends():
             assert K.with_backends(**over).routes()[op].provider == over[op], (op, label)
     order = judge_order()
     assert order[:2] == (REFERENCE, NATIVE) and set(order) == set(backends) | {NATIVE}
+
+
+def test_no_import_circle_among_the_benchmark_modules():
+    """Every import between modules of benchmarks/ (at any depth of the code) forms an acyclic graph."""
+    import ast
+    import os
+    here = os.path.join(os.path.dirname(os.path.dirname(os.path.abspath(__file__))), "benchmarks")
+    mods = {f[:-3] for f in os.listdir(here) if f.endswith(".py") and f != "__init__.py"}
+    graph = {}
+    for m in mods:
+        with open(os.path.join(here, m + ".py")) as fh:
+            tree = ast.parse(fh.read())
+        deps = set()
+        for node in ast.walk(tree):
+            if isinstance(node, ast.ImportFrom):
+                base = (node.module or "").split(".")[-1] if node.level or (node.module or "").startswith("benchmarks") \
+                    else (node.module or "").split(".")[0]
+                deps |= {base} & mods if base else {a.name for a in node.names} & mods
+            elif isinstance(node, ast.Import):
+                deps |= {a.name.split(".")[-1] for a in node.names if a.name.startswith("benchmarks.")} & mods
+        graph[m] = deps - {m}
+    assert "providers" in graph["targets"] and "run" not in graph["targets"]
+    done, active = set(), []
+
+    def visit(m):
+        assert m not in active, "import circle: " + " -> ".join(active[active.index(m):] + [m])
+        if m in done:
+            return
+        active.append(m)
+        for d in sorted(graph[m]):
+            visit(d)
+        active.pop()
+        done.add(m)
+    for m in sorted(graph):
+        visit(m)
