@@ -7,12 +7,13 @@ from __future__ import annotations
 
 import threading
 import time
+import warnings
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
-from .errors import InputError, SolveError
+from .errors import AccuracyWarning, InputError, SolveError
 from .routing import build_plan, check_nonempty
 
 
@@ -69,6 +70,15 @@ def _finite_max_abs(a):
 
 
 _F64 = np.dtype(np.float64)
+GEOMETRIES = ("euclidean", "kl")
+
+
+def kl_divergence(X, T):
+    """Generalized relative entropy KL(x || y) = sum x log(x/y) - x + y per row, from t = log y (0 log 0 = 0)."""
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        logx = np.where(X > 0, np.log(np.where(X > 0, X, 1.0)), 0.0)
+        terms = np.where(X > 0, X * (logx - T), 0.0) - X + np.exp(T)
+    return terms.sum(axis=1)
 
 
 class DecisionSet:
@@ -228,6 +238,17 @@ class DecisionSet:
 
     # -- input handling -------------------------------------------------------------------------
     def _batch(self, arr, argname: str, op: str):
+        kind = getattr(getattr(arr, "dtype", None), "kind", None)
+        if kind is None:
+            try:
+                kind = np.asarray(arr).dtype.kind
+            except (TypeError, ValueError):
+                kind = "O"
+        if kind not in "biuf":
+            what = {"c": "complex", "U": "text", "S": "bytes", "O": "object", "M": "datetime", "m": "timedelta"}
+            raise InputError(f"{op} on {self.node.label}: argument {argname} must be numeric, real numbers (bool, int or "
+                             f"float dtypes); got {what.get(kind, kind)} data of type {type(arr).__name__}. "
+                             f"Convert it with numpy.asarray(..., dtype=float) after dropping non-real parts.")
         try:
             a = np.asarray(arr, dtype=float)
         except (TypeError, ValueError):
@@ -287,7 +308,42 @@ class DecisionSet:
         return 1e-7 * np.maximum(np.abs(X).max(axis=1), self._scale)
 
     # -- operators ------------------------------------------------------------------------------
-    def project(self, y, details: bool = False):
+    # -- geometries ------------------------------------------------------------------------------
+    def _geometry(self, geometry, op):
+        g = "euclidean" if geometry is None else str(geometry).lower()
+        if g not in GEOMETRIES:
+            import difflib
+            near = difflib.get_close_matches(g, GEOMETRIES, n=1)
+            hint = f" Did you mean {near[0]!r}?" if near else ""
+            raise InputError(f"{op} on {self.node.label}: geometry must be one of {', '.join(GEOMETRIES)}; "
+                             f"got {geometry!r}.{hint}")
+        return g
+
+    def _log_input(self, y, argname, op, log_input):
+        """Flat log-domain batch T = log y (or y itself when ``log_input``), validated."""
+        Y, lead = self._batch(y, argname, op)
+        if log_input:
+            return Y, lead
+        bad = np.flatnonzero((Y <= 0).any(axis=1)) if Y.size else np.zeros(0, int)
+        if bad.size:
+            i = int(bad[0])
+            j = int(np.flatnonzero(Y[i] <= 0)[0])
+            raise InputError(f"{op} on {self.node.label}: the KL geometry needs y > 0 (relative entropy KL(x||y) "
+                             f"is defined for positive y); got {Y[i, j]!r} at batch row {i}, coordinate {j}. "
+                             f"Pass log y with log_input=True to use values that would underflow.")
+        with np.errstate(divide="ignore"):
+            return np.log(Y), lead
+
+    def _kl_project(self, y, details, log_input, op="project"):
+        T, lead = self._log_input(y, "y", op, log_input)
+        t0 = time.perf_counter()
+        X, info = self._run("project_kl", T)
+        secs = time.perf_counter() - t0
+        if not details:
+            return self._out_points(X, lead), T, X, lead
+        return self._details("project_kl", T, X, lead, info, secs, certificate="kl"), T, X, lead
+
+    def project(self, y, details: bool = False, *, geometry: str = "euclidean", log_input: bool = False):
         """Euclidean projection onto the set.
 
         .. math:: P_K(y) = \\arg\\min_{x \\in K} \\|x - y\\|_2
@@ -317,6 +373,8 @@ class DecisionSet:
         >>> setkit.compile({"kind": "simplex", "dim": 2}).project([[2.0, 0.0], [0.5, 0.5]]).tolist()
         [[1.0, 0.0], [0.5, 0.5]]
         """
+        if geometry != "euclidean" and self._geometry(geometry, "project") == "kl":
+            return self._kl_project(y, details, log_input)[0]
         if not details:
             P = self._fast("project", y)
             if P is not None:
@@ -329,7 +387,7 @@ class DecisionSet:
             return self._out_points(P, lead)
         return self._details("project", Y, P, lead, info, secs, certificate=True)
 
-    def distance(self, y):
+    def distance(self, y, *, geometry: str = "euclidean", log_input: bool = False):
         """Euclidean distance to the set.
 
         .. math:: d_K(y) = \\min_{x \\in K} \\|x - y\\|_2 = \\|y - P_K(y)\\|_2
@@ -343,12 +401,56 @@ class DecisionSet:
         >>> float(setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}).distance([4.0, 5.0]))
         5.0
         """
+        if geometry != "euclidean" and self._geometry(geometry, "distance") == "kl":
+            _, T, X, lead = self._kl_project(y, False, log_input, "distance")
+            return self._out_values(kl_divergence(X, T), lead)
         d = self._fast("distance", y)
         if d is not None:
             return d[0] if type(d) is np.ndarray and d.shape == (1,) else self._out_values(d, ())
         Y, lead = self._batch(y, "y", "distance")
         d, _ = self._run("distance", Y)
         return self._out_values(d, lead)
+
+    def _jacobian_product(self, op, y, w, wname, geometry, log_input):
+        g = self._geometry(geometry, op)
+        if g == "kl":
+            T, lead = self._log_input(y, "y", op, log_input)
+        else:
+            T, lead = self._batch(y, "y", op)
+        W, lead_w = self._batch(w, wname, op)
+        if lead_w != lead:
+            raise InputError(f"{op} on {self.node.label}: {wname} must have the shape of y, {lead + self.shape}; "
+                             f"got {lead_w + self.shape}.")
+        if g == "kl":
+            if not log_input:
+                Yp = np.exp(T)
+                if op == "project_jvp":      # d/dy = d/dt diag(1/y)
+                    out, _ = self._run("project_kl_jvp", T, W / Yp)
+                else:
+                    out, _ = self._run("project_kl_vjp", T, W)
+                    out = out / Yp
+            else:
+                out, _ = self._run("project_kl_jvp" if op == "project_jvp" else "project_kl_vjp", T, W)
+        else:
+            out, _ = self._run(op, T, W)
+        return self._out_points(out, lead)
+
+    def project_jvp(self, y, v, *, geometry: str = "euclidean", log_input: bool = False):
+        """Jacobian-vector product of the projection: J(y) v, with J the derivative of project(y).
+
+        .. math:: J_{P_K}(y)\\, v
+
+        Exact where the projection is piecewise linear (the derivative on the active face) and
+        by implicit differentiation elsewhere; at a point where P_K is not differentiable the
+        family documents which element of the generalized Jacobian is returned. With
+        ``geometry="kl"`` the derivative is of the KL projection, with respect to y (or to
+        t = log y when ``log_input``). Batched like ``project``; v has the shape of y.
+        """
+        return self._jacobian_product("project_jvp", y, v, "v", geometry, log_input)
+
+    def project_vjp(self, y, u, *, geometry: str = "euclidean", log_input: bool = False):
+        """Vector-Jacobian product of the projection: J(y)^T u (see :meth:`project_jvp`)."""
+        return self._jacobian_product("project_vjp", y, u, "u", geometry, log_input)
 
     def lmo(self, c, details: bool = False):
         """Linear minimization oracle: a minimizer of a linear function over the set.
@@ -484,16 +586,42 @@ class DecisionSet:
         s, _ = self._run("support", R)
         return s - np.einsum("ij,ij->i", R, P)
 
+    def _kl_gap(self, T, X):
+        """Bregman analogue of the Frank-Wolfe gap: with g = log x - t (the gradient of KL(.||y) at x),
+        <g, x - lmo(g)> >= KL(x||y) - KL(x*||y)."""
+        if self._routes["lmo"].provider == "none" or X.shape[0] == 0:
+            return np.full(X.shape[0], np.nan)
+        with np.errstate(divide="ignore"):
+            G = np.where(X > 0, np.log(np.where(X > 0, X, 1.0)), -745.0) - T
+        L, _ = self._run("lmo", G)
+        return np.einsum("ij,ij->i", G, X - L)
+
     def _details(self, op, X, P, lead, info, secs, certificate):
         b = X.shape[0]
         if self._routes["violation"].provider != "none":
             resid, _ = self._run("violation", P)
         else:
             resid = np.full(b, np.nan)
-        cert = self._gap(X, P) if certificate else np.full(b, np.nan)
+        if certificate == "kl":
+            cert = self._kl_gap(X, P)
+        else:
+            cert = self._gap(X, P) if certificate else np.full(b, np.nan)
         status = _flat_info(info, "status", b, "solved")
         iters = _flat_info(info, "iterations", b, 0)
         bstat = _flat_info(info, "backend_status", b, "exact")
+        # the accuracy contract: a record never says "solved" above the tolerance the set states
+        allowed = self._default_tol(np.concatenate([X, P], axis=1)) if b else np.zeros(0)
+        over = np.flatnonzero(np.asarray(resid, dtype=float) > allowed)
+        if over.size:
+            i = int(over[0])
+            msg = (f"{op} on {self.node.label}: the answer for batch row {i} violates the set's constraints by "
+                   f"{float(resid[i]):.3g}, above the allowed {float(allowed[i]):.3g} (route {self._routes[op].provider}, "
+                   f"input magnitude {float(np.abs(X[i]).max(initial=0.0)):.3g}). Try with_backends({op}=\"reference\").")
+            if not self._loose:
+                raise SolveError(msg, status="inaccurate")
+            warnings.warn(msg, AccuracyWarning, stacklevel=3)
+            for j in over:
+                status[j] = "inaccurate"
 
         def pack(v, dtype=None):
             arr = np.asarray(v, dtype=dtype)

@@ -25,30 +25,58 @@ from typing import Any, Callable, Mapping
 import numpy as np
 
 from .backends import all_backends, get_backend
-from .errors import BackendUnavailableError, UnsupportedOperationError
+from .errors import BackendUnavailableError, SolveError, UnsupportedOperationError
 from .families import OPERATORS, memo
 from .strategies import all_strategies, strategies_for
 
 
 # -- derived rules, declared as data and executed here --------------------------------------
-def _distance_from_projection(run):
+def _distance_from_projection(run, node, context):
     def distance(X):
         P, info = run("project", X)
         return np.linalg.norm(X - P, axis=1), info
     return distance
 
 
-def _support_from_lmo(run):
+def _support_from_lmo(run, node, context):
     def support(C):
         L, info = run("lmo", -C)       # max <c, x> = <c, argmin <-c, x>>
         return np.einsum("ij,ij->i", C, L), info
     return support
 
 
-def _contains_from_distance(run):
+def _vjp_from_jvp(source):
+    def build(run, node, context):
+        def vjp(Y, U):
+            # the Jacobian is symmetric: a Euclidean projection is the gradient of the convex function
+            # (1/2)||y||^2 - (1/2)d_K(y)^2, and the KL projection in log coordinates the gradient of the
+            # conjugate of the entropy restricted to K; so J^T u = J u
+            return run(source, Y, U)
+        return vjp
+    return build
+
+
+def _contains_from_distance(run, node, context):
+    def screen(X, tol):
+        # the family's own screen, else one from its constraints (a linear form without auxiliaries)
+        v = node.membership_screen(X, tol, context.parts if node.children() else ())
+        if v is None:
+            form = context.linear_form() if context is not None else None
+            if form is not None and form.n_aux == 0:
+                v = form.membership_screen(X, tol)
+        return v
+
     def contains(X, tol):
-        d, info = run("distance", X)
-        return np.asarray(d) <= tol, info
+        v = screen(X, tol) if context is not None else None
+        if v is None:
+            d, info = run("distance", X)
+            return np.asarray(d) <= tol, info
+        out = np.asarray(v) > 0
+        todo = np.flatnonzero(np.asarray(v) == 0)
+        if todo.size:
+            d, _ = run("distance", X[todo])
+            out[todo] = np.asarray(d) <= tol[todo]
+        return out, {}
     return contains
 
 
@@ -56,26 +84,40 @@ def _contains_from_distance(run):
 class DerivedRule:
     source: str                  # the operator it is computed from
     text: str                    # the rule in words, for explain()
-    build: Callable              # build(run) -> callable on flat batches returning (out, info)
+    build: Callable              # build(run, node, context) -> callable on flat batches returning (out, info)
 
 
 DERIVED_RULES = {
     "distance": DerivedRule("project", "distance = ||y - project(y)||", _distance_from_projection),
     "support": DerivedRule("lmo", "support(c) = <c, lmo(-c)>", _support_from_lmo),
-    "contains": DerivedRule("distance", "contains(x) = distance(x) <= tol", _contains_from_distance),
+    "project_vjp": DerivedRule("project_jvp", "J^T u = J u (the Jacobian of a Euclidean projection is symmetric: "
+                                              "the Hessian of (1/2)||y||^2 - (1/2)d(y)^2)", _vjp_from_jvp("project_jvp")),
+    "project_kl_vjp": DerivedRule("project_kl_jvp", "J^T u = J u (in log coordinates the KL projection is the gradient "
+                                                    "of a convex conjugate, so its Jacobian is symmetric)",
+                                  _vjp_from_jvp("project_kl_jvp")),
+    "contains": DerivedRule("distance", "contains(x) = distance(x) <= tol, after a screen by the constraints "
+                                        "where the set has one (only undecided points are projected)",
+                            _contains_from_distance),
 }
 
 
-def derived_call(op: str, run):
+def derived_call(op: str, run, node=None):
     """The derived rule for ``op`` as a callable on flat batches, built on ``run(op, X, tol=None)``; None if none."""
     rule = DERIVED_RULES.get(op)
-    return None if rule is None else rule.build(run)
+    if rule is None:
+        return None
+    if node is None:
+        from .families import Family
+        node = Family()
+    return rule.build(run, node, None)
 
 
 FORM_RULES = {
     "violation": "largest violated constraint of the linear form",
 }
-TAKES_TOL = frozenset({"contains"})
+TAKES_TOL = frozenset({"contains", "project_jvp", "project_vjp", "project_kl_jvp", "project_kl_vjp"})
+# (operators whose kernels take a second flat array: the tolerance, or the tangent / cotangent)
+CHAINED = frozenset({"project"})     # operators whose generic backends fall back to the next one on a failed solve
 
 
 @dataclass(frozen=True)
@@ -91,7 +133,7 @@ class Route:
     category: str = ""
 
     def describe(self) -> str:
-        return f"{self.operator:<10} {self.provider:<10} {self.reason}"
+        return f"{self.operator:<14} {self.provider:<10} {self.reason}"
 
 
 @dataclass(frozen=True)
@@ -160,6 +202,17 @@ def _generic(op, node):
                 return Route(op, name, f"no native kernel; generic {cls.problem} backend: {cls.about}",
                              category="backend")
     return None
+
+
+def _chain(op, node):
+    """Every available generic backend that serves ``op`` for ``node``, by priority."""
+    out = []
+    for name, cls in sorted(all_backends().items(), key=lambda kv: kv[1].priority):
+        if op in cls.operators and cls.available():
+            ok, _ = cls.accepts(node)
+            if ok:
+                out.append((name, cls))
+    return out
 
 
 def _accepted_strategies(node):
@@ -231,6 +284,14 @@ def choose(node, overrides: dict | None = None) -> dict:
         else:
             r = _generic(op, node)
             routes[op] = r if r is not None else Route(op, "none", "no implementation can serve it", category="none")
+    # a derived route whose source has no implementation has none either (in dependency order)
+    changed = True
+    while changed:
+        changed = False
+        for op, r in routes.items():
+            if r.category == "derived" and routes[r.source].provider == "none":
+                routes[op] = Route(op, "none", f"derived from {r.source}, which has no implementation", category="none")
+                changed = True
     return routes
 
 
@@ -274,13 +335,17 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             calls[op] = _with_fallback((lambda f: (lambda *a: _as_pair(f(*a, context.parts))))(meth), op,
                                        fallback, context, node)
         elif r.category == "derived":
-            calls[op] = DERIVED_RULES[op].build(run)
+            calls[op] = DERIVED_RULES[op].build(run, node, context)
         elif r.category == "form":
             calls[op] = lambda X: (context.linear_form().violation_x(X), {})
         elif r.category == "backend":
-            def via_backend(*a, _name=r.provider, _op=op):
-                return getattr(context.workspace(_name), _op)(*a)
-            calls[op] = via_backend
+            chain = [r.provider] + [name for name, _ in _chain(op, node) if name != r.provider]
+            if len(chain) > 1 and op in CHAINED:
+                routes[op] = Route(op, r.provider, r.reason + "; on a failed solve: " + ", then ".join(chain[1:]),
+                                   r.source, r.category)
+            else:
+                chain = chain[:1]
+            calls[op] = _backend_chain(op, chain, context, node)
         else:
             def unsupported(*a, _op=op, _why=r.reason):
                 raise UnsupportedOperationError(f"{_op} on {node.label}: {_why}.")
@@ -309,6 +374,53 @@ def _with_fallback(call, op, fallback, context, node):
                 bs[i] = f"{bs[i]}; answered by {fallback.provider}"
                 st[i] = sub_status[j]
             info = dict(info, backend_status=bs, status=st)
+        return out, info
+    return run
+
+
+def _backend_chain(op, chain, context, node):
+    """Serve ``op`` by the first backend of ``chain``; rows whose solve fails go to the next one.
+
+    Only :class:`setkit.errors.SolveError` moves on (an empty set or an unbounded direction is an
+    answer, not a failure). When every backend fails on a row, one SolveError lists them all.
+    """
+    first = chain[0]
+
+    def call(name, *a):
+        return getattr(context.workspace(name), op)(*a)
+
+    if len(chain) == 1:
+        return lambda *a: call(first, *a)
+
+    def run(*a):
+        try:
+            return call(first, *a)
+        except SolveError as exc:
+            if a[0].shape[0] == 0:
+                raise
+            first_error = exc
+        X = a[0]
+        rows, infos = [], []
+        for i in range(X.shape[0]):
+            sub = tuple(v[i:i + 1] for v in a)
+            errors = []
+            for name in chain:
+                try:
+                    out, info = call(name, *sub)
+                except SolveError as exc:
+                    errors.append(f"{name}: {exc}")
+                    continue
+                note = (f"{'; '.join(errors)}; answered by {name}" if errors else f"answered by {name}")
+                rows.append(np.asarray(out)[0])
+                infos.append((info, name, note))
+                break
+            else:
+                raise SolveError(f"{op} on {node.label}: every backend failed on batch row {i} "
+                                 f"({' | '.join(errors)}).", status=getattr(first_error, "status", None))
+        out = np.stack(rows)
+        info = {"status": [(inf.get("status") or ["solved"])[0] for inf, _, _ in infos],
+                "iterations": [(inf.get("iterations") or [0])[0] for inf, _, _ in infos],
+                "backend_status": [note for _, _, note in infos]}
         return out, info
     return run
 

@@ -38,9 +38,10 @@ else the cvxpy reference. An empty intersection is reported with :class:`EmptySe
 the description is read if the merged linear form is LP-infeasible, and at run
 time when a splitting method diverges.
 
-``contains`` means every part contains the point within ``tol`` (a point within
-``tol`` of every part may be farther from the intersection when the parts meet
-at a small angle); ``violation`` is the largest violation over the parts.
+``contains`` means dist(x, K) <= tol: a point farther than ``tol`` from some
+part is out, a point every part contains up to rounding (1e-6·tol) is in, and
+only the points in between are projected onto the intersection to decide;
+``violation`` is the largest violation over the parts.
 """
 from __future__ import annotations
 
@@ -245,19 +246,17 @@ class Intersection(Family):
         except EmptySetError as exc:
             fail("of", str(exc), EmptySetError)
 
-    @kernel("contains")
-    def contains(self, X, tol, parts):
-        """Every part contains the point within tol, O(sum of the parts' membership costs)."""
-        ok = np.ones(X.shape[0], bool)
+    def membership_screen(self, X, tol, parts):
+        """Out when some part is farther than tol (dist to a part <= dist to K); in when every part contains
+        the point up to rounding; undecided otherwise (routing then measures the distance to K itself)."""
+        out = np.ones(X.shape[0], dtype=np.int8)
+        tiny = 1e-6 * tol
         for p in parts:
-            r = p.routes()
-            if r["contains"].provider == "derived" and r["violation"].provider == "form":
-                # a bare linear form: its largest constraint violation, not a projection per point
-                v = p.run("violation", X)[0] <= tol
-            else:
-                v, _ = p.run("contains", X, tol=tol)
-            ok &= np.asarray(v, bool)
-        return ok
+            far = ~np.asarray(p.run("contains", X, tol=tol)[0], bool)
+            near = np.asarray(p.run("contains", X, tol=tiny)[0], bool)
+            out[far] = -1
+            out[(out == 1) & ~near] = 0
+        return out
 
     @kernel("violation")
     def violation(self, X, parts):

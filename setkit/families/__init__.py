@@ -15,7 +15,12 @@ from .._discovery import import_submodules
 from ..errors import DescriptionError
 
 ENTRY_POINT_GROUP = "setkit.families"
-OPERATORS = ("project", "distance", "lmo", "support", "contains", "violation")
+OPERATORS = ("project", "distance", "lmo", "support", "contains", "violation",
+             # the Bregman (relative entropy) projection, from log-domain input t = log y
+             "project_kl",
+             # Jacobian products of the projections (second argument: the tangent / cotangent);
+             # the KL ones are with respect to the log-domain input t
+             "project_jvp", "project_vjp", "project_kl_jvp", "project_kl_vjp")
 
 _FAMILIES: dict[str, type] = {}
 _MEMO: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
@@ -46,7 +51,9 @@ def kernel(operator: str, *, workspace: bool = False):
 
     Kernels work on flat batches: a ``(b, dim)`` float64 array in, ``(b, dim)``
     points or ``(b,)`` values out. ``contains`` kernels take ``(X, tol)`` where
-    ``tol`` is a ``(b,)`` array. Kernels of combinators receive the compiled
+    ``tol`` is a ``(b,)`` array; Jacobian-product kernels take ``(Y, V)`` with ``V`` of
+    the shape of ``Y``; ``project_kl`` kernels take log-domain input ``T = log y``. Kernels
+    of combinators receive the compiled
     parts as a last argument. With ``workspace=True`` the kernel receives instead,
     as its last argument, this thread's workspace of the set, built by the
     family's ``new_workspace()`` hook and owned by the DecisionSet (per thread,
@@ -144,6 +151,14 @@ class Family:
 
         ``parts`` are the compiled parts of a combinator (empty for a family); ``fail``
         names the description file and key path. The verdict is computed once per node.
+        """
+        return None
+
+    def membership_screen(self, X, tol, parts):
+        """A cheap membership verdict per row: +1 in, -1 farther than tol, 0 undecided; or None.
+
+        Used by routing's derived membership rule before any distance is computed (only the
+        undecided rows are projected). ``parts`` are the compiled parts of a combinator.
         """
         return None
 
