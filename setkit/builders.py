@@ -452,9 +452,10 @@ def polyhedron(*, A: ArrayLike | str | None = None, b: ArrayLike | float | None 
 
     Notes
     -----
-    Building solves one LP to report an empty polyhedron with its conflicting
-    constraints. Projection by OSQP (factorized once, warm-started) and LMO by
-    HiGHS on the linear form; cost per call that of one QP or LP solve.
+    Building costs O(nnz(A) + nnz(C) + n) plus one LP, which reports an empty
+    polyhedron with its conflicting constraints. Projection by OSQP
+    (factorized once, warm-started) and LMO by HiGHS on the linear form: one
+    QP or LP solve per point.
 
     Examples
     --------
