@@ -23,7 +23,9 @@ from .errors import (AccuracyWarning, BackendUnavailableError, DescriptionError,
                      InputError, SetkitError, SetkitWarning, SolveError, UnboundedDirectionError,
                      UnsupportedOperationError)
 
-TYPE_CHECKING = False   # type checkers and IDEs take it as True: the lazy names below, resolved
+# what the lazy names below resolve to, for type checkers and IDEs (mypy and pyright take any name
+# TYPE_CHECKING as true); the typing module is not imported at run time, to keep `import setkit` light
+TYPE_CHECKING = False
 if TYPE_CHECKING:
     from typing import Any, Callable, Iterable
 

@@ -14,7 +14,7 @@ first call.
 """
 from __future__ import annotations
 
-TYPE_CHECKING = False   # type checkers take it as True; nothing below is imported at run time
+TYPE_CHECKING = False   # mypy and pyright take it as true; nothing below is imported at run time
 if TYPE_CHECKING:
     from typing import Any, Literal, Mapping, Sequence
 
@@ -402,8 +402,8 @@ def flow(*, edges: Sequence | str | Any, nodes: Sequence | int | None = None,
 
     Notes
     -----
-    Building checks feasibility (a max-flow min-cut names the blocking node
-    set when the set is empty). Projection by a dual Newton method on node
+    Building checks feasibility by one LP (when the set is empty, a max-flow
+    min-cut names the node set that cannot send its supply out). Projection by a dual Newton method on node
     potentials, O(E) per conjugate-gradient step; LMO by simplex on the
     incidence-matrix LP (vertex answers).
 
