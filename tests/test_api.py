@@ -246,7 +246,8 @@ PUBLIC_FUNCTIONS = ([getattr(setkit, n) for n in ("compile", "load", "build", "v
                                                             "parametrize", "points", "directions")]
                     + [getattr(setkit.penalty.DistancePenalty, n) for n in ("value", "grad", "value_and_grad",
                                                                             "extend")]
-                    + [getattr(setkit.penalty.ExtendedLoss, n) for n in ("value", "grad", "lipschitz")])
+                    + [getattr(setkit.penalty.ExtendedLoss, n) for n in ("value", "grad", "lipschitz")]
+                    + [setkit.penalty.make_penalty])
 
 
 @pytest.mark.parametrize("fn", PUBLIC_FUNCTIONS, ids=lambda f: f.__qualname__)
