@@ -8,8 +8,11 @@ and backends import from here::
 * families: :class:`Family` (the base of every set node), :func:`register`
   (class decorator naming the kind), :func:`kernel` (marks a native operator),
   :class:`Reader` (what ``from_spec`` reads parameters through),
-  :func:`known_kinds`, :func:`lookup`, ``OPERATORS`` and ``ENTRY_POINT_GROUP``
-  (the entry-point group third-party packages declare kinds in);
+  :func:`known_kinds`, :func:`lookup`, :func:`memo` (a cache beside a frozen
+  node), ``OPERATORS`` and ``ENTRY_POINT_GROUP`` (the entry-point group
+  third-party packages declare kinds in);
+* combinator strategies: :class:`Strategy`, :func:`register_strategy`,
+  :func:`all_strategies`;
 * backends: :class:`Backend`, :func:`register_backend`, :func:`all_backends`,
   :func:`get_backend`;
 * formulations: :class:`LinearForm`, the standard linear form
@@ -27,8 +30,10 @@ from __future__ import annotations
 
 from .backends import Backend, all_backends, get_backend, register_backend
 from .description import Location, Reader
-from .families import ENTRY_POINT_GROUP, OPERATORS, Family, kernel, known_kinds, lookup, register
+from .families import ENTRY_POINT_GROUP, OPERATORS, Family, kernel, known_kinds, lookup, memo, register
 from .forms import LinearForm
+from .strategies import Strategy, all_strategies, register_strategy
 
-__all__ = ["Family", "register", "kernel", "Reader", "Location", "known_kinds", "lookup", "OPERATORS",
-           "ENTRY_POINT_GROUP", "Backend", "register_backend", "all_backends", "get_backend", "LinearForm"]
+__all__ = ["Family", "register", "kernel", "Reader", "Location", "known_kinds", "lookup", "memo", "OPERATORS",
+           "ENTRY_POINT_GROUP", "Strategy", "register_strategy", "all_strategies", "Backend", "register_backend",
+           "all_backends", "get_backend", "LinearForm"]

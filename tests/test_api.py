@@ -122,7 +122,8 @@ def test_all_holds_no_extension_names():
         obj = getattr(setkit, name)
         assert not any(obj is e for e in ext_objects), name
         if isinstance(obj, type):
-            assert not issubclass(obj, (setkit.extend.Family, setkit.extend.Backend, setkit.extend.Reader)), name
+            assert not issubclass(obj, (setkit.extend.Family, setkit.extend.Backend, setkit.extend.Strategy,
+                                       setkit.extend.Reader)), name
 
 
 def test_record_types_are_the_types_operators_return():
