@@ -446,12 +446,45 @@ def _as_set(target):
 
 
 def checks(K, seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL, only=None) -> list:
-    """The conformance checks of one set as a list of ``(name, callable)``.
+    """The conformance checks of one set as a list of ``(name, callable)`` pairs, not yet run.
 
     Each callable takes no argument, raises AssertionError on failure and
     returns a :class:`CheckOutcome` (``note`` says why a check was skipped).
-    The checks share one cache of inputs and reference answers.
-    ``K`` may be a DecisionSet, a description dict or a file path.
+    The checks share one cache of inputs and reference answers. The bar each
+    check applies is stated in the module docstring.
+
+    Parameters
+    ----------
+    K : DecisionSet, mapping, str or os.PathLike
+        The set, a description or a description file.
+    seed : int, default 0
+        Seed of the random inputs.
+    points : int, default 3
+        Random inputs per category (inside, near, at the set's scale, far,
+        tiny, huge).
+    rtol : float, default 2e-5
+        Relative tolerance of the comparisons with the reference.
+    only : list of str, optional
+        Keep the checks whose names start with one of these prefixes.
+
+    Returns
+    -------
+    list of (str, callable)
+
+    Notes
+    -----
+    Building the list is cheap; running a check costs a few reference
+    (interior-point) solves per input.
+
+    Examples
+    --------
+    >>> import setkit, setkit.testing
+    >>> pairs = setkit.testing.checks(setkit.simplex(dim=3), only=["project"])
+    >>> [name for name, _ in pairs]
+    ['project/reference', 'project/certificate', 'project/fixed-points']
+    >>> outcome = pairs[0][1]()
+    >>> outcome.name, outcome.worst <= 1
+    ('project/reference', True)
     """
     K = _as_set(K)
     ctx = ReferenceComparison(K, seed, points, rtol)
@@ -476,11 +509,42 @@ def checks(K, seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL, only=N
 def check_set(K, seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL, only=None) -> list:
     """Run every conformance check on ``K``; raise one AssertionError listing every failure.
 
-    ``points`` is the number of random inputs per category (inside, near, at
-    the set's scale, far; plus tiny and huge ones); ``only`` restricts to
-    checks whose names start with one of the given prefixes. Returns the list
-    of :class:`CheckOutcome` when everything passes.
+    Every operator is compared with the cvxpy reference and with certificates
+    that need no reference, on seeded inputs (the bar is stated in the module
+    docstring).
 
+    Parameters
+    ----------
+    K : DecisionSet, mapping, str or os.PathLike
+        The set, a description or a description file.
+    seed : int, default 0
+        Seed of the random inputs.
+    points : int, default 3
+        Random inputs per category (inside, near, at the set's scale, far;
+        plus tiny and huge ones).
+    rtol : float, default 2e-5
+        Relative tolerance of the comparisons with the reference.
+    only : list of str, optional
+        Run only the checks whose names start with one of these prefixes.
+
+    Returns
+    -------
+    list of CheckOutcome
+        When every check passes; ``worst`` is the largest gap over its allowed value.
+
+    Raises
+    ------
+    AssertionError
+        Listing every failed check with its input, setkit's answer, the
+        reference answer and the allowed gap.
+
+    Notes
+    -----
+    Cost: a few reference (interior-point) solves per input and operator,
+    about a second for a small set.
+
+    Examples
+    --------
     >>> import setkit, setkit.testing
     >>> out = setkit.testing.check_set(setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}))
     >>> all(o.worst <= 1 for o in out)
@@ -523,10 +587,39 @@ def _family_specs(family, seed: int, count: int) -> list:
 
 
 def family_checks(family, seed: int = 0, count: int = 2, points: int = 2, rtol: float = DEFAULT_RTOL) -> list:
-    """``(name, callable)`` pairs: every check on every example instance of a family.
+    """``(name, callable)`` pairs: every check on every example instance of a family, not yet run.
 
     Names look like ``simplex[0]:project/reference``; a failure message starts
-    with the spec of the instance.
+    with the spec of the instance. Instances are built on the first run of one
+    of their checks.
+
+    Parameters
+    ----------
+    family : str or type
+        A kind name or a Family class.
+    seed : int, default 0
+        Seed of the random instances and inputs.
+    count : int, default 2
+        Calls of the family's ``random_example(rng)``.
+    points : int, default 2
+        Random inputs per category, as in :func:`check_set`.
+    rtol : float, default 2e-5
+        Relative tolerance of the comparisons with the reference.
+
+    Returns
+    -------
+    list of (str, callable)
+
+    Notes
+    -----
+    As :func:`checks`, per instance.
+
+    Examples
+    --------
+    >>> import setkit.testing
+    >>> names = [name for name, _ in setkit.testing.family_checks("simplex", count=0)]
+    >>> names[0]
+    'simplex[0]:project/reference'
     """
     out = []
     for i, spec in enumerate(_family_specs(family, seed, count)):
@@ -556,11 +649,45 @@ def _lazy_checks(spec, seed, points, rtol):
 
 
 def check_family(family, seed: int = 0, count: int = 2, points: int = 2, rtol: float = DEFAULT_RTOL) -> list:
-    """Run :func:`check_set` on every example instance of a family (a kind name or a Family class).
+    """Run :func:`check_set` on every example instance of a family.
 
-    Instances come from the family's optional classmethods ``examples()``
-    (fixed small spec dicts) and ``random_example(rng)`` (called ``count``
-    times with a generator seeded by ``seed``).
+    Instances come from the family's classmethods ``examples()`` (fixed small
+    spec dicts) and ``random_example(rng)`` (called ``count`` times with a
+    generator seeded by ``seed``).
+
+    Parameters
+    ----------
+    family : str or type
+        A kind name or a Family class.
+    seed : int, default 0
+        Seed of the random instances and inputs.
+    count : int, default 2
+        Calls of the family's ``random_example(rng)``.
+    points : int, default 2
+        Random inputs per category, as in :func:`check_set`.
+    rtol : float, default 2e-5
+        Relative tolerance of the comparisons with the reference.
+
+    Returns
+    -------
+    list of CheckOutcome
+        Of every check on every instance, when all pass.
+
+    Raises
+    ------
+    AssertionError
+        Listing every failure, each headed by the spec of its instance.
+
+    Notes
+    -----
+    Cost: :func:`check_set` per instance, about a second each for small sets.
+
+    Examples
+    --------
+    >>> import setkit.testing
+    >>> out = setkit.testing.check_family("simplex", count=0, points=1)
+    >>> all(o.worst <= 1 for o in out)
+    True
     """
     outcomes, failures = [], []
     for spec in _family_specs(family, seed, count):
@@ -575,12 +702,45 @@ def check_family(family, seed: int = 0, count: int = 2, points: int = 2, rtol: f
 
 def parametrize(target, argname: str = "check", seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL,
                 family: bool = False):
-    """A ``pytest.mark.parametrize`` over the conformance checks of a set (or, with
-    ``family=True``, of a family), one test case per check::
+    """A ``pytest.mark.parametrize`` over the conformance checks of a set or a family.
+
+    One test case per check, named after it::
 
         @setkit.testing.parametrize(K)
         def test_conformance(check):
             check()
+
+    Parameters
+    ----------
+    target : DecisionSet, mapping, str, os.PathLike or type
+        The set (or description, or description file); with ``family=True``
+        a kind name or a Family class.
+    argname : str, default "check"
+        The name of the test function's argument.
+    seed : int, default 0
+        Seed of the random inputs (and instances).
+    points : int, default 3
+        Random inputs per category, as in :func:`check_set`.
+    rtol : float, default 2e-5
+        Relative tolerance of the comparisons with the reference.
+    family : bool, default False
+        Parametrize over :func:`family_checks` of ``target`` instead of
+        :func:`checks`.
+
+    Returns
+    -------
+    pytest.MarkDecorator
+
+    Notes
+    -----
+    Nothing runs until pytest calls the cases.
+
+    Examples
+    --------
+    >>> import setkit, setkit.testing
+    >>> mark = setkit.testing.parametrize(setkit.simplex(dim=3))
+    >>> mark.args[0], [case.id for case in mark.args[1]][:2]
+    ('check', ['project/reference', 'project/certificate'])
     """
     import pytest
     pairs = (family_checks(target, seed=seed, points=points, rtol=rtol) if family
@@ -592,9 +752,38 @@ def parametrize(target, argname: str = "check", seed: int = 0, points: int = 3, 
 def points(K, where: str = "anywhere", scale: float = 10.0):
     """A hypothesis strategy of points of shape ``K.shape``.
 
-    ``where`` is ``"anywhere"`` (entries within ±scale·s), ``"inside"`` (their
-    projections onto K) or ``"near"`` (inside plus a perturbation of size
-    about 1e-3·s).
+    With s = max(1, data scale of K): entries within ±scale·s (``"anywhere"``),
+    their projections onto K (``"inside"``), or those plus a perturbation of
+    entries within ±1e-3·s (``"near"``).
+
+    Parameters
+    ----------
+    K : DecisionSet, mapping, str or os.PathLike
+        The set, a description or a description file.
+    where : {"anywhere", "inside", "near"}, default "anywhere"
+        Where the points lie.
+    scale : float, default 10.0
+        The half-width of the entries, in units of s.
+
+    Returns
+    -------
+    hypothesis strategy
+        Of float64 arrays of shape ``K.shape`` (needs the ``hypothesis`` package).
+
+    Notes
+    -----
+    One projection per drawn point for ``"inside"`` and ``"near"``.
+
+    Examples
+    --------
+    >>> import setkit, setkit.testing
+    >>> from hypothesis import given, settings
+    >>> K = setkit.simplex(dim=3)
+    >>> @settings(max_examples=25, deadline=None)
+    ... @given(setkit.testing.points(K, "inside"))
+    ... def test_points_inside_are_in_the_set(x):
+    ...     assert K.contains(x, tol=1e-9)
+    >>> test_points_inside_are_in_the_set()
     """
     from hypothesis import strategies as st
     from hypothesis.extra.numpy import arrays
@@ -614,7 +803,37 @@ def points(K, where: str = "anywhere", scale: float = 10.0):
 
 
 def directions(K, scale: float = 1.0, nonzero: bool = True):
-    """A hypothesis strategy of directions of shape ``K.shape`` (entries within ±scale)."""
+    """A hypothesis strategy of directions of shape ``K.shape``, entries within ±scale.
+
+    Parameters
+    ----------
+    K : DecisionSet, mapping, str or os.PathLike
+        The set, a description or a description file.
+    scale : float, default 1.0
+        The largest magnitude of an entry.
+    nonzero : bool, default True
+        Leave out directions whose entries are all below 1e-9·scale in magnitude.
+
+    Returns
+    -------
+    hypothesis strategy
+        Of float64 arrays of shape ``K.shape`` (needs the ``hypothesis`` package).
+
+    Notes
+    -----
+    O(dim) per drawn direction.
+
+    Examples
+    --------
+    >>> import numpy as np, setkit, setkit.testing
+    >>> from hypothesis import given, settings
+    >>> K = setkit.simplex(dim=3)
+    >>> @settings(max_examples=25, deadline=None)
+    ... @given(setkit.testing.directions(K))
+    ... def test_support_is_attained_by_the_lmo(c):
+    ...     assert np.isclose(K.support(c), np.dot(c, K.lmo(-c)))   # max <c, x> = <c, argmin <-c, x>>
+    >>> test_support_is_attained_by_the_lmo()
+    """
     from hypothesis import strategies as st
     from hypothesis.extra.numpy import arrays
     K = _as_set(K)
