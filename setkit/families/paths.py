@@ -18,7 +18,7 @@ import numpy as np
 from numba import njit
 
 from ..errors import EmptySetError, SolveError
-from ..kernels.minnorm import project_rows
+from ..kernels.minnorm import project_rows, uncertified_rows
 from . import kernel, register
 from ._graph import read_edges, resolve_node
 from ._network import Network, NetworkFamily, lmo_network
@@ -195,30 +195,44 @@ class Paths(NetworkFamily):
 
     @kernel("project")
     def project(self, Y):
-        """Dual Newton on node potentials (the flow kernel); rows it cannot finish by Wolfe's minimum-norm point on the LMO."""
+        """Dual Newton on node potentials (the flow kernel), certified by the gap; rows it cannot finish by Wolfe's minimum-norm point."""
         try:
-            return self._project_flat(Y)
+            P = self._project_flat(Y)
         except SolveError:
-            pass
-        # the dual Newton kernel gave up on some row (seen on graphs with cycles and tiny points):
-        # row by row, with the certified minimum-norm-point method as the fallback
-        out = np.empty_like(Y)
-        for i, y in enumerate(Y):
-            try:
-                out[i] = self._project_flat(y[None, :])[0]
-            except SolveError:
-                out[i] = project_rows(y[None, :], lambda c: self.lmo(c[None, :])[0], scale=1.0,
-                                      label=self.label)[0][0]
-        return out
+            P = np.full_like(Y, np.nan)
+            for i, y in enumerate(Y):       # row by row: only the rows the kernel cannot finish go on
+                try:
+                    P[i] = self._project_flat(y[None, :])[0]
+                except SolveError:
+                    pass
+        # every answer is checked (finite, in K, Frank-Wolfe gap); the dual Newton kernel fails on some
+        # inputs (graphs with cycles and tiny points; |y| near 1e150), and those rows are solved by
+        # the certified minimum-norm-point method on the shortest-path LMO instead
+        bad = uncertified_rows(Y, P, self._vertices, self._form_violation)
+        if bad.any():
+            P[bad] = project_rows(Y[bad], lambda c: self._vertices(c[None, :])[0], scale=1.0, label=self.label)[0]
+        return P
+
+    def _vertices(self, C):
+        out = self.lmo(C)
+        return out[0] if isinstance(out, tuple) else out
+
+    def _form_violation(self, X):
+        form = self.__dict__.get("_form")
+        if form is None:
+            form = self.linear_form()
+            object.__setattr__(self, "_form", form)
+        return form.violation_x(X)
 
     @kernel("lmo")
     def lmo(self, C):
         """Shortest path by the recursion over a topological order (numba), O(n + m); HiGHS simplex if there are cycles."""
-        if self.topo is None:
-            return lmo_network(self.label, self._net, C, self._incidence(), self._lmo_workspace())
-        # each row scaled to max |c| = 1 (same minimizers): path lengths stay finite for costs near 1e308
+        # each row scaled to max |c| = 1 (same minimizers): path lengths stay finite for costs near
+        # 1e308 and the LP sees costs of order 1
         top = np.abs(C).max(axis=1, keepdims=True, initial=0.0)
         Cn = np.ascontiguousarray(C / np.where(top > 0, top, 1.0))
+        if self.topo is None:
+            return lmo_network(self.label, self._net, Cn, self._incidence(), self._lmo_workspace())
         X = np.zeros(C.shape)
         if not dag_shortest_path_rows(Cn, self._edge_order, self.tail, self.head,
                                       len(self.node_names), self.source, self.target, X):

@@ -33,7 +33,7 @@ import scipy.sparse as sp
 from ..errors import DescriptionError, UnsupportedOperationError
 from ..forms import LinearForm
 from ..kernels.isotonic import project_permutahedron
-from ..kernels.minnorm import project_rows
+from ..kernels.minnorm import project_rows, uncertified_rows
 from . import Family, kernel, register
 from ._graph import fail_at, read_edges
 from ._screen import screened_contains
@@ -484,7 +484,13 @@ class SubmodularBase(BasePolytopeMixin, Family):
     def project(self, Y):
         """Concave of cardinality: sort and pool-adjacent-violators (exact); else Wolfe's minimum-norm point on the greedy LMO."""
         if isinstance(self.fn, ConcaveCardinality):
-            return project_permutahedron(Y, self._wd)
+            P = project_permutahedron(Y, self._wd)
+            # certified (finite, in K, Frank-Wolfe gap); rows that fail (seen for |y| near 1e150) are
+            # solved by the minimum-norm-point method instead
+            bad = uncertified_rows(Y, P, self.fn.greedy, self.violation, scale=self.scale())
+            if bad.any():
+                P[bad] = self._mnp_project(Y[bad])[0]
+            return P
         return self._mnp_project(Y)
 
     def project_min_norm_point(self, Y):

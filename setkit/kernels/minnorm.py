@@ -67,9 +67,10 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     """
     y = np.asarray(y, dtype=float)
     d = y.size
-    R2 = max(1, d) * max(1.0, float(scale), float(np.abs(y).max(initial=0.0))) ** 2
-    tol = GAP_RTOL * R2
-    accept = ACCEPT_RTOL * R2
+    # tolerances on g / R^2, with R^2 = d Rm^2 formed by division only (no overflow near 1e308)
+    Rm = max(1.0, float(scale), float(np.abs(y).max(initial=0.0)))
+    tol = GAP_RTOL * d
+    accept = ACCEPT_RTOL * d
     cap = (50 * d + 500) if max_iter is None else int(max_iter)
     V = np.asarray(lmo(-y), dtype=float)[None, :]
     lam = np.ones(1)
@@ -82,7 +83,7 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     for it in range(1, cap + 1):
         z = p - y
         q = np.asarray(lmo(z), dtype=float)
-        gap = float(z @ (p - q))
+        gap = float((z / Rm) @ ((p - q) / Rm))          # g / Rm^2
         if gap < best[0]:
             best = (gap, p)
             best_it = it
@@ -123,12 +124,13 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
         gap, p = best
         if gap <= accept:
             status = "solved"
+    gap *= Rm * Rm
     info = {"iterations": it, "gap": gap, "corral": int(V.shape[0]), "status": status,
-            "tolerance": tol}
+            "tolerance": tol * Rm * Rm}
     if status != "solved":
         raise SolveError(
             f"{label}: the minimum-norm-point projection stopped ({status}) after {it} major cycles with "
-            f"Frank-Wolfe gap {gap:.3g}, above the accepted {accept:.3g}; the answer is not returned.",
+            f"Frank-Wolfe gap {gap:.3g}, above the accepted {accept * Rm * Rm:.3g}; the answer is not returned.",
             status="not_converged")
     return p, info
 
@@ -142,3 +144,32 @@ def project_rows(Y, lmo, *, scale=1.0, max_iter=None, label="set"):
         iters.append(inf["iterations"])
         texts.append(f"min-norm-point: gap {inf['gap']:.3g} after {inf['iterations']} major cycles")
     return P, {"status": ["solved"] * len(iters), "iterations": iters, "backend_status": texts}
+
+
+def uncertified_rows(Y, P, lmo_rows, violation, *, scale=1.0):
+    """Rows where a fast projection P of Y is not certified: not finite, outside the set, or with a
+    Frank-Wolfe gap above ``ACCEPT_RTOL * R^2`` (R^2 = d max(1, scale, |y|_inf)^2).
+
+    "Outside" means a violation above 1e-12 d min(R, 1e6 s), s = max(1, scale): relative to |y|
+    (which bounds the rounding of a kernel computing p from y) but never more than 1e-6 d s, so that
+    a point far outside a bounded set is caught even for |y| near 1e300.
+
+    ``lmo_rows`` maps a (b, d) batch of directions to vertices (positively scale-invariant), and
+    ``violation`` a batch of points to their largest constraint violation. The gap is computed on
+    (p - y) / R so that no square overflows. Returns a boolean mask (b,).
+    """
+    b, d = Y.shape
+    if b == 0:
+        return np.zeros(0, bool)
+    s = max(1.0, float(scale))
+    Rm = np.maximum(s, np.abs(Y).max(axis=1))
+    finite = np.isfinite(P).all(axis=1)
+    bad = ~finite
+    if finite.any():
+        Pf, Yf, Rf = P[finite], Y[finite], Rm[finite]
+        Z = (Pf - Yf) / Rf[:, None]
+        Q = lmo_rows(Z)
+        gap = np.einsum("ij,ij->i", Z, (Pf - Q) / Rf[:, None])
+        viol = violation(Pf)
+        bad[finite] = (gap > ACCEPT_RTOL * d) | ~(viol <= 1e-12 * d * np.minimum(Rf, 1e6 * s))
+    return bad
