@@ -196,7 +196,10 @@ class MatroidBases(BasePolytopeMixin, Family):
             return self._mnp_project(Y)
         X = np.empty_like(Y)
         for g, q in zip(self.groups, self.quotas):
-            X[:, g] = project_capped(np.ascontiguousarray(Y[:, g]), 0.0, 1.0, 1.0, float(q), "equal")
+            if q == 0 or q == g.size:          # a single point: exact
+                X[:, g] = 0.0 if q == 0 else 1.0
+            else:
+                X[:, g] = project_capped(np.ascontiguousarray(Y[:, g]), 0.0, 1.0, 1.0, float(q), "equal")
         return X
 
     @kernel("violation")
