@@ -178,3 +178,42 @@ def product(n, rng):
 @workload("affine", "affine image 2 x + 1 of a simplex, dim n")
 def affine(n, rng):
     return {"kind": "affine", "set": {"kind": "simplex", "dim": n}, "scale": 2.0, "shift": 1.0}
+
+
+# ---------------------------------------------------------------------------------------------
+# combinatorial polytopes (the size is the number of coordinates: edges or elements)
+# ---------------------------------------------------------------------------------------------
+@workload("spanning_trees", "spanning trees of a random graph, n edges on n/4 nodes",
+          sizes_full=(30, 100, 300), sizes_quick=(24,))
+def spanning_trees(n, rng):
+    # the graph generator of benchmarks/bench_graphs.py; projection is Wolfe's minimum-norm point
+    # (O(n k^2) per cycle), so the sweep stays small; the LMO at 1e5 edges is bench_graphs' target
+    from .bench_graphs import random_connected_graph
+    nodes = max(3, n // 4)
+    tail, head = random_connected_graph(nodes, n, rng)
+    return {"kind": "spanning_trees", "nodes": nodes, "edges": np.column_stack([tail, head]).tolist()}
+
+
+@workload("paths", "s-t paths of a random DAG, n edges on n/4 nodes", sizes_full=(100, 1_000, 10_000, 100_000),
+          sizes_quick=(24,))
+def paths(n, rng):
+    from .bench_graphs import random_dag
+    nodes = max(3, n // 4)
+    tail, head = random_dag(nodes, n, rng)
+    return {"kind": "paths", "nodes": nodes, "edges": np.column_stack([tail, head]).tolist(),
+            "source": 0, "target": nodes - 1}
+
+
+@workload("matroid_bases", "partition matroid, n elements in groups of 10 with random quotas")
+def matroid_bases(n, rng):
+    groups = [list(range(i, min(n, i + 10))) for i in range(0, n, 10)]
+    return {"kind": "matroid_bases", "form": "partition", "groups": groups,
+            "quotas": [int(rng.integers(0, len(g) + 1)) for g in groups]}
+
+
+@workload("submodular_base", "coverage function, n sets of 3 items among n weighted items",
+          sizes_full=(12, 30, 100), sizes_quick=(12,))
+def submodular_base(n, rng):
+    sets = [sorted(set(int(u) for u in rng.integers(0, n, 3))) for _ in range(n)]
+    return {"kind": "submodular_base", "function": "coverage", "sets": sets,
+            "item_weights": np.round(rng.uniform(0.5, 2.0, n), 3).tolist()}
