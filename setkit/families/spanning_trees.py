@@ -82,41 +82,43 @@ def subset_excess_maxflow(x, tail, head, n):
 
     x(E(S)) - |S| + 1 = 1 - [x(delta(S))/2 + sum_{v in S} (1 - d_v/2)] with d_v the x-degree of v,
     so the maximum over sets containing node k and none of 0..k-1 is one s-t minimum cut.
-    Negative entries are clipped to 0 for the cut (capacities must be nonnegative); the value of
-    the set found is then recomputed with x itself, so the answer is always the excess of a real
-    constraint (the largest one whenever x >= 0). networkx preflow-push on float capacities.
+    The cuts are computed by scipy.sparse.csgraph.maximum_flow on capacities scaled to integers
+    (scipy's max-flow is exact on int32 data: total capacity 2^29, so each capacity is rounded by at
+    most 2^-30 of the total); the set found is then scored exactly with x itself. The answer is
+    therefore always the excess of a real constraint, at most (m + n) * total / 2^29 below the
+    largest one. Negative entries of x are clipped to 0 for the cuts (capacities must be >= 0).
     """
-    import networkx as nx
-    xp = np.maximum(x, 0.0)
+    from scipy.sparse.csgraph import breadth_first_order, maximum_flow
+    xp = np.maximum(np.asarray(x, dtype=float), 0.0)
     deg = np.bincount(tail, xp, n) + np.bincount(head, xp, n)
     a = 1.0 - deg / 2.0
-    base = nx.DiGraph()
-    base.add_nodes_from(range(n))
-    for e in range(tail.size):
-        u, v = int(tail[e]), int(head[e])
-        c = xp[e] / 2.0
-        for s, t in ((u, v), (v, u)):
-            if base.has_edge(s, t):
-                base[s][t]["capacity"] += c
-            else:
-                base.add_edge(s, t, capacity=c)
+    src, snk = n, n + 1
+    # finite arcs: both directions of every edge (x_e / 2), s -> v (-a_v) and v -> t (a_v)
+    pos, neg = np.flatnonzero(a > 0), np.flatnonzero(a < 0)
+    rows = np.concatenate([tail, head, np.full(neg.size, src), pos])
+    cols = np.concatenate([head, tail, neg, np.full(pos.size, snk)])
+    caps = np.concatenate([xp / 2.0, xp / 2.0, -a[neg], a[pos]])
+    total = float(caps.sum())         # >= n > 0: a node of x-degree < 2 has a_v > 0
+    q = (1 << 29) / total
+    icaps = np.round(caps * q).astype(np.int64)
+    big = int(icaps.sum()) + 1        # "infinite": more than every finite cut
     best = -np.inf
+    N = n + 2
     for k in range(n):
-        G = base.copy()
-        for v in range(n):
-            if v < k:
-                G.add_edge(v, "t")                       # forced out: infinite capacity
-            elif v == k:
-                G.add_edge("s", v)                       # forced in
-            elif a[v] > 0:
-                G.add_edge(v, "t", capacity=float(a[v]))
-            elif a[v] < 0:
-                G.add_edge("s", v, capacity=float(-a[v]))
-        if "t" not in G:
-            G.add_node("t")
-        _, (side, _) = nx.minimum_cut(G, "s", "t")
-        inS = np.zeros(n, bool)
-        inS[[v for v in side if v != "s"]] = True
+        r = np.concatenate([rows, np.arange(k), [src]])
+        c = np.concatenate([cols, np.full(k, snk), [k]])
+        w = np.concatenate([icaps, np.full(k + 1, big)])
+        C = sp.csr_matrix((w.astype(np.int32), (r, c)), shape=(N, N))
+        C.sum_duplicates()
+        res = maximum_flow(C, src, snk)
+        # residual arcs: capacity minus flow (the flow matrix is antisymmetric), both directions
+        R = (sp.csr_matrix(C, dtype=np.int64) - sp.csr_matrix(res.flow, dtype=np.int64)).tocsr()
+        R.data[R.data < 0] = 0
+        R.eliminate_zeros()
+        reach = breadth_first_order(R, src, directed=True, return_predecessors=False)
+        inS = np.zeros(N, bool)
+        inS[reach] = True
+        inS = inS[:n]
         val = float(x[inS[tail] & inS[head]].sum()) - int(inS.sum()) + 1
         best = max(best, val)
     return best

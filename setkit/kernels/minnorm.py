@@ -13,8 +13,8 @@ by a line search when that minimizer leaves the convex hull: the minor cycles). 
 finite in exact arithmetic (Wolfe 1976); in floating point it stops on the gap. On base polytopes
 of submodular functions (spanning trees, matroid bases) this is the Fujishige-Wolfe method.
 
-Each major cycle costs one LMO call plus a least-squares solve on the corral, O(d k^2) for k
-corral vertices in R^d (k <= d + 1).
+Each major cycle costs one LMO call, O(d k) to extend the corral's Gram matrix and O(k^3) per
+affine minimization (normal equations on the Gram matrix), for k corral vertices in R^d (k <= d + 1).
 """
 from __future__ import annotations
 
@@ -29,13 +29,27 @@ ACCEPT_RTOL = 1e-12      # a stalled run is accepted when g <= ACCEPT_RTOL * R^2
 STALL_CYCLES = 20        # stop after 2 d + STALL_CYCLES major cycles without a smaller gap
 
 
-def _affine_minimizer(V, y):
-    """Weights a (sum 1) of the point of the affine hull of the rows of V closest to y."""
-    k = V.shape[0]
+def _affine_minimizer(G, Vy):
+    """Weights a (sum 1) of the point of the affine hull of the corral closest to y.
+
+    With the corral's rows v_0..v_{k-1}, G = V V^T and Vy = V y: writing the point as
+    v_0 + sum_j beta_j (v_j - v_0), beta solves the normal equations (D D^T) beta = D (y - v_0),
+    D = V[1:] - v_0, formed from G and Vy alone (O(k^3), no pass over the d coordinates; exact
+    integer Gram entries for 0/1 vertices).
+    """
+    k = G.shape[0]
     if k == 1:
         return np.ones(1)
-    D = V[1:] - V[0]
-    beta, *_ = np.linalg.lstsq(D.T, y - V[0], rcond=None)
+    g0 = G[0, 0]
+    c = G[1:, 0]
+    M = G[1:, 1:] - c[:, None] - c[None, :] + g0
+    r = (Vy[1:] - Vy[0]) - (c - g0)
+    try:
+        beta = np.linalg.solve(M, r)
+        if not np.all(np.isfinite(beta)):
+            raise np.linalg.LinAlgError
+    except np.linalg.LinAlgError:          # affinely dependent corral (rounding): least squares
+        beta = np.linalg.lstsq(M, r, rcond=None)[0]
     return np.concatenate([[1.0 - beta.sum()], beta])
 
 
@@ -73,6 +87,8 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     accept = ACCEPT_RTOL * d
     cap = (50 * d + 500) if max_iter is None else int(max_iter)
     V = np.asarray(lmo(-y), dtype=float)[None, :]
+    G = V @ V.T                      # Gram matrix of the corral
+    Vy = V @ y
     lam = np.ones(1)
     p = V[0].copy()
     gap = np.inf
@@ -96,10 +112,13 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
         if np.any(np.all(V == q, axis=1)):
             status = "stalled"       # q already in the corral: rounding stops the progress
             break
+        Vq = V @ q
+        G = np.block([[G, Vq[:, None]], [Vq[None, :], np.array([[q @ q]])]])
+        Vy = np.append(Vy, q @ y)
         V = np.vstack([V, q])
         lam = np.append(lam, 0.0)
         for _minor in range(V.shape[0] + 1):
-            a = _affine_minimizer(V, y)
+            a = _affine_minimizer(G, Vy)
             if a.min() > 0.0:
                 lam = a
                 break
@@ -114,7 +133,7 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
             keep = ~drop
             if not keep.any():
                 keep[int(np.argmax(lam))] = True
-            V, lam = V[keep], lam[keep]
+            V, lam, G, Vy = V[keep], lam[keep], G[np.ix_(keep, keep)], Vy[keep]
             lam = np.maximum(lam, 0.0)
             lam /= lam.sum()
         p = lam @ V
