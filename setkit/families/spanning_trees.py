@@ -272,17 +272,31 @@ class SpanningTrees(Family):
             return subset_excess_exhaustive(X, self.tail, self.head, n)
         return np.array([subset_excess_maxflow(x, self.tail, self.head, n) for x in X])
 
+    def _cheap_violation(self, X):
+        return np.maximum((-X).max(axis=1, initial=0.0), np.abs(X.sum(axis=1) - (self.n_nodes - 1)))
+
     @kernel("violation")
     def violation(self, X):
         """Largest violated facet: x >= 0, x(E) = n - 1 and the subset inequalities (enumerated up to 12 nodes, else n minimum cuts)."""
-        v = np.maximum((-X).max(axis=1, initial=0.0), np.abs(X.sum(axis=1) - (self.n_nodes - 1)))
-        return np.maximum(v, np.maximum(self._excess(X), 0.0))
+        if X.shape[0] == 0:
+            return np.zeros(0)
+        return np.maximum(self._cheap_violation(X), np.maximum(self._excess(X), 0.0))
+
+    def _screen(self, X, tol, lip):
+        """The violation where it is at most tol * lip; elsewhere a value above that (the subset
+        inequalities are skipped for rows that the sum or the signs already put outside)."""
+        v = self._cheap_violation(X)
+        near = v <= tol * lip
+        if near.any():
+            v[near] = np.maximum(v[near], np.maximum(self._excess(X[near]), 0.0))
+        return v
 
     @kernel("contains")
     def contains(self, X, tol):
         """Violation screen (every facet normal has norm <= sqrt(m)), the projection only for borderline points."""
         return screened_contains(X, tol, self.violation,
-                                 lambda Z: np.linalg.norm(Z - self.project(Z)[0], axis=1), math.sqrt(self.dim))
+                                 lambda Z: np.linalg.norm(Z - self.project(Z)[0], axis=1), math.sqrt(self.dim),
+                                 self._screen)
 
     # -- exact knowledge for setkit.measures ------------------------------------------------------
     def _is_complete_simple(self):
