@@ -16,7 +16,7 @@ import numpy as np
 import scipy.sparse as sp
 from numba import njit
 
-from ..errors import DescriptionError, EmptySetError
+from ..errors import EmptySetError
 from ..forms import LinearForm
 from ..kernels.minnorm import project_rows
 from . import Family, kernel, register

@@ -499,7 +499,11 @@ class SubmodularBase(BasePolytopeMixin, Family):
 
     @kernel("violation")
     def violation(self, X):
-        """Largest violated inequality x(S) <= F(S) or |x(V) - F(V)|: sorted partial sums (concave of cardinality), 2^n subsets (n <= 16), else from the projection."""
+        """Largest violated x(S) <= F(S) or |x(V) - F(V)|: sorted partial sums (concave), 2^n subsets (n <= 16), else by the projection.
+
+        Above 16 elements: max_S x(S) - F(S) = sum_i (x_i - p_i)^+ with p the projection of x
+        (Fujishige 1980), as accurate as the projection's certificate.
+        """
         if isinstance(self.fn, ConcaveCardinality):
             ps_x = np.cumsum(-np.sort(-X, axis=1), axis=1)
             over = (ps_x[:, :-1] - self._ps[:-1]).max(axis=1, initial=0.0)

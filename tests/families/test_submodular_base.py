@@ -1,5 +1,4 @@
 """Base polytopes of submodular functions: reference, Edmonds' greedy, the permutahedron, Fujishige."""
-import itertools
 
 import networkx as nx
 import numpy as np
