@@ -13,6 +13,9 @@ Forms (``form``):
 LMO by the greedy algorithm (Edmonds 1971: greedy finds a minimum-weight basis of any matroid).
 Projection: uniform and partition by the capped-simplex breakpoint search of the budget family
 (exact, expected O(n)); a rank oracle by Wolfe's minimum-norm point on the greedy LMO.
+
+Outputs are numerical answers within the stated tolerances; where quotas select people (rotas,
+panels, shortlists) they are to be reviewed by a responsible person and checked against local rules.
 """
 from __future__ import annotations
 
