@@ -270,7 +270,7 @@ class Paths(NetworkFamily):
         """vertices, on a DAG: uniform paths by walking from the source, choosing each edge with
         probability proportional to the number of paths it leads to; directions: lmo(g) for Gaussian g."""
         if measure == "directions":
-            return self.lmo(rng.standard_normal((k, self.dim)))
+            return self._vertices(rng.standard_normal((k, self.dim)))
         if self.topo is None or measure != "vertices":
             return None
         _, bwd = self._path_counts()

@@ -160,3 +160,12 @@ def test_rows_the_flow_kernel_cannot_finish_are_solved_and_certified():
     assert det.status == "solved" and det.certificate <= 1e-12 and det.residual <= 1e-12
     ref = K.with_backends(project="reference").project(y)
     np.testing.assert_allclose(det.point, ref, atol=2e-5)
+
+
+def test_direction_samples_are_lmo_answers_with_and_without_cycles():
+    for extra, cyc in (([], "forbid"), ([[2, 1]], "allow")):
+        K = setkit.compile({"kind": "paths", "nodes": 4, "edges": [[0, 1], [1, 2], [2, 3], [0, 2], [1, 3]] + extra,
+                            "source": 0, "target": 3, "cycles": cyc})
+        S = K.sample(50, measure="directions", rng=np.random.default_rng(7))
+        assert S.shape == (50, K.dim) and np.all(K.violation(S) <= 1e-12)
+        assert set(np.unique(S)) <= {0.0, 1.0}
