@@ -243,8 +243,15 @@ class BasePolytopeMixin:
             P = self.project(Z)
             P = P[0] if isinstance(P, tuple) else P
             return np.linalg.norm(Z - P, axis=1)
+        def screen(X, tol, lip):
+            # |x(V) - F(V)| first: rows it rejects skip the subset inequalities (and a projection)
+            v = np.abs(X.sum(axis=1) - self._total())
+            near = v <= tol * lip
+            if near.any():
+                v[near] = np.maximum(v[near], self.violation(X[near]))
+            return v
         # every constraint row is a 0/1 vector: its norm is at most sqrt(n)
-        return screened_contains(X, tol, self.violation, dist, math.sqrt(self.dim))
+        return screened_contains(X, tol, self.violation, dist, math.sqrt(self.dim), screen)
 
     def _all_subsets_constraints(self, x, what):
         import cvxpy as cp

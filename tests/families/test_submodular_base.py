@@ -166,3 +166,22 @@ def test_located_errors():
         setkit.build("submodular_base", function=lambda S: 1.0 + len(S), dim=3)
     with pytest.raises(DescriptionError, match=r"dim\).*len\(values\) - 1 = 2"):
         setkit.compile({"kind": "submodular_base", "function": "concave_cardinality", "values": [0, 2, 3], "dim": 3})
+
+
+def test_python_function_above_the_enumeration_limit():
+    # n = 20 > 16: membership through the projection (Fujishige), no cvxpy formulation; the same
+    # function g(|S|) = sqrt(|S|) as a closed form is a permutahedron (exact sort + PAV projection)
+    from setkit.errors import UnsupportedOperationError
+    n = 20
+    g = np.sqrt(np.arange(n + 1))
+    K = setkit.build("submodular_base", function=lambda S: float(np.sqrt(len(S))), dim=n)
+    Kc = setkit.compile({"kind": "submodular_base", "function": "concave_cardinality", "values": g.tolist()})
+    rng = np.random.default_rng(7)
+    Y = rng.standard_normal((3, n))
+    np.testing.assert_allclose(K.project(Y), Kc.project(Y), atol=1e-8)
+    np.testing.assert_allclose(K.lmo(Y), Kc.lmo(Y), atol=1e-12)
+    np.testing.assert_allclose(K.violation(Y), Kc.violation(Y), atol=1e-8)
+    np.testing.assert_array_equal(K.contains(Y), Kc.contains(Y))
+    assert K.contains(Kc.project(Y)).all()
+    with pytest.raises(UnsupportedOperationError, match="no cvxpy formulation"):
+        K.with_backends(project="reference").project(Y[0])
