@@ -133,9 +133,28 @@ def check_targets(mode, rows, log=print, seed=7) -> list:
     out.extend(flow_targets(kinds, quick, rng, log))       # repeated flow projection vs cvxpy
     out.append(intersection_target(kinds, quick, rng))     # permutahedron(200) with 3 halfspaces
     out.extend(native_vs_reference(rows, quick, rng))      # natives at n ~ 1,000 vs the reference
+    out.append(graph_target(kinds, quick, rng))            # spanning-tree LMO vs networkx
     for t in out:
         log(f"target {t.name}: {t.verdict} ({t.measured})")
     return out
+
+
+def graph_target(kinds, quick, rng):
+    """Issue 15's graph target, measured by benchmarks/bench_graphs.py (interleaved medians)."""
+    m = 2_000 if quick else 100_000
+    t = Target(f"spanning-tree LMO, {m:,} edges", "<= 3x of networkx.minimum_spanning_tree (Kruskal)")
+    miss = _need(kinds, "spanning_trees")
+    if miss:
+        t.verdict = miss
+        return t
+
+    def f(t):
+        from .bench_graphs import spanning_tree_lmo_row
+        r = spanning_tree_lmo_row(m, 3 if quick else 15, rng)
+        t.finish(r["ratio"], 3.0, "<=", f"{r['ms']['setkit']:.3g} ms vs networkx {r['ms']['networkx']:.3g} ms "
+                 f"(scipy {r['ms']['scipy']:.3g} ms)", "quick mode: reduced sizes, not a verdict" if quick else "",
+                 extra_ok=r["agree"], extra_why=f"answers differ from networkx by {r['worst']:.2e}")
+    return _guard(t, f)
 
 
 def flow_targets(kinds, quick, rng, log):
