@@ -266,8 +266,8 @@ class NetworkFamily(Family):
             raise SolveError(
                 f"{self.label}: projection did not converge for batch row {i}: "
                 f"{STATUS_TEXT.get(int(info['status'][i]), 'unknown')} (after {int(info['iterations'][i])} "
-                f"Newton steps: balance residual {info['residual'][i]:.3g}, allowed {info['tol_r']:.3g}; "
-                f"duality gap {info['gap'][i]:.3g}, allowed {info['tol_gap']:.3g}).",
+                f"Newton steps: balance residual {info['residual'][i]:.3g}, allowed {info['tol_r'][i]:.3g}; "
+                f"duality gap {info['gap'][i]:.3g}, allowed {info['tol_gap'][i]:.3g}).",
                 status="not_converged")
         return X
 

@@ -40,9 +40,25 @@ STATUS_TEXT = {0: "converged", 1: "iteration limit reached before the residual a
 
 
 @njit(cache=True)
+def _reduced(ye, pa, pb):
+    """y_e - (p_a - p_b) with compensated (TwoSum) arithmetic: error ~ eps |result| + eps^2 |y|.
+
+    Potentials reach the magnitude of y (1e12 and more) while the flow on a free edge is at
+    the scale of the data; plain arithmetic would lose all of it to cancellation.
+    """
+    d = pa - pb
+    bb = d - pa
+    dl = (pa - (d - bb)) + (-pb - bb)            # d + dl = pa - pb exactly (Knuth's TwoSum)
+    s = ye - d
+    bb = s - ye
+    sl = (ye - (s - bb)) + (-d - bb)             # s + sl = ye - d exactly
+    return s + (sl - dl)
+
+
+@njit(cache=True)
 def _primal(y, p, tail, head, lo, hi, x, free):
     for e in range(y.size):
-        v = y[e] - (p[tail[e]] - p[head[e]])
+        v = _reduced(y[e], p[tail[e]], p[head[e]])
         if v <= lo[e]:
             x[e] = lo[e]
             free[e] = 0
@@ -149,7 +165,9 @@ def _solve_shift(ta, tL, tU, nb, target, bt, bd):
     """The shift lam nearest to 0 with sum_k clip(ta_k - lam, tL_k, tU_k) = target.
 
     The left side is non-increasing and piecewise linear in lam; the root is found
-    by walking its sorted breakpoints from 0. Returns (lam, ok).
+    by walking its sorted breakpoints from 0. Returns (lam, ok); ok is always True:
+    a target beyond the reachable range (one ulp past it, by rounding at a
+    breakpoint) gives the last breakpoint, since emptiness is decided at compile time.
     """
     f = 0.0
     for k in range(nb):
@@ -207,7 +225,9 @@ def _solve_shift(ta, tL, tU, nb, target, bt, bd):
         slope += bd[order[j]]
     if slope != 0.0:
         return sgn * (pos + (target - f) / (sgn * slope)), True
-    return 0.0, False
+    # the target lies beyond the reachable range by rounding only (feasibility is decided once, at
+    # compile time): the last breakpoint is the closest shift; never a verdict of emptiness here
+    return sgn * pos, True
 
 
 @njit(cache=True)
@@ -278,11 +298,11 @@ def _block_sweep(y, p, tail, head, lo, hi, s, indptr, adj_edge, adj_out, comp, n
                 if comp[a_] == comp[b_]:
                     continue        # inside the component: unchanged by the shift
                 if adj_out[k]:
-                    ta[nb] = y[e] - p[a_] + p[b_]
+                    ta[nb] = _reduced(y[e], p[a_], p[b_])
                     tL[nb] = lo[e]
                     tU[nb] = hi[e]
                 else:
-                    ta[nb] = -(y[e] - p[a_] + p[b_])
+                    ta[nb] = -_reduced(y[e], p[a_], p[b_])
                     tL[nb] = -hi[e]
                     tU[nb] = -lo[e]
                 nb += 1
@@ -298,7 +318,7 @@ def _block_sweep(y, p, tail, head, lo, hi, s, indptr, adj_edge, adj_out, comp, n
 
 @njit(cache=True)
 def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
-                    tol_r, tol_gap, max_newton, warm, scale, gcomp, gcount):
+                    tol_r_rows, tol_gap_rows, max_newton, warm, scale_rows, gcomp, gcount):
     """Batched projection; returns X, P (final potentials), Newton steps, residuals, gaps, status, CG steps.
 
     Each step: (1) primal x(p), balances r; (2) components of the free edges and one exact
@@ -343,6 +363,10 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
     bt = np.empty(4 * m + 2)
     bd = np.empty(4 * m + 2)
     fill = np.empty(nn, np.int64)
+    smax = 0.0
+    for v in range(nn):
+        if abs(s[v]) > smax:
+            smax = abs(s[v])
     maxdeg = 1
     for v in range(nn):
         if indptr[v + 1] - indptr[v] > maxdeg:
@@ -350,6 +374,9 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
     p = P0.copy()
     for i in range(b):
         y = Y[i]
+        tol_r = tol_r_rows[i]
+        tol_gap = tol_gap_rows[i]
+        scale = scale_rows[i]
         if not warm:
             for v in range(nn):
                 p[v] = P0[v]
@@ -416,9 +443,19 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
             floor = 8.0 * 2.220446049250313e-16 * maxdeg * (pmax + yabs)
             if rn <= max(tol_r, floor) and gap <= max(tol_gap, floor * pmax * nn):
                 st = 0
-                if rn > floor:
-                    # polish: one Newton step solved to full precision on the identified free set,
-                    # kept only if it lowers the measured balance residual
+                # primal repair: the balances of x(p) cannot go below the granularity of the
+                # potentials (one ulp of |p| moves a flow by that much), so Newton steps solved to
+                # full precision on the identified free set update the flows directly,
+                # x_F <- x_F - B_F^T d with (B_F B_F^T) d = B x - s; each kept only if it lowers
+                # the measured residual (flows stay clipped to their bounds)
+                xmax = smax
+                for e in range(m):
+                    if abs(x[e]) > xmax and abs(x[e]) < np.inf:
+                        xmax = abs(x[e])
+                repair_floor = 4.0 * 2.220446049250313e-16 * maxdeg * xmax
+                for _rep in range(4):
+                    if rn <= repair_floor:
+                        break
                     ncomp = _components(free, tail, head, nn, parent, comp)
                     for c in range(ncomp):
                         csum[c] = 0.0
@@ -429,23 +466,32 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
                     for v in range(nn):
                         rhs[v] = r[v] - csum[comp[v]] / ccount[comp[v]]
                     cgit[i] += _cg(rhs, free, tail, head, 1e-12, 1e-15, 4 * nn + 50, d, res, z, q, w, diag, ft, fh)
-                    for v in range(nn):
-                        p2[v] = p[v] + d[v]
-                    _primal(y, p2, tail, head, lo, hi, x2, free2)
+                    for e in range(m):
+                        if free[e]:
+                            v2 = x[e] - (d[tail[e]] - d[head[e]])
+                            if v2 < lo[e]:
+                                v2 = lo[e]
+                            elif v2 > hi[e]:
+                                v2 = hi[e]
+                            x2[e] = v2
+                        else:
+                            x2[e] = x[e]
                     _balance(x2, tail, head, s, r2)
                     rn2 = 0.0
                     for v in range(nn):
                         if abs(r2[v]) > rn2:
                             rn2 = abs(r2[v])
-                    if rn2 < rn:
-                        rn = rn2
-                        gap = 0.0
-                        for v in range(nn):
-                            p[v] = p2[v]
-                            gap += p2[v] * r2[v]
-                        gap = abs(gap)
-                        for e in range(m):
-                            x[e] = x2[e]
+                    if not rn2 < rn:
+                        break
+                    rn = rn2
+                    gap = 0.0
+                    for v in range(nn):
+                        p[v] += d[v]
+                        r[v] = r2[v]
+                        gap += p[v] * r2[v]
+                    gap = abs(gap)
+                    for e in range(m):
+                        x[e] = x2[e]
                 break
             if it >= max_newton:
                 break
@@ -573,8 +619,10 @@ class NetworkProjector:
     def project(self, Y, warm=True):
         """Project the rows of Y; returns X and a dict with iterations, residual, gap, status per row."""
         Y = np.ascontiguousarray(Y, dtype=float)
-        scale = max(1.0, self.data_scale, float(np.abs(Y).max(initial=0.0)))
-        tol_r = self.tol * scale
+        # tolerances per row (one far row must not loosen the others)
+        scale = np.maximum(max(1.0, self.data_scale), np.abs(Y).max(axis=1, initial=0.0))
+        # balances are at the data's scale whatever |y| is (flows are compensated, see _reduced)
+        tol_r = np.full(Y.shape[0], self.tol * max(1.0, self.data_scale))
         tol_gap = self.tol * scale * scale * max(1.0, np.sqrt(self.s.size))
         p0 = self.potentials if warm else np.zeros_like(self.potentials)
         X, P, it, rn, gap, st, cg = project_network(Y, p0, self.tail, self.head, self.lo, self.hi, self.s,
