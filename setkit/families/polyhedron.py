@@ -36,6 +36,8 @@ def _matrix(r, key, n_cols):
         if M.ndim != 2:
             r.fail(key, f"{key} must be a matrix (a list of rows); got an array of shape {M.shape}.")
         M = sp.csr_matrix(M)
+    if M.shape[1] == 0:
+        r.fail(key, f"{key} must have at least one column (one per coordinate); got a matrix of shape {M.shape}.")
     if n_cols is not None and M.shape[1] != n_cols:
         r.fail(key, f"{key} must have {n_cols} columns (one per coordinate); got {M.shape[1]}.")
     return M
