@@ -291,11 +291,22 @@ class Reader:
         if isinstance(v, np.ndarray) and v.size > MAX_SIZE:
             self.fail(key, f"{key} has {v.size:,} entries, more than {MAX_SIZE:,} (the size limit of setkit).")
         try:
+            raw = np.asarray(v)
+        except (TypeError, ValueError):
+            raw = None                       # ragged lists (NumPy 2 refuses them outright)
+        if raw is not None and raw.dtype.kind == "c":
+            self.fail(key, f"{key} must hold real numbers; got complex entries.")
+        if raw is not None and raw.dtype.kind in "biuf":
+            return raw.astype(dtype, copy=False)
+        try:
             arr = np.asarray(v, dtype=dtype)
         except OverflowError:
             self.fail(key, f"{key} must hold numbers within the float range (|x| < 1.8e308); an integer "
                            f"entry is larger.")
         except (TypeError, ValueError):
+            if raw is None or raw.dtype == object:
+                self.fail(key, f"{key} must be a rectangular numeric array (lists of equal length); got "
+                               f"{_describe(v)}.")
             self.fail(key, f"{key} must be numeric; got {_describe(v)}.")
         if arr.dtype == object:
             self.fail(key, f"{key} must be a rectangular numeric array; got ragged lists.")
