@@ -16,7 +16,9 @@ from setkit.errors import DescriptionError, EmptySetError, SetkitError
 
 
 def test_fuzzed_descriptions_only_raise_located_setkit_errors():
-    res = run(500, seed=11, time_limit=30.0)
+    # two seeds whose compile alone takes ~1 s (intersections checked for emptiness) are left to the
+    # full run (python3 -m benchmarks.fuzz_descriptions), which keeps every seed
+    res = run(500, seed=11, time_limit=30.0, skip=("intersection-example-2", "market-stall-exposure"))
     counts = res["counts"]
     assert counts.get("FAIL foreign", 0) == 0, res["failures"][:5]
     assert counts.get("FAIL unlocated", 0) == 0, res["failures"][:5]
