@@ -138,7 +138,10 @@ def mutate(spec, rng):
         return _set(spec, path, copy.deepcopy(rng.choice(JUNK_VALUES)))
     if kind == 3 and isinstance(target, (int, float)) and not isinstance(target, bool):
         if rng.random() < 0.5:           # a mild change of magnitude: the set often still compiles
-            return _set(spec, path, float(target) * 10.0 ** rng.randint(-300, 300))
+            try:
+                return _set(spec, path, float(target) * 10.0 ** rng.randint(-300, 300))
+            except OverflowError:
+                return _set(spec, path, float("inf"))
         return _set(spec, path, _mutate_number(target, rng))
     if kind == 4:                                            # nested junk
         return _set(spec, path, _nested(rng.choice([3, 40, 150, 400])))

@@ -134,16 +134,29 @@ def l1_ball_project(Y, c, radius):
     b, n = Y.shape
     out = np.empty_like(Y)
     a = np.empty(n)
+    al = np.empty(n)
     cand = np.empty(n)
     wait = np.empty(n)
     for r in range(b):
         s = 0.0
         top = 0.0
+        top_l = 0.0
         for j in range(n):
-            a[j] = abs(Y[r, j] - c[j])
-            s += a[j]
-            if a[j] > top:
-                top = a[j]
+            # v = y - c as an unevaluated sum vh + vl (TwoSum): |y| >> |c| loses nothing of c
+            yj = Y[r, j]
+            cj = c[j]
+            vh = yj - cj
+            bb = vh - yj
+            vl = (yj - (vh - bb)) + (-cj - bb)
+            if vh < 0.0 or (vh == 0.0 and vl < 0.0):
+                vh = -vh
+                vl = -vl
+            a[j] = vh
+            al[j] = vl
+            s += vh
+            if vh > top or (vh == top and vl > top_l):
+                top = vh
+                top_l = vl
         if s <= radius:
             for j in range(n):
                 out[r, j] = Y[r, j]
@@ -153,7 +166,8 @@ def l1_ball_project(Y, c, radius):
                 out[r, j] = c[j]
             continue
         for j in range(n):
-            a[j] = max(a[j] - top, -2.0 * radius)
+            # |v_j| - max|v| (exact where it matters: Sterbenz on the high parts)
+            a[j] = max((a[j] - top) + (al[j] - top_l), -2.0 * radius)
         tau = _simplex_tau(a, radius, cand, wait)
         if np.isnan(tau):          # clean-up did not settle: the sorted threshold
             u = -np.sort(-a)
@@ -168,7 +182,7 @@ def l1_ball_project(Y, c, radius):
             d = Y[r, j] - c[j]
             m = a[j] - tau
             if m > 0.0:
-                out[r, j] = c[j] + (m if d > 0 else -m)
+                out[r, j] = c[j] + (m if (d > 0 or (d == 0 and Y[r, j] > c[j])) else -m)
             else:
                 out[r, j] = c[j]
     return out
