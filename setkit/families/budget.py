@@ -70,7 +70,15 @@ class Budget(Family):
             r.fail("weights", f"weights must be positive; got {_fmt(w[i])} at index {i}.")
         mode = r.choice("mode", ("equal", "at_most"), "equal")
         ws = "the weighted sum" if weighted else "the sum"
-        smin = float(w @ lo)
+        with np.errstate(over="ignore", invalid="ignore"):
+            smin = float(w @ lo)
+            fin = np.isfinite(hi)
+            shi = float(w[fin] @ hi[fin])
+            room = (total - smin) / w
+        if not (np.isfinite(smin) and np.isfinite(shi) and np.all(np.isfinite(room))):
+            r.fail("weights" if weighted else "total",
+                   f"{ws} of the bounds, or the room total - {ws} of lower bounds divided by a weight, exceeds "
+                   f"the float range (|x| < 1.8e308); rescale the data (every kernel works on these sums).")
         if total < smin:
             r.fail("total", f"total must be at least {ws} of lower bounds, {_fmt(smin)}; got {_fmt(total)}.")
         if mode == "equal":

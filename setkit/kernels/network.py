@@ -28,7 +28,18 @@ Stopping rule (measured here, not trusted from anywhere): the balance
 residual ||B x(p) - s||_inf and the duality gap |p^T (B x(p) - s)| are both
 below their tolerances. x(p) always satisfies the bounds exactly. A point that
 does not meet the rule within the iteration budget is reported as not converged
-(status 1) and the caller raises.
+(status 1) and the caller raises. The kernel never reports emptiness: that is
+decided once, at compile time (``setkit.families._network.check_feasible``).
+
+Accuracy and range. Flows are formed with compensated sums (:func:`_reduced`),
+tolerances are per row, and converged rows get a primal repair on the free
+edges, so balance residuals end near 1e-15 of the data's scale (measured) — far
+below the 1e-7 that membership allows. Far points (|y| >> data) are re-solved on
+y - B^T p (the same projection, since the set lies in {B x = s}) until their
+residual reaches the data's scale. Measured on seeded points: transport and
+birkhoff sets solve every point up to |y| = 1e150, flows with mixed bounds every
+point up to 1e16 and most beyond; a point that does not reach tolerance is
+reported as not converged (a SolveError for the caller), never returned.
 """
 from __future__ import annotations
 
