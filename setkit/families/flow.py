@@ -25,6 +25,11 @@ EDGE_KEYS = ("from", "to", "capacity", "lower")
 
 
 def _num(r, path, v, what, allow_inf=True):
+    tv = type(v)
+    if tv is float or (tv is int and -2 ** 1023 < v < 2 ** 1023):     # the common case, without ABC checks
+        v = float(v)
+        if v - v == 0.0 or (allow_inf and v == v):
+            return v
     if isinstance(v, bool):
         _fail_at(r, path, f"{what} must be a number; got {v!r}.")
     if isinstance(v, str):
@@ -186,7 +191,7 @@ class Flow(NetworkFamily):
                         r.fail("edges", f"edge {k} given as a list must be [from, to], [from, to, capacity] or "
                                         f"[from, to, capacity, lower]; got {len(e)} entries.")
                     e = dict(zip(EDGE_KEYS, e))
-                elif not isinstance(e, Mapping):
+                elif type(e) is not dict and not isinstance(e, Mapping):
                     r.fail("edges", f"edge {k} must be a mapping with keys from, to (and optionally capacity, "
                                     f"lower); got {e!r}.")
                 bad = [a for a in e if a not in EDGE_KEYS]
