@@ -12,6 +12,7 @@ import difflib
 import json
 import os
 import reprlib
+import weakref
 from dataclasses import dataclass
 from numbers import Integral, Real
 from typing import Mapping
@@ -21,6 +22,7 @@ import numpy as np
 from .errors import DescriptionError
 
 _REQUIRED = object()
+_ORIGINS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()   # node -> Location it was read at
 ARRAY_SUFFIXES = (".npy", ".npz", ".csv")
 
 # Size limits: a description that exceeds one is refused with a message naming the limit, before
@@ -381,11 +383,11 @@ class Reader:
 
 def parse_node(spec, location: Location):
     """Turn one description mapping (or an already built set) into a node."""
-    from .decision_set import DecisionSet
     from .families import Family, lookup
 
-    if isinstance(spec, DecisionSet):
-        return spec.node
+    compiled = getattr(spec, "node", None)       # a compiled DecisionSet stands for its node
+    if isinstance(compiled, Family) and not isinstance(spec, Mapping):
+        return compiled
     if isinstance(spec, Family):
         return spec
     if not isinstance(spec, Mapping):
@@ -418,7 +420,35 @@ def parse_node(spec, location: Location):
         # foreign exception (the description fuzzer counts these: each one is a reader to fix)
         raise DescriptionError(f"{kind} ({location}): could not read this set's parameters (internal: "
                                f"{type(exc).__name__}: {_short.repr(str(exc))}).", location) from None
+    try:
+        _ORIGINS.setdefault(node, location)
+    except TypeError:      # a node type that cannot be weakly referenced: errors then name no file
+        pass
     return node
+
+
+def origin_of(node):
+    """The :class:`Location` a node was read at, or None (built in Python)."""
+    try:
+        return _ORIGINS.get(node)
+    except TypeError:
+        return None
+
+
+def failer_for(node):
+    """A ``fail(key, message, cls=DescriptionError)`` for checks that run at compile time.
+
+    The error names the object and, when the node was read from a description, the
+    file and the key path, like the errors raised while parsing.
+    """
+    loc = origin_of(node)
+
+    def fail(key, message, cls=DescriptionError):
+        if loc is None:
+            raise cls(f"{node.label}: {message}")
+        at = loc.child(key) if key is not None else loc
+        raise cls(f"{node.label} ({at}): {message}", at)
+    return fail
 
 
 def parse(description, source: str = "<dict>", base_dir: str | None = None):
