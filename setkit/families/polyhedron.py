@@ -169,13 +169,14 @@ class Polyhedron(Family):
                           b_eq=self.d / uC if mC else None, bounds=bounds, method="highs")
             tol = 1e-9
         if res.status not in (0, 2):
-            r.fail("A" if mA else "C", f"the emptiness check could not decide whether the set is empty (HiGHS "
+            fail("A" if mA else "C", f"the emptiness check could not decide whether the set is empty (HiGHS "
                                        f"status {res.status}: {res.message}); the data span "
                                        f"{self.scale():.3g} in magnitude, beyond what the LP solver handles "
                                        f"(it reads 1e20 and above as infinite). Rescale the constraints.",
                    DescriptionError)
         if res.status == 2:        # the elastic LP is always feasible unless the bounds contradict
-            r.fail("lower", "the set is empty: the bounds admit no point (the emptiness LP is infeasible).",
+            fail("A" if mA else "C", "the set is empty: the constraints and bounds admit no point (the elastic "
+                                     "emptiness LP reports no solution at all).",
                    EmptySetError)
         if res.fun <= tol:
             return
