@@ -117,7 +117,11 @@ class Ball(Family):
     # -- native kernels ----------------------------------------------------------------------
     @kernel("project")
     def project(self, Y):
-        """Radial scaling (p=2), clipping (p=inf), or the simplex projection of |y - c| with signs restored (p=1), O(n)."""
+        """Radial scaling (p=2), clipping (p=inf), or the simplex projection of |y - c| with signs restored (p=1), O(n).
+
+        Range: p=inf is exact for every finite input; p=2 and p=1 are exact up to rounding for
+        finite |y - c| <= 1e300 and radius in [1e-300, 1e300] (rescaled norms; for p=1, y - c is
+        kept as an unevaluated sum and the threshold is found on |y - c| - max|y - c|)."""
         c, r = self.center, self.radius
         if self.norm == 2:
             return l2_ball_project(Y, c, r)
