@@ -103,6 +103,7 @@ class Budget(Family):
         object.__setattr__(self, "_room", room)
         object.__setattr__(self, "_caps", np.minimum(self.upper, self.lower + room / self.weights))
         object.__setattr__(self, "_lip", float(max(1.0, np.linalg.norm(self.weights))))
+        object.__setattr__(self, "_data_scale", self.scale())    # the magnitude that marks far points
 
     def cvxpy_constraints(self, x):
         cons = [x >= self.lower]
@@ -125,7 +126,7 @@ class Budget(Family):
     @kernel("project")
     def project(self, Y):
         """Clip to the bounds and shift by the multiplier of the weighted sum, found by randomized breakpoint search, expected O(n)."""
-        return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode)
+        return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode, self._data_scale)
 
     @kernel("lmo")
     def lmo(self, C):

@@ -71,19 +71,29 @@ def _simplex_tau(y, total, v, vt):
 
 @njit(cache=True)
 def _simplex_rows_nb(Y, total, out):
+    """Rows shifted by their maximum and floored at -2 total (see :func:`shift_to_top`), then Condat."""
     b, n = Y.shape
     cand = np.empty(n)
     wait = np.empty(n)
+    z = np.empty(n)
     bad = 0
+    floor = -2.0 * total
     for r in range(b):
-        tau = _simplex_tau(Y[r], total, cand, wait)
+        top = Y[r, 0]
+        for j in range(1, n):
+            if Y[r, j] > top:
+                top = Y[r, j]
+        for j in range(n):
+            v = Y[r, j] - top
+            z[j] = v if v > floor else floor
+        tau = _simplex_tau(z, total, cand, wait)
         if np.isnan(tau):
             bad += 1
             for j in range(n):
                 out[r, j] = np.nan
             continue
         for j in range(n):
-            v = Y[r, j] - tau
+            v = z[j] - tau
             out[r, j] = v if v > 0.0 else 0.0
     return bad
 
@@ -121,7 +131,6 @@ def project_simplex_rows(Y: np.ndarray, total: float) -> np.ndarray:
         return np.zeros_like(Y)
     if b == 0:
         return np.empty_like(Y)
-    Y = shift_to_top(Y, total)
     out = np.empty_like(Y)
     bad = _simplex_rows_nb(Y, float(total), out)
     if bad:
