@@ -38,35 +38,25 @@ import scipy.sparse as sp
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
 import setkit  # noqa: E402
+from setkit.families import lookup  # noqa: E402
 
 
 def make_instance(n_nodes, n_edges, rng):
-    """A random connected digraph with capacities, lower bounds and the supplies of a feasible flow."""
-    # a random spanning tree keeps the graph connected; the rest are random edges
-    order = rng.permutation(n_nodes)
-    tails, heads = [], []
-    for k in range(1, n_nodes):
-        a, b = order[k], order[rng.integers(0, k)]
-        if rng.random() < 0.5:
-            a, b = b, a
-        tails.append(a)
-        heads.append(b)
-    while len(tails) < n_edges:
-        a, b = rng.integers(0, n_nodes, 2)
-        if a != b:
-            tails.append(a)
-            heads.append(b)
-    tail, head = np.array(tails), np.array(heads)
-    x0 = rng.uniform(0.0, 10.0, n_edges)                    # a feasible flow
-    lower = np.maximum(0.0, x0 - rng.uniform(0.0, 10.0, n_edges))
-    capacity = x0 + rng.uniform(0.0, 10.0, n_edges)
-    supply = np.zeros(n_nodes)
-    np.add.at(supply, tail, x0)
-    np.add.at(supply, head, -x0)
-    spec = {"kind": "flow", "name": "bench", "nodes": int(n_nodes),
-            "edges": [{"from": int(a), "to": int(b), "capacity": float(c), "lower": float(lo)}
-                      for a, b, c, lo in zip(tail, head, capacity, lower)],
-            "supply": {int(v): float(s) for v, s in enumerate(supply) if s != 0.0}}
+    """The flow family's benchmark instance with ``n_nodes`` nodes and ``n_edges`` edges.
+
+    Returns (spec, (tail, head, lower, capacity, supply) arrays, x0) with x0 a feasible flow (the
+    projection of the midpoints of the edge bounds).
+    """
+    spec = lookup("flow").benchmark_example(n_edges, rng, nodes=n_nodes)
+    edges = spec["edges"]
+    tail = np.array([e["from"] for e in edges])
+    head = np.array([e["to"] for e in edges])
+    lower = np.array([e["lower"] for e in edges])
+    capacity = np.array([e["capacity"] for e in edges])
+    supply = np.zeros(int(spec["nodes"]))
+    for v, amount in spec["supply"].items():
+        supply[v] = amount
+    x0 = setkit.compile(spec).project(0.5 * (lower + capacity))
     return spec, (tail, head, lower, capacity, supply), x0
 
 

@@ -28,6 +28,7 @@ import numpy as np
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
 import setkit  # noqa: E402
+from setkit.agreement import reference  # noqa: E402
 from setkit.errors import AccuracyWarning  # noqa: E402
 
 
@@ -120,7 +121,7 @@ def reference_rows(rng, repeats, quick):
             m = 150 if quick else 250
             Kref = setkit.permutahedron(weights=np.linspace(1.0, 0.0, m))
             note = f" (reference at n={m}, a lower bound)"
-        R = Kref.with_backends(project="reference", lmo="reference", support="reference", loose=True)
+        R = reference(Kref, loose=True)
         Y = [rng.standard_normal(n) * 2 for _ in range(8)]
         Yr = [rng.standard_normal(m) * 2 for _ in range(ref_points)]
         ops = {

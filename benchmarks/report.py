@@ -10,6 +10,8 @@ from dataclasses import asdict
 
 import numpy as np
 
+from .providers import display_order, provider_of
+
 
 def growth_exponent(ns, ts):
     """Least-squares slope of log t against log n (None with fewer than two sizes)."""
@@ -63,7 +65,13 @@ def _floor_series(rows):
     return out
 
 
-COLORS = {"native": "tab:blue", "osqp": "tab:orange", "highs": "tab:red", "reference": "tab:green"}
+PALETTE = ("tab:blue", "tab:orange", "tab:green", "tab:red", "tab:purple", "tab:brown", "tab:pink",
+           "tab:olive", "tab:cyan", "tab:gray")
+
+
+def provider_colors(rows) -> dict:
+    """One colour per provider of the run (native, then the backends by priority), the same in every plot."""
+    return {p: PALETTE[i % len(PALETTE)] for i, p in enumerate(display_order(r.backend for r in rows if r.ran))}
 
 
 def _shrink_png(path):
@@ -82,6 +90,7 @@ def plot(res, out_dir):
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
     ser, fser = _series(res.rows), _floor_series(res.rows)
+    colors = provider_colors(res.rows)
     workloads = []
     for r in res.rows:
         if r.workload not in workloads:
@@ -105,7 +114,7 @@ def plot(res, out_dir):
                 lab = backend + (f", slope {k:.2f}" if k is not None else "")
                 style = "-" if "via" not in backend else ":"
                 ax.loglog(ns, ts, style, marker="o", ms=3, lw=1.3, label=lab,
-                          color=COLORS.get(backend.split(" ")[0], "tab:purple"))
+                          color=colors[provider_of(backend)])
             if (wl, op) in fser:
                 fl = sorted(fser[(wl, op)].items())
                 ns = [n for n, _ in fl]

@@ -1,9 +1,11 @@
 """One command for every benchmark: ``python -m benchmarks.run --quick`` or ``--full``.
 
-For every registered kind (``setkit.families.known_kinds()``) and every operator
-(project, distance, lmo, support, contains), run every implementation that can
-serve it (native kernel, osqp, highs, reference; derived operators through each
-provider of the operator they come from) at growing sizes; measure the median
+For every registered kind (``setkit.families.known_kinds()``, or the kinds asked
+for) and every operator (project, distance, lmo, support, contains), run every
+implementation that can serve it (the native kernel and every registered backend
+that accepts the set, ``benchmarks/providers.py``; derived operators through each
+provider of the operator they come from) at growing sizes, on the instances the
+family declares itself (``benchmarks/instances.py``); measure the median
 time over repeats, the error against the most accurate answer available, the
 peak memory (tracemalloc) and, for native rows, the ratio to a floor (np.sort,
 np.sort + isotonic regression, or one np.sum over the same data). Then check the
@@ -30,14 +32,15 @@ if __package__ in (None, ""):  # python benchmarks/run.py
     __package__ = "benchmarks"
 
 import setkit  # noqa: E402
-from setkit.backends import all_backends  # noqa: E402
+from setkit.agreement import DEFAULT_RTOL  # noqa: E402
 from setkit.families import known_kinds  # noqa: E402
 
-from ._workloads import workloads_for  # noqa: E402
+from .instances import FULL_SIZES, HOOK, QUICK_SIZES, missing_kinds, workloads  # noqa: E402
+from .providers import REFERENCE, candidates, judge_order, provider_of  # noqa: E402
 
 OPERATORS = ("project", "distance", "lmo", "support", "contains")
 HERE = os.path.dirname(os.path.abspath(__file__))
-AGREE_RTOL = 2e-5          # same tolerance as setkit.checks.verify
+AGREE_RTOL = DEFAULT_RTOL  # the tolerance of setkit.agreement.verify
 
 
 @dataclass(frozen=True)
@@ -48,11 +51,11 @@ class Mode:
     budget: float           # a generic backend whose call exceeds this stops growing
     native_budget: float    # same for native kernels
     memory_limit: float     # measure peak memory only for calls faster than this
-    sizes: str              # "sizes_quick" | "sizes_full"
+    sizes: tuple            # the sizes n asked of every family's benchmark_example
 
 
-QUICK = Mode("quick", 3, 0.02, 1.0, 5.0, 0.2, "sizes_quick")
-FULL = Mode("full", 7, 0.5, 2.0, 20.0, 0.3, "sizes_full")
+QUICK = Mode("quick", 3, 0.02, 1.0, 5.0, 0.2, QUICK_SIZES)
+FULL = Mode("full", 7, 0.5, 2.0, 20.0, 0.3, FULL_SIZES)
 
 
 @dataclass
@@ -93,45 +96,6 @@ class Result:
     machine: dict = field(default_factory=dict)
     started: str = ""
     seconds: float = 0.0
-
-
-# ---------------------------------------------------------------------------------------------
-# implementations to compare
-# ---------------------------------------------------------------------------------------------
-def _direct(node, op) -> list:
-    """Providers serving ``op`` directly: native kernel first, then generic backends by priority."""
-    out = ["native"] if op in node.kernels else []
-    for name, cls in sorted(all_backends().items(), key=lambda kv: kv[1].priority):
-        if op in cls.operators and cls.available() and cls.accepts(node)[0]:
-            out.append(name)
-    return out
-
-
-def candidates(node, op) -> list:
-    """(label, with_backends overrides) for every implementation of ``op`` on ``node``."""
-    direct = _direct(node, op)
-    out = [(p, {op: p}) for p in direct]
-    if op == "distance":
-        for q in _direct(node, "project"):
-            if q == "native" and "native" in direct:
-                continue
-            out.append((f"{q} (via project)", {"distance": "derived", "project": q}))
-    elif op == "support":
-        for q in _direct(node, "lmo"):
-            if q not in direct:
-                out.append((f"{q} (via lmo)", {"support": "derived", "lmo": q}))
-    elif op == "contains":
-        if "distance" in node.kernels and "native" not in direct:
-            out.append(("native (via distance)", {"contains": "derived", "distance": "native"}))
-        for q in _direct(node, "project"):
-            if q == "native" and ("native" in direct or "distance" in node.kernels):
-                continue
-            out.append((f"{q} (via project)", {"contains": "derived", "distance": "derived", "project": q}))
-    return out
-
-
-def _base(label):
-    return label.split(" ")[0]
 
 
 # ---------------------------------------------------------------------------------------------
@@ -255,39 +219,40 @@ def time_floor(name, X, mode):
 # ---------------------------------------------------------------------------------------------
 # the sweep
 # ---------------------------------------------------------------------------------------------
-JUDGE_ORDER = ("reference", "native", "osqp", "highs")
-
-
 def _judge(results: dict):
     """The most accurate answer among those that ran: the reference where it ran, else native."""
-    for want in JUDGE_ORDER:
+    for want in judge_order():
         for label, res in results.items():
-            if _base(label) == want and res is not None:
+            if provider_of(label) == want and res is not None:
                 return label, res
     return None, None
 
 
 def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
     rows = []
-    sizes = getattr(wl, mode.sizes)
     stopped = {}      # (op, label) -> reason larger sizes are skipped
     last = {}         # (op, label) -> (n, first-call seconds)
     slopes = {}       # (op, label) -> growth exponent measured between the last two sizes
-    missing = [k for k in wl.needs if k not in known_kinds()]
-    if missing:
-        return [Row(wl.kind, wl.label, "-", "-", 0, status=f"not available: needs the kind(s) "
-                                                           f"{', '.join(missing)}, not registered yet")]
-    for n in sizes:
-        rng = np.random.default_rng([seed, n])
+    for n in wl.sizes or (None,):
+        rng = np.random.default_rng([seed, n or 0])
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 spec = wl.build(n, rng)
-                K = spec if isinstance(spec, setkit.DecisionSet) else setkit.compile(spec)
-        except Exception as exc:  # a builder that no longer matches its family is reported, not hidden
-            rows.append(Row(wl.kind, wl.label, "-", "-", n, status=f"error: builder failed: {type(exc).__name__}: "
-                                                                      f"{str(exc)[:160]}"))
-            log(f"  {wl.label} n={n}: builder failed: {exc}")
+                if spec is None:      # the family has no instance of this size
+                    continue
+                missing = missing_kinds(spec)
+                if missing:
+                    rows.append(Row(wl.kind, wl.label, "-", "-", n or 0,
+                                    status=f"not available: needs the kind(s) {', '.join(missing)}, "
+                                           f"not registered yet"))
+                    return rows
+                K = setkit.compile(spec)
+                n = n or K.dim        # a declared example runs at its own size
+        except Exception as exc:  # an instance that no longer matches its family is reported, not hidden
+            rows.append(Row(wl.kind, wl.label, "-", "-", n or 0, status=f"error: instance failed: "
+                                                                           f"{type(exc).__name__}: {str(exc)[:160]}"))
+            log(f"  {wl.label} n={n}: instance failed: {exc}")
             continue
         # one compiled set per provider, shared by its operators (distance and membership through
         # a projection reuse the projection's workspace, as a user's set would)
@@ -295,11 +260,11 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
         merged = {}
         for cands in all_cands.values():
             for label, over in cands:
-                merged.setdefault(_base(label), {}).update(over)
+                merged.setdefault(provider_of(label), {}).update(over)
         compiled = {}
 
         def compiled_for(label):
-            b = _base(label)
+            b = provider_of(label)
             if b not in compiled:
                 compiled[b] = K.with_backends(**merged[b])
             return compiled[b]
@@ -310,7 +275,7 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
                 # no projection or LMO answer so far (other operators skipped or not asked): one
                 # projection by the default route, unless that route is already over its budget
                 r = K.routes()["project"].provider
-                if not any(k[0] == "project" and _base(k[1]) == r for k in stopped):
+                if not any(k[0] == "project" and provider_of(k[1]) == r for k in stopped):
                     try:
                         members = K.project(2.0 * rng.standard_normal((1,) + K.shape))
                     except Exception:
@@ -332,13 +297,13 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
                 op_rows.append(row)
                 outs[label] = None
                 key = (op, label)
-                budget = mode.native_budget if _base(label) == "native" else mode.budget
+                budget = mode.native_budget if provider_of(label) == "native" else mode.budget
                 if key in stopped:
                     row.status = stopped[key]
                     continue
                 src = {"(via project)": "project", "(via lmo)": "lmo"}.get(label.partition(" ")[2])
-                if src and (src, _base(label)) in stopped:
-                    row.status = stopped[key] = f"skipped: {src} by {_base(label)} is skipped from this size on"
+                if src and (src, provider_of(label)) in stopped:
+                    row.status = stopped[key] = f"skipped: {src} by {provider_of(label)} is skipped from this size on"
                     continue
                 if key in last:
                     # extrapolate with the slope measured so far (clipped to [1, 3]); with one size
@@ -359,7 +324,7 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
                     with warnings.catch_warnings():
                         warnings.simplefilter("ignore")
                         out, first, med, reps = timed_calls(lambda: call(Kb, op, X), mode, budget,
-                                                            jit_warmup=_base(label) == "native")
+                                                            jit_warmup=provider_of(label) == "native")
                         if med < mode.memory_limit:
                             row.peak_bytes = peak_memory(lambda: call(Kb, op, X))
                 except MemoryError as exc:   # e.g. cvxpy canonicalizing a large cone: its practical limit
@@ -371,7 +336,7 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
                     continue
                 outs[label] = out
                 row.seconds, row.setup, row.repeats = med, max(0.0, first - med), reps
-                t_now = med if _base(label) == "native" else first
+                t_now = med if provider_of(label) == "native" else first
                 if key in last and n > last[key][0] and last[key][1] > 0 and t_now > 0:
                     n0, t0 = last[key]
                     slopes[key] = float(np.clip(np.log(t_now / t0) / np.log(n / n0), 1.0, 3.0))
@@ -382,11 +347,11 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
             if op in ("project", "lmo") and members is None:
                 # an exact native answer lies on the set; else the most accurate one
                 members = outs.get("native") if outs.get("native") is not None else jout
-            ref_label = next((lb for lb in outs if _base(lb) == "reference" and outs[lb] is not None), None)
+            ref_label = next((lb for lb in outs if provider_of(lb) == REFERENCE and outs[lb] is not None), None)
             # a membership test answered through a projection has the projection's floor
             via_project = any(r.ran and r.backend == "native (via project)" for r in op_rows)
             fname = wl.floor("project") if op == "contains" and via_project else wl.floor(op)
-            fsec = time_floor(fname, X, mode) if any(r.ran and _base(r.backend) == "native" for r in op_rows) else None
+            fsec = time_floor(fname, X, mode) if any(r.ran and provider_of(r.backend) == "native" for r in op_rows) else None
             ref_sec = next((r.seconds for r in op_rows if r.backend == ref_label), None)
             for row in op_rows:
                 if not row.ran:
@@ -400,7 +365,7 @@ def sweep_workload(wl, mode: Mode, log, seed=0, ops=OPERATORS) -> list:
                     tol = 0.0 if op == "contains" else AGREE_RTOL
                     row.agrees = bool(row.error_ref <= tol)
                     row.ratio_ref = ref_sec / row.seconds if row.seconds > 0 else float("inf")
-                if _base(row.backend) == "native" and fsec:
+                if provider_of(row.backend) == "native" and fsec:
                     row.floor, row.floor_seconds = fname, fsec
                     row.ratio_floor = row.seconds / fsec
             rows.extend(op_rows)
@@ -421,15 +386,21 @@ def short_line(r: Row) -> str:
 
 
 def sweep(mode: Mode, kinds=None, ops=OPERATORS, log=print, seed=0) -> list:
+    """Rows for every workload of ``kinds`` (default: every registered kind; kinds declared only by
+    an entry point are found by name)."""
     rows = []
-    for kind in known_kinds():
-        if kinds and kind not in kinds:
+    for kind in sorted(kinds) if kinds else known_kinds():
+        try:
+            wls = workloads(kind, mode.sizes, seed)
+        except Exception as exc:   # a family whose instances cannot be built is a row of the report
+            rows.append(Row(kind, kind, "-", "-", 0, status=f"error: no instance: {type(exc).__name__}: "
+                                                            f"{str(exc)[:160]}"))
+            log(f"{kind}: no instance: {exc}")
             continue
-        wls = workloads_for(kind)
         if not wls:
-            rows.append(Row(kind, kind, "-", "-", 0, status="no benchmark builder for this kind; "
-                                                            "add one in benchmarks/_workloads.py"))
-            log(f"{kind}: no benchmark builder")
+            rows.append(Row(kind, kind, "-", "-", 0, status=f"no benchmark instance: the family declares neither "
+                                                            f"{HOOK}(n, rng) nor examples()"))
+            log(f"{kind}: no benchmark instance")
             continue
         for wl in wls:
             log(f"{wl.label}:")
@@ -439,9 +410,8 @@ def sweep(mode: Mode, kinds=None, ops=OPERATORS, log=print, seed=0) -> list:
 
 def floor_table(mode: Mode, seed=0) -> list:
     """The floors alone on one vector of each size: what no operator on n numbers can beat by much."""
-    from ._workloads import QUICK_SIZES, VECTOR_SIZES
     out = []
-    for n in (QUICK_SIZES if mode.name == "quick" else VECTOR_SIZES):
+    for n in mode.sizes:
         X = np.random.default_rng([seed, n, 1]).standard_normal((1, n))
         for name in ("pass", "sort", "sort+isotonic"):
             out.append((n, name, time_floor(name, X, mode)))

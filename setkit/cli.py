@@ -22,13 +22,13 @@ from pathlib import Path
 
 import numpy as np
 
+from .agreement import compare_backends, verify
 from .errors import DescriptionError, InputError, SetkitError, UnboundedDirectionError
 
 EXIT_OK, EXIT_DISAGREE, EXIT_BAD_INPUT = 0, 1, 2
 DESCRIPTION_SUFFIXES = (".yaml", ".yml", ".json")
 POINT_OPERATORS = ("project", "distance", "lmo", "support", "contains", "violation", "penalty")
 SET_OPERATORS = ("centroid", "sample")
-COMPARED = ("project", "distance", "lmo", "support")
 
 
 # -- progress ------------------------------------------------------------------------------------
@@ -328,97 +328,7 @@ def _cmd_inspect(args) -> int:
     return EXIT_OK
 
 
-# -- candidates and timing -------------------------------------------------------------------------
-def candidates(K, op: str) -> list[str]:
-    """Every provider that can serve ``op`` on K: native, derived, and each available backend."""
-    from .backends import all_backends
-    from .routing import DERIVED_RULES
-    out = []
-    if op in K.node.kernels:
-        out.append("native")
-    if op in DERIVED_RULES:
-        out.append("derived")
-    for name, cls in sorted(all_backends().items(), key=lambda kv: kv[1].priority):
-        if op in cls.operators and cls.available() and cls.accepts(K.node)[0]:
-            out.append(name)
-    return out
-
-
-def _median_time(fn, arg, repeat):
-    times, out = [], None
-    for _ in range(max(1, repeat)):
-        t0 = time.perf_counter()
-        out = fn(arg)
-        times.append(time.perf_counter() - t0)
-    return out, float(np.median(times))
-
-
-def compare_backends(K, n_points=4, seed=0, repeat=3, rtol=2e-5, progress=None) -> list[dict]:
-    """Time every provider of project, distance, lmo and support on the same seeded inputs and
-    measure its gap to the reference. Returns one row per (operator, provider)."""
-    from .checks import REFERENCE_ROUTES, test_points
-    from .errors import UnboundedDirectionError
-    rng = np.random.default_rng(seed)
-    Y = test_points(K, n_points, rng).reshape((-1,) + K.shape)
-    C = rng.standard_normal((3 * n_points,) + K.shape)
-    b = len(Y)
-    s = max(1.0, K.node.scale())
-    yscale = np.maximum(1.0, np.abs(Y.reshape(b, -1)).max(axis=1)) * s
-    cscale = np.linalg.norm(C.reshape(len(C), -1), axis=1) * s
-    ref = K.with_backends(**REFERENCE_ROUTES)
-    rows = []
-    baseline = {}
-    plan = {op: candidates(K, op) for op in COMPARED}
-    if progress is not None:
-        progress.total = (progress.total or 0) + sum(map(len, plan.values()))
-        progress.set_step("reference answers")
-    try:
-        baseline["project"] = ref.project(Y).reshape(b, -1)
-        baseline["distance"] = np.linalg.norm(Y.reshape(b, -1) - baseline["project"], axis=1)
-    except SetkitError as exc:
-        baseline["project"] = exc
-    try:
-        L = ref.lmo(C).reshape(len(C), -1)
-        baseline["lmo"] = np.einsum("ij,ij->i", C.reshape(len(C), -1), L)
-        baseline["support"] = ref.support(C)
-    except UnboundedDirectionError as exc:
-        baseline["lmo"] = baseline["support"] = exc
-    for op in COMPARED:
-        inp = Y if op in ("project", "distance") else C
-        for prov in plan[op]:
-            if progress is not None:
-                progress.set_step(f"{op} by {prov}")
-            row = {"operator": op, "provider": prov, "cases": len(inp), "ms_per_call": None,
-                   "max_gap": None, "allowed": rtol, "agrees": None, "failed": False, "note": ""}
-            try:
-                Kp = K.with_backends(**{op: prov})
-                out, t = _median_time(getattr(Kp, op), inp, repeat)
-                row["ms_per_call"] = 1e3 * t / len(inp)
-                if isinstance(baseline.get(op), Exception):
-                    row["note"] = f"no reference answer: {baseline[op]}"[:100]
-                elif op == "project":
-                    gap = np.linalg.norm(out.reshape(b, -1) - baseline["project"], axis=1) / yscale
-                    row["max_gap"] = float(gap.max())
-                elif op == "distance":
-                    row["max_gap"] = float((np.abs(out - baseline["distance"]) / yscale).max())
-                elif op == "lmo":
-                    v = np.einsum("ij,ij->i", C.reshape(len(C), -1), out.reshape(len(C), -1))
-                    row["max_gap"] = float((np.abs(v - baseline["lmo"]) / cscale).max())
-                else:
-                    row["max_gap"] = float((np.abs(out - baseline["support"]) / cscale).max())
-                if row["max_gap"] is not None:
-                    row["agrees"] = bool(row["max_gap"] <= rtol)
-            except UnboundedDirectionError as exc:
-                row["note"] = f"unbounded: {exc}"[:160]
-            except SetkitError as exc:
-                row["note"] = f"{type(exc).__name__}: {exc}"[:200]
-                row["failed"] = True
-            rows.append(row)
-            if progress is not None:
-                progress.advance(f"{op} by {prov}")
-    return rows
-
-
+# -- compare table -----------------------------------------------------------------------------------
 def _compare_table(rows) -> str:
     lines = [f"  {'operator':<10} {'provider':<10} {'cases':>5} {'ms/call':>10} {'max gap':>10} "
              f"{'allowed':>8}  verdict"]
@@ -433,7 +343,6 @@ def _compare_table(rows) -> str:
 
 # -- verify ----------------------------------------------------------------------------------------
 def _cmd_verify(args) -> int:
-    from .checks import verify
     status = EXIT_OK
     reports = []
     with Progress("verify", total=len(args.files), enabled=not args.quiet) as prog:

@@ -112,7 +112,18 @@ class DistancePenalty:
 
     @property
     def lipschitz(self) -> float:
-        """A Lipschitz constant of P (G for every variant)."""
+        """A Lipschitz constant of P: G for every variant.
+
+        d(x) = dist(x, K) is 1-Lipschitz, the Huber function h has slope at most
+        1 and an average of 1-Lipschitz functions is 1-Lipschitz, so G·d, G·h(d)
+        and E_u[G·d(x + δu)] are G-Lipschitz.
+
+        Examples
+        --------
+        >>> import setkit
+        >>> setkit.simplex(dim=3).penalty(2.5, "moreau", width=0.1).lipschitz
+        2.5
+        """
         return self.G
 
     # -- sampling --------------------------------------------------------------------------------
@@ -177,7 +188,43 @@ class DistancePenalty:
 
     # -- public ----------------------------------------------------------------------------------
     def value(self, x, details: bool = False):
-        """P(x) for one point (a float) or a batch (an array of the batch shape)."""
+        """The penalty P(x) for one point or a batch.
+
+        P(x) = G·d(x), G·h(d(x)) (smoothing "moreau") or E_u[G·d(x + δu)]
+        (smoothing "ball"), with d(x) = dist(x, K); see the module docstring.
+
+        Parameters
+        ----------
+        x : array_like of shape (..., *K.shape)
+            One point or a batch (leading axes).
+        details : bool, default False
+            Return a :class:`PenaltyEstimate` with the standard error (nonzero
+            for the ball smoothing only) and how the value was computed.
+
+        Returns
+        -------
+        float or ndarray or PenaltyEstimate
+            A float for one point, an array of the batch shape for a batch.
+
+        Notes
+        -----
+        One projection per point (``samples`` projections per point for the
+        ball smoothing), plus O(dim).
+
+        Examples
+        --------
+        >>> import setkit
+        >>> K = setkit.box(dim=2, lower=0, upper=1)
+        >>> float(K.penalty(3.0).value([2.0, 0.5]))
+        3.0
+        >>> K.penalty(3.0).value([[2.0, 0.5], [0.5, 0.5]]).tolist()
+        [3.0, 0.0]
+        >>> float(K.penalty(3.0, "moreau", width=2.0).value([2.0, 0.5]))   # 3 * 1**2 / (2 * 2)
+        0.75
+        >>> est = K.penalty(3.0, "ball", width=0.5).value([2.0, 0.5], details=True)
+        >>> round(float(est.estimate), 12), est.samples     # d is affine on that ball: the mean is exact
+        (3.0, 64)
+        """
         X, lead = self.K.flatten(x, "x", "penalty.value")
         v, se, _, _ = self._compute(X, False)
         out = self.K.unflatten_values(v, lead)
@@ -188,7 +235,39 @@ class DistancePenalty:
     __call__ = value
 
     def grad(self, x, details: bool = False):
-        """grad P(x) (a subgradient for smoothing=None), of the same shape as x."""
+        """The gradient of the penalty (a subgradient for smoothing=None), of the shape of x.
+
+        grad P(x) = G·(x - p(x))/d(x) outside K and 0 inside (smoothing None),
+        G·(x - p(x))/max(d(x), δ) (smoothing "moreau"), or the mean of the
+        former over the ball x + δu (smoothing "ball"); p is the projection.
+
+        Parameters
+        ----------
+        x : array_like of shape (..., *K.shape)
+            One point or a batch (leading axes).
+        details : bool, default False
+            Return a :class:`PenaltyEstimate` with the standard error of each
+            entry (nonzero for the ball smoothing only).
+
+        Returns
+        -------
+        ndarray or PenaltyEstimate
+            An array of the shape of ``x``.
+
+        Notes
+        -----
+        One projection per point (``samples`` per point for the ball
+        smoothing), plus O(dim).
+
+        Examples
+        --------
+        >>> import setkit
+        >>> K = setkit.box(dim=2, lower=0, upper=1)
+        >>> K.penalty(3.0).grad([2.0, 0.5]).tolist()
+        [3.0, 0.0]
+        >>> K.penalty(3.0, "moreau", width=2.0).grad([2.0, 0.5]).tolist()
+        [1.5, 0.0]
+        """
         X, lead = self.K.flatten(x, "x", "penalty.grad")
         _, _, g, gse = self._compute(X, True)
         out = self.K.unflatten_points(g, lead)
@@ -197,7 +276,33 @@ class DistancePenalty:
         return PenaltyEstimate(out, self.K.unflatten_points(gse, lead), self.samples, self._estimator("grad"))
 
     def value_and_grad(self, x):
-        """(P(x), grad P(x)) from one set of projections (and, for the ball, the same samples)."""
+        """The value and the gradient of the penalty from one set of projections.
+
+        Returns (P(x), grad P(x)) as :meth:`value` and :meth:`grad` would, with
+        the same ball samples for both when smoothing is "ball".
+
+        Parameters
+        ----------
+        x : array_like of shape (..., *K.shape)
+            One point or a batch (leading axes).
+
+        Returns
+        -------
+        tuple
+            The value (a float, or an array of the batch shape) and the gradient
+            (an array of the shape of ``x``).
+
+        Notes
+        -----
+        One projection per point (``samples`` per point for the ball smoothing).
+
+        Examples
+        --------
+        >>> import setkit
+        >>> v, g = setkit.box(dim=2, lower=0, upper=1).penalty(3.0).value_and_grad([2.0, 0.5])
+        >>> float(v), g.tolist()
+        (3.0, [3.0, 0.0])
+        """
         X, lead = self.K.flatten(x, "x", "penalty.value_and_grad")
         v, _, g, _ = self._compute(X, True)
         return self.K.unflatten_values(v, lead), self.K.unflatten_points(g, lead)
@@ -205,8 +310,35 @@ class DistancePenalty:
     def extend(self, f, grad_f=None, *, batched: bool = False) -> "ExtendedLoss":
         """The loss f + P on the whole space, with value and gradient.
 
-        ``f(x)`` returns a float and ``grad_f(x)`` an array of K.shape for one point
-        of K.shape; with ``batched=True`` both take a batch (..., *K.shape) instead.
+        F(x) = f(x) + P(x), grad F(x) = grad f(x) + grad P(x). With the
+        unsmoothed penalty and f L-Lipschitz with L <= G, a minimizer of F over
+        the whole space can be taken inside K.
+
+        Parameters
+        ----------
+        f : callable
+            ``f(x)`` returns a float for one point of K.shape.
+        grad_f : callable, optional
+            ``grad_f(x)`` returns an array of K.shape; needed for ``grad``.
+        batched : bool, default False
+            ``f`` and ``grad_f`` take a batch (..., *K.shape) instead of one point.
+
+        Returns
+        -------
+        ExtendedLoss
+
+        Notes
+        -----
+        Each evaluation costs the penalty's plus one call of f (or grad_f) per
+        point (one call per batch when ``batched``).
+
+        Examples
+        --------
+        >>> import setkit
+        >>> P = setkit.box(dim=2, lower=0, upper=1).penalty(3.0)
+        >>> F = P.extend(lambda x: float(x @ x), lambda x: 2 * x)
+        >>> float(F.value([2.0, 0.5])), F.grad([2.0, 0.5]).tolist()
+        (7.25, [7.0, 1.0])
         """
         if not callable(f) or (grad_f is not None and not callable(grad_f)):
             raise InputError("penalty.extend: f and grad_f must be callables (grad_f may be None if only "
@@ -232,22 +364,129 @@ class ExtendedLoss:
         return K.unflatten_points(np.stack([r.reshape(K.dim) for r in rows]) if rows else np.zeros((0, K.dim)), lead)
 
     def value(self, x):
-        """f(x) + P(x)."""
+        """The extended loss f(x) + P(x) for one point or a batch.
+
+        Parameters
+        ----------
+        x : array_like of shape (..., *K.shape)
+            One point or a batch (leading axes).
+
+        Returns
+        -------
+        float or ndarray
+            A float for one point, an array of the batch shape for a batch.
+
+        Notes
+        -----
+        The penalty's cost plus one call of f per point (one per batch when batched).
+
+        Examples
+        --------
+        >>> import setkit
+        >>> F = setkit.box(dim=2, lower=0, upper=1).penalty(3.0).extend(lambda x: float(x.sum()))
+        >>> F.value([[2.0, 0.5], [0.5, 0.5]]).tolist()
+        [5.5, 1.0]
+        """
         return self._apply(self.f, x, "value") + self.penalty.value(x)
 
     __call__ = value
 
     def grad(self, x):
-        """grad f(x) + grad P(x)."""
+        """The gradient grad f(x) + grad P(x) for one point or a batch.
+
+        Parameters
+        ----------
+        x : array_like of shape (..., *K.shape)
+            One point or a batch (leading axes).
+
+        Returns
+        -------
+        ndarray
+            An array of the shape of ``x``.
+
+        Raises
+        ------
+        InputError
+            When the loss was built without ``grad_f``.
+
+        Notes
+        -----
+        The penalty gradient's cost plus one call of grad_f per point.
+
+        Examples
+        --------
+        >>> import numpy as np, setkit
+        >>> F = setkit.box(dim=2, lower=0, upper=1).penalty(3.0).extend(lambda x: 0.0, lambda x: np.ones(2))
+        >>> F.grad([2.0, 0.5]).tolist()
+        [4.0, 1.0]
+        """
         if self.grad_f is None:
             raise InputError("extended loss: grad needs grad_f; pass it to penalty.extend(f, grad_f).")
         return self._apply(self.grad_f, x, "grad") + self.penalty.grad(x)
 
     def lipschitz(self, L_f: float) -> float:
-        """A Lipschitz constant of f + P when f is L_f-Lipschitz: L_f + G."""
+        """A Lipschitz constant of f + P when f is L_f-Lipschitz: L_f + G.
+
+        Parameters
+        ----------
+        L_f : float
+            A Lipschitz constant of f.
+
+        Returns
+        -------
+        float
+
+        Notes
+        -----
+        O(1): every penalty variant is G-Lipschitz.
+
+        Examples
+        --------
+        >>> import setkit
+        >>> setkit.box(dim=2, lower=0, upper=1).penalty(3.0).extend(lambda x: 0.0).lipschitz(1.5)
+        4.5
+        """
         return float(L_f) + self.penalty.G
 
 
 def make_penalty(K, G, smoothing=None, width=None, **kw) -> DistancePenalty:
-    """The penalty object served by ``K.penalty(G, smoothing, width, ...)``."""
+    """The penalty object served by ``K.penalty(G, smoothing, width, ...)``.
+
+    P(x) = G·dist(x, K), optionally smoothed (see the module docstring).
+
+    Parameters
+    ----------
+    K : DecisionSet
+        The set.
+    G : float
+        The weight G >= 0 (a Lipschitz constant of the loss being extended).
+    smoothing : {None, "moreau", "ball"}, default None
+        The smoothing of the distance.
+    width : float, optional
+        The smoothing width δ > 0; required with a smoothing, not allowed without.
+    **kw
+        Ball smoothing options: ``samples`` (even, default 64), ``rng`` (a
+        Generator or an int seed, default 0) and ``resample`` (default False).
+
+    Returns
+    -------
+    DistancePenalty
+
+    Raises
+    ------
+    InputError
+        For a negative or non-finite G, an unknown smoothing or a bad width.
+
+    Notes
+    -----
+    O(1) to build, plus O(samples·dim) to draw the ball points.
+
+    Examples
+    --------
+    >>> import setkit
+    >>> from setkit.penalty import make_penalty
+    >>> P = make_penalty(setkit.box(dim=2, lower=0, upper=1), 3.0, "moreau", width=2.0)
+    >>> P.grad([2.0, 0.5]).tolist()
+    [1.5, 0.0]
+    """
     return DistancePenalty(K, G, smoothing, width, **kw)

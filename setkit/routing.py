@@ -131,6 +131,7 @@ class Route:
     reason: str
     source: str | None = None
     category: str = ""
+    forced: bool = False         # chosen by the caller with with_backends (no fallback then)
 
     def describe(self) -> str:
         return f"{self.operator:<14} {self.provider:<10} {self.reason}"
@@ -191,7 +192,8 @@ def _backend_route(op, node, name, forced):
     ok, why = cls.accepts(node)
     if not ok:
         raise BackendUnavailableError(f"backend {name!r} cannot serve {op} for {node.label}: {why}.")
-    return Route(op, name, ("chosen by the caller; " if forced else "") + f"{cls.about} ({why})", category="backend")
+    return Route(op, name, ("chosen by the caller; " if forced else "") + f"{cls.about} ({why})", category="backend",
+                 forced=forced)
 
 
 def _generic(op, node):
@@ -340,7 +342,7 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             calls[op] = lambda X: (context.linear_form().violation_x(X), {})
         elif r.category == "backend":
             chain = [r.provider] + [name for name, _ in _chain(op, node) if name != r.provider]
-            if len(chain) > 1 and op in CHAINED:
+            if len(chain) > 1 and op in CHAINED and not r.forced:
                 routes[op] = Route(op, r.provider, r.reason + "; on a failed solve: " + ", then ".join(chain[1:]),
                                    r.source, r.category)
             else:

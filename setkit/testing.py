@@ -45,13 +45,12 @@ from typing import Callable
 
 import numpy as np
 
+from .agreement import (DEFAULT_RTOL, REFERENCE_ROUTES, ReferenceComparison, data_scale, lmo_rows, objective_gaps,
+                        point_gaps, support_rows, value_gaps)
 from .errors import InputError, SetkitError, UnboundedDirectionError, UnsupportedOperationError
 
 __all__ = ["check_set", "check_family", "checks", "family_checks", "parametrize", "points", "directions",
            "CheckOutcome", "REFERENCE_ROUTES"]
-
-REFERENCE_ROUTES = dict(project="reference", lmo="reference", support="reference")
-DEFAULT_RTOL = 2e-5
 
 
 @dataclass(frozen=True)
@@ -78,121 +77,6 @@ def _fmt(v, width=6) -> str:
     if a.ndim == 0:
         return f"{float(a):.{width + 3}g}"
     return np.array2string(a, precision=width, max_line_width=100, threshold=40, separator=", ")
-
-
-# -- shared inputs and reference answers -------------------------------------------------------
-class _Context:
-    """Seeded inputs and cached reference answers shared by the checks of one set."""
-
-    def __init__(self, K, seed: int, points: int, rtol: float):
-        self.K = K
-        self.seed = seed
-        self.n = max(1, int(points))
-        self.rtol = rtol
-        self.ref = K.with_backends(**REFERENCE_ROUTES)
-        self.s = max(1.0, float(K.node.scale()))
-        self._cache = {}
-
-    def _get(self, key, make):
-        if key not in self._cache:
-            self._cache[key] = make()
-        return self._cache[key]
-
-    # inputs: (flat array (b, dim), list of labels)
-    def inputs(self):
-        def make():
-            n, d, s = self.n, self.K.dim, self.s
-            rng = np.random.default_rng([self.seed, 1])
-            raw = rng.standard_normal((n, d)) * s
-            inside = self.ref_project_rows(raw)
-            groups = [
-                (inside, "a point of the set"),
-                (inside + 1e-3 * s * rng.standard_normal((n, d)), "near the set (noise 1e-3)"),
-                (raw, "a Gaussian point at the set's scale"),
-                (1e3 * s * rng.standard_normal((n, d)), "far from the set (scale 1e3)"),
-                (1e-3 * rng.standard_normal((1, d)), "a tiny point (scale 1e-3)"),
-                (1e6 * s * rng.standard_normal((1, d)), "a huge point (scale 1e6)"),
-            ]
-            X = np.concatenate([g for g, _ in groups])
-            labels = [lab for g, lab in groups for _ in range(len(g))]
-            return X, labels
-        return self._get("inputs", make)
-
-    def directions(self):
-        def make():
-            n, d = self.n, self.K.dim
-            rng = np.random.default_rng([self.seed, 2])
-            gauss = rng.standard_normal((n, d))
-            groups = [
-                (gauss, "a Gaussian direction"),
-                (np.round(rng.standard_normal((n, d))), "a rounded direction (ties likely)"),
-                (np.ones((1, d)), "the all-ones direction (a full tie)"),
-                (1e-3 * rng.standard_normal((1, d)), "a tiny direction (scale 1e-3)"),
-                (1e6 * rng.standard_normal((1, d)), "a huge direction (scale 1e6)"),
-            ]
-            C = np.concatenate([g for g, _ in groups])
-            zero = ~np.any(C != 0, axis=1)
-            C[zero, 0] = 1.0   # rounding may give the zero vector; c = 0 has its own check
-            labels = [lab for g, lab in groups for _ in range(len(g))]
-            return C, labels
-        return self._get("directions", make)
-
-    def shaped(self, X):
-        return X.reshape((-1,) + self.K.shape)
-
-    def flat(self, A, b):
-        return np.asarray(A, dtype=float).reshape(b, -1)
-
-    def ref_project_rows(self, X):
-        return self.flat(self.ref.project(self.shaped(X)), len(X))
-
-    def ref_projection(self):
-        X, _ = self.inputs()
-        return self._get("ref_project", lambda: self.ref_project_rows(X))
-
-    def ref_distance_rows(self, X):
-        """Distance of each row to the set, by the reference projection."""
-        P = self.ref_project_rows(X)
-        return np.linalg.norm(X - P, axis=1)
-
-    def ref_lmo_rows(self, C):
-        """Reference LMO per row; None where the set is unbounded along -c."""
-        out = []
-        for c in C:
-            try:
-                out.append(self.flat(self.ref.lmo(c.reshape(self.K.shape)), 1)[0])
-            except UnboundedDirectionError:
-                out.append(None)
-        return out
-
-    def ref_lmo(self):
-        C, _ = self.directions()
-        return self._get("ref_lmo", lambda: self.ref_lmo_rows(C))
-
-    def ref_lmo_neg(self):
-        C, _ = self.directions()
-        return self._get("ref_lmo_neg", lambda: self.ref_lmo_rows(-C))
-
-    def ref_support_rows(self, C):
-        """Reference support per row, computed on unit directions (the support function is
-        positively homogeneous; tiny directions such as y - p for y near K confuse the solver)."""
-        norms = np.linalg.norm(C, axis=1)
-        U = C / np.where(norms > 0, norms, 1.0)[:, None]
-        vals = []
-        for u, nrm, x in zip(U, norms, self.ref_lmo_rows(-U)):
-            vals.append(np.inf if x is None else float(nrm * (u @ x)))
-        return np.array(vals)
-
-    def vertices(self):
-        """A few extreme points of the set (reference LMO answers), where bounded."""
-        L = [x for x in self.ref_lmo() if x is not None]
-        return np.array(L[: self.n]) if L else np.zeros((0, self.K.dim))
-
-    def point_scale(self, X):
-        return np.maximum(1.0, np.abs(X).max(axis=1)) * self.s
-
-    def dir_scale(self, C):
-        return np.maximum(np.linalg.norm(C, axis=1), 1e-300) * self.s
 
 
 def _raise_worst(name, K, what, gaps, allowed, X, labels, got, want, note=""):
@@ -226,8 +110,8 @@ def _project_reference(ctx):
     X, labels = ctx.inputs()
     P = ctx.flat(K.project(ctx.shaped(X)), len(X))
     Pr = ctx.ref_projection()
-    allowed = ctx.rtol * ctx.point_scale(X)
-    gaps = np.linalg.norm(P - Pr, axis=1)
+    allowed = ctx.point_tolerance(X)
+    gaps = point_gaps(P, Pr)
     _raise_worst("project/reference", K, "the projection differs from the reference projection",
                  gaps, allowed, X, labels, P, Pr, "gap = ||setkit - reference||")
     return len(X), float((gaps / allowed).max()), ctx.rtol
@@ -238,7 +122,7 @@ def _project_certificate(ctx):
     K = ctx.K
     X, labels = ctx.inputs()
     P = ctx.flat(K.project(ctx.shaped(X)), len(X))
-    allowed = ctx.rtol * ctx.point_scale(X)
+    allowed = ctx.point_tolerance(X)
     dist_in = ctx.ref_distance_rows(P)
     _raise_worst("project/feasible", K, "the projection is not a point of the set",
                  dist_in, allowed, X, labels, P, ctx.ref_projection(),
@@ -266,8 +150,8 @@ def _project_fixed_points(ctx):
         labels += ["an extreme point of the set (reference LMO)"] * len(V)
     Z = np.concatenate(pts)
     P = ctx.flat(K.project(ctx.shaped(Z)), len(Z))
-    allowed = ctx.rtol * ctx.point_scale(Z)
-    gaps = np.linalg.norm(P - Z, axis=1)
+    allowed = ctx.point_tolerance(Z)
+    gaps = point_gaps(P, Z)
     _raise_worst("project/fixed-points", K, "projecting a point of the set moved it",
                  gaps, allowed, Z, labels, P, Z, "the reference answer is the input itself")
     return len(Z), float((gaps / allowed).max()), ctx.rtol
@@ -277,48 +161,22 @@ def _distance_reference(ctx):
     K = ctx.K
     X, labels = ctx.inputs()
     D = np.asarray(K.distance(ctx.shaped(X)), float).reshape(-1)
-    Dr = np.linalg.norm(X - ctx.ref_projection(), axis=1)
-    allowed = ctx.rtol * ctx.point_scale(X)
-    gaps = np.abs(D - Dr)
+    Dr = ctx.ref_distances()
+    allowed = ctx.point_tolerance(X)
+    gaps = value_gaps(D, Dr)
     _raise_worst("distance/reference", K, "the distance differs from ||y - reference projection||",
                  gaps, allowed, X, labels, D, Dr)
     return len(X), float((gaps / allowed).max()), ctx.rtol
 
 
-def _lmo_rows(ctx, C):
-    """K's LMO per row (batched first), None where it raised UnboundedDirectionError."""
-    K = ctx.K
-    try:
-        L = ctx.flat(K.lmo(ctx.shaped(C)), len(C))
-        return list(L)
-    except UnboundedDirectionError:
-        out = []
-        for c in C:
-            try:
-                out.append(ctx.flat(K.lmo(c.reshape(K.shape)), 1)[0])
-            except UnboundedDirectionError:
-                out.append(None)
-        return out
-
-
 def _lmo_reference(ctx):
     K = ctx.K
     C, labels = ctx.directions()
-    L = _lmo_rows(ctx, C)
+    L = lmo_rows(K, C)
     Lr = ctx.ref_lmo()
-    allowed = ctx.rtol * ctx.dir_scale(C)
-    gaps, got, want = [], [], []
-    for c, x, xr in zip(C, L, Lr):
-        if xr is None:
-            # unbounded: setkit must say so, not return a point
-            gaps.append(0.0 if x is None else np.inf)
-        elif x is None:
-            gaps.append(np.inf)
-        else:
-            gaps.append(abs(float(c @ x) - float(c @ xr)))
-        got.append(None if x is None else float(c @ x))
-        want.append(None if xr is None else float(c @ xr))
-    gaps = np.array(gaps)
+    allowed = ctx.direction_tolerance(C)
+    # where the reference finds the set unbounded, setkit must say so, not return a point
+    gaps, got, want = objective_gaps(C, L, Lr)
     _raise_worst("lmo/reference", K, "the LMO objective <c, lmo(c)> differs from the reference minimum "
                  "(or boundedness disagrees)", gaps, allowed, C, labels, got, want,
                  "values shown are objectives <c, x>")
@@ -326,37 +184,20 @@ def _lmo_reference(ctx):
     if ok:
         A = np.array([L[i] for i in ok])
         din = ctx.ref_distance_rows(A)
-        al = ctx.rtol * ctx.point_scale(A)
+        al = ctx.point_tolerance(A)
         _raise_worst("lmo/feasible", K, "the LMO answer is not a point of the set", din, al,
                      C[ok], [labels[i] for i in ok], A, [Lr[i] for i in ok],
                      "gap = distance of setkit's answer to the set (by the reference)")
     return len(C), float(np.nanmax(np.where(np.isfinite(gaps), gaps / allowed, 0.0))), ctx.rtol
 
 
-def _support_rows(ctx, C):
-    K = ctx.K
-    try:
-        return np.asarray(K.support(ctx.shaped(C)), float).reshape(-1)
-    except UnboundedDirectionError:
-        out = []
-        for c in C:
-            try:
-                out.append(float(K.support(c.reshape(K.shape))))
-            except UnboundedDirectionError:
-                out.append(np.inf)
-        return np.array(out)
-
-
 def _support_reference(ctx):
     K = ctx.K
     C, labels = ctx.directions()
-    S = _support_rows(ctx, C)
-    Sr = np.array([np.inf if x is None else float(c @ x) for c, x in zip(C, ctx.ref_lmo_neg())])
-    allowed = ctx.rtol * ctx.dir_scale(C)
-    both_inf = np.isinf(S) & np.isinf(Sr) & (np.sign(S) == np.sign(Sr))
-    with np.errstate(invalid="ignore"):
-        gaps = np.where(both_inf, 0.0, np.abs(S - Sr))
-    gaps = np.nan_to_num(gaps, nan=np.inf)
+    S = support_rows(K, C)
+    Sr = ctx.ref_support()
+    allowed = ctx.direction_tolerance(C)
+    gaps = value_gaps(S, Sr)
     _raise_worst("support/reference", K, "the support function differs from the reference max <c, x>",
                  gaps, allowed, C, labels, S, Sr)
     return len(C), float(np.max(np.where(np.isfinite(gaps), gaps / allowed, 0.0))), ctx.rtol
@@ -366,15 +207,15 @@ def _support_homogeneity(ctx):
     """support(t c) = t support(c) for t > 0, and support(0) = 0 (positive homogeneity)."""
     K = ctx.K
     C, labels = ctx.directions()
-    S = _support_rows(ctx, C)
+    S = support_rows(K, C)
     fin = np.flatnonzero(np.isfinite(S))
     if fin.size == 0:
         raise _Skip("the set is unbounded along every tested direction")
     gaps, allowed, got, want, lab, inp = [], [], [], [], [], []
     for t in (1e-3, 7.0, 1e5):
-        St = _support_rows(ctx, t * C[fin])
-        gaps.append(np.abs(St - t * S[fin]))
-        allowed.append(ctx.rtol * t * ctx.dir_scale(C[fin]))
+        St = support_rows(K, t * C[fin])
+        gaps.append(value_gaps(St, t * S[fin]))
+        allowed.append(t * ctx.direction_tolerance(C[fin]))
         got.append(St)
         want.append(t * S[fin])
         lab += [f"{labels[i]}, scaled by {t:g}" for i in fin]
@@ -405,7 +246,7 @@ def _lmo_zero_direction(ctx):
         raise AssertionError(f"setkit conformance: lmo/zero-direction failed on {K.node.label}: lmo(0) raised "
                              f"UnboundedDirectionError ({exc}); every point of a nonempty set minimizes <0, x>.")
     d = ctx.ref_distance_rows(x)
-    al = ctx.rtol * ctx.point_scale(x)
+    al = ctx.point_tolerance(x)
     _raise_worst("lmo/zero-direction", K, "lmo(0) is not a point of the set", d, al, zero.reshape(1, -1),
                  ["the zero direction"], x, None)
     return 1, float((d / al).max()), ctx.rtol
@@ -415,15 +256,13 @@ def _contains(ctx):
     K = ctx.K
     X, labels = ctx.inputs()
     Pr = ctx.ref_projection()
-    scale = ctx.point_scale(Pr)
-    inside = np.asarray(K.contains(ctx.shaped(Pr), tol=1e-5 * scale), bool).reshape(-1)
+    inside = np.asarray(K.contains(ctx.shaped(Pr), tol=ctx.membership_tolerance()), bool).reshape(-1)
     bad_in = (~inside).astype(float)
     _raise_worst("contains/points-of-the-set", K, "contains() rejects a point of the set "
                  "(tol = 1e-5 * scale)", bad_in, np.zeros(len(Pr)) + 0.5, Pr, ["the reference projection of " + lab
                                                                                for lab in labels],
                  inside.astype(float), np.ones(len(Pr)), "values: 1 = contained, 0 = not")
-    Dr = np.linalg.norm(X - Pr, axis=1)
-    far = Dr > 1e-2 * ctx.point_scale(X)
+    far = ctx.far_from_the_set()
     got = np.asarray(K.contains(ctx.shaped(X)), bool).reshape(-1)
     wrong = (got & far).astype(float)
     _raise_worst("contains/points-outside", K, "contains() accepts a point far from the set "
@@ -440,11 +279,11 @@ def _violation(ctx):
         raise _Skip("the set offers no violation measure")
     Pr = ctx.ref_projection()
     vin = np.asarray(K.violation(ctx.shaped(Pr)), float).reshape(-1)
-    al = 1e-5 * ctx.point_scale(Pr)
+    al = ctx.membership_tolerance()
     _raise_worst("violation/points-of-the-set", K, "violation() is positive at a point of the set", vin, al, Pr,
                  labels, vin, np.zeros(len(vin)))
-    Dr = np.linalg.norm(X - Pr, axis=1)
-    far = Dr > 1e-2 * ctx.point_scale(X)
+    Dr = ctx.ref_distances()
+    far = ctx.far_from_the_set()
     wrong = (far & ~(v > 0)).astype(float)
     _raise_worst("violation/points-outside", K, "violation() is 0 at a point far from the set", wrong,
                  np.zeros(len(X)) + 0.5, X, labels, v, Dr, "the reference column shows the distance")
@@ -538,10 +377,10 @@ def _penalty(ctx):
     except (ImportError, UnsupportedOperationError, AttributeError, NotImplementedError) as exc:
         raise _Skip(f"no penalty available: {exc}")
     X, labels = ctx.inputs()
-    Dr = np.linalg.norm(X - ctx.ref_projection(), axis=1)
+    Dr = ctx.ref_distances()
     v = np.array([float(pen.value(x.reshape(K.shape))) for x in X])
-    allowed = G * ctx.rtol * ctx.point_scale(X)
-    gaps = np.abs(v - G * Dr)
+    allowed = G * ctx.point_tolerance(X)
+    gaps = value_gaps(v, G * Dr)
     _raise_worst("penalty/value", K, "penalty(G).value(x) differs from G * reference distance", gaps, allowed,
                  X, labels, v, G * Dr)
     # the Moreau envelope (exact definition in the design): value G h(d), gradient G (x - p) / max(d, delta)
@@ -552,12 +391,12 @@ def _penalty(ctx):
     vm = np.array([float(pm.value(x.reshape(K.shape))) for x in X])
     gm = np.stack([np.asarray(pm.grad(x.reshape(K.shape)), float).reshape(-1) for x in X])
     gr = G * (X - Pr) / np.maximum(Dr, delta)[:, None]
-    gv = np.abs(vm - G * h)
+    gv = value_gaps(vm, G * h)
     _raise_worst("penalty/moreau-value", K, "the Moreau penalty value differs from G h(reference distance)",
                  gv, allowed, X, labels, vm, G * h)
-    gg = np.linalg.norm(gm - gr, axis=1)
+    gg = point_gaps(gm, gr)
     # the gradient divides the projection error by max(d, delta)
-    gallowed = G * ctx.rtol * ctx.point_scale(X) / delta
+    gallowed = G * ctx.point_tolerance(X) / delta
     _raise_worst("penalty/moreau-gradient", K, "the Moreau penalty gradient differs from "
                  "G (x - p) / max(d, delta) with the reference projection", gg, gallowed, X, labels, gm, gr)
     return 3 * len(X), float(max((gaps / allowed).max(), (gv / allowed).max(), (gg / gallowed).max())), ctx.rtol
@@ -607,15 +446,48 @@ def _as_set(target):
 
 
 def checks(K, seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL, only=None) -> list:
-    """The conformance checks of one set as a list of ``(name, callable)``.
+    """The conformance checks of one set as a list of ``(name, callable)`` pairs, not yet run.
 
     Each callable takes no argument, raises AssertionError on failure and
     returns a :class:`CheckOutcome` (``note`` says why a check was skipped).
-    The checks share one cache of inputs and reference answers.
-    ``K`` may be a DecisionSet, a description dict or a file path.
+    The checks share one cache of inputs and reference answers. The bar each
+    check applies is stated in the module docstring.
+
+    Parameters
+    ----------
+    K : DecisionSet, mapping, str or os.PathLike
+        The set, a description or a description file.
+    seed : int, default 0
+        Seed of the random inputs.
+    points : int, default 3
+        Random inputs per category (inside, near, at the set's scale, far,
+        tiny, huge).
+    rtol : float, default 2e-5
+        Relative tolerance of the comparisons with the reference.
+    only : list of str, optional
+        Keep the checks whose names start with one of these prefixes.
+
+    Returns
+    -------
+    list of (str, callable)
+
+    Notes
+    -----
+    Building the list is cheap; running a check costs a few reference
+    (interior-point) solves per input.
+
+    Examples
+    --------
+    >>> import setkit, setkit.testing
+    >>> pairs = setkit.testing.checks(setkit.simplex(dim=3), only=["project"])
+    >>> [name for name, _ in pairs]
+    ['project/reference', 'project/certificate', 'project/fixed-points']
+    >>> outcome = pairs[0][1]()
+    >>> outcome.name, outcome.worst <= 1
+    ('project/reference', True)
     """
     K = _as_set(K)
-    ctx = _Context(K, seed, points, rtol)
+    ctx = ReferenceComparison(K, seed, points, rtol)
     out = []
     for name, fn in CHECKS:
         if only is not None and not any(name.startswith(o) for o in only):
@@ -637,11 +509,42 @@ def checks(K, seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL, only=N
 def check_set(K, seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL, only=None) -> list:
     """Run every conformance check on ``K``; raise one AssertionError listing every failure.
 
-    ``points`` is the number of random inputs per category (inside, near, at
-    the set's scale, far; plus tiny and huge ones); ``only`` restricts to
-    checks whose names start with one of the given prefixes. Returns the list
-    of :class:`CheckOutcome` when everything passes.
+    Every operator is compared with the cvxpy reference and with certificates
+    that need no reference, on seeded inputs (the bar is stated in the module
+    docstring).
 
+    Parameters
+    ----------
+    K : DecisionSet, mapping, str or os.PathLike
+        The set, a description or a description file.
+    seed : int, default 0
+        Seed of the random inputs.
+    points : int, default 3
+        Random inputs per category (inside, near, at the set's scale, far;
+        plus tiny and huge ones).
+    rtol : float, default 2e-5
+        Relative tolerance of the comparisons with the reference.
+    only : list of str, optional
+        Run only the checks whose names start with one of these prefixes.
+
+    Returns
+    -------
+    list of CheckOutcome
+        When every check passes; ``worst`` is the largest gap over its allowed value.
+
+    Raises
+    ------
+    AssertionError
+        Listing every failed check with its input, setkit's answer, the
+        reference answer and the allowed gap.
+
+    Notes
+    -----
+    Cost: a few reference (interior-point) solves per input and operator,
+    about a second for a small set.
+
+    Examples
+    --------
     >>> import setkit, setkit.testing
     >>> out = setkit.testing.check_set(setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}))
     >>> all(o.worst <= 1 for o in out)
@@ -684,10 +587,39 @@ def _family_specs(family, seed: int, count: int) -> list:
 
 
 def family_checks(family, seed: int = 0, count: int = 2, points: int = 2, rtol: float = DEFAULT_RTOL) -> list:
-    """``(name, callable)`` pairs: every check on every example instance of a family.
+    """``(name, callable)`` pairs: every check on every example instance of a family, not yet run.
 
     Names look like ``simplex[0]:project/reference``; a failure message starts
-    with the spec of the instance.
+    with the spec of the instance. Instances are built on the first run of one
+    of their checks.
+
+    Parameters
+    ----------
+    family : str or type
+        A kind name or a Family class.
+    seed : int, default 0
+        Seed of the random instances and inputs.
+    count : int, default 2
+        Calls of the family's ``random_example(rng)``.
+    points : int, default 2
+        Random inputs per category, as in :func:`check_set`.
+    rtol : float, default 2e-5
+        Relative tolerance of the comparisons with the reference.
+
+    Returns
+    -------
+    list of (str, callable)
+
+    Notes
+    -----
+    As :func:`checks`, per instance.
+
+    Examples
+    --------
+    >>> import setkit.testing
+    >>> names = [name for name, _ in setkit.testing.family_checks("simplex", count=0)]
+    >>> names[0]
+    'simplex[0]:project/reference'
     """
     out = []
     for i, spec in enumerate(_family_specs(family, seed, count)):
@@ -717,11 +649,45 @@ def _lazy_checks(spec, seed, points, rtol):
 
 
 def check_family(family, seed: int = 0, count: int = 2, points: int = 2, rtol: float = DEFAULT_RTOL) -> list:
-    """Run :func:`check_set` on every example instance of a family (a kind name or a Family class).
+    """Run :func:`check_set` on every example instance of a family.
 
-    Instances come from the family's optional classmethods ``examples()``
-    (fixed small spec dicts) and ``random_example(rng)`` (called ``count``
-    times with a generator seeded by ``seed``).
+    Instances come from the family's classmethods ``examples()`` (fixed small
+    spec dicts) and ``random_example(rng)`` (called ``count`` times with a
+    generator seeded by ``seed``).
+
+    Parameters
+    ----------
+    family : str or type
+        A kind name or a Family class.
+    seed : int, default 0
+        Seed of the random instances and inputs.
+    count : int, default 2
+        Calls of the family's ``random_example(rng)``.
+    points : int, default 2
+        Random inputs per category, as in :func:`check_set`.
+    rtol : float, default 2e-5
+        Relative tolerance of the comparisons with the reference.
+
+    Returns
+    -------
+    list of CheckOutcome
+        Of every check on every instance, when all pass.
+
+    Raises
+    ------
+    AssertionError
+        Listing every failure, each headed by the spec of its instance.
+
+    Notes
+    -----
+    Cost: :func:`check_set` per instance, about a second each for small sets.
+
+    Examples
+    --------
+    >>> import setkit.testing
+    >>> out = setkit.testing.check_family("simplex", count=0, points=1)
+    >>> all(o.worst <= 1 for o in out)
+    True
     """
     outcomes, failures = [], []
     for spec in _family_specs(family, seed, count):
@@ -736,12 +702,45 @@ def check_family(family, seed: int = 0, count: int = 2, points: int = 2, rtol: f
 
 def parametrize(target, argname: str = "check", seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL,
                 family: bool = False):
-    """A ``pytest.mark.parametrize`` over the conformance checks of a set (or, with
-    ``family=True``, of a family), one test case per check::
+    """A ``pytest.mark.parametrize`` over the conformance checks of a set or a family.
+
+    One test case per check, named after it::
 
         @setkit.testing.parametrize(K)
         def test_conformance(check):
             check()
+
+    Parameters
+    ----------
+    target : DecisionSet, mapping, str, os.PathLike or type
+        The set (or description, or description file); with ``family=True``
+        a kind name or a Family class.
+    argname : str, default "check"
+        The name of the test function's argument.
+    seed : int, default 0
+        Seed of the random inputs (and instances).
+    points : int, default 3
+        Random inputs per category, as in :func:`check_set`.
+    rtol : float, default 2e-5
+        Relative tolerance of the comparisons with the reference.
+    family : bool, default False
+        Parametrize over :func:`family_checks` of ``target`` instead of
+        :func:`checks`.
+
+    Returns
+    -------
+    pytest.MarkDecorator
+
+    Notes
+    -----
+    Nothing runs until pytest calls the cases.
+
+    Examples
+    --------
+    >>> import setkit, setkit.testing
+    >>> mark = setkit.testing.parametrize(setkit.simplex(dim=3))
+    >>> mark.args[0], [case.id for case in mark.args[1]][:2]
+    ('check', ['project/reference', 'project/certificate'])
     """
     import pytest
     pairs = (family_checks(target, seed=seed, points=points, rtol=rtol) if family
@@ -753,14 +752,43 @@ def parametrize(target, argname: str = "check", seed: int = 0, points: int = 3, 
 def points(K, where: str = "anywhere", scale: float = 10.0):
     """A hypothesis strategy of points of shape ``K.shape``.
 
-    ``where`` is ``"anywhere"`` (entries within ±scale·s), ``"inside"`` (their
-    projections onto K) or ``"near"`` (inside plus a perturbation of size
-    about 1e-3·s).
+    With s = max(1, data scale of K): entries within ±scale·s (``"anywhere"``),
+    their projections onto K (``"inside"``), or those plus a perturbation of
+    entries within ±1e-3·s (``"near"``).
+
+    Parameters
+    ----------
+    K : DecisionSet, mapping, str or os.PathLike
+        The set, a description or a description file.
+    where : {"anywhere", "inside", "near"}, default "anywhere"
+        Where the points lie.
+    scale : float, default 10.0
+        The half-width of the entries, in units of s.
+
+    Returns
+    -------
+    hypothesis strategy
+        Of float64 arrays of shape ``K.shape`` (needs the ``hypothesis`` package).
+
+    Notes
+    -----
+    One projection per drawn point for ``"inside"`` and ``"near"``.
+
+    Examples
+    --------
+    >>> import setkit, setkit.testing
+    >>> from hypothesis import given, settings
+    >>> K = setkit.simplex(dim=3)
+    >>> @settings(max_examples=25, deadline=None)
+    ... @given(setkit.testing.points(K, "inside"))
+    ... def test_points_inside_are_in_the_set(x):
+    ...     assert K.contains(x, tol=1e-9)
+    >>> test_points_inside_are_in_the_set()
     """
     from hypothesis import strategies as st
     from hypothesis.extra.numpy import arrays
     K = _as_set(K)
-    s = max(1.0, float(K.node.scale()))
+    s = data_scale(K)
     bound = float(scale) * s
     elems = st.floats(-bound, bound, allow_nan=False, allow_infinity=False, width=64)
     base = arrays(np.float64, K.shape, elements=elems)
@@ -775,7 +803,37 @@ def points(K, where: str = "anywhere", scale: float = 10.0):
 
 
 def directions(K, scale: float = 1.0, nonzero: bool = True):
-    """A hypothesis strategy of directions of shape ``K.shape`` (entries within ±scale)."""
+    """A hypothesis strategy of directions of shape ``K.shape``, entries within ±scale.
+
+    Parameters
+    ----------
+    K : DecisionSet, mapping, str or os.PathLike
+        The set, a description or a description file.
+    scale : float, default 1.0
+        The largest magnitude of an entry.
+    nonzero : bool, default True
+        Leave out directions whose entries are all below 1e-9·scale in magnitude.
+
+    Returns
+    -------
+    hypothesis strategy
+        Of float64 arrays of shape ``K.shape`` (needs the ``hypothesis`` package).
+
+    Notes
+    -----
+    O(dim) per drawn direction.
+
+    Examples
+    --------
+    >>> import numpy as np, setkit, setkit.testing
+    >>> from hypothesis import given, settings
+    >>> K = setkit.simplex(dim=3)
+    >>> @settings(max_examples=25, deadline=None)
+    ... @given(setkit.testing.directions(K))
+    ... def test_support_is_attained_by_the_lmo(c):
+    ...     assert np.isclose(K.support(c), np.dot(c, K.lmo(-c)))   # max <c, x> = <c, argmin <-c, x>>
+    >>> test_support_is_attained_by_the_lmo()
+    """
     from hypothesis import strategies as st
     from hypothesis.extra.numpy import arrays
     K = _as_set(K)

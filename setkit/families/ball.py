@@ -57,6 +57,27 @@ class Ball(Family):
         radius = r.number("radius", min=0.0)
         return cls(center=np.asarray(c, float), radius=radius, norm=norm, name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "ball", "dim": 3, "norm": 2, "radius": 1.5, "center": [0.5, -1.0, 2.0]},
+                {"kind": "ball", "dim": 4, "norm": 1, "radius": 0.7},
+                {"kind": "ball", "dim": 3, "norm": "inf", "radius": 2.0, "center": [1.0, 0.0, -1.0]}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random ball of dimension 2..5, any of the three norms."""
+        n = int(rng.integers(2, 6))
+        return {"kind": "ball", "dim": n, "norm": [1, 2, "inf"][int(rng.integers(3))],
+                "radius": round(float(rng.uniform(0.2, 3)), 3), "center": rng.normal(size=n).round(3).tolist()}
+
+    @classmethod
+    def benchmark_example(cls, n, rng):
+        """An l2 ball with a random center and an l1 ball at the origin, in R^n (benchmarks/run.py)."""
+        return [{"kind": "ball", "about": "l2 ball, dim n", "dim": n, "norm": 2, "radius": 1.5,
+                 "center": rng.standard_normal(n) * 0.1},
+                {"kind": "ball", "about": "l1 ball, dim n", "dim": n, "norm": 1, "radius": 2.0}]
+
     def __post_init__(self):
         object.__setattr__(self, "center", np.ascontiguousarray(self.center, dtype=float))
         object.__setattr__(self, "_p", 0 if self.norm == "inf" else int(self.norm))   # 0 means inf

@@ -35,6 +35,11 @@ class Birkhoff(Transport):
         return [{"kind": "birkhoff", "n": 2}, {"kind": "birkhoff", "n": 4}]
 
     @classmethod
+    def benchmark_example(cls, n, rng):
+        """The m x m Birkhoff polytope, m = round(sqrt(n)) (benchmarks/run.py)."""
+        return {"kind": "birkhoff", "about": "birkhoff m x m, n = m^2 coordinates", "n": max(2, int(round(np.sqrt(n))))}
+
+    @classmethod
     def random_example(cls, rng):
         return {"kind": "birkhoff", "n": int(rng.integers(2, 5))}
 

@@ -61,6 +61,13 @@ class Box(Family):
                 {"kind": "box", "lower": [0.0, "-inf"], "upper": ["inf", 2.0]}]
 
     @classmethod
+    def benchmark_example(cls, n, rng):
+        """A box with random bounds in R^n (benchmarks/run.py)."""
+        lo = -rng.uniform(0.5, 1.5, n)
+        return {"kind": "box", "about": "box with random bounds, dim n", "dim": n, "lower": lo,
+                "upper": lo + rng.uniform(0.5, 3.0, n)}
+
+    @classmethod
     def random_example(cls, rng):
         """A random bounded box of dimension 2..6."""
         n = int(rng.integers(2, 7))

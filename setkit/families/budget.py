@@ -87,6 +87,30 @@ class Budget(Family):
                 r.fail("total", f"total must be at most {ws} of upper bounds, {_fmt(smax)}; got {_fmt(total)}.")
         return cls(lower=lo, upper=hi, weights=w, total=float(total), mode=mode, name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "budget", "dim": 4, "total": 1.0, "upper": 0.5},
+                {"kind": "budget", "dim": 5, "total": 2.0, "lower": [0.1, 0, 0, 0.2, 0], "upper": [1, 0.6, 0.9, 1, 0.5],
+                 "weights": [1, 2, 1, 0.5, 1]},
+                {"kind": "budget", "dim": 3, "total": 1.5, "upper": 1.0, "mode": "at_most"}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """Random caps and weights in dimension 2..6, the total at 60% of the weighted caps."""
+        n = int(rng.integers(2, 7))
+        hi = rng.uniform(0.3, 1.0, n).round(3)
+        return {"kind": "budget", "dim": n, "total": float(np.round(0.6 * hi.sum(), 3)), "upper": hi.tolist(),
+                "weights": rng.uniform(0.5, 2.0, n).round(2).tolist()}
+
+    @classmethod
+    def benchmark_example(cls, n, rng):
+        """Random caps and weights in R^n, the total at 30% of the weighted caps (benchmarks/run.py)."""
+        upper = rng.uniform(0.5, 2.0, n)
+        w = rng.uniform(0.5, 2.0, n)
+        return {"kind": "budget", "about": "capped weighted budget, dim n", "dim": n, "total": 0.3 * float(w @ upper),
+                "lower": 0.0, "upper": upper, "weights": w, "mode": "equal"}
+
     # -- description -----------------------------------------------------------------------
     @property
     def shape(self):

@@ -270,6 +270,39 @@ class Flow(NetworkFamily):
                  "supply": {0: 2, 3: -2}}]
 
     @classmethod
+    def benchmark_example(cls, n, rng, nodes=None):
+        """A random connected network with n edges on n/4 nodes (or ``nodes``), lower bounds, capacities
+        and the supplies of a random flow inside them; none above n = 1e5 (benchmarks/run.py)."""
+        if n > 100_000:
+            return None
+        n_nodes = max(3, n // 4) if nodes is None else int(nodes)
+        # a random spanning tree keeps the graph connected; the rest are random edges
+        order = rng.permutation(n_nodes)
+        tails, heads = [], []
+        for k in range(1, n_nodes):
+            a, b = order[k], order[rng.integers(0, k)]
+            if rng.random() < 0.5:
+                a, b = b, a
+            tails.append(a)
+            heads.append(b)
+        while len(tails) < n:
+            a, b = rng.integers(0, n_nodes, 2)
+            if a != b:
+                tails.append(a)
+                heads.append(b)
+        tail, head = np.array(tails), np.array(heads)
+        x0 = rng.uniform(0.0, 10.0, n)                    # a feasible flow
+        lower = np.maximum(0.0, x0 - rng.uniform(0.0, 10.0, n))
+        capacity = x0 + rng.uniform(0.0, 10.0, n)
+        supply = np.zeros(n_nodes)
+        np.add.at(supply, tail, x0)
+        np.add.at(supply, head, -x0)
+        return {"kind": "flow", "about": "flow polytope, n edges on n/4 nodes", "nodes": int(n_nodes),
+                "edges": [{"from": int(a), "to": int(b), "capacity": float(c), "lower": float(lo)}
+                          for a, b, c, lo in zip(tail, head, capacity, lower)],
+                "supply": {int(v): float(s) for v, s in enumerate(supply) if s != 0.0}}
+
+    @classmethod
     def random_example(cls, rng):
         """A random connected graph on 4..7 nodes with the supplies of a flow inside its bounds."""
         n = int(rng.integers(4, 8))

@@ -47,6 +47,15 @@ class Hull(Family):
                 {"kind": "hull", "points": [[1, 0, 0], [0, 1, 0], [0, 0, 1], [1, 1, 1], [0.5, 0.5, 0]]}]
 
     @classmethod
+    def benchmark_example(cls, n, rng):
+        """n/d Gaussian points in R^d, d = min(10, n/4): n numbers of data; none above n = 1e5 (benchmarks/run.py)."""
+        if n > 100_000:
+            return None
+        d = min(10, max(2, n // 4))
+        return {"kind": "hull", "about": "hull of n/10 points in R^10 (n/d in R^d below n = 40)",
+                "points": rng.standard_normal((max(2, n // d), d))}
+
+    @classmethod
     def random_example(cls, rng):
         """3..10 random points in 2..5 dimensions."""
         k, d = int(rng.integers(3, 11)), int(rng.integers(2, 6))

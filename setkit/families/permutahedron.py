@@ -46,6 +46,24 @@ class Permutahedron(Family):
                 r.fail("dim", f"dim must equal the number of weights, {w.size}; got {n}.")
         return cls(weights=np.asarray(w, float), name=r.name)
 
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "permutahedron", "weights": [3.0, 1.0, 0.5, 0.0]},
+                {"kind": "permutahedron", "weights": [1.0, 1.0, 0.25, 0.25, 0.1]}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """2..6 random decreasing weights in [0, 2]."""
+        return {"kind": "permutahedron",
+                "weights": np.sort(rng.uniform(0, 2, int(rng.integers(2, 7))).round(3))[::-1].tolist()}
+
+    @classmethod
+    def benchmark_example(cls, n, rng):
+        """n random weights in [0, 10] (benchmarks/run.py)."""
+        return {"kind": "permutahedron", "about": "permutahedron of n weights",
+                "weights": np.round(rng.uniform(0.0, 10.0, n), 3)}
+
     # -- description -----------------------------------------------------------------------
     @property
     def shape(self):

@@ -128,6 +128,21 @@ class Polyhedron(Family):
                 {"kind": "polyhedron", "A": [[1, 1, 1]], "b": [2], "C": [[1, -1, 0]], "d": [0.5], "lower": 0}]
 
     @classmethod
+    def benchmark_example(cls, n, rng):
+        """n/10 sparse random halfspaces around a known point, inside [-1, 1]^n; none above n = 1e5 (benchmarks/run.py)."""
+        if n > 100_000:
+            return None
+        import scipy.sparse as sp
+        m = max(3, n // 10)
+        A = sp.random(m, n, density=min(1.0, 10.0 / n), format="csr",
+                      random_state=np.random.RandomState(int(rng.integers(1 << 30))))
+        A = A + sp.csr_matrix((np.ones(m), (np.arange(m), rng.integers(0, n, m))), shape=(m, n))
+        x0 = rng.uniform(-0.5, 0.5, n)
+        b = A @ x0 + rng.uniform(0.1, 1.0, m)
+        return {"kind": "polyhedron", "about": "polyhedron in R^n, n/10 random halfspaces and a box",
+                "A": A.toarray() if n <= 2_000 else A, "b": b, "lower": -1.0, "upper": 1.0}
+
+    @classmethod
     def random_example(cls, rng):
         """A random bounded polytope in 2..4 dimensions around a known interior point."""
         n = int(rng.integers(2, 5))

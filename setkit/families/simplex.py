@@ -42,6 +42,11 @@ class Simplex(Family):
                 {"kind": "simplex", "dim": 1, "total": 2.0}]
 
     @classmethod
+    def benchmark_example(cls, n, rng):
+        """The unit simplex in R^n (benchmarks/run.py)."""
+        return {"kind": "simplex", "about": "simplex, dim n", "dim": n, "total": 1.0}
+
+    @classmethod
     def random_example(cls, rng):
         """A random simplex of dimension 2..8, either mode."""
         return {"kind": "simplex", "dim": int(rng.integers(2, 9)), "total": float(np.round(rng.uniform(0.1, 5), 3)),

@@ -69,6 +69,15 @@ class Transport(NetworkFamily):
                 {"kind": "transport", "rows": [0, 3, 1], "cols": [0, 4]}]
 
     @classmethod
+    def benchmark_example(cls, n, rng):
+        """Random equal-total margins of an m x m plan, m = round(sqrt(n)) (benchmarks/run.py)."""
+        m = max(2, int(round(np.sqrt(n))))
+        rows = rng.uniform(1.0, 3.0, m)
+        cols = rng.uniform(1.0, 3.0, m)
+        cols *= rows.sum() / cols.sum()
+        return {"kind": "transport", "about": "transport m x m, n = m^2 coordinates", "rows": rows, "cols": cols}
+
+    @classmethod
     def random_example(cls, rng):
         """Random margins of a 2..4 x 2..4 plan with equal totals."""
         m, n = (int(v) for v in rng.integers(2, 5, 2))

@@ -76,9 +76,10 @@ def test_extended_formulation_with_degenerate_auxiliaries():
     # the fair-exposure catalog set: a permutahedron (64 auxiliary doubly-stochastic variables with no
     # quadratic term in the projection QP) cut by two floors. Adaptive rho cycled there for 10^5
     # iterations on 3 of these points (setkit compare, seed 0); the fixed-rho restart solver solves them
-    from setkit.checks import test_points
+    from setkit.agreement import seeded_points
     K = setkit.load("catalog/fair-exposure-ranking.yaml")
-    Y = test_points(K, 4, np.random.default_rng(0)).reshape((-1,) + K.shape)
+    # the first 16 rows: 4 points each inside (by K's projection), near, at scale and far
+    Y = seeded_points(K, 4, np.random.default_rng(0), inside_by=K)[0][:16].reshape((-1,) + K.shape)
     det = K.with_backends(project="osqp").project(Y, details=True)
     assert all(s == "solved" for s in det.status)
     assert any("rho fixed" in b for b in det.backend_status)

@@ -5,10 +5,11 @@ import numpy as np
 import pytest
 
 import setkit
+from setkit.agreement import reference
 from setkit.errors import AccuracyWarning, SolveError
 from setkit.kernels.splitting import dykstra, fast_dual_projections, project_linear_image, project_with_cuts
 
-from .fixtures import REF, ball, halfspaces
+from .fixtures import ball, halfspaces
 
 
 def _two_balls(n=5):
@@ -23,7 +24,7 @@ def test_dykstra_gap_bounds_the_error_at_every_stage(rng):
     K = setkit.compile({"kind": "intersection", "of": [b1, b2]})
     P1, P2 = (setkit.compile(b).project for b in (b1, b2))
     Y = rng.standard_normal((6, n)) * 2.0
-    Pstar = K.with_backends(**REF, loose=True).project(Y)
+    Pstar = reference(K, loose=True).project(Y)
     for cap in (2, 5, 20, 200):
         X, info = dykstra([P1, P2], Y, np.maximum(1.0, np.abs(Y).max(axis=1)), max_iterations=cap)
         half_err = 0.5 * np.sum((X - Pstar) ** 2, axis=1)
@@ -39,7 +40,7 @@ def test_accelerated_splitting_gap_bounds_the_error_at_every_stage(rng):
     K = setkit.compile({"kind": "intersection", "of": [b1, b2, b3]})
     projs = [setkit.compile(b).project for b in (b1, b2, b3)]
     Y = rng.standard_normal((6, n)) * 5.0
-    Pstar = K.with_backends(**REF, loose=True).project(Y)
+    Pstar = reference(K, loose=True).project(Y)
     for cap in (5, 10, 40, 400):
         X, info = fast_dual_projections(projs, Y, np.maximum(1.0, np.abs(Y).max(axis=1)), max_iterations=cap)
         half_err = 0.5 * np.sum((X - Pstar) ** 2, axis=1)
@@ -57,7 +58,7 @@ def test_cut_dual_gap_bounds_the_error_when_feasible(rng):
     B = setkit.compile(ball(np.zeros(n), 1.0))
     K = setkit.compile({"kind": "intersection", "of": [ball(np.zeros(n), 1.0), halfspaces(A, rhs)]})
     Y = rng.standard_normal((6, n)) * 3
-    Pstar = K.with_backends(**REF, loose=True).project(Y)
+    Pstar = reference(K, loose=True).project(Y)
     for cap in (1, 3, 10, 100):
         X, info = project_with_cuts(B.project, Y, A, rhs, 0, np.maximum(1.0, np.abs(Y).max(axis=1)),
                                     max_iterations=cap)
@@ -73,7 +74,7 @@ def test_linear_image_gap_bounds_the_error_exactly(rng):
     M = rng.standard_normal((4, 6))
     K = setkit.compile({"kind": "affine", "set": {"kind": "simplex", "dim": 6}, "matrix": M.tolist()})
     Y = rng.standard_normal((5, 4)) * 3
-    Ustar = K.with_backends(**REF, loose=True).project(Y)
+    Ustar = reference(K, loose=True).project(Y)
     for cap in (1, 3, 10, 1000):
         U, info = project_linear_image(S.project, S.support, M, np.zeros(4), Y, np.ones(5),
                                        max_iterations=cap, check_every=1)
@@ -88,7 +89,7 @@ def test_certificate_in_details_bounds_the_error(rng):
                                                        halfspaces(rng.standard_normal((2, n)), 0.1)]})
     Y = rng.standard_normal((4, n))
     d = K.project(Y, details=True)
-    Pstar = K.with_backends(**REF).project(Y)
+    Pstar = reference(K).project(Y)
     half_err = 0.5 * np.sum((d.point - Pstar) ** 2, axis=1)
     assert np.all(half_err <= np.maximum(d.certificate, 0) + 1e-10)
     assert np.all(np.abs(d.certificate) <= 1e-8)
@@ -112,7 +113,7 @@ def test_far_points_that_dykstra_cannot_finish_raise():
     A = setkit.compile({"kind": "intersection", "of": list(_two_balls())})
     d = A.project(y, details=True)
     assert d.status == "solved" and "dual splitting" in d.backend_status
-    assert np.allclose(d.point, A.with_backends(**REF, loose=True).project(y), atol=1e-6 * 1e4)
+    assert np.allclose(d.point, reference(A, loose=True).project(y), atol=1e-6 * 1e4)
 
 
 def test_non_converged_accelerated_splitting_raises():
@@ -132,7 +133,7 @@ def test_loose_run_warns_when_close(rng):
         p = K.with_backends(loose=True).project(y)
     assert any(issubclass(x.category, AccuracyWarning) for x in w)
     # 40 sweeps leave a duality gap of about 1.6e-6, so the error is at most about sqrt(2 * 1.6e-6)
-    assert np.linalg.norm(p - K.with_backends(**REF, loose=True).project(y)) <= 2e-3
+    assert np.linalg.norm(p - reference(K, loose=True).project(y)) <= 2e-3
 
 
 def test_non_converged_cut_dual_raises(rng):

@@ -1,39 +1,42 @@
-"""Shared checks for the family tests: every operator against the cvxpy reference."""
+"""Shared checks for the family tests: every operator against the cvxpy reference.
+
+The reference routes, the seeded points and the gap measures come from setkit.agreement. The
+family tests hold native kernels to more than the bar of DEVELOPERS.md ("Validating a user's
+set"): gaps are relative to the tighter scales max(1, |y|_inf, data scale) for points and
+||c|| * data scale for directions (no max(1, .)), and native answers must lie exactly in K, be at
+least as close as the reference's and carry certificates near zero.
+"""
 from __future__ import annotations
 
 import numpy as np
 
 import setkit
+from setkit.agreement import (DEFAULT_RTOL, direction_scale, objective_gaps, point_gaps,
+                              reference as reference_set, seeded_points, value_gaps)
 
-REFERENCE = dict(project="reference", lmo="reference", support="reference")
-# the interior-point reference stops at a relative duality gap of 1e-10, which bounds its point
-# error only by ~sqrt(gap): about 1e-5 of the scale near faces (the certificates check tighter)
-RTOL = 2e-5
+RTOL = DEFAULT_RTOL
 
 
 def reference(K):
     # loose: an answer Clarabel flags as inaccurate is still compared (within RTOL) instead of raising
-    return K.with_backends(**REFERENCE, loose=True)
+    return reference_set(K, loose=True)
 
 
 def point_scale(K, Y):
+    """The scale of the exactness checks of native kernels: max(1, |y|_inf, data scale)."""
     Y = np.asarray(Y, float).reshape(-1, K.dim)
     return np.maximum(np.abs(Y).max(axis=1), K.node.scale()).clip(min=1.0)
 
 
 def sample_points(K, rng, k=3, ties=True):
-    """Points inside, near and far from K (and with tied coordinates), as one batch (rows)."""
+    """The seeded points of setkit.agreement (inside, near, at scale, far, tiny, huge), plus points
+    strictly inside (convex combinations of LMO answers) and rows with tied coordinates."""
     s = K.node.scale()
     n = K.dim
-    ref = reference(K)
-    raw = rng.standard_normal((k, n)) * s
-    # inside: convex combinations of LMO answers (vertices for polytopes)
+    seeded, _ = seeded_points(K, k, rng, inside_by=reference(K))
     V = K.lmo(rng.standard_normal((4 * k, n)))
     lam = rng.dirichlet(np.ones(4), size=k)
-    inside = np.einsum("kj,kjn->kn", lam, V.reshape(k, 4, n))
-    near = ref.project(raw) + 1e-4 * s * rng.standard_normal((k, n))
-    far = 1e3 * s * rng.standard_normal((k, n))
-    rows = [inside, near, raw, far]
+    rows = [seeded, np.einsum("kj,kjn->kn", lam, V.reshape(k, 4, n))]
     if ties and n >= 3:
         t = np.round(2 * rng.standard_normal((k, n))) * (s / 2)   # many equal coordinates
         t[:, 1] = t[:, 0]
@@ -49,12 +52,12 @@ def check_against_reference(K, Y, C, rtol=RTOL):
     sc = point_scale(K, Y)
     P = K.project(Y)
     Pr = ref.project(Y)
-    err = np.linalg.norm(P - Pr, axis=1) / sc
+    err = point_gaps(P, Pr) / sc
     assert err.max() <= rtol, f"projection differs from the reference by {err.max():.3g} (relative)"
     # the native projection lies in K (to rounding) and is at least as close as the reference's
     assert (K.violation(P) <= 1e-10 * sc * K.dim).all()
-    dist = np.linalg.norm(Y - P, axis=1)
-    assert (dist <= np.linalg.norm(Y - Pr, axis=1) + 1e-9 * sc).all()
+    dist = point_gaps(Y, P)
+    assert (dist <= point_gaps(Y, Pr) + 1e-9 * sc).all()
     np.testing.assert_allclose(K.distance(Y), dist, rtol=1e-12, atol=1e-12 * sc.max())
     # membership: projections are in, far points out
     assert K.contains(P, tol=1e-9 * sc).all()
@@ -65,17 +68,16 @@ def check_against_reference(K, Y, C, rtol=RTOL):
     assert np.all(np.sqrt(2 * np.maximum(det.certificate, 0)) <= 1e-6 * sc)
     assert np.all(det.residual <= 1e-10 * sc * K.dim)
     # linear minimization and support: same optimal values, answers in K
-    cs = np.linalg.norm(C, axis=1) * K.node.scale()
+    cs = direction_scale(C, K.node.scale())
     L = K.lmo(C)
     Lr = ref.lmo(C)
-    v = np.einsum("ij,ij->i", C, L)
-    vr = np.einsum("ij,ij->i", C, Lr)
-    assert (np.abs(v - vr) <= rtol * cs).all(), f"lmo values differ by {np.abs(v - vr).max():.3g}"
-    assert (v <= vr + 1e-9 * cs).all()           # native is at least as good as the reference
+    gaps, v, vr = objective_gaps(C, L, Lr)
+    assert (gaps <= rtol * cs).all(), f"lmo values differ by {gaps.max():.3g}"
+    assert (np.array(v) <= np.array(vr) + 1e-9 * cs).all()           # native is at least as good as the reference
     assert (K.violation(L) <= 1e-10 * K.node.scale() * K.dim).all()
     S = K.support(C)
-    Sr = ref.support(C)
-    assert (np.abs(S - Sr) <= rtol * cs).all(), f"support differs by {np.abs(S - Sr).max():.3g}"
+    gaps = value_gaps(S, ref.support(C))
+    assert (gaps <= rtol * cs).all(), f"support differs by {gaps.max():.3g}"
     np.testing.assert_allclose(S, -np.einsum("ij,ij->i", -C, K.lmo(-C)), rtol=1e-9, atol=1e-9 * cs.max())
     return P, Pr
 

@@ -1,33 +1,33 @@
-"""Shared checks of the graph/polyhedral family tests: every operator against the cvxpy reference."""
+"""Shared checks of the graph/polyhedral family tests: every operator against the cvxpy reference.
+
+The reference routes, the seeded points, the scales and the gap measures are setkit.agreement's.
+"""
 from __future__ import annotations
 
 import numpy as np
 
-REF = dict(project="reference", lmo="reference", support="reference")
+from setkit.agreement import (DEFAULT_RTOL, data_scale, direction_scale, objective_gaps, point_gaps, point_scale,
+                              reference, seeded_points, value_gaps)
 
 
 def sample_points(K, rng, n=3):
-    """Points inside, near and far from K at scales 1e-3 .. 1e6 (batched, shape (b, *K.shape))."""
-    d = K.dim
-    s = max(1.0, K.node.scale())
-    raw = s * rng.standard_normal((n, d))
-    inside = K.project(raw.reshape((n,) + K.shape)).reshape(n, d)
-    near = inside + 1e-3 * s * rng.standard_normal((n, d))
-    tiny = 1e-3 * rng.standard_normal((1, d))
-    far = 1e6 * rng.standard_normal((1, d))
-    Y = np.concatenate([inside, near, raw, tiny, far])
+    """The seeded points of setkit.agreement (inside by K's own projection, near, at scale, far,
+    tiny, huge; the huge point last), batched as (b, *K.shape)."""
+    Y, _ = seeded_points(K, n, rng, inside_by=K)
     return Y.reshape((-1,) + K.shape)
 
 
-def check_against_reference(K, rng, n=3, rtol=2e-5, bounded=True, osqp=True):
+def check_against_reference(K, rng, n=3, rtol=DEFAULT_RTOL, bounded=True, osqp=True):
     """Compare project, distance, contains, violation, lmo and support of K with the cvxpy reference."""
-    R = K.with_backends(**REF)
+    R = reference(K)
     Y = sample_points(K, rng, n)
     b = Y.shape[0]
+    Yf = Y.reshape(b, -1)
+    s = data_scale(K)
     P = K.project(Y)
     Pr = R.project(Y)
-    scale = np.maximum(1.0, np.abs(Y.reshape(b, -1)).max(axis=1)) * max(1.0, K.node.scale())
-    err = np.abs((P - Pr).reshape(b, -1)).max(axis=1) / scale
+    scale = point_scale(Yf, s)
+    err = point_gaps(P.reshape(b, -1), Pr.reshape(b, -1)) / scale
     # the interior-point reference is accurate to about 1e-6 relative on degenerate faces
     assert err.max() <= rtol, f"project differs from the reference by {err.max():.3g} (relative)"
     if osqp and K.routes()["project"].provider != "osqp":
@@ -36,8 +36,8 @@ def check_against_reference(K, rng, n=3, rtol=2e-5, bounded=True, osqp=True):
         e2 = np.abs((P - Po).reshape(b, -1)).max(axis=1) / scale
         assert e2.max() <= 1e-8, f"project differs from the osqp backend by {e2.max():.3g} (relative)"
     D = K.distance(Y)
-    Dr = np.linalg.norm((Y - Pr).reshape(b, -1), axis=1)
-    assert np.all(np.abs(D - Dr) <= rtol * scale)
+    Dr = point_gaps(Yf, Pr.reshape(b, -1))
+    assert np.all(value_gaps(D, Dr) <= rtol * scale)
     # answers lie in K: measured violation tiny, membership true; far points are outside
     has_violation = K.routes()["violation"].provider != "none"
     if has_violation:
@@ -56,15 +56,14 @@ def check_against_reference(K, rng, n=3, rtol=2e-5, bounded=True, osqp=True):
         L = K.lmo(C)
         Lr = R.lmo(C)
         Cf = C.reshape(4, -1)
-        v = np.einsum("ij,ij->i", Cf, L.reshape(4, -1))
-        vr = np.einsum("ij,ij->i", Cf, Lr.reshape(4, -1))
-        cs = np.linalg.norm(Cf, axis=1) * max(1.0, K.node.scale())
-        assert np.all(np.abs(v - vr) <= 1e-6 * cs), (v, vr)
+        gaps, v, vr = objective_gaps(Cf, L.reshape(4, -1), Lr.reshape(4, -1))
+        cs = direction_scale(Cf, s)
+        assert np.all(gaps <= 1e-6 * cs), (v, vr)
         if has_violation:
-            assert np.all(K.violation(L) <= 1e-7 * max(1.0, K.node.scale()))
+            assert np.all(K.violation(L) <= 1e-7 * s)
         else:
             assert np.all(K.contains(L))
         S = K.support(C)
         Sr = R.support(C)
-        assert np.all(np.abs(S - Sr) <= 1e-6 * cs)
+        assert np.all(value_gaps(S, Sr) <= 1e-6 * cs)
     return P, Pr

@@ -126,5 +126,10 @@ def test_osqp_failure_is_reported_not_returned(monkeypatch):
     rng = np.random.default_rng(5)
     spec, _ = random_polytope(rng)
     K = setkit.compile(spec)
+    y = 10 * rng.standard_normal(4)
+    # chosen by the caller: no fallback, the failure is raised
     with pytest.raises(SolveError, match="not solved cleanly"):
-        K.project(10 * rng.standard_normal(4))
+        K.with_backends(project="osqp").project(y)
+    # the default route: the failure is named and the next backend of the chain answers
+    d = K.project(y, details=True)
+    assert "not solved cleanly" in d.backend_status and "answered by highs_qp" in d.backend_status
