@@ -5,7 +5,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..description import MAX_SIZE
 from . import kernel, register
+
+MAX_SIDE = 10_000        # n^2 coordinates (edges of the bipartite network) within MAX_SIZE
 from .transport import Transport
 
 
@@ -23,7 +26,7 @@ class Birkhoff(Transport):
 
     @classmethod
     def from_spec(cls, r):
-        n = r.integer("n", min=1)
+        n = r.integer("n", min=1, max=MAX_SIDE)
         return cls(rows=np.ones(n), cols=np.ones(n), name=r.name)
 
     @classmethod

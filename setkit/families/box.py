@@ -110,7 +110,10 @@ class Box(Family):
 
     @kernel("project")
     def project(self, Y):
-        """Clipping to the bounds, O(n)."""
+        """Clipping to the bounds, O(n).
+
+        Exact for every finite input (clipping does no arithmetic); the distance rescales its
+        norm when squares would overflow or underflow (exact up to rounding for |y| <= 1e300)."""
         return box_ops(Y, self.lower, self.upper, self._tie, 0)[0]
 
     @kernel("distance")

@@ -70,7 +70,15 @@ class Budget(Family):
             r.fail("weights", f"weights must be positive; got {_fmt(w[i])} at index {i}.")
         mode = r.choice("mode", ("equal", "at_most"), "equal")
         ws = "the weighted sum" if weighted else "the sum"
-        smin = float(w @ lo)
+        with np.errstate(over="ignore", invalid="ignore"):
+            smin = float(w @ lo)
+            fin = np.isfinite(hi)
+            shi = float(w[fin] @ hi[fin])
+            room = (total - smin) / w
+        if not (np.isfinite(smin) and np.isfinite(shi) and np.all(np.isfinite(room))):
+            r.fail("weights" if weighted else "total",
+                   f"{ws} of the bounds, or the room total - {ws} of lower bounds divided by a weight, exceeds "
+                   f"the float range (|x| < 1.8e308); rescale the data (every kernel works on these sums).")
         if total < smin:
             r.fail("total", f"total must be at least {ws} of lower bounds, {_fmt(smin)}; got {_fmt(total)}.")
         if mode == "equal":
@@ -119,6 +127,7 @@ class Budget(Family):
         object.__setattr__(self, "_room", room)
         object.__setattr__(self, "_caps", np.minimum(self.upper, self.lower + room / self.weights))
         object.__setattr__(self, "_lip", float(max(1.0, np.linalg.norm(self.weights))))
+        object.__setattr__(self, "_data_scale", self.scale())    # the magnitude that marks far points
 
     def cvxpy_constraints(self, x):
         cons = [x >= self.lower]
@@ -141,7 +150,7 @@ class Budget(Family):
     @kernel("project")
     def project(self, Y):
         """Clip to the bounds and shift by the multiplier of the weighted sum, found by randomized breakpoint search, expected O(n)."""
-        return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode)
+        return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode, self._data_scale)
 
     @kernel("lmo")
     def lmo(self, C):

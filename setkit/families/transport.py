@@ -5,6 +5,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..description import MAX_SIZE
 from ..errors import EmptySetError
 from . import register
 from . import memo
@@ -29,6 +30,9 @@ def read_margins(r):
         neg = np.flatnonzero(v < 0)
         if neg.size:
             r.fail(key, f"{key} must be nonnegative (amounts shipped); entry {int(neg[0])} is {v[neg[0]]:g}.")
+    if rows.size * cols.size > MAX_SIZE:
+        r.fail("cols", f"a plan of {rows.size:,} x {cols.size:,} entries exceeds {MAX_SIZE:,} coordinates (the size "
+                       f"limit of setkit).")
     tr, tc = float(rows.sum()), float(cols.sum())
     if abs(tr - tc) > 1e-9 * max(1.0, tr, tc):
         r.fail("cols", f"the row sums total {tr:.10g} but the column sums total {tc:.10g}; a transportation "
