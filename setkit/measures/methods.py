@@ -137,43 +137,44 @@ def _refuse_unbounded_volume(req):
     return None
 
 
-def _triangulation(req):
-    found = enumerable(req.K, req.exact_max_dim)
-    if found is None:
-        return None
-    P, V = found
+def _on_vertices(answer, *, fall_back_on_failure=False):
+    """An answer function that runs ``answer(req, P, V)`` when K's vertices can be enumerated (see
+    :func:`~setkit.measures.geometry.enumerable`) and declines (None) otherwise. With
+    ``fall_back_on_failure`` a failed reduction also declines, so that a method needing no reduction
+    (the LMO) answers instead."""
+    def run(req):
+        try:
+            found = enumerable(req.K, req.exact_max_dim)
+        except SolveError:
+            if not fall_back_on_failure:
+                raise
+            found = None
+        return None if found is None else answer(req, *found)
+    return run
+
+
+@_on_vertices
+def _triangulation(req, P, V):
     return Outcome(P.to_x(simplex_volume_centroid(V)[None, :])[0],
                    note=f"{V.shape[0]} vertices, affine hull of dimension {P.m}")
 
 
-def _vertex_mean(req):
-    found = enumerable(req.K, req.exact_max_dim)
-    if found is None:
-        return None
-    P, V = found
+@_on_vertices
+def _vertex_mean(req, P, V):
     return Outcome(P.to_x(V).mean(axis=0), note=f"{V.shape[0]} vertices in an affine hull of dimension {P.m}")
 
 
-def _vertex_choice(req):
-    found = enumerable(req.K, req.exact_max_dim)
-    if found is None:
-        return None
-    P, V = found
+@_on_vertices
+def _vertex_choice(req, P, V):
     return Outcome(P.to_x(V[req.rng.integers(0, V.shape[0], size=req.k)]),
                    note=f"uniform choice among {V.shape[0]} enumerated vertices")
 
 
-def _polytope_if_reducible(K):
-    """K's reduced polytope, or None when K is not a polytope without auxiliaries or its reduction
-    failed numerically (then the directions measure falls back to the LMO, which needs no reduction)."""
-    try:
-        return reduced(K)
-    except SolveError:
-        return None
-
-
 def _normal_cone_centroid(req):
-    P = _polytope_if_reducible(req.K)
+    try:
+        P = reduced(req.K)
+    except SolveError:          # a failed reduction: the estimates over the LMO need none
+        return None
     if P is None or not P.bounded or P.m > 2:
         return None
     w, V = normal_cone_weights(vertices_of(req.K, P))
@@ -227,14 +228,6 @@ def _iid_estimate(X, note):
                    ess=float(n), samples=n)
 
 
-def _enumerated_vertices(req):
-    """The vertices (in x) when the polytope reduces and they can be enumerated, else None."""
-    if _polytope_if_reducible(req.K) is None:
-        return None
-    found = enumerable(req.K, req.exact_max_dim)
-    return None if found is None else found[0].to_x(found[1])
-
-
 def vertex_scan_draws(Vx, k, g, chunk=20_000):
     """lmo(g) for k standard Gaussian directions g by scanning the vertex list Vx (k_v, d).
 
@@ -255,20 +248,14 @@ def vertex_scan_draws(Vx, k, g, chunk=20_000):
     return out
 
 
-def _scan_centroid(req):
-    Vx = _enumerated_vertices(req)
-    if Vx is None:
-        return None
-    X = vertex_scan_draws(Vx, _draw_count(req, 100_000), req.rng)
-    return _iid_estimate(X, f"iid Gaussian directions, best of {Vx.shape[0]} enumerated vertices by a scan")
+def _scan_centroid(req, P, V):
+    X = vertex_scan_draws(P.to_x(V), _draw_count(req, 100_000), req.rng)
+    return _iid_estimate(X, f"iid Gaussian directions, best of {V.shape[0]} enumerated vertices by a scan")
 
 
-def _scan_sample(req):
-    Vx = _enumerated_vertices(req)
-    if Vx is None:
-        return None
-    return Outcome(vertex_scan_draws(Vx, req.k, req.rng),
-                   note=f"iid Gaussian directions, best of {Vx.shape[0]} enumerated vertices by a scan")
+def _scan_sample(req, P, V):
+    return Outcome(vertex_scan_draws(P.to_x(V), req.k, req.rng),
+                   note=f"iid Gaussian directions, best of {V.shape[0]} enumerated vertices by a scan")
 
 
 def direction_draws(K, k, g):
@@ -348,7 +335,8 @@ LADDER: tuple = (
            centroid=_refuse_estimates),
     Method("Monte Carlo over enumerated vertices", "estimate", ("directions",),
            "iid Gaussian directions, the best enumerated vertex by a scan",
-           centroid=_scan_centroid, sample=_scan_sample),
+           centroid=_on_vertices(_scan_centroid, fall_back_on_failure=True),
+           sample=_on_vertices(_scan_sample, fall_back_on_failure=True)),
     Method("Monte Carlo over LMO", "estimate", ("directions",),
            "iid Gaussian directions through the set's LMO",
            centroid=_lmo_centroid, sample=_lmo_sample),
