@@ -7,13 +7,14 @@ from __future__ import annotations
 
 import threading
 import time
+import warnings
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
-from .errors import InputError, UnsupportedOperationError
-from .routing import plan
+from .errors import AccuracyWarning, InputError, SolveError
+from .routing import build_plan, check_nonempty
 
 
 @dataclass(frozen=True)
@@ -69,37 +70,46 @@ def _finite_max_abs(a):
 
 
 _F64 = np.dtype(np.float64)
+GEOMETRIES = ("euclidean", "kl")
+
+
+def kl_divergence(X, T):
+    """Generalized relative entropy KL(x || y) = sum x log(x/y) - x + y per row, from t = log y (0 log 0 = 0)."""
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        logx = np.where(X > 0, np.log(np.where(X > 0, X, 1.0)), 0.0)
+        terms = np.where(X > 0, X * (logx - T), 0.0) - X + np.exp(T)
+    return terms.sum(axis=1)
 
 
 class DecisionSet:
     """A compiled convex set with its operators.
 
-    Build one with :func:`setkit.compile` or :func:`setkit.load`.
+    Build one with :func:`setkit.compile` or :func:`setkit.load`. It validates inputs,
+    dispatches to its :class:`setkit.routing.Plan` and owns its solver workspaces (one
+    per thread, rebuilt lazily after pickling).
+
+    >>> import setkit
+    >>> K = setkit.compile({"kind": "simplex", "dim": 3})
+    >>> K.shape, K.dim
+    ((3,), 3)
     """
 
     def __init__(self, node, overrides: dict | None = None, *, loose: bool = False):
         self.node = node
         self._overrides = dict(overrides or {})
-        self._loose = loose
-        self._routes = plan(node, self._overrides)
+        self._loose = bool(loose)
         self._local = threading.local()
         self._parts = None
         self._form_cache = None
-        # cached for the per-call path (a call at n = 1000 costs a few microseconds)
         self._shape = tuple(node.shape)
         self._dim = int(node.dim)
-        self._kernels = {op: getattr(node, name) for op, name in node.kernels.items()}
-        self._has_children = bool(node.children())
         self._scale = None
-        # bound native kernels, called directly by the single-point fast path of each operator
-        self._direct = {op: self._bind(self._kernels[op]) for op, r in self._routes.items()
-                        if r.provider == "native" and op in self._kernels}
-
-    def _bind(self, fn):
-        """The kernel as a callable of (X) or (X, tol); a combinator's also receives its parts."""
-        if not self._has_children:
-            return fn
-        return lambda *args: fn(*args, self.parts)
+        from .description import failer_for
+        check_nonempty(node, lambda: self.parts, failer_for(node))
+        self._plan = build_plan(node, self._overrides, self)
+        self._routes = self._plan.routes
+        # bound native kernels, called directly by the single-point fast path
+        self._direct = self._plan.direct
 
     # -- pickling: workspaces are rebuilt lazily on the other side -------------------------
     def __getstate__(self):
@@ -111,15 +121,23 @@ class DecisionSet:
     # -- description --------------------------------------------------------------------------
     @property
     def shape(self) -> tuple:
+        """The point shape, e.g. (n,) or (m, n)."""
         return self._shape
 
     @property
     def dim(self) -> int:
+        """The number of coordinates of a point (the product of ``shape``)."""
         return self._dim
 
     @property
     def kind(self) -> str:
+        """The family or combinator kind of the top node."""
         return self.node.kind
+
+    @property
+    def plan(self):
+        """The compiled :class:`setkit.routing.Plan`: route and callable of every operator."""
+        return self._plan
 
     @property
     def parts(self) -> tuple:
@@ -132,7 +150,44 @@ class DecisionSet:
         return f"<DecisionSet {self.node.label} shape={self.shape}>"
 
     def routes(self) -> dict:
+        """Operator -> :class:`setkit.routing.Route` (provider and reason)."""
         return dict(self._routes)
+
+    def explain(self) -> str:
+        """Which algorithm or backend serves each operator, and why.
+
+        >>> import setkit
+        >>> print(setkit.compile({"kind": "box", "dim": 2}).explain().splitlines()[0])
+        box: shape (2,), dim 2
+        """
+        lines = [f"{self.node.label}: shape {self.shape}, dim {self.dim}"]
+        for op, r in self._routes.items():
+            lines.append("  " + r.describe())
+        for i, p in enumerate(self.parts):
+            sub = p.explain().splitlines()
+            lines.append(f"  part {i}: " + sub[0])
+            lines.extend("    " + s for s in sub[1:])
+        return "\n".join(lines)
+
+    def with_backends(self, **choices) -> "DecisionSet":
+        """The same set with other implementations, e.g. ``with_backends(project="osqp")``.
+
+        Values are a backend name, a combinator strategy name, ``"native"``, ``"derived"``,
+        or None (default route); ``loose=True`` lets iterative methods warn instead of raise.
+
+        >>> import setkit
+        >>> K = setkit.compile({"kind": "simplex", "dim": 3}).with_backends(lmo="highs")
+        >>> K.routes()["lmo"].provider
+        'highs'
+        """
+        merged = dict(self._overrides)
+        for k, v in choices.items():
+            if v is None:
+                merged.pop(k, None)
+            else:
+                merged[k] = v
+        loose = merged.pop("loose", self._loose)
+        return DecisionSet(self.node, merged, loose=bool(loose))
 
     # -- flat-batch interface for combinators, penalties, measures and extensions -------------
     @property
@@ -142,11 +197,26 @@ class DecisionSet:
 
     def run(self, op: str, X, tol=None):
         """Run operator ``op`` on a validated flat batch ``X`` of shape (b, dim); returns (out, info)."""
-        return self._run(op, X, tol=tol)
+        return self._plan.run(op, X, tol)
 
     def native(self, op: str):
         """The bound native kernel serving ``op`` (a callable of flat batches), or None."""
         return self._direct.get(op)
+
+    def workspace(self, name: str):
+        """This thread's workspace of backend ``name`` (or of the family's kernels for "native"), built on first use."""
+        cache = getattr(self._local, "ws", None)
+        if cache is None:
+            cache = self._local.ws = {}
+        ws = cache.get(name)
+        if ws is None:
+            if name == "native":
+                ws = self.node.new_workspace()
+            else:
+                from .backends import get_backend
+                ws = get_backend(name)(self.node, loose=self._loose)
+            cache[name] = ws
+        return ws
 
     def flatten(self, y, argname: str = "y", operator: str = "call"):
         """Validate an array-like of trailing shape K.shape; returns (flat (b, dim) batch, leading shape)."""
@@ -162,35 +232,23 @@ class DecisionSet:
 
     def linear_form(self):
         """The set's linear form {A_eq z = b_eq, A_ub z <= b_ub, lo <= z <= hi}, or None (computed once)."""
-        return self._form()
-
-    def explain(self) -> str:
-        """Which algorithm or backend serves each operator, and why."""
-        lines = [f"{self.node.label}: shape {self.shape}, dim {self.dim}"]
-        for op, r in self._routes.items():
-            lines.append("  " + r.describe())
-        for i, p in enumerate(self.parts):
-            sub = p.explain().splitlines()
-            lines.append(f"  part {i}: " + sub[0])
-            lines.extend("    " + s for s in sub[1:])
-        return "\n".join(lines)
-
-    def with_backends(self, **choices) -> "DecisionSet":
-        """The same set with other implementations, e.g. ``with_backends(project="osqp")``.
-
-        Values are a backend name, ``"native"``, ``"derived"``, or None (default route).
-        """
-        merged = dict(self._overrides)
-        for k, v in choices.items():
-            if v is None:
-                merged.pop(k, None)
-            else:
-                merged[k] = v
-        loose = merged.pop("loose", self._loose)
-        return DecisionSet(self.node, merged, loose=bool(loose))
+        if self._form_cache is None:
+            self._form_cache = (self.node.linear_form(),)
+        return self._form_cache[0]
 
     # -- input handling -------------------------------------------------------------------------
     def _batch(self, arr, argname: str, op: str):
+        kind = getattr(getattr(arr, "dtype", None), "kind", None)
+        if kind is None:
+            try:
+                kind = np.asarray(arr).dtype.kind
+            except (TypeError, ValueError):
+                kind = "O"
+        if kind not in "biuf":
+            what = {"c": "complex", "U": "text", "S": "bytes", "O": "object", "M": "datetime", "m": "timedelta"}
+            raise InputError(f"{op} on {self.node.label}: argument {argname} must be numeric, real numbers (bool, int or "
+                             f"float dtypes); got {what.get(kind, kind)} data of type {type(arr).__name__}. "
+                             f"Convert it with numpy.asarray(..., dtype=float) after dropping non-real parts.")
         try:
             a = np.asarray(arr, dtype=float)
         except (TypeError, ValueError):
@@ -220,6 +278,18 @@ class DecisionSet:
                 return a.reshape(1, self._dim)
         return None
 
+    def _fast(self, op, a):
+        """The single-point fast path shared by every operator: one finite float64 C-contiguous point of
+        exact shape goes straight to the bound native kernel; None means "take the general path"."""
+        fn = self._direct.get(op)
+        if fn is None:
+            return None
+        A = self._one(a)
+        if A is None:
+            return None
+        out = fn(A)
+        return out[0] if isinstance(out, tuple) else out
+
     def _out_points(self, P, lead):
         return P.reshape(lead + self.shape)
 
@@ -228,51 +298,9 @@ class DecisionSet:
         v = np.asarray(v)
         return v.reshape(lead)[()] if lead == () else v.reshape(lead)
 
-    # -- dispatch -------------------------------------------------------------------------------
-    def _workspace(self, name):
-        from .backends import get_backend
-        cache = getattr(self._local, "ws", None)
-        if cache is None:
-            cache = self._local.ws = {}
-        if name not in cache:
-            cache[name] = get_backend(name)(self.node, loose=self._loose)
-        return cache[name]
-
-    def _form(self):
-        if self._form_cache is None:
-            self._form_cache = self.node.linear_form()
-        return self._form_cache
-
+    # -- dispatch ------------------------------------------------------------------------------
     def _run(self, op, X, tol=None):
-        """Run operator ``op`` on a flat batch; returns (out, info)."""
-        r = self._routes[op]
-        p = r.provider
-        if p == "native":
-            fn = self._kernels[op]
-            args = (X, tol) if op == "contains" else (X,)
-            if self._has_children:
-                args = args + (self.parts,)
-            out = fn(*args)
-            # a kernel may return (out, info) to report status/iterations for details=True
-            return out if isinstance(out, tuple) else (out, {})
-        if p == "derived":
-            if op == "distance":
-                P, info = self._run("project", X)
-                return np.linalg.norm(X - P, axis=1), info
-            if op == "support":
-                L, info = self._run("lmo", -X)   # max <c, x> = <c, argmin <-c, x>>
-                return np.einsum("ij,ij->i", X, L), info
-            if op == "contains":
-                d, info = self._run("distance", X)
-                return d <= tol, info
-        if p == "form":
-            return self._form().violation_x(X), {}
-        if p == "none":
-            raise UnsupportedOperationError(f"{op} on {self.node.label}: {r.reason}.")
-        ws = self._workspace(p)
-        if op == "contains":
-            return getattr(ws, op)(X, tol)
-        return getattr(ws, op)(X)
+        return self._plan.run(op, X, tol)
 
     def _default_tol(self, X):
         if self._scale is None:
@@ -280,17 +308,77 @@ class DecisionSet:
         return 1e-7 * np.maximum(np.abs(X).max(axis=1), self._scale)
 
     # -- operators ------------------------------------------------------------------------------
-    def project(self, y, details: bool = False):
-        """Euclidean projection onto the set: argmin_{x in K} ||x - y||."""
+    # -- geometries ------------------------------------------------------------------------------
+    def _geometry(self, geometry, op):
+        g = "euclidean" if geometry is None else str(geometry).lower()
+        if g not in GEOMETRIES:
+            import difflib
+            near = difflib.get_close_matches(g, GEOMETRIES, n=1)
+            hint = f" Did you mean {near[0]!r}?" if near else ""
+            raise InputError(f"{op} on {self.node.label}: geometry must be one of {', '.join(GEOMETRIES)}; "
+                             f"got {geometry!r}.{hint}")
+        return g
+
+    def _log_input(self, y, argname, op, log_input):
+        """Flat log-domain batch T = log y (or y itself when ``log_input``), validated."""
+        Y, lead = self._batch(y, argname, op)
+        if log_input:
+            return Y, lead
+        bad = np.flatnonzero((Y <= 0).any(axis=1)) if Y.size else np.zeros(0, int)
+        if bad.size:
+            i = int(bad[0])
+            j = int(np.flatnonzero(Y[i] <= 0)[0])
+            raise InputError(f"{op} on {self.node.label}: the KL geometry needs y > 0 (relative entropy KL(x||y) "
+                             f"is defined for positive y); got {Y[i, j]!r} at batch row {i}, coordinate {j}. "
+                             f"Pass log y with log_input=True to use values that would underflow.")
+        with np.errstate(divide="ignore"):
+            return np.log(Y), lead
+
+    def _kl_project(self, y, details, log_input, op="project"):
+        T, lead = self._log_input(y, "y", op, log_input)
+        t0 = time.perf_counter()
+        X, info = self._run("project_kl", T)
+        secs = time.perf_counter() - t0
         if not details:
-            fn = self._direct.get("project")
-            if fn is not None:
-                Y = self._one(y)
-                if Y is not None:
-                    P = fn(Y)
-                    if isinstance(P, tuple):
-                        P = P[0]
-                    return P.reshape(self._shape)
+            return self._out_points(X, lead), T, X, lead
+        return self._details("project_kl", T, X, lead, info, secs, certificate="kl"), T, X, lead
+
+    def project(self, y, details: bool = False, *, geometry: str = "euclidean", log_input: bool = False):
+        """Euclidean projection onto the set.
+
+        .. math:: P_K(y) = \\arg\\min_{x \\in K} \\|x - y\\|_2
+
+        Parameters
+        ----------
+        y : array_like, shape (..., *K.shape)
+            Points; leading axes are a batch.
+        details : bool
+            Return a :class:`Details` record (point, status, route, measured residual,
+            Frank-Wolfe certificate, iterations, seconds, backend status) instead of the point.
+
+        Returns
+        -------
+        ndarray of shape y.shape (float64), or Details.
+
+        Notes
+        -----
+        Cost: that of the route ``explain()`` names (e.g. O(n log n) for a simplex or a
+        permutahedron, one QP solve per point for a generic polyhedron).
+
+        Examples
+        --------
+        >>> import setkit
+        >>> setkit.compile({"kind": "simplex", "dim": 3}).project([1.0, 0.0, 0.0]).tolist()
+        [1.0, 0.0, 0.0]
+        >>> setkit.compile({"kind": "simplex", "dim": 2}).project([[2.0, 0.0], [0.5, 0.5]]).tolist()
+        [[1.0, 0.0], [0.5, 0.5]]
+        """
+        if geometry != "euclidean" and self._geometry(geometry, "project") == "kl":
+            return self._kl_project(y, details, log_input)[0]
+        if not details:
+            P = self._fast("project", y)
+            if P is not None:
+                return P.reshape(self._shape)
         Y, lead = self._batch(y, "y", "project")
         t0 = time.perf_counter()
         P, info = self._run("project", Y)
@@ -299,31 +387,90 @@ class DecisionSet:
             return self._out_points(P, lead)
         return self._details("project", Y, P, lead, info, secs, certificate=True)
 
-    def distance(self, y):
-        """Euclidean distance to the set: ||y - project(y)||."""
-        fn = self._direct.get("distance")
-        if fn is not None:
-            Y = self._one(y)
-            if Y is not None:
-                d = fn(Y)
-                if isinstance(d, tuple):
-                    d = d[0]
-                return d[0] if type(d) is np.ndarray and d.shape == (1,) else self._out_values(d, ())
+    def distance(self, y, *, geometry: str = "euclidean", log_input: bool = False):
+        """Euclidean distance to the set.
+
+        .. math:: d_K(y) = \\min_{x \\in K} \\|x - y\\|_2 = \\|y - P_K(y)\\|_2
+
+        Returns a float for one point, an array of the batch shape otherwise. Cost: one
+        projection unless the family has a native distance.
+
+        Examples
+        --------
+        >>> import setkit
+        >>> float(setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}).distance([4.0, 5.0]))
+        5.0
+        """
+        if geometry != "euclidean" and self._geometry(geometry, "distance") == "kl":
+            _, T, X, lead = self._kl_project(y, False, log_input, "distance")
+            return self._out_values(kl_divergence(X, T), lead)
+        d = self._fast("distance", y)
+        if d is not None:
+            return d[0] if type(d) is np.ndarray and d.shape == (1,) else self._out_values(d, ())
         Y, lead = self._batch(y, "y", "distance")
         d, _ = self._run("distance", Y)
         return self._out_values(d, lead)
 
+    def _jacobian_product(self, op, y, w, wname, geometry, log_input):
+        g = self._geometry(geometry, op)
+        if g == "kl":
+            T, lead = self._log_input(y, "y", op, log_input)
+        else:
+            T, lead = self._batch(y, "y", op)
+        W, lead_w = self._batch(w, wname, op)
+        if lead_w != lead:
+            raise InputError(f"{op} on {self.node.label}: {wname} must have the shape of y, {lead + self.shape}; "
+                             f"got {lead_w + self.shape}.")
+        if g == "kl":
+            if not log_input:
+                Yp = np.exp(T)
+                if op == "project_jvp":      # d/dy = d/dt diag(1/y)
+                    out, _ = self._run("project_kl_jvp", T, W / Yp)
+                else:
+                    out, _ = self._run("project_kl_vjp", T, W)
+                    out = out / Yp
+            else:
+                out, _ = self._run("project_kl_jvp" if op == "project_jvp" else "project_kl_vjp", T, W)
+        else:
+            out, _ = self._run(op, T, W)
+        return self._out_points(out, lead)
+
+    def project_jvp(self, y, v, *, geometry: str = "euclidean", log_input: bool = False):
+        """Jacobian-vector product of the projection: J(y) v, with J the derivative of project(y).
+
+        .. math:: J_{P_K}(y)\\, v
+
+        Exact where the projection is piecewise linear (the derivative on the active face) and
+        by implicit differentiation elsewhere; at a point where P_K is not differentiable the
+        family documents which element of the generalized Jacobian is returned. With
+        ``geometry="kl"`` the derivative is of the KL projection, with respect to y (or to
+        t = log y when ``log_input``). Batched like ``project``; v has the shape of y.
+        """
+        return self._jacobian_product("project_jvp", y, v, "v", geometry, log_input)
+
+    def project_vjp(self, y, u, *, geometry: str = "euclidean", log_input: bool = False):
+        """Vector-Jacobian product of the projection: J(y)^T u (see :meth:`project_jvp`)."""
+        return self._jacobian_product("project_vjp", y, u, "u", geometry, log_input)
+
     def lmo(self, c, details: bool = False):
-        """Linear minimization oracle: a minimizer of <c, x> over the set."""
+        """Linear minimization oracle: a minimizer of a linear function over the set.
+
+        .. math:: \\mathrm{lmo}_K(c) \\in \\arg\\min_{x \\in K} \\langle c, x \\rangle
+
+        Raises :class:`setkit.UnboundedDirectionError` (with ``ray``) when the minimum is
+        unbounded. ``details=True`` returns a :class:`Details` record. Cost: that of the
+        route ``explain()`` names (a sort for a permutahedron, one LP for a flow).
+
+        Examples
+        --------
+        >>> import setkit
+        >>> setkit.compile({"kind": "permutahedron", "weights": [3, 2, 1]}).lmo([0.5, -1.0, 2.0]).tolist()
+        [2.0, 3.0, 1.0]
+        """
         if not details:
-            fn = self._direct.get("lmo")
-            if fn is not None:
-                C = self._one(c)
-                if C is not None:
-                    L = fn(C)
-                    if isinstance(L, tuple):
-                        L = L[0]
-                    return L.reshape(self._shape)
+            L = self._fast("lmo", c)
+            if L is not None:
+                return L.reshape(self._shape)
         C, lead = self._batch(c, "c", "lmo")
         t0 = time.perf_counter()
         L, info = self._run("lmo", C)
@@ -333,24 +480,42 @@ class DecisionSet:
         return self._details("lmo", C, L, lead, info, secs, certificate=False)
 
     def support(self, c):
-        """Support function: max over the set of <c, x>."""
-        fn = self._direct.get("support")
-        if fn is not None:
-            C = self._one(c)
-            if C is not None:
-                v = fn(C)
-                if isinstance(v, tuple):
-                    v = v[0]
-                return v[0] if type(v) is np.ndarray and v.shape == (1,) else self._out_values(v, ())
+        """Support function of the set.
+
+        .. math:: \\sigma_K(c) = \\max_{x \\in K} \\langle c, x \\rangle = \\langle c, \\mathrm{lmo}_K(-c) \\rangle
+
+        A float for one direction, an array of the batch shape otherwise. Cost: one LMO
+        unless the family has a native support function.
+
+        Examples
+        --------
+        >>> import setkit
+        >>> float(setkit.compile({"kind": "ball", "dim": 2, "norm": 1, "radius": 2}).support([3.0, -4.0]))
+        8.0
+        """
+        v = self._fast("support", c)
+        if v is not None:
+            return v[0] if type(v) is np.ndarray and v.shape == (1,) else self._out_values(v, ())
         C, lead = self._batch(c, "c", "support")
         # sigma(c) = -min <-c, x>
         v, _ = self._run("support", C)
         return self._out_values(v, lead)
 
     def contains(self, x, tol=None):
-        """Membership within tolerance: dist(x, K) <= tol.
+        """Membership within tolerance.
 
-        ``tol`` is absolute; by default 1e-7 * max(1, ||x||_inf, scale of the set's data).
+        .. math:: x \\in_{tol} K \\iff d_K(x) \\le tol
+
+        ``tol`` is absolute (a number or one per point); by default
+        1e-7 * max(1, ||x||_inf, scale of the set's data). Cost: a native screen where the
+        family has one, else one distance.
+
+        Examples
+        --------
+        >>> import setkit
+        >>> K = setkit.compile({"kind": "simplex", "dim": 3})
+        >>> bool(K.contains([0.2, 0.3, 0.5])), bool(K.contains([0.5, 0.5, 0.5]))
+        (True, False)
         """
         if tol is None:
             fn = self._direct.get("contains")
@@ -385,7 +550,14 @@ class DecisionSet:
         return self._out_values(np.asarray(v, dtype=bool), lead)
 
     def violation(self, x):
-        """Largest violated defining constraint of each point (0 inside), NaN if the set has no such check."""
+        """Largest violated defining constraint of each point (0 inside), NaN if the set has no such check.
+
+        Examples
+        --------
+        >>> import setkit
+        >>> float(setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}).violation([1.5, 0.5]))
+        0.5
+        """
         X, lead = self._batch(x, "x", "violation")
         if self._routes["violation"].provider == "none":
             return self._out_values(np.full(X.shape[0], np.nan), lead)
@@ -393,7 +565,18 @@ class DecisionSet:
         return self._out_values(v, lead)
 
     def certificate(self, y, p):
-        """Frank-Wolfe gap of p as a projection of y: support(y - p) - <y - p, p> >= (1/2)||p - p*||^2."""
+        """Frank-Wolfe gap of p as a projection of y.
+
+        .. math:: g(y, p) = \\sigma_K(y - p) - \\langle y - p, p \\rangle \\ge \\tfrac12 \\|p - P_K(y)\\|^2
+                  \\quad (p \\in K)
+
+        Examples
+        --------
+        >>> import setkit
+        >>> K = setkit.compile({"kind": "simplex", "dim": 2})
+        >>> float(K.certificate([2.0, 0.0], K.project([2.0, 0.0])))
+        0.0
+        """
         Y, lead = self._batch(y, "y", "certificate")
         P, _ = self._batch(p, "p", "certificate")
         return self._out_values(self._gap(Y, P), lead)
@@ -403,16 +586,42 @@ class DecisionSet:
         s, _ = self._run("support", R)
         return s - np.einsum("ij,ij->i", R, P)
 
+    def _kl_gap(self, T, X):
+        """Bregman analogue of the Frank-Wolfe gap: with g = log x - t (the gradient of KL(.||y) at x),
+        <g, x - lmo(g)> >= KL(x||y) - KL(x*||y)."""
+        if self._routes["lmo"].provider == "none" or X.shape[0] == 0:
+            return np.full(X.shape[0], np.nan)
+        with np.errstate(divide="ignore"):
+            G = np.where(X > 0, np.log(np.where(X > 0, X, 1.0)), -745.0) - T
+        L, _ = self._run("lmo", G)
+        return np.einsum("ij,ij->i", G, X - L)
+
     def _details(self, op, X, P, lead, info, secs, certificate):
         b = X.shape[0]
         if self._routes["violation"].provider != "none":
             resid, _ = self._run("violation", P)
         else:
             resid = np.full(b, np.nan)
-        cert = self._gap(X, P) if certificate else np.full(b, np.nan)
+        if certificate == "kl":
+            cert = self._kl_gap(X, P)
+        else:
+            cert = self._gap(X, P) if certificate else np.full(b, np.nan)
         status = _flat_info(info, "status", b, "solved")
         iters = _flat_info(info, "iterations", b, 0)
         bstat = _flat_info(info, "backend_status", b, "exact")
+        # the accuracy contract: a record never says "solved" above the tolerance the set states
+        allowed = self._default_tol(np.concatenate([X, P], axis=1)) if b else np.zeros(0)
+        over = np.flatnonzero(np.asarray(resid, dtype=float) > allowed)
+        if over.size:
+            i = int(over[0])
+            msg = (f"{op} on {self.node.label}: the answer for batch row {i} violates the set's constraints by "
+                   f"{float(resid[i]):.3g}, above the allowed {float(allowed[i]):.3g} (route {self._routes[op].provider}, "
+                   f"input magnitude {float(np.abs(X[i]).max(initial=0.0)):.3g}). Try with_backends({op}=\"reference\").")
+            if not self._loose:
+                raise SolveError(msg, status="inaccurate")
+            warnings.warn(msg, AccuracyWarning, stacklevel=3)
+            for j in over:
+                status[j] = "inaccurate"
 
         def pack(v, dtype=None):
             arr = np.asarray(v, dtype=dtype)
@@ -425,7 +634,17 @@ class DecisionSet:
 
     # -- modeling --------------------------------------------------------------------------------
     def to_cvxpy(self, x) -> list:
-        """The set as a list of cvxpy constraints on ``x`` (a cvxpy expression of shape ``K.shape``)."""
+        """The set as a list of cvxpy constraints on ``x`` (a cvxpy expression of shape ``K.shape``).
+
+        Examples
+        --------
+        >>> import cvxpy as cp, setkit
+        >>> K = setkit.compile({"kind": "simplex", "dim": 3})
+        >>> x = cp.Variable(3)
+        >>> prob = cp.Problem(cp.Minimize(x[0]), K.to_cvxpy(x))
+        >>> abs(float(prob.solve())) < 1e-6
+        True
+        """
         shp = tuple(getattr(x, "shape", ()))
         if shp != self.shape:
             raise InputError(f"to_cvxpy on {self.node.label}: x must be a cvxpy expression of shape "
@@ -434,21 +653,69 @@ class DecisionSet:
 
     # -- measures and penalties are served by their own modules ----------------------------------
     def centroid(self, measure: str = "volume", **kw):
-        """Centroid of the set under ``measure`` ("volume", "vertices", "directions")."""
+        """Centroid of the set under ``measure``: "volume" (uniform law), "vertices" (uniform on the
+        extreme points) or "directions" (the law of lmo(g) for a Gaussian g).
+
+        Exact where a closed form or an exact geometric method exists, else an estimate
+        (``details=True`` gives its standard error).
+
+        Examples
+        --------
+        >>> import setkit
+        >>> setkit.compile({"kind": "simplex", "dim": 4}).centroid().tolist()
+        [0.25, 0.25, 0.25, 0.25]
+        """
         from . import measures
         return measures.centroid(self, measure, **kw)
 
     def centered(self, measure: str = "volume", **kw) -> "DecisionSet":
-        """The same set translated so that its centroid under ``measure`` is the origin (an affine shift)."""
-        from .combinators.affine import centered
-        return centered(self, measure, **kw)
+        """The same set translated so that its centroid under ``measure`` is the origin: K - centroid(K).
+
+        A random decision drawn from the measure then has zero linear loss in expectation.
+
+        Examples
+        --------
+        >>> import setkit
+        >>> C = setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 2}).centered()
+        >>> float(C.support([1.0, 0.0]))
+        1.0
+        """
+        c = np.asarray(self.centroid(measure, **kw), dtype=float)
+        if c.shape != self.shape:
+            raise SolveError(f"centered: the centroid of {self.node.label} has shape {c.shape}; expected {self.shape}.")
+        from .combinators.affine import translated
+        label = self.node.name or self.node.kind
+        node = translated(self.node, -c.reshape(-1), name=f"{label} centered ({measure})")
+        return DecisionSet(node, loose=self._loose)
 
     def sample(self, k: int, measure: str = "volume", rng=None, **kw):
-        """k points of the set drawn from ``measure``; shape (k, *K.shape)."""
+        """k points of the set drawn from ``measure`` (seeded by ``rng``); shape (k, *K.shape).
+
+        Exact samplers where known, hit-and-run otherwise (with a warning when it mixes slowly).
+
+        Examples
+        --------
+        >>> import setkit
+        >>> setkit.compile({"kind": "simplex", "dim": 3}).sample(5, rng=0).shape
+        (5, 3)
+        """
         from . import measures
         return measures.sample(self, k, measure, rng, **kw)
 
     def penalty(self, G: float, smoothing: str | None = None, width: float | None = None, **kw):
-        """The distance penalty G·dist(x, K), optionally smoothed ("moreau" or "ball")."""
+        """The distance penalty P(x) = G·dist(x, K), optionally smoothed.
+
+        ``smoothing=None``: P = G d(x); ``"moreau"``: P = G h(d(x)) with h(t) = t²/(2δ) for
+        t <= δ and t - δ/2 beyond (the Moreau envelope, gradient G (x - P_K x)/max(d, δ));
+        ``"ball"``: P = E_u[G d(x + δu)], u uniform in the unit ball (seeded estimate with
+        standard errors). ``width`` is δ. Returns an object with ``value(x)`` and ``grad(x)``.
+
+        Examples
+        --------
+        >>> import setkit
+        >>> pen = setkit.compile({"kind": "box", "dim": 1, "lower": 0, "upper": 1}).penalty(2.0)
+        >>> float(pen.value([3.0])), pen.grad([3.0]).tolist()
+        (4.0, [2.0])
+        """
         from . import penalty
         return penalty.make_penalty(self, G, smoothing, width, **kw)

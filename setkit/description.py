@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import os
+import weakref
 from dataclasses import dataclass
 from numbers import Integral, Real
 from typing import Mapping
@@ -19,6 +20,7 @@ import numpy as np
 from .errors import DescriptionError
 
 _REQUIRED = object()
+_ORIGINS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()   # node -> Location it was read at
 ARRAY_SUFFIXES = (".npy", ".npz", ".csv")
 
 
@@ -250,11 +252,11 @@ class Reader:
 
 def parse_node(spec, location: Location):
     """Turn one description mapping (or an already built set) into a node."""
-    from .decision_set import DecisionSet
     from .families import Family, lookup
 
-    if isinstance(spec, DecisionSet):
-        return spec.node
+    compiled = getattr(spec, "node", None)       # a compiled DecisionSet stands for its node
+    if isinstance(compiled, Family) and not isinstance(spec, Mapping):
+        return compiled
     if isinstance(spec, Family):
         return spec
     if not isinstance(spec, Mapping):
@@ -270,7 +272,35 @@ def parse_node(spec, location: Location):
     reader = Reader(spec, location, str(kind))
     node = cls.from_spec(reader)
     reader.done()
+    try:
+        _ORIGINS.setdefault(node, location)
+    except TypeError:      # a node type that cannot be weakly referenced: errors then name no file
+        pass
     return node
+
+
+def origin_of(node):
+    """The :class:`Location` a node was read at, or None (built in Python)."""
+    try:
+        return _ORIGINS.get(node)
+    except TypeError:
+        return None
+
+
+def failer_for(node):
+    """A ``fail(key, message, cls=DescriptionError)`` for checks that run at compile time.
+
+    The error names the object and, when the node was read from a description, the
+    file and the key path, like the errors raised while parsing.
+    """
+    loc = origin_of(node)
+
+    def fail(key, message, cls=DescriptionError):
+        if loc is None:
+            raise cls(f"{node.label}: {message}")
+        at = loc.child(key) if key is not None else loc
+        raise cls(f"{node.label} ({at}): {message}", at)
+    return fail
 
 
 def parse(description, source: str = "<dict>", base_dir: str | None = None):

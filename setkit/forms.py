@@ -63,6 +63,34 @@ class LinearForm:
         v = np.maximum(v, (X - self.hi).max(axis=1, initial=0.0))
         return v
 
+    def membership_screen(self, X: np.ndarray, tol: np.ndarray) -> np.ndarray:
+        """+1 (in K), -1 (farther than tol from K) or 0 (undecided) per row, from the constraints alone.
+
+        Rows are normalized, so a row's violation is the distance to its halfspace or
+        hyperplane, a lower bound on dist(x, K): above ``tol`` the point is out. A point that
+        meets every constraint up to rounding (1e-13 relative) is in. Only valid when n_aux == 0.
+        """
+        if self.n_aux:
+            raise ValueError("membership_screen needs a form without auxiliary variables.")
+        X = np.atleast_2d(X)
+        v = np.zeros(X.shape[0])
+        for A, b, eq in ((self.A_eq, self.b_eq, True), (self.A_ub, self.b_ub, False)):
+            if A.shape[0] == 0:
+                continue
+            nrm = np.sqrt(np.asarray(A.multiply(A).sum(axis=1)).ravel()) if hasattr(A, "multiply") else \
+                np.linalg.norm(A, axis=1)
+            nrm = np.where(nrm > 0, nrm, 1.0)
+            r = (X @ A.T - b) / nrm
+            v = np.maximum(v, np.abs(r).max(axis=1) if eq else r.max(axis=1, initial=0.0))
+        v = np.maximum(v, (self.lo - X).max(axis=1, initial=0.0))
+        v = np.maximum(v, (X - self.hi).max(axis=1, initial=0.0))
+        size = np.maximum(1.0, np.abs(X).max(axis=1, initial=0.0))
+        data = max(1.0, float(np.abs(self.b_eq).max(initial=0.0)), float(np.abs(self.b_ub).max(initial=0.0)))
+        out = np.zeros(X.shape[0], dtype=np.int8)
+        out[v > tol] = -1
+        out[(v <= 1e-13 * np.maximum(size, data)) & (v <= tol)] = 1
+        return out
+
     def is_bounded_box(self) -> bool:
         return bool(np.isfinite(self.lo).all() and np.isfinite(self.hi).all())
 

@@ -1,37 +1,184 @@
-"""The only place that chooses an implementation for each operator.
+"""The only place that chooses an implementation for each operator, and builds the plan.
 
-Order of preference: a native kernel of the family > a rule derived from
-another operator > a generic backend (by its declared priority). Every choice
-is recorded with its reason for ``explain()``.
+Order of preference for every operator of a node:
+
+1. a native kernel of the family (a method marked ``@kernel(op)``);
+2. a combinator strategy declared for the node's kind (:mod:`setkit.strategies`),
+   the accepted one with the lowest priority;
+3. a rule derived from another operator (:data:`DERIVED_RULES`: distance from the
+   projection, support from the LMO, membership from the distance);
+4. the linear form (:data:`FORM_RULES`: the largest constraint violation);
+5. a generic backend (:mod:`setkit.backends`), by its declared priority.
+
+A caller may force any provider with ``K.with_backends(op=name)`` where name is
+``"native"``, ``"derived"``, a strategy name or a backend name. The result is a
+:class:`Plan`: for every operator the callable that serves flat batches, with its
+:class:`Route` (provider and reason). Compiling also runs the node's emptiness
+check (``Family.check_nonempty``), once per node.
 """
 from __future__ import annotations
 
 from dataclasses import dataclass
+from types import MappingProxyType
+from typing import Any, Callable, Mapping
+
+import numpy as np
 
 from .backends import all_backends, get_backend
-from .errors import BackendUnavailableError, UnsupportedOperationError
-from .families import OPERATORS
+from .errors import BackendUnavailableError, SolveError, UnsupportedOperationError
+from .families import OPERATORS, memo
+from .strategies import all_strategies, strategies_for
 
-# operator -> (operator it is derived from, the rule in words)
+
+# -- derived rules, declared as data and executed here --------------------------------------
+def _distance_from_projection(run, node, context):
+    def distance(X):
+        P, info = run("project", X)
+        return np.linalg.norm(X - P, axis=1), info
+    return distance
+
+
+def _support_from_lmo(run, node, context):
+    def support(C):
+        L, info = run("lmo", -C)       # max <c, x> = <c, argmin <-c, x>>
+        return np.einsum("ij,ij->i", C, L), info
+    return support
+
+
+def _vjp_from_jvp(source):
+    def build(run, node, context):
+        def vjp(Y, U):
+            # the Jacobian is symmetric: a Euclidean projection is the gradient of the convex function
+            # (1/2)||y||^2 - (1/2)d_K(y)^2, and the KL projection in log coordinates the gradient of the
+            # conjugate of the entropy restricted to K; so J^T u = J u
+            return run(source, Y, U)
+        return vjp
+    return build
+
+
+def _contains_from_distance(run, node, context):
+    def screen(X, tol):
+        # the family's own screen, else one from its constraints (a linear form without auxiliaries)
+        v = node.membership_screen(X, tol, context.parts if node.children() else ())
+        if v is None:
+            form = context.linear_form() if context is not None else None
+            if form is not None and form.n_aux == 0:
+                v = form.membership_screen(X, tol)
+        return v
+
+    def contains(X, tol):
+        v = screen(X, tol) if context is not None else None
+        if v is None:
+            d, info = run("distance", X)
+            return np.asarray(d) <= tol, info
+        out = np.asarray(v) > 0
+        todo = np.flatnonzero(np.asarray(v) == 0)
+        if todo.size:
+            d, _ = run("distance", X[todo])
+            out[todo] = np.asarray(d) <= tol[todo]
+        return out, {}
+    return contains
+
+
+@dataclass(frozen=True)
+class DerivedRule:
+    source: str                  # the operator it is computed from
+    text: str                    # the rule in words, for explain()
+    build: Callable              # build(run, node, context) -> callable on flat batches returning (out, info)
+
+
 DERIVED_RULES = {
-    "distance": ("project", "distance = ||y - project(y)||"),
-    "support": ("lmo", "support(c) = <c, lmo(-c)>"),
-    "contains": ("distance", "contains(x) = distance(x) <= tol"),
+    "distance": DerivedRule("project", "distance = ||y - project(y)||", _distance_from_projection),
+    "support": DerivedRule("lmo", "support(c) = <c, lmo(-c)>", _support_from_lmo),
+    "project_vjp": DerivedRule("project_jvp", "J^T u = J u (the Jacobian of a Euclidean projection is symmetric: "
+                                              "the Hessian of (1/2)||y||^2 - (1/2)d(y)^2)", _vjp_from_jvp("project_jvp")),
+    "project_kl_vjp": DerivedRule("project_kl_jvp", "J^T u = J u (in log coordinates the KL projection is the gradient "
+                                                    "of a convex conjugate, so its Jacobian is symmetric)",
+                                  _vjp_from_jvp("project_kl_jvp")),
+    "contains": DerivedRule("distance", "contains(x) = distance(x) <= tol, after a screen by the constraints "
+                                        "where the set has one (only undecided points are projected)",
+                            _contains_from_distance),
 }
+
+
+def derived_call(op: str, run, node=None):
+    """The derived rule for ``op`` as a callable on flat batches, built on ``run(op, X, tol=None)``; None if none."""
+    rule = DERIVED_RULES.get(op)
+    if rule is None:
+        return None
+    if node is None:
+        from .families import Family
+        node = Family()
+    return rule.build(run, node, None)
+
+
 FORM_RULES = {
     "violation": "largest violated constraint of the linear form",
 }
+TAKES_TOL = frozenset({"contains", "project_jvp", "project_vjp", "project_kl_jvp", "project_kl_vjp"})
+# (operators whose kernels take a second flat array: the tolerance, or the tangent / cotangent)
+CHAINED = frozenset({"project"})     # operators whose generic backends fall back to the next one on a failed solve
 
 
 @dataclass(frozen=True)
 class Route:
+    """How one operator is served: ``provider`` is "native", "derived", "form", "none", a strategy
+    name or a backend name; ``category`` says which of these it is; ``source`` is the operator a
+    derived route is computed from."""
+
     operator: str
-    provider: str        # "native" | "derived" | "form" | backend name | "none"
+    provider: str
     reason: str
-    source: str | None = None   # for derived routes: the operator used
+    source: str | None = None
+    category: str = ""
 
     def describe(self) -> str:
-        return f"{self.operator:<10} {self.provider:<10} {self.reason}"
+        return f"{self.operator:<14} {self.provider:<10} {self.reason}"
+
+
+@dataclass(frozen=True)
+class Plan:
+    """The compiled plan of one set: for every operator its route and the callable serving it.
+
+    ``run(op, X, tol=None)`` calls the operator on a flat (b, dim) float64 batch and returns
+    ``(out, info)``; ``direct`` holds the bound native kernels (raw returns) that a
+    single-point fast path may call.
+    """
+
+    node: Any
+    routes: Mapping[str, Route]
+    calls: Mapping[str, Callable]
+    direct: Mapping[str, Callable]
+
+    def run(self, op: str, X, tol=None):
+        fn = self.calls[op]
+        return fn(X, tol) if op in TAKES_TOL else fn(X)
+
+    def route(self, op: str) -> Route:
+        return self.routes[op]
+
+
+def _as_pair(out):
+    # a kernel may return (out, info) to report status/iterations for details=True
+    return out if isinstance(out, tuple) else (out, {})
+
+
+def _first_doc_line(fn) -> str:
+    doc = (getattr(fn, "__doc__", None) or "").strip().splitlines()
+    return doc[0].rstrip(".") if doc else getattr(fn, "__name__", "?")
+
+
+# -- choosing ----------------------------------------------------------------------------------
+def _native_route(node, op, forced):
+    fn = getattr(type(node), node.kernels[op])
+    return Route(op, "native", ("chosen by the caller; " if forced else "") + "native kernel: " + _first_doc_line(fn),
+                 category="native")
+
+
+def _strategy_route(cls, op, forced, why):
+    fn = getattr(cls, op)
+    return Route(op, cls.name, ("chosen by the caller; " if forced else "") + f"{cls.about}: {_first_doc_line(fn)}"
+                 + (f" ({why})" if why else ""), category="strategy")
 
 
 def _backend_route(op, node, name, forced):
@@ -44,7 +191,7 @@ def _backend_route(op, node, name, forced):
     ok, why = cls.accepts(node)
     if not ok:
         raise BackendUnavailableError(f"backend {name!r} cannot serve {op} for {node.label}: {why}.")
-    return Route(op, name, ("chosen by the caller; " if forced else "") + f"{cls.about} ({why})")
+    return Route(op, name, ("chosen by the caller; " if forced else "") + f"{cls.about} ({why})", category="backend")
 
 
 def _generic(op, node):
@@ -52,17 +199,45 @@ def _generic(op, node):
         if op in cls.operators and cls.available():
             ok, why = cls.accepts(node)
             if ok:
-                return Route(op, name, f"no native kernel; generic {cls.problem} backend: {cls.about}")
+                return Route(op, name, f"no native kernel; generic {cls.problem} backend: {cls.about}",
+                             category="backend")
     return None
 
 
-def plan(node, overrides: dict | None = None) -> dict:
+def _chain(op, node):
+    """Every available generic backend that serves ``op`` for ``node``, by priority."""
+    out = []
+    for name, cls in sorted(all_backends().items(), key=lambda kv: kv[1].priority):
+        if op in cls.operators and cls.available():
+            ok, _ = cls.accepts(node)
+            if ok:
+                out.append((name, cls))
+    return out
+
+
+def _accepted_strategies(node):
+    out = []
+    for cls in strategies_for(node.kind):
+        ok, why = cls.accepts(node)
+        if ok:
+            out.append((cls, why))
+    return out
+
+
+def _has_form_without_aux(node):
+    form = node.linear_form()
+    return form is not None and form.n_aux == 0
+
+
+def choose(node, overrides: dict | None = None) -> dict:
     """Choose a route for every operator of ``node``; ``overrides`` maps operator -> provider."""
     overrides = dict(overrides or {})
     for op in overrides:
         if op not in OPERATORS:
             raise UnsupportedOperationError(
                 f"with_backends: unknown operator {op!r}; the operators are {', '.join(OPERATORS)}.")
+    accepted = _accepted_strategies(node)
+    strategies = all_strategies()
     routes = {}
     for op in OPERATORS:
         want = overrides.get(op)
@@ -71,34 +246,203 @@ def plan(node, overrides: dict | None = None) -> dict:
                 if op not in node.kernels:
                     raise BackendUnavailableError(f"{node.label} has no native kernel for {op}; "
                                                   f"its native kernels are {', '.join(node.kernels) or '(none)'}.")
-                routes[op] = Route(op, "native", "chosen by the caller; " + _native_reason(node, op))
+                routes[op] = _native_route(node, op, True)
             elif want == "derived":
                 if op not in DERIVED_RULES:
                     raise BackendUnavailableError(f"{op} has no derived rule; the derived operators are "
                                                   f"{', '.join(DERIVED_RULES)}.")
-                src, rule = DERIVED_RULES[op]
-                routes[op] = Route(op, "derived", "chosen by the caller; " + rule, src)
+                rule = DERIVED_RULES[op]
+                routes[op] = Route(op, "derived", "chosen by the caller; " + rule.text, rule.source, "derived")
+            elif want in strategies:
+                cls = strategies[want]
+                if cls.kind != node.kind or op not in cls.operators:
+                    raise BackendUnavailableError(
+                        f"strategy {want!r} serves {', '.join(cls.operators)} of {cls.kind} sets; it cannot serve "
+                        f"{op} of {node.label}.")
+                ok, why = cls.accepts(node)
+                if not ok:
+                    raise BackendUnavailableError(f"strategy {want!r} cannot serve {node.label}: {why}.")
+                routes[op] = _strategy_route(cls, op, True, why)
             else:
                 routes[op] = _backend_route(op, node, want, True)
             continue
         if op in node.kernels:
-            routes[op] = Route(op, "native", _native_reason(node, op))
+            routes[op] = _native_route(node, op, False)
+            continue
+        strat = next(((c, why) for c, why in accepted if op in c.operators), None)
+        if strat is not None:
+            routes[op] = _strategy_route(strat[0], op, False, strat[1])
         elif op in DERIVED_RULES:
-            src, rule = DERIVED_RULES[op]
-            routes[op] = Route(op, "derived", rule, src)
+            rule = DERIVED_RULES[op]
+            routes[op] = Route(op, "derived", rule.text, rule.source, "derived")
         elif op in FORM_RULES:
-            form = node.linear_form()
-            if form is not None and form.n_aux == 0:
-                routes[op] = Route(op, "form", FORM_RULES[op])
+            if _has_form_without_aux(node):
+                routes[op] = Route(op, "form", FORM_RULES[op], category="form")
             else:
-                routes[op] = Route(op, "none", "no native kernel and no linear form without auxiliaries")
+                routes[op] = Route(op, "none", "no native kernel and no linear form without auxiliaries",
+                                   category="none")
         else:
             r = _generic(op, node)
-            routes[op] = r if r is not None else Route(op, "none", "no implementation can serve it")
+            routes[op] = r if r is not None else Route(op, "none", "no implementation can serve it", category="none")
+    # a derived route whose source has no implementation has none either (in dependency order)
+    changed = True
+    while changed:
+        changed = False
+        for op, r in routes.items():
+            if r.category == "derived" and routes[r.source].provider == "none":
+                routes[op] = Route(op, "none", f"derived from {r.source}, which has no implementation", category="none")
+                changed = True
     return routes
 
 
-def _native_reason(node, op):
-    fn = getattr(type(node), node.kernels[op])
-    doc = (fn.__doc__ or "").strip().splitlines()
-    return "native kernel: " + (doc[0].rstrip(".") if doc else fn.__name__)
+# -- building ----------------------------------------------------------------------------------
+def build_plan(node, overrides: dict | None, context) -> Plan:
+    """Choose every route of ``node`` and bind the callables.
+
+    ``context`` is the owning DecisionSet: it provides ``parts`` (the compiled parts of a
+    combinator), ``workspace(name)`` (this thread's workspace of a backend, or of the family
+    for ``name == "native"``) and ``linear_form()``.
+    """
+    routes = choose(node, overrides)
+    calls: dict[str, Callable] = {}
+    direct: dict[str, Callable] = {}
+    has_parts = bool(node.children())
+    strategies = {}
+
+    def run(op, X, tol=None):
+        fn = calls[op]
+        return fn(X, tol) if op in TAKES_TOL else fn(X)
+
+    for op, r in routes.items():
+        if r.category == "native":
+            fn = getattr(node, node.kernels[op])
+            if getattr(fn, "_setkit_workspace", False):
+                raw = (lambda f: (lambda *a: f(*a, context.workspace("native"))))(fn)
+            elif has_parts:
+                raw = (lambda f: (lambda *a: f(*a, context.parts)))(fn)
+            else:
+                raw = fn
+            direct[op] = raw
+            calls[op] = (lambda f: (lambda *a: _as_pair(f(*a))))(raw)
+        elif r.category == "strategy":
+            if r.provider not in strategies:
+                strategies[r.provider] = all_strategies()[r.provider](node)
+            meth = getattr(strategies[r.provider], op)
+            fallback = _generic(op, node) if op in strategies[r.provider].fallback_operators else None
+            if fallback is not None:
+                routes[op] = Route(op, r.provider, r.reason + f"; rows it leaves unsettled go to {fallback.provider}",
+                                   r.source, r.category)
+            calls[op] = _with_fallback((lambda f: (lambda *a: _as_pair(f(*a, context.parts))))(meth), op,
+                                       fallback, context, node)
+        elif r.category == "derived":
+            calls[op] = DERIVED_RULES[op].build(run, node, context)
+        elif r.category == "form":
+            calls[op] = lambda X: (context.linear_form().violation_x(X), {})
+        elif r.category == "backend":
+            chain = [r.provider] + [name for name, _ in _chain(op, node) if name != r.provider]
+            if len(chain) > 1 and op in CHAINED:
+                routes[op] = Route(op, r.provider, r.reason + "; on a failed solve: " + ", then ".join(chain[1:]),
+                                   r.source, r.category)
+            else:
+                chain = chain[:1]
+            calls[op] = _backend_chain(op, chain, context, node)
+        else:
+            def unsupported(*a, _op=op, _why=r.reason):
+                raise UnsupportedOperationError(f"{_op} on {node.label}: {_why}.")
+            calls[op] = unsupported
+    return Plan(node, MappingProxyType(routes), MappingProxyType(calls), MappingProxyType(direct))
+
+
+def _with_fallback(call, op, fallback, context, node):
+    """Rows a method reports as ``info["unsettled"]`` are answered by the fallback route's backend."""
+    def run(*a):
+        out, info = call(*a)
+        bad = info.pop("unsettled", None) if isinstance(info, dict) else None
+        if bad:
+            if fallback is None:
+                raise UnsupportedOperationError(f"{op} on {node.label}: {len(bad)} rows were left unsettled and "
+                                                f"no fallback backend serves this set.")
+            X = a[0]
+            ws = context.workspace(fallback.provider)
+            sub = ws.contains(X[bad], a[1][bad]) if op in TAKES_TOL else getattr(ws, op)(X[bad])
+            out = np.array(out, copy=True)
+            out[bad] = sub[0]
+            bs = list(info.get("backend_status", [""] * X.shape[0]))
+            st = list(info.get("status", ["solved"] * X.shape[0]))
+            sub_status = sub[1].get("status") or ["solved"] * len(bad)
+            for j, i in enumerate(bad):
+                bs[i] = f"{bs[i]}; answered by {fallback.provider}"
+                st[i] = sub_status[j]
+            info = dict(info, backend_status=bs, status=st)
+        return out, info
+    return run
+
+
+def _backend_chain(op, chain, context, node):
+    """Serve ``op`` by the first backend of ``chain``; rows whose solve fails go to the next one.
+
+    Only :class:`setkit.errors.SolveError` moves on (an empty set or an unbounded direction is an
+    answer, not a failure). When every backend fails on a row, one SolveError lists them all.
+    """
+    first = chain[0]
+
+    def call(name, *a):
+        return getattr(context.workspace(name), op)(*a)
+
+    if len(chain) == 1:
+        return lambda *a: call(first, *a)
+
+    def run(*a):
+        try:
+            return call(first, *a)
+        except SolveError as exc:
+            if a[0].shape[0] == 0:
+                raise
+            first_error = exc
+        X = a[0]
+        rows, infos = [], []
+        for i in range(X.shape[0]):
+            sub = tuple(v[i:i + 1] for v in a)
+            errors = []
+            for name in chain:
+                try:
+                    out, info = call(name, *sub)
+                except SolveError as exc:
+                    errors.append(f"{name}: {exc}")
+                    continue
+                note = (f"{'; '.join(errors)}; answered by {name}" if errors else f"answered by {name}")
+                rows.append(np.asarray(out)[0])
+                infos.append((info, name, note))
+                break
+            else:
+                raise SolveError(f"{op} on {node.label}: every backend failed on batch row {i} "
+                                 f"({' | '.join(errors)}).", status=getattr(first_error, "status", None))
+        out = np.stack(rows)
+        info = {"status": [(inf.get("status") or ["solved"])[0] for inf, _, _ in infos],
+                "iterations": [(inf.get("iterations") or [0])[0] for inf, _, _ in infos],
+                "backend_status": [note for _, _, note in infos]}
+        return out, info
+    return run
+
+
+def check_nonempty(node, parts_of, fail):
+    """Run the node's emptiness check once per node (the verdict is memoized beside the node)."""
+    from .families import Family
+    if type(node).check_nonempty is Family.check_nonempty:
+        return            # the family declares no check: nothing to compile eagerly
+
+    def verdict():
+        try:
+            node.check_nonempty(parts_of() if node.children() else (), fail)
+        except Exception as exc:   # noqa: BLE001 - the same error is raised again on every compile
+            return exc
+        return None
+    exc = memo(node, "nonempty", verdict)
+    if exc is not None:
+        raise exc
+
+
+# kept for callers of the former name
+def plan(node, overrides: dict | None = None) -> dict:
+    """The routes ``node`` would get (operator -> Route), without binding anything."""
+    return choose(node, overrides)

@@ -157,6 +157,6 @@ def test_compile_and_load_take_loose():
     # loose is an option of the compiled set, not an operator route
     import setkit
     K = setkit.compile({"kind": "simplex", "dim": 3}, loose=True)
-    assert K._loose and K.with_backends(loose=False)._loose is False
+    assert K.loose and K.with_backends(loose=False).loose is False
     L = setkit.load("catalog/starter-simplex.yaml", loose=True, project="osqp")
-    assert L._loose and L.routes()["project"].provider == "osqp"
+    assert L.loose and L.routes()["project"].provider == "osqp"

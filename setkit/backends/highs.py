@@ -40,6 +40,15 @@ class HighsBackend(Backend):
             cz = np.concatenate([c, np.zeros(f.n_aux)])
             ans = self.ws.minimize(cz)
             if ans.status == "unbounded":
+                d = self.node.unbounded_ray(c)
+                if d is not None:
+                    used = np.flatnonzero(d)
+                    shown = ", ".join(str(int(e)) for e in used[:12]) + (", ..." if used.size > 12 else "")
+                    raise UnboundedDirectionError(
+                        f"{self.node.label}: lmo(c) has no minimizer: the set is unbounded along the direction d "
+                        f"(a cycle through the coordinates [{shown}]) with <c, d> = {float(c @ d):.6g} < 0 "
+                        f"(batch row {i}); bound those coordinates.",
+                        ray=d)
                 ray = self._descent_ray(cz)
                 if ray is not None:
                     d = ray[:f.n_x]
@@ -53,7 +62,7 @@ class HighsBackend(Backend):
                     f"minimizer (HiGHS: {ans.text}; batch row {i}).")
             if ans.status == "infeasible":
                 raise EmptySetError(f"{self.node.label}: the set is empty (HiGHS: {ans.text}).")
-            out[i] = ans.z[:f.n_x]
+            out[i] = self.node.vertex_cleanup(ans.z[:f.n_x])
             stat.append("solved")
             iters.append(ans.iterations)
             bstat.append(ans.text)

@@ -98,6 +98,10 @@ class OsqpBackend(Backend):
             self._solvers[(k, fixed)] = s
         return s
 
+    def _inside(self, y):
+        """y meets every constraint up to rounding (rows normalized; 1e-13 relative): its own projection."""
+        return bool(self.form.membership_screen(y[None, :], np.full(1, np.inf))[0] == 1) or self._residual(y) == 0.0
+
     def _residual(self, z):
         f = self.form
         r = 0.0
@@ -113,7 +117,7 @@ class OsqpBackend(Backend):
         out = np.empty_like(Y)
         stat, iters, bstat = [], [], []
         for i, y in enumerate(Y):
-            if f.n_aux == 0 and self._residual(y) == 0.0:
+            if f.n_aux == 0 and self._inside(y):
                 # y is in the set: it is its own projection (and OSQP, finding no active constraint to
                 # polish on, would print a note on stdout)
                 out[i] = y

@@ -44,14 +44,6 @@ def _value_key(v):
     return v
 
 
-def cached(node, key, build):
-    """Memoize ``build()`` on a frozen node (its formulations are pure functions of its data)."""
-    store = node.__dict__.setdefault("_setkit_cache", {})
-    if key not in store:
-        store[key] = build()
-    return store[key]
-
-
 def lp_form(node):
     """A linear form of ``node`` for LPs: its ``linear_form()``, else its optional ``extended_form()`` hook.
 
@@ -61,15 +53,12 @@ def lp_form(node):
     family itself keeps its native routes, and combinators still get one LP.
     """
     f = node.linear_form()
-    if f is None:
-        hook = getattr(node, "extended_form", None)
-        f = hook() if callable(hook) else None
-    return f
+    return f if f is not None else node.extended_form()
 
 
 def part_violation(part, X):
     """A part's violation of each row, NaN where the part has no independent check."""
-    if part.routes()["violation"].provider == "none":
+    if part.plan.route("violation").provider == "none":
         return np.full(X.shape[0], np.nan)
     v, _ = part.run("violation", X)
     return np.asarray(v, dtype=float)

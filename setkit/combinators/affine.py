@@ -22,8 +22,10 @@ projection is a QP: OSQP on the part's linear form composed with M (variables
 projected gradient on x with the part's projection, stopped on the Frank-Wolfe
 gap (:func:`setkit.kernels.splitting.project_linear_image`).
 
-:func:`centered` translates a compiled set so that its centroid under a measure
-is the origin.
+The algorithms are strategies declared here (``change_of_variables``,
+``pullback``, ``projected_gradient``) and ranked by :mod:`setkit.routing`; a matrix
+image whose part has a linear form but no native projection is projected by the
+generic QP backend on the composed linear form.
 """
 from __future__ import annotations
 
@@ -34,16 +36,23 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..errors import AccuracyWarning, SolveError
-from ..families import Family, kernel, register
+from ..families import Family, memo, register
 from ..forms import LinearForm
 from ..kernels.splitting import project_linear_image
-from . import cached, loose_of, lp_form, part_violation
+from ..strategies import Strategy, register_strategy
+from . import loose_of, lp_form, part_violation
 
 
 @register("affine")
 @dataclass(frozen=True, eq=False, kw_only=True)
 class AffineImage(Family):
-    """Common node of affine images; :func:`make_affine` picks the subclass."""
+    """{a·x + s : x in K} (``matrix`` None) or {M x + s : x in K}; routing picks the strategies.
+
+    >>> import setkit
+    >>> K = setkit.compile({"kind": "affine", "set": {"kind": "simplex", "dim": 2}, "scale": 2, "shift": 1})
+    >>> K.project([5.0, 1.0]).tolist()
+    [3.0, 1.0]
+    """
 
     part: Family
     scale_factor: float = 1.0
@@ -101,6 +110,15 @@ class AffineImage(Family):
         return {"kind": "affine", "set": {"kind": "simplex", "dim": n}, "scale": a,
                 "shift": np.round(rng.normal(size=n), 3).tolist()}
 
+    @property
+    def is_scaled(self) -> bool:
+        """True for a scalar image a·K + s (every operator by an exact change of variables)."""
+        return self.matrix is None
+
+    @property
+    def shape(self):
+        return tuple(self.part.shape) if self.matrix is None else (self.matrix.shape[0],)
+
     def children(self):
         return (self.part,)
 
@@ -116,172 +134,187 @@ class AffineImage(Family):
         keep = {"polyhedral", "bounded"}
         return frozenset(t for t in self.part.traits if t in keep)
 
-
-@dataclass(frozen=True, eq=False, kw_only=True)
-class ScaledSet(AffineImage):
-    """{a·x + s : x in K}, a != 0: every operator by an exact change of variables.
-
-    >>> import setkit
-    >>> K = setkit.compile({"kind": "affine", "set": {"kind": "simplex", "dim": 2}, "scale": 2, "shift": 1})
-    >>> K.project([5.0, 1.0]).tolist()
-    [3.0, 1.0]
-    """
-
-    @property
-    def shape(self):
-        return tuple(self.part.shape)
-
-    def _pre(self, X):
+    def pre(self, X):
+        """(x - s)/a: image points back to the part's coordinates (scalar images)."""
         return (X - self.shift) / self.scale_factor
 
     def cvxpy_constraints(self, x):
-        s = self.shift.reshape(self.shape) if len(self.shape) != 1 else self.shift
-        return self.part.cvxpy_constraints((x - s) / self.scale_factor)
-
-    def linear_form(self):
-        def build():
-            f = lp_form(self.part)
-            if f is None:
-                return None
-            a, s, nx = self.scale_factor, self.shift, f.n_x
-            # x_part = (x - s)/a: A_x x_part + A_w w = b  <=>  (A_x/a) x + A_w w = b + A_x s / a
-            D = sp.diags(np.concatenate([np.full(nx, 1.0 / a), np.ones(f.n_aux)]), format="csr")
-            sz = np.concatenate([s, np.zeros(f.n_aux)])
-            A_eq = f.A_eq @ D
-            A_ub = f.A_ub @ D
-            b_eq = f.b_eq + A_eq @ sz
-            b_ub = f.b_ub + A_ub @ sz
-            lo_x, hi_x = a * f.lo[:nx] + s, a * f.hi[:nx] + s
-            if a < 0:
-                lo_x, hi_x = hi_x, lo_x
-            with np.errstate(invalid="ignore"):
-                lo_x = np.where(np.isnan(lo_x), -np.inf, lo_x)
-                hi_x = np.where(np.isnan(hi_x), np.inf, hi_x)
-            return LinearForm(nx, f.n_aux, A_eq.tocsr(), b_eq, A_ub.tocsr(), b_ub,
-                              np.concatenate([lo_x, f.lo[nx:]]), np.concatenate([hi_x, f.hi[nx:]]))
-        return cached(self, "linear_form", build)
-
-    # -- measure hooks (read by setkit.measures): an invertible affine map carries the uniform law on
-    # K (volume), on its extreme points (vertices) to those of the image, and lmo_{aK+s}(g) =
-    # a lmo_K(a g) + s has the law of a lmo_K(g) + s because g and -g have the same law (directions).
-    def exact_centroid(self, measure):
-        """a·centroid_K + s whenever the part knows its centroid exactly."""
-        hook = getattr(self.part, "exact_centroid", None)
-        c = hook(measure) if callable(hook) else None
-        if c is None:
-            return None
-        return self.scale_factor * np.asarray(c, dtype=float).reshape(-1) + self.shift
-
-    def exact_sample(self, k, measure, rng):
-        """a·X + s for exact samples X of the part."""
-        hook = getattr(self.part, "exact_sample", None)
-        X = hook(k, measure, rng) if callable(hook) else None
-        if X is None:
-            return None
-        return self.scale_factor * np.asarray(X, dtype=float).reshape(k, -1) + self.shift
-
-    @kernel("project")
-    def project(self, Y, parts):
-        """a·P_K((y - s)/a) + s: the part's projection after an exact change of variables."""
-        P, info = parts[0].run("project", self._pre(Y))
-        return self.scale_factor * P + self.shift, info
-
-    @kernel("distance")
-    def distance(self, Y, parts):
-        """|a|·d_K((y - s)/a): the part's distance after an exact change of variables."""
-        d, _ = parts[0].run("distance", self._pre(Y))
-        return abs(self.scale_factor) * np.asarray(d)
-
-    @kernel("lmo")
-    def lmo(self, C, parts):
-        """a·lmo_K(a·c) + s: the part's LMO after an exact change of variables."""
-        L, info = parts[0].run("lmo", self.scale_factor * C)
-        return self.scale_factor * L + self.shift, info
-
-    @kernel("support")
-    def support(self, C, parts):
-        """sigma_K(a·c) + <c, s>: the part's support after an exact change of variables."""
-        v, _ = parts[0].run("support", self.scale_factor * C)
-        return np.asarray(v) + C @ self.shift
-
-    @kernel("contains")
-    def contains(self, X, tol, parts):
-        """(x - s)/a in K within tol/|a|: the part's membership after a change of variables."""
-        v, _ = parts[0].run("contains", self._pre(X), tol=tol / abs(self.scale_factor))
-        return np.asarray(v, bool)
-
-    @kernel("violation")
-    def violation(self, X, parts):
-        """|a|·violation_K((x - s)/a) (NaN if the part has no check)."""
-        return abs(self.scale_factor) * part_violation(parts[0], self._pre(X))
-
-
-@dataclass(frozen=True, eq=False, kw_only=True)
-class LinearImage(AffineImage):
-    """{M x + s : x in K}: LMO and support from the part exactly, projection by OSQP on the composed form."""
-
-    @property
-    def shape(self):
-        return (self.matrix.shape[0],)
-
-    def cvxpy_constraints(self, x):
+        if self.matrix is None:
+            s = self.shift.reshape(self.shape) if len(self.shape) != 1 else self.shift
+            return self.part.cvxpy_constraints((x - s) / self.scale_factor)
         import cvxpy as cp
         v = cp.Variable(self.part.dim)
         xp = v if len(self.part.shape) == 1 else cp.reshape(v, self.part.shape, order="C")
         return list(self.part.cvxpy_constraints(xp)) + [x == self.matrix @ v + self.shift]
 
     def linear_form(self):
-        def build():
-            f = lp_form(self.part)
-            if f is None:
-                return None
-            m = self.matrix.shape[0]
-            M = sp.csr_matrix(self.matrix)
-            # z = (u, x_part, aux): u - M x_part = s, and the part's constraints on (x_part, aux)
-            link = sp.hstack([sp.eye(m), -M, sp.csr_matrix((m, f.n_aux))], format="csr")
-            def pad(A):
-                return sp.hstack([sp.csr_matrix((A.shape[0], m)), A], format="csr")
-            A_eq = sp.vstack([link, pad(f.A_eq)], format="csr")
-            A_ub = pad(f.A_ub)
-            return LinearForm(m, f.n, A_eq, np.concatenate([self.shift, f.b_eq]), A_ub, f.b_ub.copy(),
-                              np.concatenate([np.full(m, -np.inf), f.lo]),
-                              np.concatenate([np.full(m, np.inf), f.hi]))
-        return cached(self, "linear_form", build)
+        return memo(self, "linear_form", self._scaled_form if self.matrix is None else self._image_form)
 
-    @kernel("lmo")
+    def _scaled_form(self):
+        f = lp_form(self.part)
+        if f is None:
+            return None
+        a, s, nx = self.scale_factor, self.shift, f.n_x
+        # x_part = (x - s)/a: A_x x_part + A_w w = b  <=>  (A_x/a) x + A_w w = b + A_x s / a
+        D = sp.diags(np.concatenate([np.full(nx, 1.0 / a), np.ones(f.n_aux)]), format="csr")
+        sz = np.concatenate([s, np.zeros(f.n_aux)])
+        A_eq = f.A_eq @ D
+        A_ub = f.A_ub @ D
+        b_eq = f.b_eq + A_eq @ sz
+        b_ub = f.b_ub + A_ub @ sz
+        lo_x, hi_x = a * f.lo[:nx] + s, a * f.hi[:nx] + s
+        if a < 0:
+            lo_x, hi_x = hi_x, lo_x
+        with np.errstate(invalid="ignore"):
+            lo_x = np.where(np.isnan(lo_x), -np.inf, lo_x)
+            hi_x = np.where(np.isnan(hi_x), np.inf, hi_x)
+        return LinearForm(nx, f.n_aux, A_eq.tocsr(), b_eq, A_ub.tocsr(), b_ub,
+                          np.concatenate([lo_x, f.lo[nx:]]), np.concatenate([hi_x, f.hi[nx:]]))
+
+    def _image_form(self):
+        f = lp_form(self.part)
+        if f is None:
+            return None
+        m = self.matrix.shape[0]
+        M = sp.csr_matrix(self.matrix)
+        # z = (u, x_part, aux): u - M x_part = s, and the part's constraints on (x_part, aux)
+        link = sp.hstack([sp.eye(m), -M, sp.csr_matrix((m, f.n_aux))], format="csr")
+
+        def pad(A):
+            return sp.hstack([sp.csr_matrix((A.shape[0], m)), A], format="csr")
+        A_eq = sp.vstack([link, pad(f.A_eq)], format="csr")
+        A_ub = pad(f.A_ub)
+        return LinearForm(m, f.n, A_eq, np.concatenate([self.shift, f.b_eq]), A_ub, f.b_ub.copy(),
+                          np.concatenate([np.full(m, -np.inf), f.lo]),
+                          np.concatenate([np.full(m, np.inf), f.hi]))
+
+    # -- measure hooks (read by setkit.measures): an invertible affine map carries the uniform law on
+    # K (volume), on its extreme points (vertices) to those of the image, and lmo_{aK+s}(g) =
+    # a lmo_K(a g) + s has the law of a lmo_K(g) + s because g and -g have the same law (directions).
+    def exact_centroid(self, measure):
+        """a·centroid_K + s whenever the part knows its centroid exactly (scalar images only)."""
+        c = self.part.exact_centroid(measure) if self.matrix is None else None
+        if c is None:
+            return None
+        return self.scale_factor * np.asarray(c, dtype=float).reshape(-1) + self.shift
+
+    def exact_sample(self, k, measure, rng):
+        """a·X + s for exact samples X of the part (scalar images only)."""
+        X = self.part.exact_sample(k, measure, rng) if self.matrix is None else None
+        if X is None:
+            return None
+        return self.scale_factor * np.asarray(X, dtype=float).reshape(k, -1) + self.shift
+
+
+# -- strategies (ranked by setkit.routing) ------------------------------------------------------
+@register_strategy("change_of_variables")
+class ChangeOfVariables(Strategy):
+    """Every operator of a·K + s from the part's, by an exact change of variables."""
+
+    kind = "affine"
+    operators = ("project", "distance", "lmo", "support", "contains", "violation")
+    priority = 10
+    about = "exact change of variables"
+
+    @classmethod
+    def accepts(cls, node):
+        return (True, "scalar image") if node.is_scaled else (False, "a matrix image is not invertible in general")
+
+    def project(self, Y, parts):
+        """a·P_K((y - s)/a) + s: the part's projection after an exact change of variables."""
+        n = self.node
+        P, info = parts[0].run("project", n.pre(Y))
+        return n.scale_factor * P + n.shift, info
+
+    def distance(self, Y, parts):
+        """|a|·d_K((y - s)/a): the part's distance after an exact change of variables."""
+        d, info = parts[0].run("distance", self.node.pre(Y))
+        return abs(self.node.scale_factor) * np.asarray(d), info
+
+    def lmo(self, C, parts):
+        """a·lmo_K(a·c) + s: the part's LMO after an exact change of variables."""
+        n = self.node
+        L, info = parts[0].run("lmo", n.scale_factor * C)
+        return n.scale_factor * L + n.shift, info
+
+    def support(self, C, parts):
+        """sigma_K(a·c) + <c, s>: the part's support after an exact change of variables."""
+        n = self.node
+        v, info = parts[0].run("support", n.scale_factor * C)
+        return np.asarray(v) + C @ n.shift, info
+
+    def contains(self, X, tol, parts):
+        """(x - s)/a in K within tol/|a|: the part's membership after a change of variables."""
+        n = self.node
+        v, info = parts[0].run("contains", n.pre(X), tol=tol / abs(n.scale_factor))
+        return np.asarray(v, bool), info
+
+    def violation(self, X, parts):
+        """|a|·violation_K((x - s)/a) (NaN if the part has no check)."""
+        return abs(self.node.scale_factor) * part_violation(parts[0], self.node.pre(X))
+
+
+@register_strategy("pullback")
+class Pullback(Strategy):
+    """LMO and support of M K + s from the part's, on the pulled-back direction M^T c."""
+
+    kind = "affine"
+    operators = ("lmo", "support")
+    priority = 10
+    about = "exact pullback of the direction"
+
+    @classmethod
+    def accepts(cls, node):
+        return (False, "scalar image") if node.is_scaled else (True, "matrix image")
+
     def lmo(self, C, parts):
         """M·lmo_K(M^T c) + s: the part's LMO on the pulled-back direction, O(part LMO + b m d)."""
-        L, info = parts[0].run("lmo", C @ self.matrix)
-        return L @ self.matrix.T + self.shift, info
+        n = self.node
+        L, info = parts[0].run("lmo", C @ n.matrix)
+        return L @ n.matrix.T + n.shift, info
 
-    @kernel("support")
     def support(self, C, parts):
         """sigma_K(M^T c) + <c, s>: the part's support on the pulled-back direction, O(part + b m d)."""
-        v, _ = parts[0].run("support", C @ self.matrix)
-        return np.asarray(v) + C @ self.shift
+        n = self.node
+        v, info = parts[0].run("support", C @ n.matrix)
+        return np.asarray(v) + C @ n.shift, info
 
 
-@dataclass(frozen=True, eq=False, kw_only=True)
-class LinearImageGradient(LinearImage):
-    """{M x + s : x in K} for a part without a linear form: projection by projected gradient."""
+@register_strategy("projected_gradient")
+class ProjectedGradient(Strategy):
+    """Projection onto M K + s by accelerated projected gradient on the preimage."""
 
-    @kernel("project")
+    kind = "affine"
+    operators = ("project",)
+    priority = 20
+    about = "projected gradient on the preimage"
+
+    @classmethod
+    def accepts(cls, node):
+        if node.is_scaled:
+            return False, "scalar image"
+        if "project" in node.part.kernels:
+            return True, "the part projects natively (exact certificate, no degenerate QP)"
+        if lp_form(node.part) is None:
+            return True, "the part has no linear form"
+        return False, "the part has a linear form but no native projection: one QP on the composed form"
+
     def project(self, Y, parts):
         """Accelerated projected gradient on the preimage, stopped on the Frank-Wolfe gap, O(steps * part cost)."""
-        part = parts[0]
-        sc = np.maximum(max(1.0, self.scale()), np.abs(Y).max(axis=1))
+        node, part = self.node, parts[0]
+        sc = np.maximum(max(1.0, node.scale()), np.abs(Y).max(axis=1))
         X, info = project_linear_image(lambda Z: part.run("project", Z)[0],
                                        lambda C: np.asarray(part.run("support", C)[0]),
-                                       self.matrix, self.shift, Y, sc, accuracy=self.accuracy,
-                                       max_iterations=self.max_iterations)
+                                       node.matrix, node.shift, Y, sc, accuracy=node.accuracy,
+                                       max_iterations=node.max_iterations)
         bad = [i for i, s in enumerate(info["status"]) if s != "solved"]
         if bad:
             i = bad[0]
-            msg = (f"{self.label}: projected gradient did not reach the Frank-Wolfe gap "
-                   f"{0.5 * (self.accuracy * sc[i]) ** 2:.3g} on {len(bad)} of {Y.shape[0]} points within "
-                   f"{self.max_iterations} steps (row {i}: gap {info['gap'][i]:.3g}). Raise max_iterations or "
+            msg = (f"{node.label}: projected gradient did not reach the Frank-Wolfe gap "
+                   f"{0.5 * (node.accuracy * sc[i]) ** 2:.3g} on {len(bad)} of {Y.shape[0]} points within "
+                   f"{node.max_iterations} steps (row {i}: gap {info['gap'][i]:.3g}). Raise max_iterations or "
                    f"accuracy, or call with_backends(project=\"reference\").")
-            if loose_of(parts) and info["gap"][i] <= 0.5 * (1e3 * self.accuracy * sc[i]) ** 2:
+            if loose_of(parts) and info["gap"][i] <= 0.5 * (1e3 * node.accuracy * sc[i]) ** 2:
                 warnings.warn(msg, AccuracyWarning, stacklevel=4)
             else:
                 raise SolveError(msg, status="not_converged")
@@ -299,36 +332,14 @@ def make_affine(part, scale=1.0, shift=None, matrix=None, accuracy=1e-7, max_ite
         n = part.dim
         s = np.zeros(n) if shift is None else np.broadcast_to(np.asarray(shift, float).reshape(-1)
                                                                if np.ndim(shift) else float(shift), (n,)).copy()
-        return ScaledSet(scale_factor=scale, shift=s, **kw)
+        return AffineImage(scale_factor=scale, shift=s, **kw)
     M = scale * np.asarray(matrix, dtype=float)
     m = M.shape[0]
     s = np.zeros(m) if shift is None else np.broadcast_to(np.asarray(shift, float).reshape(-1)
                                                            if np.ndim(shift) else float(shift), (m,)).copy()
-    # projected gradient when the part projects natively (exact certificate, no degenerate QP);
-    # OSQP on the composed form when the part has a linear form but no fast projection
-    native = "project" in part.kernels
-    cls = LinearImageGradient if native or lp_form(part) is None else LinearImage
-    return cls(scale_factor=1.0, shift=s, matrix=M, **kw)
+    return AffineImage(scale_factor=1.0, shift=s, matrix=M, **kw)
 
 
-def centered(K, measure: str = "volume", **kw):
-    """The set K translated so that its centroid under ``measure`` is the origin: K - centroid(K).
-
-    What a learner needs so that a random decision (drawn from the measure) has zero
-    linear loss in expectation. Built on ``K.centroid(measure, **kw)`` and an exact
-    shift, so every operator of the result is the part's operator shifted.
-
-    >>> import setkit
-    >>> from setkit.combinators.affine import centered
-    >>> K = centered(setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 2}),
-    ...              "vertices")  # doctest: +SKIP
-    >>> K.support([1.0, 0.0])  # doctest: +SKIP
-    1.0
-    """
-    from ..decision_set import DecisionSet
-    c = np.asarray(K.centroid(measure, **kw), dtype=float)
-    if c.shape != tuple(K.shape):
-        raise SolveError(f"centered: the centroid of {K.node.label} has shape {c.shape}; expected {K.shape}.")
-    label = K.node.name or K.node.kind
-    node = make_affine(K.node, scale=1.0, shift=-c.reshape(-1), name=f"{label} centered ({measure})")
-    return DecisionSet(node, loose=K.loose)
+def translated(node, shift, name=None):
+    """The node of {x + shift : x in K}: used by ``DecisionSet.centered``."""
+    return make_affine(node, scale=1.0, shift=shift, name=name)

@@ -8,7 +8,9 @@ Description keys::
     max_iterations: 20000      # splitting methods only: cap on sweeps / evaluations
     splitting: accelerated     # general parts only: accelerated (dual proximal gradient) | dykstra
 
-How each operator is served (chosen once, when the description is read):
+How each operator is served (chosen by :mod:`setkit.routing` at compile time among the
+strategies declared here: ``cut_dual``, ``dual_splitting``, ``dykstra``; otherwise the
+generic backends on the merged linear form):
 
 * every part has a linear form without auxiliary variables (boxes, simplices,
   polyhedra...): the forms are merged into one linear form, so the OSQP
@@ -36,9 +38,10 @@ else the cvxpy reference. An empty intersection is reported with :class:`EmptySe
 the description is read if the merged linear form is LP-infeasible, and at run
 time when a splitting method diverges.
 
-``contains`` means every part contains the point within ``tol`` (a point within
-``tol`` of every part may be farther from the intersection when the parts meet
-at a small angle); ``violation`` is the largest violation over the parts.
+``contains`` means dist(x, K) <= tol: a point farther than ``tol`` from some
+part is out, a point every part contains up to rounding (1e-6·tol) is in, and
+only the points in between are projected onto the intersection to decide;
+``violation`` is the largest violation over the parts.
 """
 from __future__ import annotations
 
@@ -49,10 +52,11 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..errors import AccuracyWarning, EmptySetError, SolveError
-from ..families import Family, kernel, register
+from ..families import Family, kernel, memo, register
 from ..forms import LinearForm
 from ..kernels.splitting import dykstra, fast_dual_projections, lmo_with_cuts, project_with_cuts
-from . import cached, loose_of, lp_form, part_violation
+from ..strategies import Strategy, register_strategy
+from . import loose_of, lp_form, part_violation
 
 CUT_LIMIT = 64           # a part with at most this many linear rows counts as a few cuts
 POLYHEDRAL_CUTS = 2     # all-polyhedral parts: a native base with at most this many other rows uses the cut dual
@@ -132,7 +136,7 @@ def cut_rows(form):
 @register("intersection")
 @dataclass(frozen=True, eq=False, kw_only=True)
 class Intersection(Family):
-    """K = K_1 ∩ ... ∩ K_m, every part polyhedral: one merged linear form (OSQP projection, HiGHS LMO).
+    """K = K_1 ∩ ... ∩ K_m: parts of one shape; routing picks the projection and LMO strategy.
 
     >>> import setkit
     >>> K = setkit.compile({"kind": "intersection", "of": [
@@ -144,6 +148,7 @@ class Intersection(Family):
     parts: tuple
     accuracy: float = 1e-7
     max_iterations: int = 20_000
+    splitting: str = "accelerated"
 
     @classmethod
     def from_spec(cls, r):
@@ -156,10 +161,7 @@ class Intersection(Family):
         acc = r.number("accuracy", 1e-7, min=1e-14, max=1e-2)
         cap = r.integer("max_iterations", 20_000, min=1)
         splitting = r.choice("splitting", ("accelerated", "dykstra"), "accelerated")
-        try:
-            return make_intersection(parts, accuracy=acc, max_iterations=cap, name=r.name, splitting=splitting)
-        except EmptySetError as exc:
-            r.fail("of", str(exc), cls=EmptySetError)
+        return make_intersection(parts, accuracy=acc, max_iterations=cap, name=r.name, splitting=splitting)
 
     @classmethod
     def examples(cls):
@@ -207,7 +209,20 @@ class Intersection(Family):
             if any(f is None for f in forms):
                 return None
             return merge_forms(forms)
-        return cached(self, "linear_form", build)
+        return memo(self, "linear_form", build)
+
+    def is_polyhedral_without_aux(self) -> bool:
+        """Every part has a linear form without auxiliary variables (one merged QP/LP serves it)."""
+        return all(f is not None and f.n_aux == 0 for f in (p.linear_form() for p in self.parts))
+
+    def cuts(self):
+        """The cut analysis (base part index, unit-norm cut rows, right-hand sides, equality count), or None.
+
+        One part (the *base*) has its own projection and the others are at most
+        ``CUT_LIMIT`` linear rows once the base's own bounds are taken out; for
+        all-polyhedral parts only when at most ``POLYHEDRAL_CUTS`` rows remain.
+        """
+        return memo(self, "cuts", lambda: cut_analysis(self.parts))
 
     @property
     def traits(self):
@@ -218,134 +233,188 @@ class Intersection(Family):
             common.add("bounded")
         return frozenset(common)
 
-    @kernel("contains")
-    def contains(self, X, tol, parts):
-        """Every part contains the point within tol, O(sum of the parts' membership costs)."""
-        ok = np.ones(X.shape[0], bool)
+    def check_nonempty(self, parts, fail):
+        """One LP on the merged form when it is small enough, else phase one of the cut column generation."""
+        try:
+            lp_forms = [lp_form(p) for p in self.parts]
+            if all(f is not None for f in lp_forms) and sum(f.n_aux for f in lp_forms) <= AUX_CHECK_LIMIT:
+                _check_feasible(merge_forms(lp_forms), self.parts)
+                return
+            cut = self.cuts()
+            if cut is not None and "lmo" in self.parts[cut["base"]].kernels:
+                _check_cuts_feasible(self, cut, parts[cut["base"]])
+        except EmptySetError as exc:
+            fail("of", str(exc), EmptySetError)
+
+    def membership_screen(self, X, tol, parts):
+        """Out when some part is farther than tol (dist to a part <= dist to K); in when every part contains
+        the point up to rounding; undecided otherwise (routing then measures the distance to K itself)."""
+        out = np.ones(X.shape[0], dtype=np.int8)
+        tiny = 1e-6 * tol
         for p in parts:
-            r = p.routes()
-            if r["contains"].provider == "derived" and r["violation"].provider == "form":
-                # a bare linear form: its largest constraint violation, not a projection per point
-                v = p.run("violation", X)[0] <= tol
-            else:
-                v, _ = p.run("contains", X, tol=tol)
-            ok &= np.asarray(v, bool)
-        return ok
+            far = ~np.asarray(p.run("contains", X, tol=tol)[0], bool)
+            near = np.asarray(p.run("contains", X, tol=tiny)[0], bool)
+            out[far] = -1
+            out[(out == 1) & ~near] = 0
+        return out
 
     @kernel("violation")
     def violation(self, X, parts):
         """Largest violation over the parts (NaN if a part has no check), O(sum of the parts' costs)."""
         return np.max([part_violation(p, X) for p in parts], axis=0)
 
-    # -- shared by the splitting subclasses -------------------------------------------------
-    def _row_scale(self, Y):
-        return np.maximum(max(1.0, self.scale()), np.abs(Y).max(axis=1))
 
-    def _accept(self, X, info, parts, method, sc):
-        """Raise (or warn when loose) unless every row converged; returns (X, info for Details)."""
-        status = info["status"]
-        bad = [i for i, s in enumerate(status) if s != "solved"]
-        if bad:
-            i = bad[0]
-            g, r, it = info["gap"][i], info["residual"][i], info["iterations"][i]
-            if status[i] == "empty":
-                raise EmptySetError(
-                    f"{self.label}: {method} diverged on batch row {i} (gap {g:.3g}, the parts stay "
-                    f"{r:.3g} apart after {it} steps): the parts appear to have no common point.")
-            msg = (f"{self.label}: {method} did not reach the accuracy {self.accuracy:g} on {len(bad)} of "
-                   f"{len(status)} points within {self.max_iterations} steps (row {i}: duality gap {g:.3g}, "
-                   f"residual {r:.3g}). Raise max_iterations or accuracy in the description, or call "
-                   f"with_backends(project=\"reference\").")
-            tol = self.accuracy * float(sc[i])
-            if loose_of(parts) and r <= 1e3 * self.accuracy * max(1.0, self.scale()) and abs(g) <= 0.5 * (1e3 * tol) ** 2:
-                warnings.warn(msg, AccuracyWarning, stacklevel=4)
-            else:
-                raise SolveError(msg, status="not_converged")
-        bstat = [f"{method}: {s}, duality gap {g:.3g}, residual {r:.3g}"
-                 for s, g, r in zip(status, info["gap"], info["residual"])]
-        return X, {"status": list(status), "iterations": list(info["iterations"]), "backend_status": bstat}
+def _row_scale(node, Y):
+    return np.maximum(max(1.0, node.scale()), np.abs(Y).max(axis=1))
 
 
-@dataclass(frozen=True, eq=False, kw_only=True)
-class CutIntersection(Intersection):
-    """A base set with its own projection cut by a few linear constraints (dual method)."""
+def _accept(node, X, info, parts, method, sc):
+    """Raise (or warn when loose) unless every row converged; returns (X, info for Details)."""
+    status = info["status"]
+    bad = [i for i, s in enumerate(status) if s != "solved"]
+    if bad:
+        i = bad[0]
+        g, r, it = info["gap"][i], info["residual"][i], info["iterations"][i]
+        if status[i] == "empty":
+            raise EmptySetError(
+                f"{node.label}: {method} diverged on batch row {i} (gap {g:.3g}, the parts stay "
+                f"{r:.3g} apart after {it} steps): the parts appear to have no common point.")
+        msg = (f"{node.label}: {method} did not reach the accuracy {node.accuracy:g} on {len(bad)} of "
+               f"{len(status)} points within {node.max_iterations} steps (row {i}: duality gap {g:.3g}, "
+               f"residual {r:.3g}). Raise max_iterations or accuracy in the description, or call "
+               f"with_backends(project=\"reference\").")
+        tol = node.accuracy * float(sc[i])
+        if loose_of(parts) and r <= 1e3 * node.accuracy * max(1.0, node.scale()) and abs(g) <= 0.5 * (1e3 * tol) ** 2:
+            warnings.warn(msg, AccuracyWarning, stacklevel=5)
+        else:
+            raise SolveError(msg, status="not_converged")
+    bstat = [f"{method}: {s}, duality gap {g:.3g}, residual {r:.3g}"
+             for s, g, r in zip(status, info["gap"], info["residual"])]
+    return X, {"status": list(status), "iterations": list(info["iterations"]), "backend_status": bstat}
 
-    base: int = 0
-    cut_matrix: np.ndarray = None
-    cut_rhs: np.ndarray = None
-    n_eq: int = 0
 
-    @kernel("project")
+# -- strategies (ranked by setkit.routing) ------------------------------------------------------
+@register_strategy("cut_dual")
+class CutDual(Strategy):
+    """A base part with its own projection cut by a few linear constraints."""
+
+    kind = "intersection"
+    operators = ("project", "lmo")
+    priority = 10
+    about = "cut dual on the base part"
+    fallback_operators = ("lmo",)
+
+    @classmethod
+    def accepts(cls, node):
+        cut = node.cuts()
+        if cut is None:
+            return False, "no part with its own projection cut by a few linear rows"
+        return True, f"base {node.parts[cut['base']].label}, {cut['matrix'].shape[0]} cut rows"
+
+    def __init__(self, node):
+        super().__init__(node)
+        cut = node.cuts()
+        self.base = cut["base"]
+        self.matrix, self.rhs, self.n_eq = cut["matrix"], cut["rhs"], cut["n_eq"]
+
     def project(self, Y, parts):
         """Dual over the few cut multipliers (semismooth Newton, L-BFGS-B fallback), one base projection per step, O(steps * base cost)."""
         base = parts[self.base]
+        node = self.node
 
         def proj(Z):
             return base.run("project", Z)[0]
 
-        sc = self._row_scale(Y)
-        X, info = project_with_cuts(proj, Y, self.cut_matrix, self.cut_rhs, self.n_eq, sc,
-                                    accuracy=self.accuracy, max_iterations=self.max_iterations,
-                                    feasibility_scale=max(1.0, self.scale()))
-        return self._accept(X, info, parts, "cut dual", sc)
+        sc = _row_scale(node, Y)
+        X, info = project_with_cuts(proj, Y, self.matrix, self.rhs, self.n_eq, sc,
+                                    accuracy=node.accuracy, max_iterations=node.max_iterations,
+                                    feasibility_scale=max(1.0, node.scale()))
+        return _accept(node, X, info, parts, "cut dual", sc)
 
-    @kernel("lmo")
     def lmo(self, C, parts):
         """Column generation (Dantzig-Wolfe): a small master LP over vertices from the base's own LMO, O(columns * (base LMO + small LP))."""
         base = parts[self.base]
-        X, info = lmo_with_cuts(lambda Q: base.run("lmo", Q)[0], C, self.cut_matrix, self.cut_rhs, self.n_eq,
-                                max(1.0, self.scale()))
+        node = self.node
+        X, info = lmo_with_cuts(lambda Q: base.run("lmo", Q)[0], C, self.matrix, self.rhs, self.n_eq,
+                                max(1.0, node.scale()))
         status = info["status"]
         if "empty" in status:
-            raise EmptySetError(f"{self.label}: the cuts leave no point of {parts[self.base].node.label} "
+            raise EmptySetError(f"{node.label}: the cuts leave no point of {base.node.label} "
                                 f"(column generation ends with nonzero elastic slack).")
         bad = [i for i, s in enumerate(status) if s != "solved"]
-        if bad:
-            # the master did not settle within its column budget: the merged LP (extended form) or the
-            # reference answers those rows exactly
-            from ..backends import get_backend
-            name = "highs" if self.linear_form() is not None else "reference"
-            ws = get_backend(name)(self, loose=loose_of(parts))
-            X[bad] = ws.lmo(C[bad])[0]
-        return X, {"status": ["solved"] * len(status), "iterations": info["iterations"],
-                   "backend_status": [f"column generation: {s}, {n} columns" for s, n in
-                                      zip(status, info["iterations"])]}
+        bstat = [f"column generation: {s}, {n} columns" for s, n in zip(status, info["iterations"])]
+        # rows whose master did not settle within its column budget are answered by the fallback
+        # route that setkit.routing chose for this operator (the merged LP or the reference)
+        return X, {"status": list(status), "iterations": info["iterations"], "backend_status": bstat,
+                   "unsettled": bad}
 
 
-@dataclass(frozen=True, eq=False, kw_only=True)
-class SplitIntersection(Intersection):
-    """General parts: accelerated dual splitting (or Dykstra's method) on the parts' own projections."""
+@register_strategy("dual_splitting")
+class DualSplitting(Strategy):
+    """General parts: accelerated dual proximal gradient on the parts' own projections."""
 
-    splitting: str = "accelerated"
+    kind = "intersection"
+    operators = ("project",)
+    priority = 30
+    about = "splitting on the parts' projections"
 
-    @kernel("project")
+    @classmethod
+    def accepts(cls, node):
+        if node.is_polyhedral_without_aux():
+            return False, "every part is polyhedral: one merged QP serves the projection"
+        if node.splitting == "dykstra":
+            return False, "the description asks for Dykstra's method"
+        return True, "some part is not a few linear rows"
+
     def project(self, Y, parts):
-        """Accelerated dual proximal gradient on the parts' projections (splitting: dykstra for Dykstra's method), stopped on the duality gap and residual, O(iterations * sum of part costs)."""  # noqa: E501 (one line: explain() shows it)
-        projs = [(lambda Z, p=p: p.run("project", Z)[0]) for p in parts]
-        sc = self._row_scale(Y)
-        method = dykstra if self.splitting == "dykstra" else fast_dual_projections
-        X, info = method(projs, Y, sc, accuracy=self.accuracy,
-                         max_iterations=self.max_iterations, feasibility_scale=max(1.0, self.scale()))
-        return self._accept(X, info, parts, "Dykstra" if self.splitting == "dykstra" else "dual splitting", sc)
+        """Accelerated dual proximal gradient on the parts' projections, stopped on the duality gap and residual, O(iterations * sum of part costs)."""  # noqa: E501 (one line: explain() shows it)
+        return _split(self.node, fast_dual_projections, "dual splitting", Y, parts)
+
+
+@register_strategy("dykstra")
+class Dykstra(Strategy):
+    """General parts: Dykstra's method on the parts' own projections (slower for far points)."""
+
+    kind = "intersection"
+    operators = ("project",)
+    priority = 31
+    about = "splitting on the parts' projections"
+
+    @classmethod
+    def accepts(cls, node):
+        if node.is_polyhedral_without_aux():
+            return False, "every part is polyhedral: one merged QP serves the projection"
+        return True, "some part is not a few linear rows"
+
+    def project(self, Y, parts):
+        """Dykstra's alternating projections with corrections, stopped on the duality gap and residual, O(iterations * sum of part costs)."""
+        return _split(self.node, dykstra, "Dykstra", Y, parts)
+
+
+def _split(node, method, name, Y, parts):
+    projs = [(lambda Z, p=p: p.run("project", Z)[0]) for p in parts]
+    sc = _row_scale(node, Y)
+    X, info = method(projs, Y, sc, accuracy=node.accuracy, max_iterations=node.max_iterations,
+                     feasibility_scale=max(1.0, node.scale()))
+    return _accept(node, X, info, parts, name, sc)
 
 
 def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None, splitting="accelerated"):
-    """Choose the intersection node for ``parts`` (see the module docstring) and check emptiness.
+    """The intersection node of ``parts``; nested intersections are flattened first.
 
-    Nested intersections are flattened first: (A ∩ B) ∩ C is served as A ∩ B ∩ C, so no
-    iterative projection ever serves as the base of another.
+    (A ∩ B) ∩ C is A ∩ B ∩ C, so no iterative projection ever serves as the base of
+    another. No algorithm is chosen here: :mod:`setkit.routing` does that at compile time.
     """
     flat = []
     for p in parts:
         flat.extend(p.parts if isinstance(p, Intersection) else (p,))
-    parts = tuple(flat)
+    return Intersection(parts=tuple(flat), accuracy=accuracy, max_iterations=max_iterations, name=name,
+                        splitting=splitting)
+
+
+def cut_analysis(parts):
+    """See :meth:`Intersection.cuts`: a dict(base, matrix, rhs, n_eq) or None."""
     forms = [p.linear_form() for p in parts]
-    kw = dict(parts=parts, accuracy=accuracy, max_iterations=max_iterations, name=name)
-    lp_forms = [lp_form(p) for p in parts]
-    checked = False
-    if all(f is not None for f in lp_forms) and sum(f.n_aux for f in lp_forms) <= AUX_CHECK_LIMIT:
-        _check_feasible(merge_forms(lp_forms), parts)
-        checked = True
     polyhedral = all(f is not None and f.n_aux == 0 for f in forms)
     cuts = [cut_rows(f) if f is not None and f.n_aux == 0 else None for f in forms]
     others = [i for i, c in enumerate(cuts) if c is None]
@@ -358,25 +427,21 @@ def make_intersection(parts, accuracy=1e-7, max_iterations=20_000, name=None, sp
         # all polyhedral and small: the native part with the most rows is the base, but only when
         # at most POLYHEDRAL_CUTS rows remain once its own bounds are taken out (else one OSQP QP)
         base = max(native, key=lambda i: cuts[i][0].shape[0])
-    if base is not None:
-        rest = [cuts[i] for i in range(len(parts)) if i != base]
-        n_rows = sum(c[0].shape[0] for c in rest)
-        if 0 < n_rows <= CUT_LIMIT and (base in native or any(f is None for f in forms)):
-            A = np.vstack([c[0] for c in rest])
-            rhs = np.concatenate([c[1] for c in rest])
-            eq = np.concatenate([np.arange(c[0].shape[0]) < c[2] for c in rest])
-            keep = ~_implied_bounds(A, rhs, eq, forms[base])
-            A, rhs, eq = A[keep], rhs[keep], eq[keep]
-            order = np.concatenate([np.flatnonzero(eq), np.flatnonzero(~eq)])
-            if order.size and (not polyhedral or order.size <= POLYHEDRAL_CUTS):
-                node = CutIntersection(base=base, cut_matrix=A[order], cut_rhs=rhs[order], n_eq=int(eq.sum()),
-                                       **kw)
-                if not checked and "lmo" in parts[base].kernels:
-                    _check_cuts_feasible(node)
-                return node
-    if polyhedral:
-        return Intersection(**kw)
-    return SplitIntersection(splitting=splitting, **kw)
+    if base is None:
+        return None
+    rest = [cuts[i] for i in range(len(parts)) if i != base]
+    n_rows = sum(c[0].shape[0] for c in rest)
+    if not (0 < n_rows <= CUT_LIMIT and (base in native or any(f is None for f in forms))):
+        return None
+    A = np.vstack([c[0] for c in rest])
+    rhs = np.concatenate([c[1] for c in rest])
+    eq = np.concatenate([np.arange(c[0].shape[0]) < c[2] for c in rest])
+    keep = ~_implied_bounds(A, rhs, eq, forms[base])
+    A, rhs, eq = A[keep], rhs[keep], eq[keep]
+    order = np.concatenate([np.flatnonzero(eq), np.flatnonzero(~eq)])
+    if not order.size or (polyhedral and order.size > POLYHEDRAL_CUTS):
+        return None
+    return {"base": base, "matrix": A[order], "rhs": rhs[order], "n_eq": int(eq.sum())}
 
 
 def _implied_bounds(A, rhs, eq, base_form):
@@ -397,14 +462,12 @@ def _implied_bounds(A, rhs, eq, base_form):
     return out
 
 
-def _check_cuts_feasible(node):
+def _check_cuts_feasible(node, cut, base):
     """Phase one of the column generation (c = 0): nonzero elastic slack means the cuts miss the base."""
-    from ..decision_set import DecisionSet
-    base = DecisionSet(node.parts[node.base])
-    _, info = lmo_with_cuts(lambda Q: base.run("lmo", Q)[0], np.zeros((1, node.dim)), node.cut_matrix,
-                            node.cut_rhs, node.n_eq, max(1.0, node.scale()))
+    _, info = lmo_with_cuts(lambda Q: base.run("lmo", Q)[0], np.zeros((1, node.dim)), cut["matrix"],
+                            cut["rhs"], cut["n_eq"], max(1.0, node.scale()))
     if info["status"][0] == "empty":
-        raise EmptySetError(f"the parts have no common point: the cuts miss {node.parts[node.base].label} "
+        raise EmptySetError(f"the parts have no common point: the cuts miss {base.node.label} "
                             f"(the elastic slack of the column generation stays {info['residual'][0]:.3g})")
 
 

@@ -27,9 +27,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import UnsupportedOperationError
-from ..families import Family, kernel, register
+from ..families import Family, kernel, memo, register
 from ..forms import stack_blocks
-from . import cached, lp_form, node_key, part_violation
+from . import lp_form, node_key, part_violation
 
 
 @register("product")
@@ -77,7 +77,7 @@ class Product(Family):
     # -- structure --------------------------------------------------------------------------
     @property
     def shape(self):
-        return cached(self, "shape", lambda: (int(sum(self.blocks[g].dim for g in self.layout)),))
+        return memo(self, "shape", lambda: (int(sum(self.blocks[g].dim for g in self.layout)),))
 
     @property
     def dim(self):
@@ -108,10 +108,9 @@ class Product(Family):
             # families with a stacking hook: group distinct blocks by (class, shape)
             fam = {}
             for g, blk in enumerate(self.blocks):
-                if callable(getattr(type(blk), "stack_params", None)) and callable(getattr(blk, "stack_key", None)):
-                    key = blk.stack_key()
-                    if key is not None:
-                        fam.setdefault((type(blk), tuple(blk.shape), key), []).append(g)
+                key = blk.stack_key()
+                if key is not None:
+                    fam.setdefault((type(blk), tuple(blk.shape), key), []).append(g)
             for (cls, _, _), gs in fam.items():
                 if len(gs) < 2:
                     continue
@@ -128,21 +127,13 @@ class Product(Family):
                 pos = [i for i, h in enumerate(self.layout) if h == g]
                 out.append(("block", g, cols_of(pos), len(self.blocks) == 1))
             return out
-        return cached(self, "groups", build)
+        return memo(self, "groups", build)
 
     def _call(self, entry, op, sub, parts, tol=None):
         how, what, _, _ = entry
         if how == "stack":
             cls, params = what
-            base = "project" if op in ("distance", "contains") else op
-            res = cls.stacked(base, params, sub)
-            if res is None:
-                raise UnsupportedOperationError(f"{self.label}: the stacked {cls.kind} blocks offer no {op}.")
-            if op == "distance":
-                return np.linalg.norm(sub - res, axis=1)
-            if op == "contains":
-                return np.linalg.norm(sub - res, axis=1) <= tol
-            return res
+            return _stacked_call(cls, params, op, self.label)(sub, tol)[0]
         part = parts[what]
         fn = part.native(op)     # the part's bound native kernel, if it has one
         if op == "contains":
@@ -179,7 +170,7 @@ class Product(Family):
             if any(f is None for f in forms):
                 return None
             return stack_blocks([forms[g] for g in self.layout])
-        return cached(self, "linear_form", build)
+        return memo(self, "linear_form", build)
 
     # -- measure hooks (read by setkit.measures): the uniform law on a product (volume), on the product
     # of the extreme-point sets (vertices) and the law of the block-wise lmo of a Gaussian direction
@@ -188,8 +179,7 @@ class Product(Family):
         """Concatenation of the blocks' exact centroids (None if a block has none)."""
         cs = []
         for blk in self.blocks:
-            hook = getattr(blk, "exact_centroid", None)
-            c = hook(measure) if callable(hook) else None
+            c = blk.exact_centroid(measure)
             if c is None:
                 return None
             cs.append(np.asarray(c, dtype=float).reshape(-1))
@@ -199,8 +189,7 @@ class Product(Family):
         """Independent exact samples of every block, concatenated (None if a block has none)."""
         out = []
         for g in self.layout:
-            hook = getattr(self.blocks[g], "exact_sample", None)
-            X = hook(k, measure, rng) if callable(hook) else None
+            X = self.blocks[g].exact_sample(k, measure, rng)
             if X is None:
                 return None
             out.append(np.asarray(X, dtype=float).reshape(k, -1))
@@ -288,3 +277,18 @@ def make_product(nodes, name=None):
             blocks.append(nd)
         layout.append(keys[key])
     return Product(blocks=tuple(blocks), layout=tuple(layout), name=name)
+
+
+def _stacked_call(cls, params, op, label):
+    """Operator ``op`` of stacked blocks: the family's ``stacked`` hook, or routing's derived rule on it."""
+    from ..routing import TAKES_TOL, derived_call
+
+    def run(o, Z, t=None):
+        res = cls.stacked(o, params, Z)
+        if res is not None:
+            return res, {}
+        rule = derived_call(o, run)
+        if rule is None:
+            raise UnsupportedOperationError(f"{label}: the stacked {cls.kind} blocks offer no {o}.")
+        return rule(Z, t) if o in TAKES_TOL else rule(Z)
+    return lambda Z, t=None: run(op, Z, t)

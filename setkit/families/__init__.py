@@ -7,6 +7,7 @@ entry points of the group ``setkit.families`` that third-party packages declare.
 from __future__ import annotations
 
 import threading
+import weakref
 from dataclasses import dataclass
 from typing import ClassVar
 
@@ -14,26 +15,56 @@ from .._discovery import import_submodules
 from ..errors import DescriptionError
 
 ENTRY_POINT_GROUP = "setkit.families"
-OPERATORS = ("project", "distance", "lmo", "support", "contains", "violation")
+OPERATORS = ("project", "distance", "lmo", "support", "contains", "violation",
+             # the Bregman (relative entropy) projection, from log-domain input t = log y
+             "project_kl",
+             # Jacobian products of the projections (second argument: the tangent / cotangent);
+             # the KL ones are with respect to the log-domain input t
+             "project_jvp", "project_vjp", "project_kl_jvp", "project_kl_vjp")
 
 _FAMILIES: dict[str, type] = {}
+_MEMO: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+_MEMO_LOCK = threading.Lock()
+
+
+def memo(node, key, build):
+    """Memoize ``build()`` for ``node`` in a cache beside it (nodes stay frozen; pure data only).
+
+    Formulations, analyses and verdicts derived from a node's data (its linear form, the
+    cut rows of an intersection, the emptiness check) are computed once per node.
+    """
+    with _MEMO_LOCK:
+        store = _MEMO.get(node)
+        if store is None:
+            store = _MEMO[node] = {}
+        if key in store:
+            return store[key]
+    value = build()
+    with _MEMO_LOCK:
+        return store.setdefault(key, value)
 _loaded = False
 _lock = threading.Lock()
 
 
-def kernel(operator: str):
+def kernel(operator: str, *, workspace: bool = False):
     """Mark a method of a family as its native implementation of ``operator``.
 
     Kernels work on flat batches: a ``(b, dim)`` float64 array in, ``(b, dim)``
     points or ``(b,)`` values out. ``contains`` kernels take ``(X, tol)`` where
-    ``tol`` is a ``(b,)`` array. Kernels of combinators receive the compiled
-    parts as a third argument.
+    ``tol`` is a ``(b,)`` array; Jacobian-product kernels take ``(Y, V)`` with ``V`` of
+    the shape of ``Y``; ``project_kl`` kernels take log-domain input ``T = log y``. Kernels
+    of combinators receive the compiled
+    parts as a last argument. With ``workspace=True`` the kernel receives instead,
+    as its last argument, this thread's workspace of the set, built by the
+    family's ``new_workspace()`` hook and owned by the DecisionSet (per thread,
+    rebuilt after pickling).
     """
     if operator not in OPERATORS:
         raise ValueError(f"kernel: operator must be one of {', '.join(OPERATORS)}; got {operator!r}.")
 
     def mark(fn):
         fn._setkit_operator = operator
+        fn._setkit_workspace = bool(workspace)
         return fn
     return mark
 
@@ -104,6 +135,81 @@ class Family:
     def scale(self) -> float:
         """A magnitude of the set's data, used to make tolerances relative."""
         return 1.0
+
+    # -- optional hooks, read by other modules; each returns None when it does not know --------
+    def extended_form(self):
+        """A linear form with auxiliary variables (extended formulation) for LPs, or None.
+
+        Offered by families whose only polyhedral description needs auxiliaries (a
+        permutahedron as the image of the Birkhoff polytope) without declaring a
+        ``linear_form()``; intersections use it for one-LP LMOs.
+        """
+        return None
+
+    def check_nonempty(self, parts, fail) -> None:
+        """Raise (through ``fail(key, message, EmptySetError)``) if the set is empty; called at compile.
+
+        ``parts`` are the compiled parts of a combinator (empty for a family); ``fail``
+        names the description file and key path. The verdict is computed once per node.
+        """
+        return None
+
+    def membership_screen(self, X, tol, parts):
+        """A cheap membership verdict per row: +1 in, -1 farther than tol, 0 undecided; or None.
+
+        Used by routing's derived membership rule before any distance is computed (only the
+        undecided rows are projected). ``parts`` are the compiled parts of a combinator.
+        """
+        return None
+
+    def new_workspace(self):
+        """A fresh per-thread workspace for kernels marked ``@kernel(op, workspace=True)``, or None."""
+        return None
+
+    def exact_centroid(self, measure: str):
+        """The centroid under ``measure`` in closed form (flat array of length dim), or None."""
+        return None
+
+    def exact_sample(self, k: int, measure: str, rng):
+        """k exact samples from ``measure`` as a (k, dim) array, or None."""
+        return None
+
+    def stack_key(self):
+        """A key under which blocks of this family that differ only in data share one batched call, or None."""
+        return None
+
+    @classmethod
+    def stack_params(cls, nodes):
+        """Parameters of one batched call over ``nodes`` (all with one stack_key), or None."""
+        return None
+
+    @classmethod
+    def stacked(cls, op: str, params, X):
+        """Operator ``op`` on a batch laid out by :meth:`stack_params` (flat rows), or None."""
+        return None
+
+    def vertex_cleanup(self, x):
+        """Snap an LP vertex answer of the linear form to exact data (e.g. integral flows); x by default."""
+        return x
+
+    def unbounded_ray(self, c):
+        """A recession direction d of the set with <c, d> < 0 (flat array), or None when unknown."""
+        return None
+
+    @classmethod
+    def examples(cls) -> list:
+        """Small description dicts of this family, run by the conformance suite and quick benchmarks."""
+        return []
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random small description dict of this family (seeded by ``rng``), or None."""
+        return None
+
+    @classmethod
+    def benchmark_example(cls, n: int):
+        """A description dict of about ``n`` coordinates for scaling benchmarks, or None."""
+        return None
 
 
 def register(kind: str):

@@ -2,31 +2,28 @@
 
 A network family is {x : B x = s, lo <= x <= hi} with B the node-arc incidence
 matrix of a directed graph ((B x)_v = flow out of v - flow into v) and s the
-net supplies. This module holds what the three families share: the per-thread
-projection workspace (dual Newton kernel with warm-started potentials), the LMO
-by HiGHS simplex on a persistent per-thread model of the incidence-matrix LP
-(vertex answers, integral for integral data), the unbounded-direction search
-(a negative-cost cycle of uncapacitated edges), and the compile-time feasibility check that names the
-node set whose supply cannot be shipped (Hoffman's circulation condition).
+net supplies. This module holds what the three families share: the projection
+workspace (dual Newton kernel with warm-started potentials; one per thread, owned
+by the DecisionSet), the hooks the generic LP backend uses for the LMO (integral
+vertices for integral data; the unbounded direction as a negative-cost cycle of
+uncapacitated edges), and the compile-time feasibility check that names the node
+set whose supply cannot be shipped (Hoffman's circulation condition). The LMO
+itself is served by the ``highs`` backend on the incidence-matrix linear form, so
+``explain()`` names that solver and ``with_backends(lmo=...)`` can swap it.
 """
 from __future__ import annotations
 
-import threading
-import weakref
 from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse as sp
 
-from ..errors import EmptySetError, SolveError, UnboundedDirectionError
+from ..errors import EmptySetError, SolveError
 from ..forms import LinearForm
-from . import Family, kernel
-
-_WORKSPACES: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
-_WS_LOCK = threading.Lock()
+from . import Family, kernel, memo
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Network:
     """The arrays of a network family (edges in point order)."""
 
@@ -51,40 +48,19 @@ class Network:
                               (np.concatenate([self.tail, self.head]), np.concatenate([cols, cols]))),
                              shape=(self.n_nodes, m))
 
+    def _finite_data(self):
+        return np.concatenate([self.lo[np.isfinite(self.lo)], self.hi[np.isfinite(self.hi)], self.supply])
+
     def is_integral(self) -> bool:
-        got = self.__dict__.get("_is_integral")      # memoized: the arrays never change
-        if got is None:
-            vals = np.concatenate([self.lo[np.isfinite(self.lo)], self.hi[np.isfinite(self.hi)], self.supply])
-            got = bool(np.all(vals == np.round(vals)))
-            object.__setattr__(self, "_is_integral", got)
-        return got
+        """Whether every bound and supply is an integer (then LP vertices are integral)."""
+        return memo(self, "is_integral", lambda: bool(np.all(self._finite_data() == np.round(self._finite_data()))))
 
     def scale(self) -> float:
-        got = self.__dict__.get("_scale")
-        if got is None:
-            vals = np.concatenate([self.lo[np.isfinite(self.lo)], self.hi[np.isfinite(self.hi)], self.supply])
-            got = float(max(1.0, np.abs(vals).max(initial=0.0)))
-            object.__setattr__(self, "_scale", got)
-        return got
+        return memo(self, "scale", lambda: float(max(1.0, np.abs(self._finite_data()).max(initial=0.0))))
 
-
-def _thread_state(node):
-    with _WS_LOCK:
-        st = _WORKSPACES.get(node)
-        if st is None:
-            st = _WORKSPACES[node] = threading.local()
-    return st
-
-
-def projector(node):
-    """This thread's projection workspace of ``node`` (built on first use)."""
-    st = _thread_state(node)
-    pj = getattr(st, "projector", None)
-    if pj is None:
-        from ..kernels.network import NetworkProjector
-        g = node.network()
-        pj = st.projector = NetworkProjector(g.tail, g.head, g.lo, g.hi, g.supply)
-    return pj
+    def incidence_matrix(self) -> sp.csr_matrix:
+        """The incidence matrix, built once."""
+        return memo(self, "incidence", self.incidence)
 
 
 def negative_cycle(g: Network, c: np.ndarray):
@@ -124,55 +100,6 @@ def negative_cycle(g: Network, c: np.ndarray):
         if dat["edge"] >= 0:
             d[dat["edge"]] += dat["sign"]
     return d if float(c @ d) < 0 else None
-
-
-def lmo_workspace(label: str, g: Network, B=None):
-    """A persistent LP workspace for min <c, x> over {B x = s, lo <= x <= hi} (one per thread)."""
-    from ..backends._lp import lp_workspace
-    B = g.incidence() if B is None else B
-    return lp_workspace(B, g.supply, sp.csr_matrix((0, g.n_edges)), np.zeros(0), g.lo, g.hi, label)
-
-
-def lmo_network(label: str, g: Network, C: np.ndarray, B=None, ws=None):
-    """Rows of C -> vertex minimizers of <c, x> by HiGHS simplex on the incidence matrix.
-
-    ``ws`` is this thread's :func:`lmo_workspace` (built here when not given): the
-    model is kept and only the costs change, re-solved warm or cold.
-    Returns ``(points, info)``.
-    """
-    B = g.incidence() if B is None else B
-    ws = lmo_workspace(label, g, B) if ws is None else ws
-    integral = g.is_integral()
-    out = np.empty_like(C)
-    iters, texts = [], []
-    for i, c in enumerate(C):
-        ans = ws.minimize(c)
-        if ans.status == "unbounded":
-            d = negative_cycle(g, c)
-            if d is not None:
-                used = np.flatnonzero(d)
-                raise UnboundedDirectionError(
-                    f"{label}: lmo(c) has no minimizer: the set is unbounded along the cycle of "
-                    f"uncapacitated edges {used.tolist()} (direction d with <c, d> = {float(c @ d):.6g} < 0); "
-                    f"give those edges a capacity (or a lower bound).", ray=d)
-            raise SolveError(f"{label}: the LP of lmo reported an unbounded direction ({ans.text}) but no "
-                             f"unbounded cycle exists.", status="unbounded")
-        if ans.status == "infeasible":
-            raise EmptySetError(f"{label}: no flow meets the supplies and the edge bounds ({ans.text}).")
-        x = np.clip(ans.z, g.lo, g.hi)
-        if integral:
-            # a vertex of a network polytope with integral data is integral (total unimodularity)
-            xr = np.round(x)
-            if np.abs(xr - x).max(initial=0.0) <= 1e-6 and np.abs(B @ xr - g.supply).max(initial=0.0) == 0.0:
-                x = xr
-        resid = float(np.abs(B @ x - g.supply).max(initial=0.0))
-        if resid > 1e-7 * g.scale():
-            raise SolveError(f"{label}: the LP answer of lmo misses the node balances by {resid:.3g}.",
-                             status="infeasible_answer")
-        out[i] = x
-        iters.append(ans.iterations)
-        texts.append(ans.text)
-    return out, {"status": ["solved"] * len(texts), "iterations": iters, "backend_status": texts}
 
 
 def check_feasible(label: str, g: Network, names, where_fail):
@@ -256,8 +183,15 @@ class NetworkFamily(Family):
         g = self.network()
         return LinearForm.build(g.n_edges, A_eq=g.incidence(), b_eq=g.supply, lo=g.lo, hi=g.hi)
 
-    def _project_flat(self, Y):
-        pj = projector(self)
+    def new_workspace(self):
+        """This thread's projection workspace: the dual Newton state with warm-started potentials."""
+        from ..kernels.network import NetworkProjector
+        g = self.network()
+        return NetworkProjector(g.tail, g.head, g.lo, g.hi, g.supply)
+
+    @kernel("project", workspace=True)
+    def project(self, Y, pj):
+        """Dual Newton on node potentials with exact component shifts (numba, matrix-free CG); O(E) per CG step."""
         X, info = pj.project(Y)
         bad = np.flatnonzero(info["status"] != 0)
         if bad.size:
@@ -271,27 +205,17 @@ class NetworkFamily(Family):
                 status="not_converged")
         return X
 
-    @kernel("project")
-    def project(self, Y):
-        """Dual Newton on node potentials with exact component shifts (numba, matrix-free CG); O(E) per CG step."""
-        return self._project_flat(Y)
+    def vertex_cleanup(self, x):
+        """A vertex of a network polytope with integral data is integral (total unimodularity): round it."""
+        g = self.network()
+        x = np.clip(x, g.lo, g.hi)
+        if g.is_integral():
+            xr = np.round(x)
+            if (np.abs(xr - x).max(initial=0.0) <= 1e-6
+                    and np.abs(g.incidence_matrix() @ xr - g.supply).max(initial=0.0) == 0.0):
+                return xr
+        return x
 
-    @kernel("lmo")
-    def lmo(self, C):
-        """HiGHS simplex on a persistent incidence-matrix LP (costs changed per call, warm or cold); vertex answers."""
-        return lmo_network(self.label, self.network(), C, self._incidence(), self._lmo_workspace())
-
-    def _lmo_workspace(self):
-        """This thread's LP workspace (thread-local state outside the node, so the node pickles)."""
-        st = _thread_state(self)
-        ws = getattr(st, "lp", None)
-        if ws is None:
-            ws = st.lp = lmo_workspace(self.label, self.network(), self._incidence())
-        return ws
-
-    def _incidence(self):
-        st = _thread_state(self)
-        B = getattr(st, "incidence", None)
-        if B is None:
-            B = st.incidence = self.network().incidence()
-        return B
+    def unbounded_ray(self, c):
+        """A cycle of uncapacitated edges along which <c, x> decreases without bound, or None."""
+        return negative_cycle(self.network(), np.asarray(c, dtype=float))

@@ -13,19 +13,14 @@ Parameter stands for x), unless the constraints use auxiliary variables.
 """
 from __future__ import annotations
 
-import threading
-import weakref
 from dataclasses import dataclass
+from types import SimpleNamespace
 from typing import Any, Callable, ClassVar
 
 import numpy as np
 
 from ..errors import DescriptionError
 from . import Family, kernel
-
-_EVALUATORS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
-_EVAL_LOCK = threading.Lock()
-
 
 def _expression_of_shape(cp, obj, shape):
     d = int(np.prod(shape)) if shape else 1
@@ -56,9 +51,9 @@ class CustomSet(Family):
 
     kind: ClassVar[str] = "custom"
 
-    def __post_init__(self):
-        # instance traits shadow the class-level (empty) ones
-        object.__setattr__(self, "traits", frozenset(self.declared_traits))
+    @property
+    def traits(self):
+        return frozenset(self.declared_traits)
 
     @classmethod
     def from_spec(cls, r):
@@ -84,26 +79,19 @@ class CustomSet(Family):
         return self.form
 
     # -- native violation: evaluate the constraints at x -------------------------------------------
-    def _evaluator(self):
-        with _EVAL_LOCK:
-            local = _EVALUATORS.get(self)
-            if local is None:
-                local = _EVALUATORS[self] = threading.local()
-        if not hasattr(local, "cons"):
-            import cvxpy as cp
-            p = cp.Parameter(self.dim)
-            cons = list(self.build(_expression_of_shape(cp, p, self.shape)))
-            aux = any(c.variables() for c in cons)
-            local.p, local.cons, local.aux = p, cons, aux
-        return local
+    def new_workspace(self):
+        """This thread's evaluator: the constraints built once on a cvxpy Parameter standing for x."""
+        import cvxpy as cp
+        p = cp.Parameter(self.dim)
+        cons = list(self.build(_expression_of_shape(cp, p, self.shape)))
+        return SimpleNamespace(p=p, cons=cons, aux=any(c.variables() for c in cons))
 
-    @kernel("violation")
-    def violation(self, X):
+    @kernel("violation", workspace=True)
+    def violation(self, X, ev):
         """Largest violation of the stated constraints evaluated at each point (NaN with auxiliary variables).
 
         One evaluation of the constraint expressions per point.
         """
-        ev = self._evaluator()
         if ev.aux:
             return np.full(X.shape[0], np.nan)
         out = np.empty(X.shape[0])

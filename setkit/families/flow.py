@@ -9,14 +9,14 @@ from __future__ import annotations
 
 import csv
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from numbers import Integral, Real
 from typing import Mapping
 
 import numpy as np
 
 from ..errors import DescriptionError, EmptySetError
-from . import register
+from . import memo, register
 from ._network import Network, NetworkFamily, check_feasible
 
 EDGE_KEYS = ("from", "to", "capacity", "lower")
@@ -98,11 +98,8 @@ class Flow(NetworkFamily):
     lower: np.ndarray
     capacity: np.ndarray
     supply: np.ndarray
-    _net: Network = field(init=False, repr=False)
     traits = frozenset({"polyhedral"})
 
-    def __post_init__(self):
-        object.__setattr__(self, "_net", Network(self.tail, self.head, self.lower, self.capacity, self.supply))
 
     @classmethod
     def from_spec(cls, r):
@@ -236,9 +233,11 @@ class Flow(NetworkFamily):
         s = np.zeros(len(names))
         for i, val in ids.items():
             s[i] = val
-        node = cls(node_names=tuple(names), tail=tail, head=head, lower=lo, capacity=hi, supply=s, name=r.name)
-        check_feasible(node.label, node._net, names, r.fail)
-        return node
+        return cls(node_names=tuple(names), tail=tail, head=head, lower=lo, capacity=hi, supply=s, name=r.name)
+
+    def check_nonempty(self, parts, fail):
+        """Balanced supplies and a feasible flow (an LP, with the blocking node set named when it fails)."""
+        check_feasible(self.label, self.network(), self.node_names, fail)
 
     @classmethod
     def examples(cls):
@@ -277,10 +276,10 @@ class Flow(NetworkFamily):
         return (int(self.tail.size),)
 
     def network(self):
-        return self._net
+        return memo(self, "network", lambda: Network(self.tail, self.head, self.lower, self.capacity, self.supply))
 
     def cvxpy_constraints(self, x):
-        g = self._net
+        g = self.network()
         B = g.incidence()
         cons = [B @ x == g.supply]
         flo, fhi = np.isfinite(g.lo), np.isfinite(g.hi)

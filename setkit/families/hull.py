@@ -8,7 +8,7 @@ import numpy as np
 from ..errors import SolveError
 from ..forms import LinearForm
 from ..kernels.hull import nearest_in_hull
-from . import Family, kernel, register
+from . import Family, kernel, memo, register
 
 
 @register("hull")
@@ -102,37 +102,35 @@ class Hull(Family):
 
         Extreme points: scipy.spatial.ConvexHull in the affine hull when its dimension is 2..8 (interval
         ends in dimension 1); beyond, one LP per distinct point (is it a convex combination of the
-        others?). Cached on the node.
+        others?). Memoized beside the node.
         """
-        got = self.__dict__.get("_measure_cache")
-        if got is not None:
-            return got
-        from scipy.optimize import linprog
-        V = np.unique(self.points, axis=0)
-        x0 = V.mean(axis=0)
-        U, s, _ = np.linalg.svd((V - x0).T, full_matrices=False)
-        r = int(np.sum(s > 1e-10 * s[0])) if s.size and s[0] > 0 else 0
-        N = U[:, :r]
-        T = (V - x0) @ N
-        if r == 0:
-            keep = [0]
-        elif r == 1:
-            keep = [int(np.argmin(T[:, 0])), int(np.argmax(T[:, 0]))]
-        elif r <= 8:
-            from scipy.spatial import ConvexHull
-            keep = list(ConvexHull(T).vertices)
-        else:
-            keep = []
-            for i in range(T.shape[0]):
-                others = np.delete(T, i, axis=0)
-                A_eq = np.vstack([others.T, np.ones((1, others.shape[0]))])
-                res = linprog(np.zeros(others.shape[0]), A_eq=A_eq, b_eq=np.concatenate([T[i], [1.0]]),
-                              bounds=[(0, None)] * others.shape[0], method="highs")
-                if res.status != 0:          # infeasible: not a convex combination of the others
-                    keep.append(i)
-        out = (x0, N, T[keep], V[keep])
-        object.__setattr__(self, "_measure_cache", out)
-        return out
+        def build():
+            from scipy.optimize import linprog
+            V = np.unique(self.points, axis=0)
+            x0 = V.mean(axis=0)
+            U, s, _ = np.linalg.svd((V - x0).T, full_matrices=False)
+            r = int(np.sum(s > 1e-10 * s[0])) if s.size and s[0] > 0 else 0
+            N = U[:, :r]
+            T = (V - x0) @ N
+            if r == 0:
+                keep = [0]
+            elif r == 1:
+                keep = [int(np.argmin(T[:, 0])), int(np.argmax(T[:, 0]))]
+            elif r <= 8:
+                from scipy.spatial import ConvexHull
+                keep = list(ConvexHull(T).vertices)
+            else:
+                keep = []
+                for i in range(T.shape[0]):
+                    others = np.delete(T, i, axis=0)
+                    A_eq = np.vstack([others.T, np.ones((1, others.shape[0]))])
+                    res = linprog(np.zeros(others.shape[0]), A_eq=A_eq, b_eq=np.concatenate([T[i], [1.0]]),
+                                  bounds=[(0, None)] * others.shape[0], method="highs")
+                    if res.status != 0:          # infeasible: not a convex combination of the others
+                        keep.append(i)
+            out = (x0, N, T[keep], V[keep])
+            return out
+        return memo(self, "extreme_points", build)
 
     def exact_centroid(self, measure):
         """vertices: the mean of the extreme points; volume: exact triangulation in the affine hull

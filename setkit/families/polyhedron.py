@@ -117,9 +117,7 @@ class Polyhedron(Family):
         keep = np.isfinite(b)       # rows with b = +inf constrain nothing
         if not keep.all():
             A, b = A[np.flatnonzero(keep)], b[keep]
-        node = cls(n=n, A=A, b=b, C=C, d=d, lower=lo, upper=hi, name=r.name)
-        node._check_nonempty(r)
-        return node
+        return cls(n=n, A=A, b=b, C=C, d=d, lower=lo, upper=hi, name=r.name)
 
     @classmethod
     def examples(cls):
@@ -137,7 +135,7 @@ class Polyhedron(Family):
         b = (A @ x0 + rng.uniform(0.1, 1.0, m)).round(3)
         return {"kind": "polyhedron", "A": A.tolist(), "b": b.tolist(), "lower": -2.0, "upper": 2.0}
 
-    def _check_nonempty(self, r):
+    def check_nonempty(self, parts, fail):
         """Elastic LP: minimize the total violation; a positive optimum means the set is empty."""
         from scipy.optimize import linprog
         n, mA, mC = self.n, self.A.shape[0], self.C.shape[0]
@@ -174,7 +172,7 @@ class Polyhedron(Family):
         if cols.size:
             parts.append(f"the bounds of coordinate{'s' if cols.size > 1 else ''} {_list(cols)}")
         what = " together with ".join(parts) if parts else "the constraints"
-        r.fail("A" if mA else "C", f"the set is empty: {what} cannot hold at once (the least total violation "
+        fail("A" if mA else "C", f"the set is empty: {what} cannot hold at once (the least total violation "
                                    f"of the constraints is {res.fun:.6g}).", EmptySetError)
 
     @property

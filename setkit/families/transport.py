@@ -1,12 +1,13 @@
 """Transportation polytopes {X >= 0 : X 1 = rows, X^T 1 = cols}, points are m x n matrices."""
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
 from ..errors import EmptySetError
 from . import register
+from . import memo
 from ._network import Network, NetworkFamily
 
 
@@ -50,11 +51,7 @@ class Transport(NetworkFamily):
 
     rows: np.ndarray
     cols: np.ndarray
-    _net: Network = field(init=False, repr=False)
     traits = frozenset({"polyhedral", "bounded"})
-
-    def __post_init__(self):
-        object.__setattr__(self, "_net", bipartite_network(self.rows, self.cols))
 
     @classmethod
     def from_spec(cls, r):
@@ -81,7 +78,7 @@ class Transport(NetworkFamily):
         return (int(self.rows.size), int(self.cols.size))
 
     def network(self):
-        return self._net
+        return memo(self, "network", lambda: bipartite_network(self.rows, self.cols))
 
     def scale(self):
         return float(max(1.0, self.rows.max(initial=0.0), self.cols.max(initial=0.0)))

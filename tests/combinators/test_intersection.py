@@ -3,14 +3,15 @@ import numpy as np
 import pytest
 
 import setkit
-from setkit.combinators.intersection import CutIntersection, Intersection, SplitIntersection
+from setkit.combinators.intersection import Intersection
 from setkit.errors import EmptySetError
 
 from .fixtures import ball, check_against_reference, halfspaces
 
 
-def _node_type(K):
-    return type(K.node)
+def _strategy(K):
+    """The strategy routing chose for the projection (osqp: one QP on the merged linear form)."""
+    return K.routes()["project"].provider
 
 
 def test_polyhedral_parts_merge_into_one_linear_form(rng):
@@ -18,8 +19,7 @@ def test_polyhedral_parts_merge_into_one_linear_form(rng):
     n = 5
     cube = halfspaces(np.vstack([np.eye(n), -np.eye(n)]), np.ones(2 * n))
     K = setkit.compile({"kind": "intersection", "of": [cube, halfspaces(rng.standard_normal((3, n)), 0.5)]})
-    assert _node_type(K) is Intersection
-    assert K.routes()["project"].provider == "osqp"
+    assert _strategy(K) == "osqp"
     assert K.routes()["lmo"].provider == "highs"
     f = K.node.linear_form()
     assert f.n_x == n and f.n_aux == 0 and f.A_ub.shape[0] == 2 * n + 3
@@ -31,8 +31,8 @@ def test_capped_simplex_uses_the_cut_dual_and_caps_with_sectors_one_qp(rng):
         caps = {"kind": "box", "dim": n, "lower": 0, "upper": rng.uniform(0.3, 0.9, n).tolist()}
         K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": n}, caps]})
         # the box is the base; of the simplex only sum x = 1 remains (x >= 0 is implied by the box)
-        assert _node_type(K) is CutIntersection and K.node.cut_matrix.shape == (1, n)
-        assert K.routes()["lmo"].provider == "native"      # column generation on the box's LMO
+        assert _strategy(K) == "cut_dual" and K.node.cuts()["matrix"].shape == (1, n)
+        assert K.routes()["lmo"].provider == "cut_dual"      # column generation on the box's LMO
         check_against_reference(K, rng)
         c = rng.standard_normal((3, n))
         assert np.allclose(np.einsum("ij,ij->i", c, K.lmo(c)),
@@ -42,7 +42,7 @@ def test_capped_simplex_uses_the_cut_dual_and_caps_with_sectors_one_qp(rng):
     sectors = halfspaces([[1, 1, 0, 0, 0], [0, 0, 1, 1, 0], [0, 0, 0, 1, 1]], [0.5, 0.6, 0.5])
     K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 5}, sectors,
                                                        {"kind": "box", "dim": 5, "lower": 0, "upper": 0.4}]})
-    assert _node_type(K) is Intersection and K.routes()["project"].provider == "osqp"
+    assert _strategy(K) == "osqp"
     check_against_reference(K, rng, scales=(1e-3, 1.0, 30.0))
 
 
@@ -59,9 +59,8 @@ def test_cut_dual_route_ball_and_halfspaces(rng):
     n = 6
     A = rng.standard_normal((3, n))
     K = setkit.compile({"kind": "intersection", "of": [ball(np.zeros(n), 1.0), halfspaces(A, 0.3 * np.ones(3))]})
-    assert _node_type(K) is CutIntersection
-    assert K.routes()["project"].provider == "native"
-    assert K.routes()["lmo"].provider == "native"     # column generation on the ball's LMO
+    assert _strategy(K) == "cut_dual"
+    assert K.routes()["lmo"].provider == "cut_dual"     # column generation on the ball's LMO
     check_against_reference(K, rng, scales=(1e-3, 1.0, 1e3))
 
 
@@ -70,8 +69,8 @@ def test_cut_dual_with_equality_and_box_cuts(rng):
     K = setkit.compile({"kind": "intersection", "of": [
         ball(0.2 * np.ones(n), 1.5), {"kind": "box", "dim": n, "lower": -0.5, "upper": 0.8},
         {"kind": "simplex", "dim": n, "total": 1.0}]})
-    assert _node_type(K) is CutIntersection
-    assert K.node.n_eq == 1
+    assert _strategy(K) == "cut_dual"
+    assert K.node.cuts()["n_eq"] == 1
     check_against_reference(K, rng)
 
 
@@ -90,7 +89,7 @@ def test_hand_solved_ball_and_halfspace():
 def test_splitting_route_two_balls(rng):
     n = 5
     K = setkit.compile({"kind": "intersection", "of": [ball(np.zeros(n), 1.0), ball(0.6 * np.ones(n), 1.2)]})
-    assert _node_type(K) is SplitIntersection and K.node.splitting == "accelerated"
+    assert _strategy(K) == "dual_splitting" and K.node.splitting == "accelerated"
     check_against_reference(K, rng, scales=(1e-3, 1.0, 1e3))
     # Dykstra's method slows down for far points; at moderate scales it agrees too
     D = setkit.compile({"kind": "intersection", "splitting": "dykstra",
@@ -124,9 +123,12 @@ def test_ball_missed_by_a_cut_is_reported_at_compile_time_and_at_run_time():
     # column generation with c = 0 (phase one) finds the nonzero slack when the description is read
     with pytest.raises(EmptySetError, match="no common point"):
         setkit.compile({"kind": "intersection", "of": parts})
-    # the same node built without that check: the dual diverges and the LMO's slack stays, both say so
-    node = CutIntersection(parts=tuple(parts), base=0, cut_matrix=-np.eye(n)[:1], cut_rhs=np.array([-5.0]), n_eq=0)
-    K = setkit.compile(node)
+    # the same node compiled without that check: the dual diverges and the LMO's slack stays, both say so
+    import pytest as _pt
+    with _pt.MonkeyPatch.context() as mp:
+        mp.setattr(Intersection, "check_nonempty", lambda self, parts, fail: None)
+        K = setkit.compile({"kind": "intersection", "of": parts})
+    assert K.routes()["project"].provider == "cut_dual" and K.node.cuts()["base"] == 0
     with pytest.raises(EmptySetError, match="no common point"):
         K.project(np.ones(n))
     with pytest.raises(EmptySetError, match="no point"):
@@ -170,7 +172,7 @@ def test_explain_names_the_route():
         {"kind": "polyhedron", "A": [[-1, -1, 0, 0]], "b": [-4.0]}]})
     text = K.explain()
     assert "Dual over the few cut multipliers" in text and "highs" in text
-    assert isinstance(K.node, CutIntersection) and K.node.base == 0
+    assert _strategy(K) == "cut_dual" and K.node.cuts()["base"] == 0
     # the answer meets the floor and keeps the total (a permutahedron point sums to sum(w) = 6)
     x = K.project([0.0, 0.0, 5.0, 5.0])
     assert x[0] + x[1] >= 4.0 - 1e-8 and abs(x.sum() - 6.0) <= 1e-8
@@ -186,7 +188,7 @@ def test_cut_lmo_by_column_generation_matches_a_birkhoff_lp(rng):
     b = A @ np.full(n, w.mean()) + 0.1
     K = setkit.compile({"kind": "intersection", "of": [{"kind": "permutahedron", "weights": w.tolist()},
                                                        {"kind": "polyhedron", "A": A.tolist(), "b": b.tolist()}]})
-    assert K.routes()["lmo"].provider == "native"
+    assert K.routes()["lmo"].provider == "cut_dual"
     E_rows = np.kron(np.eye(n), np.ones((1, n)))          # sum_j W_ij = 1
     E_cols = np.kron(np.ones((1, n)), np.eye(n))          # sum_i W_ij = 1
     Wx = np.kron(np.eye(n), w[None, :])                   # x_i = sum_j W_ij w_j

@@ -1,0 +1,116 @@
+"""Plan-level soundness: membership by the constraints, the fallback chain of generic projections,
+the input dtype policy, and the accuracy contract of detailed records."""
+import numpy as np
+import pytest
+
+import setkit
+from setkit.backends.osqp import OsqpBackend
+from setkit.errors import InputError, SolveError
+
+# A degenerate vertex of an LP feasible set (the case reported in the issue tracker, issue 11):
+# five rows, x = (0, 0, 19, 16/3, 29/3) meets rows 0-3 and x0, x1 >= 0 with equality.
+A_DEG = [[4, 5.5, 1.5, 1, -3.5], [1, -2.5, -2, 2.5, 0.5], [3, -0.5, 4, -12.5, -7], [-1, 4.5, 2, -3.5, -2],
+         [5.5, 2, -4.5, -1, 9.5]]
+B_DEG = [0, 0, 0, 0, 1]
+X_DEG = np.array([0.0, 0.0, 19.0, 16 / 3, 29 / 3])
+
+
+def test_degenerate_vertex_is_a_member_and_its_own_projection():
+    K = setkit.compile({"kind": "polyhedron", "A": A_DEG, "b": B_DEG, "lower": 0})
+    # exact rational check that x is a vertex of the set (hand computation, common practice)
+    from fractions import Fraction as F
+    xs = [F(0), F(0), F(19), F(16, 3), F(29, 3)]
+    lhs = [sum(F(a).limit_denominator(10) * x for a, x in zip(row, xs)) for row in A_DEG]
+    assert all(v <= b for v, b in zip(lhs, B_DEG)) and sum(v == b for v, b in zip(lhs, B_DEG)) >= 3
+    assert K.contains(X_DEG)
+    r = K.project(X_DEG, details=True)
+    assert r.status == "solved" and np.abs(r.point - X_DEG).max() <= 1e-12
+    # a point near the vertex is projected (by whichever route of the chain finishes) onto the set
+    y = X_DEG + np.array([1e-3, -2e-3, 5e-3, 1e-3, -1e-3])
+    d = K.project(y, details=True)
+    ref = K.with_backends(project="reference").project(y)
+    assert np.abs(d.point - ref).max() <= 2e-5 * 20
+    assert d.residual <= 1e-7 * 20
+
+
+def test_osqp_failure_falls_back_to_the_next_backend_and_says_so(monkeypatch):
+    K = setkit.compile({"kind": "polyhedron", "A": [[1.0, 1.0, 1.0]], "b": [1.0], "lower": 0})
+    assert "on a failed solve: highs_qp, then reference" in K.explain()
+
+    def broken(self, Y):
+        raise SolveError("osqp: pretend the iteration cap was hit", status="maximum iterations reached")
+    monkeypatch.setattr(OsqpBackend, "project", broken)
+    K = setkit.compile({"kind": "polyhedron", "A": [[1.0, 1.0, 1.0]], "b": [1.0], "lower": 0})
+    y = np.array([[1.0, 1.0, 1.0], [2.0, 0.0, -1.0]])
+    d = K.project(y, details=True)
+    # closed forms: the projection of (1,1,1) onto {x >= 0, sum x <= 1} is (1/3,1/3,1/3); of (2,0,-1) is (1,0,0)
+    assert np.allclose(d.point, [[1 / 3, 1 / 3, 1 / 3], [1.0, 0.0, 0.0]], atol=1e-7)
+    assert all("answered by highs_qp" in s and "pretend" in s for s in d.backend_status)
+
+
+def test_every_backend_failing_raises_one_error_naming_them(monkeypatch):
+    from setkit.backends.highs_qp import HighsQPBackend
+    from setkit.backends.reference import ReferenceBackend
+
+    def broken(self, Y):
+        raise SolveError(f"{self.name}: broken on purpose", status="failed")
+    for cls in (OsqpBackend, HighsQPBackend, ReferenceBackend):
+        monkeypatch.setattr(cls, "project", broken)
+    K = setkit.compile({"kind": "polyhedron", "A": [[1.0, 1.0]], "b": [1.0]})
+    with pytest.raises(SolveError, match="every backend failed.*osqp.*highs_qp.*reference"):
+        K.project([[3.0, 3.0]])
+
+
+@pytest.mark.parametrize("A, point, tol, expected, why", [
+    # the row 1e-6 x0 <= 0 normalized is x0 <= 0: (10, 0) is at distance 10
+    ([[1e-6, 0.0]], [10.0, 0.0], None, False, "tiny row"),
+    # the row 1000 x0 <= 0 normalized is x0 <= 0: (1e-6, 0) is at distance 1e-6 < tol = 1e-5
+    ([[1000.0, 0.0]], [1e-6, 0.0], 1e-5, True, "large row"),
+])
+def test_intersection_membership_is_by_distance_not_raw_violation(A, point, tol, expected, why):
+    K = setkit.compile({"kind": "intersection", "of": [{"kind": "box", "dim": 2, "lower": -1, "upper": 1},
+                                                       {"kind": "polyhedron", "A": A, "b": [0.0]}]})
+    assert bool(K.contains(point, tol=tol)) is expected, why
+    assert bool(K.distance(point) <= (tol if tol is not None else 1e-6)) is expected
+
+
+def test_intersection_membership_decides_borderline_points_by_the_distance():
+    # two unit discs centred at (+-1/2, 0) meet in a lens; (0, 0.8660254 + 5e-8) is within 1e-7 of each disc
+    # and of the lens (the corner is (0, sqrt(3)/2)), while (0.2, 0.95) is outside both the lens and one disc
+    lens = setkit.compile({"kind": "intersection", "of": [
+        {"kind": "ball", "dim": 2, "radius": 1.0, "center": [-0.5, 0.0]},
+        {"kind": "ball", "dim": 2, "radius": 1.0, "center": [0.5, 0.0]}]})
+    top = np.array([0.0, np.sqrt(3) / 2 + 5e-8])
+    assert lens.contains(top, tol=1e-7)
+    assert not lens.contains([0.2, 0.95], tol=1e-3)
+
+
+@pytest.mark.parametrize("bad", [np.array([1 + 1j, 0.0, 0.0]), ["a", "b", "c"], np.array([object(), 1, 2]),
+                                 [[1.0, 2.0], [3.0]]])
+def test_non_real_inputs_are_refused(bad):
+    K = setkit.simplex(dim=3)
+    for op in (K.project, K.distance, K.lmo, K.support, K.contains):
+        with pytest.raises(InputError):
+            op(bad)
+
+
+@pytest.mark.parametrize("ok", [[1, 0, 0], np.array([True, False, False]), np.float32([1, 0, 0]),
+                                np.int8([1, 0, 0]), np.float16([1, 0, 0])])
+def test_real_dtypes_are_accepted(ok):
+    K = setkit.simplex(dim=3)
+    assert np.array_equal(K.project(ok), [1.0, 0.0, 0.0])
+
+
+def test_a_record_never_says_solved_above_tolerance(monkeypatch):
+    from setkit.families.simplex import Simplex
+
+    def off_by_a_lot(self, Y):
+        return np.full_like(Y, 0.5)          # sums to 1.5 on dim 3: not in the simplex
+    monkeypatch.setattr(Simplex, "project", off_by_a_lot)
+    K = setkit.simplex(dim=3)
+    with pytest.raises(SolveError, match="violates the set's constraints by 0.5"):
+        K.project([1.0, 0.0, 0.0], details=True)
+    loose = setkit.compile({"kind": "simplex", "dim": 3}, loose=True)
+    with pytest.warns(setkit.AccuracyWarning):
+        d = loose.project([1.0, 0.0, 0.0], details=True)
+    assert d.status == "inaccurate"
