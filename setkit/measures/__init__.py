@@ -32,7 +32,8 @@ slowly mixing chains (R-hat > 1.05 or effective sample size < 50) raise an
 
 Layout: ``geometry`` (affine hull, vertices, exact centroids), ``chains``
 (hit-and-run), ``diagnostics`` (standard errors, ESS, R-hat), ``methods`` (the
-table and its walk), ``cache`` (geometry kept beside each node).
+table and its walk). Geometry derived from a node is kept beside it
+(:func:`setkit.families.memo`).
 
 All randomness comes from ``rng`` (a numpy Generator or an int seed). For
 :func:`sample`, ``rng=None`` means fresh entropy; for :func:`centroid` estimates

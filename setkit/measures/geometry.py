@@ -6,7 +6,7 @@ implicit equalities removed, rows normalized, Chebyshev center known). In small 
 vertices are enumerated (scipy.spatial.HalfspaceIntersection) and its exact centroids follow:
 the vertex mean, the volume centroid by a triangulation (scipy.spatial.ConvexHull facets coned
 from an interior point) and, in dimension <= 2, the law of lmo(g) by normal-cone angles.
-Results are kept per node by :func:`setkit.measures.cache.beside`.
+Results are kept beside each node (:func:`setkit.families.memo`), never inside it.
 """
 from __future__ import annotations
 
@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import EmptySetError, SolveError
-from .cache import beside
+from ..families import memo
 
 EXACT_MAX_DIM = 8          # largest affine-hull dimension for vertex enumeration by default
 MAX_VERTICES = 200_000     # more vertices than this are not used for exact answers
@@ -151,7 +151,7 @@ def reduced(K):
         if form is None or form.n_aux != 0:
             return None
         return reduce_form(form, K.node.label)
-    return beside(K.node, "reduced polytope", build)
+    return memo(K.node, "measures: reduced polytope", build)
 
 
 def _dedupe(V, tol):
@@ -235,7 +235,7 @@ def normal_cone_weights(V):
 
 def vertices_of(K, P: ReducedPolytope):
     """The vertices (t coordinates) of K's reduced polytope P, enumerated once per node."""
-    return beside(K.node, "polytope vertices", lambda: polytope_vertices(P, K.node.label))
+    return memo(K.node, "measures: polytope vertices", lambda: polytope_vertices(P, K.node.label))
 
 
 def enumerable(K, exact_max_dim: int = EXACT_MAX_DIM):

@@ -10,8 +10,9 @@ through :func:`choose`, and report the name of the row that answered.
 
 Order (first that applies):
 
-1. the family's own exact knowledge (optional node methods ``exact_centroid(measure)`` and
-   ``exact_sample(k, measure, rng)``, None when unknown; nothing here lists families);
+1. the family's own exact knowledge (the hooks ``exact_centroid(measure)`` and
+   ``exact_sample(k, measure, rng)`` that every Family declares, None when unknown; nothing here
+   lists families);
 2. refusal of the volume measure of an unbounded polytope;
 3. exact answers from the enumerated vertices of a small polytope (see
    :func:`~setkit.measures.geometry.enumerable`): triangulation (volume centroid), vertex
@@ -105,25 +106,13 @@ class Method:
 # ---------------------------------------------------------------------------------------------
 # the family's own knowledge
 # ---------------------------------------------------------------------------------------------
-def family_hook(node, name: str):
-    """The node's optional measure hook ``name`` (exact_centroid / exact_sample), or None.
-
-    The one place that reads the hooks: nodes that do not define them (or define them as None)
-    know nothing exact.
-    """
-    fn = getattr(node, name, None)
-    return fn if callable(fn) else None
-
-
 def _family_centroid(req):
-    hook = family_hook(req.K.node, "exact_centroid")
-    x = hook(req.measure) if hook is not None else None
+    x = req.K.node.exact_centroid(req.measure)
     return None if x is None else Outcome(np.asarray(x, dtype=float).reshape(req.K.dim))
 
 
 def _family_sample(req):
-    hook = family_hook(req.K.node, "exact_sample")
-    X = hook(req.k, req.measure, req.rng) if hook is not None else None
+    X = req.K.node.exact_sample(req.k, req.measure, req.rng)
     return None if X is None else Outcome(np.asarray(X, dtype=float).reshape(req.k, req.K.dim))
 
 
