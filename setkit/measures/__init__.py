@@ -54,7 +54,7 @@ from .chains import hit_and_run
 from .diagnostics import ESS_WARN, RHAT_WARN, batch_means, chain_summary
 from .geometry import (EXACT_MAX_DIM, MAX_VERTICES, ReducedPolytope, enumerable, normal_cone_weights,
                        polytope_vertices, reduce_form, reduced, simplex_volume_centroid)
-from .methods import LADDER, MEASURES, Method, Request, choose
+from .methods import LADDER, MEASURES, Method, Request, as_generator, choose
 
 __all__ = ["MEASURES", "MeasureResult", "SampleResult", "centroid", "sample", "as_generator", "LADDER", "Method",
            "hit_and_run", "chain_summary", "batch_means", "reduce_form", "reduced", "ReducedPolytope",
@@ -111,21 +111,6 @@ def _check_measure(K, measure, op):
                          f"got {measure!r}{hint}.")
 
 
-def as_generator(rng, default_seed=None) -> np.random.Generator:
-    """A numpy Generator from a Generator, an int seed or None (``default_seed``, None: fresh entropy).
-
-    >>> int(as_generator(3).integers(10)) == int(as_generator(np.random.default_rng(3)).integers(10))
-    True
-    """
-    if isinstance(rng, np.random.Generator):
-        return rng
-    if rng is None:
-        return np.random.default_rng(default_seed)
-    if isinstance(rng, (int, np.integer)) and not isinstance(rng, bool):
-        return np.random.default_rng(int(rng))
-    raise InputError(f"rng must be a numpy.random.Generator, an int seed or None; got {type(rng).__name__}.")
-
-
 # ---------------------------------------------------------------------------------------------
 # public functions
 # ---------------------------------------------------------------------------------------------
@@ -160,7 +145,7 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
     """
     _check_measure(K, measure, "centroid")
     t0 = time.perf_counter()
-    req = Request(K, measure, "centroid", as_generator(rng, 0), exact=exact, exact_max_dim=exact_max_dim,
+    req = Request(K, measure, "centroid", rng, default_seed=0, exact=exact, exact_max_dim=exact_max_dim,
                   samples=samples, chains=chains, burn_in=burn_in, thin=thin)
     method, out = choose(req)
     if out.warning:
@@ -199,13 +184,12 @@ def sample(K, k: int, measure: str = "volume", rng=None, *, details: bool = Fals
     if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or k < 0:
         raise InputError(f"sample on {K.node.label}: k must be an int >= 0; got {k!r}.")
     k = int(k)
-    t0 = time.perf_counter()
-    g = as_generator(rng)
+    t0 = time.perf_counter() if details else 0.0
     out_shape = (k,) + K.shape
     if k == 0:
         points, name, exact_draws, note = np.zeros(out_shape), "none", True, "k = 0: nothing drawn"
     else:
-        method, out = choose(Request(K, measure, "sample", g, k=k, exact_max_dim=exact_max_dim, chains=chains,
+        method, out = choose(Request(K, measure, "sample", rng, k=k, exact_max_dim=exact_max_dim, chains=chains,
                                      burn_in=burn_in, thin=thin))
         points, name, exact_draws, note = out.value.reshape(out_shape), method.name, method.exact_draws, out.note
     if not details:

@@ -28,7 +28,7 @@ Order (first that applies):
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, Callable, Optional
 
 import numpy as np
@@ -43,10 +43,31 @@ MEASURES = ("volume", "vertices", "directions")
 PURPOSES = ("centroid", "sample")
 
 
-@dataclass(frozen=True, eq=False)
+def _check_rng(rng):
+    if rng is None or isinstance(rng, np.random.Generator):
+        return
+    if not isinstance(rng, (int, np.integer)) or isinstance(rng, bool):
+        raise InputError(f"rng must be a numpy.random.Generator, an int seed or None; got {type(rng).__name__}.")
+
+
+def as_generator(rng, default_seed=None) -> np.random.Generator:
+    """A numpy Generator from a Generator, an int seed or None (``default_seed``, None: fresh entropy).
+
+    >>> int(as_generator(3).integers(10)) == int(as_generator(np.random.default_rng(3)).integers(10))
+    True
+    """
+    _check_rng(rng)
+    if isinstance(rng, np.random.Generator):
+        return rng
+    return np.random.default_rng(default_seed if rng is None else int(rng))
+
+
+@dataclass(eq=False, slots=True)
 class Request:
     """What is asked of the table: a centroid or ``k`` draws of ``K`` under ``measure``.
 
+    ``seed``: a Generator, an int seed or None (then ``default_seed``; None: fresh entropy),
+    checked at once and turned into :attr:`rng` only when a method draws.
     ``exact`` (centroid only): True refuses estimates, False skips exact methods, None takes the best
     available. ``samples`` (centroid estimates): number of draws, None for the method's default.
     ``chains``, ``burn_in``, ``thin``: hit-and-run settings (None for defaults).
@@ -55,7 +76,8 @@ class Request:
     K: Any
     measure: str
     purpose: str
-    rng: np.random.Generator
+    seed: Any = None
+    default_seed: Optional[int] = None
     k: int = 0
     exact: Optional[bool] = None
     exact_max_dim: int = EXACT_MAX_DIM
@@ -63,6 +85,19 @@ class Request:
     chains: Optional[int] = None
     burn_in: Optional[int] = None
     thin: Optional[int] = None
+    _generator: Optional[np.random.Generator] = field(default=None, init=False, repr=False)
+
+    def __post_init__(self):
+        _check_rng(self.seed)
+
+    @property
+    def rng(self) -> np.random.Generator:
+        """The random generator of the request, built on first use."""
+        if self._generator is None:      # the seed was checked on construction
+            seed = self.seed
+            self._generator = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(
+                self.default_seed if seed is None else int(seed))
+        return self._generator
 
     @property
     def asked(self) -> str:
@@ -70,7 +105,7 @@ class Request:
         return f"{self.purpose}(measure={self.measure!r}) on {self.K.node.label}"
 
 
-@dataclass(frozen=True, eq=False)
+@dataclass(eq=False, slots=True)
 class Outcome:
     """A method's answer: a flat centroid ``(dim,)`` or flat draws ``(k, dim)``, with its accuracy.
 
