@@ -138,12 +138,17 @@ def test_exact_true_refuses_instead_of_estimating():
     assert r.exact and r.method == "triangulation"
 
 
-def test_unknown_measure_names_the_closest_choice():
+def test_bad_arguments_say_where_and_the_closest_choice():
     K = SETS["simplex"]()
     with pytest.raises(InputError, match="closest: 'vertices'"):
         K.centroid("vertex")
     with pytest.raises(InputError, match="closest: 'directions'"):
         K.sample(3, "direction")
+    # the seed is checked even when no method draws (an exact centroid, or k = 0)
+    with pytest.raises(InputError, match=r"centroid\(measure='volume'\) on simplex: rng must be"):
+        K.centroid(rng=2.5)
+    with pytest.raises(InputError, match="sample.*got str"):
+        K.sample(0, rng="seed")
 
 
 def test_geometry_is_kept_beside_the_node_not_in_it():

@@ -186,11 +186,12 @@ def sample(K, k: int, measure: str = "volume", rng=None, *, details: bool = Fals
     k = int(k)
     t0 = time.perf_counter() if details else 0.0
     out_shape = (k,) + K.shape
+    req = Request(K, measure, "sample", rng, k=k, exact_max_dim=exact_max_dim, chains=chains, burn_in=burn_in,
+                  thin=thin)                    # checks rng even when nothing is drawn
     if k == 0:
         points, name, exact_draws, note = np.zeros(out_shape), "none", True, "k = 0: nothing drawn"
     else:
-        method, out = choose(Request(K, measure, "sample", rng, k=k, exact_max_dim=exact_max_dim, chains=chains,
-                                     burn_in=burn_in, thin=thin))
+        method, out = choose(req)
         points, name, exact_draws, note = out.value.reshape(out_shape), method.name, method.exact_draws, out.note
     if not details:
         return points

@@ -47,7 +47,8 @@ def _check_rng(rng):
     if rng is None or isinstance(rng, np.random.Generator):
         return
     if not isinstance(rng, (int, np.integer)) or isinstance(rng, bool):
-        raise InputError(f"rng must be a numpy.random.Generator, an int seed or None; got {type(rng).__name__}.")
+        raise InputError(f"rng must be a numpy.random.Generator, an int seed or None; got "
+                         f"{type(rng).__name__} {rng!r}.")
 
 
 def as_generator(rng, default_seed=None) -> np.random.Generator:
@@ -88,7 +89,10 @@ class Request:
     _generator: Optional[np.random.Generator] = field(default=None, init=False, repr=False)
 
     def __post_init__(self):
-        _check_rng(self.seed)
+        try:
+            _check_rng(self.seed)
+        except InputError as exc:
+            raise InputError(f"{self.asked}: {exc}") from None
 
     @property
     def rng(self) -> np.random.Generator:
