@@ -23,7 +23,7 @@ import pytest
 from scipy.optimize import linprog
 
 import setkit
-from setkit.errors import SetkitError, SolveError
+from setkit.errors import SolveError
 
 RNG_SEED = 20260
 # magnitudes: the edges and a seeded sample of the rest of -300..300
@@ -106,7 +106,6 @@ def _l1_exact(y, c, r):
     v = [Fr(a) - Fr(b) for a, b in zip(y, c)]
     if sum(abs(t) for t in v) <= Fr(r):
         return [Fr(a) for a in y]
-    mags = _simplex_exact([float(abs(t)) if False else abs(t) for t in v], r) if False else None
     a = [abs(t) for t in v]
     u = sorted(a, reverse=True)
     cs, tau = Fr(0), None

@@ -5,11 +5,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..description import MAX_SIZE
 from . import kernel, register
-
-MAX_SIDE = 10_000        # n^2 coordinates (edges of the bipartite network) within MAX_SIZE
 from .transport import Transport
+
+MAX_SIDE = 10_000        # n^2 coordinates (edges of the bipartite network) within description.MAX_SIZE
 
 
 @register("birkhoff")

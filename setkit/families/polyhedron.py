@@ -12,7 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-from ..errors import DescriptionError, EmptySetError, SolveError
+from ..errors import DescriptionError, EmptySetError
 from ..forms import LinearForm
 from . import Family, register
 
