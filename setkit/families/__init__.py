@@ -14,7 +14,7 @@ from .._discovery import import_submodules
 from ..errors import DescriptionError
 
 ENTRY_POINT_GROUP = "setkit.families"
-OPERATORS = ("project", "distance", "lmo", "support", "contains", "violation")
+OPERATORS = ("project", "distance", "lmo", "support", "contains", "violation", "project_kl")
 
 _FAMILIES: dict[str, type] = {}
 _loaded = False

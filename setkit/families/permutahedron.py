@@ -9,6 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..kernels.bregman import outside_orthant_error, permutahedron_kl
 from ..kernels.isotonic import project_permutahedron
 from . import Family, kernel, register
 
@@ -104,6 +105,20 @@ class Permutahedron(Family):
     def support(self, C):
         """Sorted c against sorted w (both increasing), O(n log n)."""
         return np.sort(C, axis=1) @ self._wa
+
+    def orthant_violation(self):
+        """None when every weight is >= 0 (the vertices are then nonnegative), else the smallest weight."""
+        if self._wa[0] < 0.0:
+            return f"the smallest weight is {self._wa[0]:.6g} < 0 (every weight must be >= 0)"
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Sort, then pool-adjacent-violators on the KL dual (block value logsumexp(t_B) - log sum w_B), exact, O(n log n)."""
+        why = self.orthant_violation()
+        if why:
+            raise outside_orthant_error(self.label, why)
+        return permutahedron_kl(T, self._wdesc)
 
     def _majorization_gap(self, X):
         ps_w = self._ps

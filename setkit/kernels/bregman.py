@@ -1,0 +1,637 @@
+"""Bregman projections for the generalized relative entropy (KL), on flat batches in the log domain.
+
+Every function here takes ``T``, a ``(b, dim)`` batch of t = log y (y > 0 implied),
+and returns X with rows
+
+    x = argmin_{x in K} KL(x || y),   KL(x || y) = sum_i x_i log(x_i / y_i) - x_i + y_i
+
+(0 log 0 = 0). Working from t rather than y keeps multiplicative updates
+(y = x * exp(-eta * gradient)) representable: t may be far outside [-745, 709],
+where exp(t) under- or overflows, and the answers stay exact to rounding.
+
+What each method rests on (first-order conditions of the problem above):
+
+* simplex {x >= 0, sum x = total}: x = total * softmax(t) (common practice);
+  mode at_most keeps x = y when sum y <= total.
+* box [lower, upper] with lower >= 0: separable, x = clip(y, lower, upper).
+* budget {lower <= x <= upper, <w, x> = total}: x_i = clip(y_i exp(-lam w_i), lower_i,
+  upper_i) for the multiplier lam of the weighted sum; the sum is monotone in lam,
+  and lam is found by randomized selection among the 2n breakpoints (expected
+  O(n)), then in closed form (equal weights) or by Newton's method on the last
+  smooth piece, where the sum is convex and decreasing (unequal weights).
+* permutahedron P(w), w >= 0: with t sorted decreasingly (s) and w sorted
+  decreasingly, x_sorted = exp(s - v) where v is the non-increasing minimizer of
+  sum_i exp(s_i - v_i) + w_i v_i (the dual of the majorization constraints; the
+  method of Lim & Wright 2016 for Bregman projections onto the permutahedron).
+  Pool-adjacent-violators solves it exactly; a block B takes the value
+  v_B = logsumexp(s_B) - log(sum_B w), so inside a block x is proportional to y
+  and sums to the block's weights. O(n log n) for the sort, O(n) for the pooling.
+* transport {X >= 0, X 1 = rows, X^T 1 = cols}: X = diag(u) Y diag(v) (Sinkhorn 1964),
+  found by Sinkhorn-Knopp scaling with the scalings absorbed into log-domain
+  potentials whenever they grow large (stabilized scaling), stopped on the measured
+  largest marginal residual.
+
+:func:`kl_certificate` gives the Bregman analogue of the Frank-Wolfe gap, an upper
+bound on KL(x || y) - KL(x* || y) computed from the set's linear minimization oracle.
+"""
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+from ..errors import InputError, SolveError, UnsupportedOperationError
+from .isotonic import decreasing_order
+
+__all__ = ["kl_divergence", "kl_certificate", "simplex_kl", "box_kl", "budget_kl",
+           "permutahedron_kl", "sinkhorn_kl"]
+
+TINY = float(np.finfo(float).smallest_subnormal)
+
+
+def outside_orthant_error(label, why):
+    """The error for a KL projection asked of a set that is not inside the nonnegative orthant."""
+    return UnsupportedOperationError(
+        f"project_kl on {label}: the KL (relative entropy) projection needs a set inside the nonnegative "
+        f"orthant x >= 0, but {why}. Use the Euclidean projection, or intersect the set with {{x >= 0}} "
+        f"(a box with lower bound 0).")
+
+
+# -- values and certificates ---------------------------------------------------------------------
+def kl_divergence(T, X):
+    """Generalized relative entropy KL(x || exp(t)) of each row, (b,).
+
+    sum_i x_i (log x_i - t_i) - x_i + exp(t_i), with 0 log 0 = 0; inf where exp(t)
+    overflows. O(n).
+
+    >>> import numpy as np
+    >>> float(kl_divergence(np.log([[1.0, 2.0]]), np.array([[1.0, 2.0]]))[0])
+    0.0
+    """
+    T = np.asarray(T, dtype=float)
+    X = np.asarray(X, dtype=float)
+    pos = X > 0
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        xlog = np.where(pos, X * (np.log(np.where(pos, X, 1.0)) - T), 0.0)
+        return (xlog - X + np.exp(T)).sum(axis=1)
+
+
+def kl_gradient(T, X):
+    """The gradient log x - t of x -> KL(x || exp(t)), with underflowed zeros read as the smallest double.
+
+    A coordinate that rounded to 0 holds a true value below the smallest subnormal
+    (about 5e-324), so log x is taken as log(5e-324) there; the certificate then
+    ignores terms below that size instead of reporting an infinite gradient.
+    """
+    return np.log(np.maximum(X, TINY)) - T
+
+
+def kl_certificate(T, X, lmo_fn):
+    """Bregman analogue of the Frank-Wolfe gap of X as KL projections of exp(T), (b,).
+
+    For F(x) = KL(x || y), y = exp(t), and g = grad F(x) = log x - t,
+
+        gap(x) = <g, x> - min_{v in K} <g, v> = <g, x - lmo(g)>  >=  F(x) - F(x*)
+
+    by convexity of F (x in K assumed). It is 0 exactly at the projection; rounding
+    leaves terms of order eps * sum_i |g_i| (x_i + v_i). One call of ``lmo_fn``, O(n).
+
+    Parameters
+    ----------
+    T : (b, n) log-domain inputs t = log y.
+    X : (b, n) candidate projections (points of K, >= 0).
+    lmo_fn : callable mapping a (b, n) batch of directions to (b, n) minimizers over K.
+
+    >>> import numpy as np
+    >>> t = np.array([[0.0, 1.0, 2.0]])
+    >>> x = np.exp(t) / np.exp(t).sum()
+    >>> lmo = lambda G: np.eye(3)[np.argmin(G, axis=1)]
+    >>> abs(float(kl_certificate(t, x, lmo)[0])) < 1e-14
+    True
+    """
+    T = np.asarray(T, dtype=float)
+    X = np.asarray(X, dtype=float)
+    G = kl_gradient(T, X)
+    V = np.asarray(lmo_fn(G), dtype=float)
+    return np.einsum("ij,ij->i", G, X - V)
+
+
+# -- simplex and box ------------------------------------------------------------------------------
+def simplex_kl(T, total, at_most=False):
+    """KL projection of exp(t) onto {x >= 0, sum x = total} (or <= total), exact, O(n) per row.
+
+    x = total * softmax(t), computed as exp(t - m) * total / sum exp(t - m) with
+    m = max t (no overflow); at_most: x = exp(t) when logsumexp(t) <= log total.
+
+    >>> import numpy as np
+    >>> simplex_kl(np.log([[1.0, 3.0]]), 2.0).tolist()
+    [[0.5, 1.5]]
+    """
+    T = np.asarray(T, dtype=float)
+    b, n = T.shape
+    if total <= 0.0 or n == 0:
+        return np.zeros_like(T)
+    m = T.max(axis=1, keepdims=True)
+    E = np.exp(T - m)
+    S = E.sum(axis=1, keepdims=True)
+    X = E * (total / S)
+    if at_most:
+        # sum y <= total  <=>  m + log S <= log total
+        keep = (m[:, 0] + np.log(S[:, 0])) <= np.log(total)
+        if keep.any():
+            X[keep] = np.exp(T[keep])
+    return X
+
+
+def box_kl(T, lower, upper, label="box"):
+    """KL projection of exp(t) onto [lower, upper] (lower >= 0): x = clip(exp(t), lower, upper), O(n).
+
+    Raises InputError when a coordinate without an upper bound would take the value
+    exp(t_i) > 1.8e308 (the answer is not a float64 number).
+
+    >>> import numpy as np
+    >>> box_kl(np.log([[0.5, 4.0]]), np.array([1.0, 0.0]), np.array([2.0, 3.0])).tolist()
+    [[1.0, 3.0]]
+    """
+    T = np.asarray(T, dtype=float)
+    with np.errstate(over="ignore"):
+        X = np.clip(np.exp(T), lower, upper)
+    if not np.isfinite(X).all():
+        i, j = (int(v) for v in np.argwhere(~np.isfinite(X))[0])
+        raise InputError(f"project_kl on {label}: coordinate {j} has no upper bound and log input "
+                         f"t = {T[i, j]:.6g} (row {i}), so the projection exp(t) overflows float64; "
+                         f"log inputs must stay below 709.78 on unbounded coordinates.")
+    return X
+
+
+# -- budget: capped, weighted simplex -------------------------------------------------------------
+@njit(cache=True)
+def _xorshift(state):
+    state ^= (state << np.uint64(13)) & np.uint64(0xFFFFFFFFFFFFFFFF)
+    state ^= state >> np.uint64(7)
+    state ^= (state << np.uint64(17)) & np.uint64(0xFFFFFFFFFFFFFFFF)
+    return state
+
+
+@njit(cache=True)
+def _clip_exp(v, lo, hi):
+    e = np.exp(v)
+    if e < lo:
+        return lo
+    if e > hi:
+        return hi
+    return e
+
+
+@njit(cache=True)
+def _budget_row(t, lo, hi, w, total, at_most, uniform, seed, x, idx, free, a, bb):
+    """One row of the budget KL projection; writes x, returns (status, lam).
+
+    status 0: solved; 1: the final Newton search did not settle.
+    """
+    n = t.size
+    # fixed coordinates (lower == upper) are constants; the others are active
+    const = 0.0
+    na = 0
+    wlo = 0.0
+    whi = 0.0
+    for i in range(n):
+        if lo[i] == hi[i]:
+            const += w[i] * lo[i]
+            x[i] = lo[i]
+        else:
+            idx[na] = i
+            na += 1
+            wlo += w[i] * lo[i]
+            whi += w[i] * hi[i]
+    target = total - const
+    if na == 0:
+        return 0, 0.0
+    if target <= wlo:
+        for k in range(na):
+            x[idx[k]] = lo[idx[k]]
+        return 0, np.inf
+    if (not at_most) and target >= whi:
+        for k in range(na):
+            x[idx[k]] = hi[idx[k]]
+        return 0, -np.inf
+    L = -np.inf
+    R = np.inf
+    if at_most:
+        g0 = 0.0
+        for k in range(na):
+            i = idx[k]
+            g0 += w[i] * _clip_exp(t[i], lo[i], hi[i])
+        if g0 <= target:
+            for k in range(na):
+                i = idx[k]
+                x[i] = _clip_exp(t[i], lo[i], hi[i])
+            return 0, 0.0
+        L = 0.0
+    # breakpoints: at the upper bound for lam <= a_i, at the lower bound for lam >= b_i
+    m = -np.inf
+    for k in range(na):
+        i = idx[k]
+        a[i] = (t[i] - np.log(hi[i])) / w[i]    # -inf when hi = inf
+        bb[i] = (t[i] - np.log(lo[i])) / w[i]   # +inf when lo = 0
+        if t[i] > m:
+            m = t[i]
+    w0 = w[idx[0]]
+    cst = 0.0         # contribution of coordinates settled at a bound over (L, R)
+    nf = 0            # coordinates free over all of (L, R)
+    S = 0.0           # equal weights: sum over free coordinates of exp(t_i - m)
+    state = np.uint64(seed) * np.uint64(2654435761) + np.uint64(88172645463325252)
+    first = True
+    while na > 0:
+        if not first:
+            # choose a breakpoint inside (L, R) of a random active coordinate
+            state = _xorshift(state)
+            j = idx[np.int64(state % np.uint64(na))]
+            ina = L < a[j] < R
+            inb = L < bb[j] < R
+            if ina and inb:
+                state = _xorshift(state)
+                p = a[j] if (state & np.uint64(1)) else bb[j]
+            elif ina:
+                p = a[j]
+            else:
+                p = bb[j]
+            val = cst
+            if uniform:
+                if S > 0.0:
+                    val += w0 * S * np.exp(m - p * w0)
+            else:
+                for k in range(nf):
+                    i = free[k]
+                    val += w[i] * np.exp(t[i] - p * w[i])
+            for k in range(na):
+                i = idx[k]
+                val += w[i] * _clip_exp(t[i] - p * w[i], lo[i], hi[i])
+            if val > target:
+                L = p
+            elif val < target:
+                R = p
+            else:
+                L = p
+                R = p
+        first = False
+        # settle the coordinates with no breakpoint inside (L, R)
+        keep = 0
+        for k in range(na):
+            i = idx[k]
+            if (L < a[i] < R) or (L < bb[i] < R):
+                idx[keep] = i
+                keep += 1
+            elif bb[i] <= L:
+                cst += w[i] * lo[i]
+            elif a[i] >= R:
+                cst += w[i] * hi[i]
+            else:
+                free[nf] = i
+                nf += 1
+                if uniform:
+                    S += np.exp(t[i] - m)
+        na = keep
+    rem = target - cst
+    lam = 0.0
+    status = 0
+    if nf == 0 or rem <= 0.0:
+        # the sum is constant between the last breakpoints: the root is a breakpoint
+        lam = R if R < np.inf else L
+    elif uniform:
+        # w0 * S * exp(m - lam w0) = rem; write x without forming lam (no cancellation)
+        shift = np.log(rem / (w0 * S))
+        lam = (m - shift) / w0
+        if lam < L:
+            lam = L
+        if lam > R:
+            lam = R
+    else:
+        # sum_F w_i exp(t_i - lam w_i) = rem: convex and decreasing in lam, so Newton's method started
+        # left of the root climbs to it monotonically. Start: each term <= rem there.
+        lam = -np.inf
+        for k in range(nf):
+            i = free[k]
+            v = (t[i] - np.log(rem / w[i])) / w[i]
+            if v > lam:
+                lam = v
+        if lam < L:
+            lam = L
+        status = 1
+        for _ in range(200):
+            h = -rem
+            dh = 0.0
+            for k in range(nf):
+                i = free[k]
+                e = w[i] * np.exp(t[i] - lam * w[i])
+                h += e
+                dh -= w[i] * e
+            if h <= 4e-16 * rem * (1.0 + nf ** 0.5) or dh == 0.0:
+                status = 0
+                break
+            step = h / dh
+            nxt = lam - step
+            if nxt >= R:
+                nxt = R
+            if nxt <= lam:
+                status = 0
+                break
+            lam = nxt
+    for k in range(n):
+        if lo[k] == hi[k]:
+            continue
+        if uniform and nf > 0 and rem > 0.0 and a[k] <= lam <= bb[k]:
+            x[k] = _clip_exp(t[k] - m + np.log(rem / (w0 * S)), lo[k], hi[k])
+        else:
+            x[k] = _clip_exp(t[k] - lam * w[k], lo[k], hi[k])
+    return status, lam
+
+
+@njit(cache=True)
+def _budget_rows(T, lo, hi, w, total, at_most, uniform, X, status):
+    b, n = T.shape
+    idx = np.empty(n, np.int64)
+    free = np.empty(n, np.int64)
+    a = np.empty(n)
+    bb = np.empty(n)
+    for r in range(b):
+        st, _ = _budget_row(T[r], lo, hi, w, total, at_most, uniform, r + 1, X[r], idx, free, a, bb)
+        status[r] = st
+
+
+def budget_kl(T, lower, upper, weights, total, at_most=False, label="budget"):
+    """KL projection of exp(t) onto {lower <= x <= upper, <w, x> = total (or <= total)}, lower >= 0, w > 0.
+
+    x_i = clip(exp(t_i - lam w_i), lower_i, upper_i) with the multiplier lam >= 0
+    (at_most) or free (equal) of the weighted sum; the sum is non-increasing in lam.
+    Randomized selection among the breakpoints brackets lam between two of them
+    (expected O(n)); equal weights then give lam in closed form, unequal weights by
+    Newton's method on the convex last piece. The weighted sum of the answer is
+    measured; a relative residual above 1e-10 raises SolveError.
+
+    >>> import numpy as np
+    >>> budget_kl(np.log([[4.0, 1.0, 1.0]]), np.zeros(3), np.full(3, 0.5), np.ones(3), 1.0).tolist()
+    [[0.5, 0.25, 0.25]]
+    """
+    T = np.ascontiguousarray(T, dtype=float)
+    b, n = T.shape
+    lo = np.ascontiguousarray(np.broadcast_to(lower, (n,)), dtype=float)
+    hi = np.ascontiguousarray(np.broadcast_to(upper, (n,)), dtype=float)
+    w = np.ascontiguousarray(np.broadcast_to(weights, (n,)), dtype=float)
+    uniform = bool(n == 0 or np.all(w == w[0]))
+    X = np.empty_like(T)
+    status = np.zeros(b, np.int64)
+    _budget_rows(T, lo, hi, w, float(total), bool(at_most), uniform, X, status)
+    if not np.isfinite(X).all():
+        i, j = (int(v) for v in np.argwhere(~np.isfinite(X))[0])
+        raise InputError(f"project_kl on {label}: the answer overflows float64 at coordinate {j} (row {i}, "
+                         f"log input {T[i, j]:.6g}); log inputs must stay below 709.78 on coordinates "
+                         f"without an upper bound.")
+    s = X @ w
+    scale = np.maximum(np.abs(X) @ w, abs(total)).clip(min=1e-300)
+    resid = (s - total) if at_most else np.abs(s - total)
+    bad = np.flatnonzero((status != 0) | (resid > 1e-10 * scale))
+    if bad.size:
+        i = int(bad[0])
+        raise SolveError(f"project_kl on {label}: the weighted sum of the answer misses total = {total:g} by "
+                         f"{resid[i]:.3g} (row {i}, search status {int(status[i])}); allowed "
+                         f"{1e-10 * scale[i]:.3g}.", status="not_converged")
+    return X
+
+
+# -- permutahedron ----------------------------------------------------------------------------------
+@njit(cache=True)
+def _permutahedron_kl_rows(T, order, wdesc, out):
+    """Pool-adjacent-violators on v_B = logsumexp(s_B) - log(sum_B w), per row (s = t sorted decreasingly)."""
+    b, n = T.shape
+    s = np.empty(n)
+    mx = np.empty(n)      # block maximum of s (its first entry: s is sorted decreasingly)
+    se = np.empty(n)      # sum over the block of exp(s_i - mx)
+    ws = np.empty(n)      # sum of the block's weights
+    gam = np.empty(n)     # block value logsumexp(s_B) - log(sum_B w)
+    cnt = np.empty(n, np.int64)
+    for r in range(b):
+        for i in range(n):
+            s[i] = T[r, order[r, i]]
+        nb = 0
+        for i in range(n):
+            mx[nb] = s[i]
+            se[nb] = 1.0
+            ws[nb] = wdesc[i]
+            gam[nb] = s[i] - np.log(wdesc[i])          # +inf for a zero weight
+            cnt[nb] = 1
+            nb += 1
+            # v must be non-increasing: merge while the previous block's value is below the last one's
+            while nb > 1 and gam[nb - 2] < gam[nb - 1]:
+                p = nb - 2
+                q = nb - 1
+                se[p] = se[p] + se[q] * np.exp(mx[q] - mx[p])
+                ws[p] = ws[p] + ws[q]
+                cnt[p] += cnt[q]
+                gam[p] = mx[p] + np.log(se[p]) - np.log(ws[p])
+                nb -= 1
+        k = 0
+        for blk in range(nb):
+            # x_i = exp(s_i - gam) = exp(s_i - mx) * ws / se
+            c = np.log(ws[blk]) - np.log(se[blk])
+            for _ in range(cnt[blk]):
+                out[r, order[r, k]] = np.exp(s[k] - mx[blk] + c)
+                k += 1
+
+
+def permutahedron_kl(T, wdesc):
+    """KL projection of exp(t) onto the permutahedron of w >= 0 (``wdesc``: w sorted decreasingly).
+
+    Sort t decreasingly (s), then pool-adjacent-violators for the non-increasing v
+    minimizing sum_i exp(s_i - v_i) + w_i v_i; a block's value is
+    logsumexp(s_B) - log(sum_B w) and x_sorted = exp(s - v). Exact, O(n log n) per row.
+
+    >>> import numpy as np
+    >>> permutahedron_kl(np.log([[100.0, 1.0, 1.0]]), np.array([3.0, 2.0, 1.0])).round(12).tolist()
+    [[3.0, 1.5, 1.5]]
+    """
+    T = np.ascontiguousarray(T, dtype=float)
+    b, n = T.shape
+    if b == 1:
+        order = decreasing_order(T[0])[None, :]
+    else:
+        order = np.argsort(-T, axis=1, kind="stable")
+    out = np.empty_like(T)
+    _permutahedron_kl_rows(T, np.ascontiguousarray(order), np.ascontiguousarray(wdesc, dtype=float), out)
+    return out
+
+
+# -- transport and Birkhoff: Sinkhorn-Knopp ---------------------------------------------------------
+def _lse(A, axis):
+    m = A.max(axis=axis, keepdims=True)
+    m = np.where(np.isfinite(m), m, 0.0)
+    return (m + np.log(np.exp(A - m).sum(axis=axis, keepdims=True))).squeeze(axis)
+
+
+def _sinkhorn_one(t, r, c, tol, max_iterations, absorb_at=1e12):
+    """One m x n log-input matrix with positive margins; returns (X, iterations, residual, converged)."""
+    logr, logc = np.log(r), np.log(c)
+    # one exact log-domain sweep: rows, then columns
+    f = logr - _lse(t, 1)
+    g = logc - _lse(t + f[:, None], 0)
+    it = 0
+    res = np.inf
+    lo, hi = 1.0 / absorb_at, absorb_at
+    while True:
+        K = np.exp(t + f[:, None] + g[None, :])     # columns sum to c (up to rounding)
+        u = np.ones(r.size)
+        v = np.ones(c.size)
+        absorb = False
+        while it < max_iterations:
+            Kv = K @ v
+            # X = diag(u) K diag(v) has exact column sums after the v-update: the row sums decide
+            res = float(np.abs(u * Kv - r).max())
+            if res <= tol:
+                break
+            it += 1
+            with np.errstate(divide="ignore", over="ignore"):
+                u = r / Kv
+                v = c / (K.T @ u)
+            if not (np.all((u > lo) & (u < hi)) and np.all((v > lo) & (v < hi))):
+                absorb = True
+                break
+        if absorb:
+            # move the column scalings into the potentials (where finite) and continue with an exact
+            # log-domain sweep: f from g, then g from f (one Sinkhorn iteration in the log domain)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                gg = g + np.log(v)
+            gg = np.where(np.isfinite(gg), gg, g)
+            f = logr - _lse(t + gg[None, :], 1)
+            g = logc - _lse(t + f[:, None], 0)
+            continue
+        break
+    X = (u[:, None] * K) * v[None, :]
+    with np.errstate(divide="ignore"):
+        return X, it, res, res <= tol, f + np.log(u), g + np.log(v)
+
+
+def _dual_newton(t, r, c, f, g, tol, max_steps=100):
+    """Damped Newton's method on the dual of the transport KL projection, from potentials f, g.
+
+    Minimizes D(f, g) = sum_ij exp(t_ij + f_i + g_j) - <r, f> - <c, g>, whose gradient is the
+    marginal residual of X = exp(t + f + g); the Newton system is reduced to the columns
+    (Schur complement, one potential fixed since (f + a, g - a) is a symmetry), with
+    backtracking (Armijo). Used when Sinkhorn scaling stalls (nearly decomposable
+    matrices); O((m + n) n^2) per step. Returns (X, steps, residual, converged).
+    """
+    m, n = r.size, c.size
+    eps = np.finfo(float).eps
+    if not (np.isfinite(f).all() and np.isfinite(g).all()):
+        f = np.log(r) - _lse(t, 1)
+        g = np.log(c) - _lse(t + f[:, None], 0)
+    with np.errstate(over="ignore"):
+        X = np.exp(t + f[:, None] + g[None, :])
+    res = np.inf
+    for k in range(max_steps + 1):
+        rs, cs = X.sum(axis=1), X.sum(axis=0)
+        gr, gc = rs - r, cs - c
+        res = max(float(np.abs(gr).max()), float(np.abs(gc).max()))
+        if res <= tol:
+            return X, k, res, True
+        if k == max_steps or not np.isfinite(res):
+            break
+        Xr = X[:, : n - 1]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            S = np.diag(cs[: n - 1]) - (Xr.T / rs) @ Xr
+            rhs = -gc[: n - 1] + Xr.T @ (gr / rs)
+        try:
+            dg = np.linalg.solve(S, rhs) if n > 1 else np.zeros(0)
+        except np.linalg.LinAlgError:
+            dg = np.linalg.lstsq(S, rhs, rcond=None)[0]
+        df = -(gr + Xr @ dg) / rs
+        dgf = np.append(dg, 0.0)
+        if not (np.isfinite(df).all() and np.isfinite(dgf).all()):
+            break
+        D0 = X.sum() - r @ f - c @ g
+        slope = gr @ df + gc @ dgf
+        noise = 64 * eps * (X.sum() + abs(r @ f) + abs(c @ g))
+        step = 1.0
+        while True:
+            fn, gn = f + step * df, g + step * dgf
+            with np.errstate(over="ignore", invalid="ignore"):
+                Xn = np.exp(t + fn[:, None] + gn[None, :])
+                Dn = Xn.sum() - r @ fn - c @ gn
+            if np.isfinite(Dn) and Dn <= D0 + 1e-4 * step * slope + noise:
+                break
+            step *= 0.5
+            if step < 1e-12:
+                return X, k, res, False
+        f, g, X = fn, gn, Xn
+    return X, max_steps, res, False
+
+
+def sinkhorn_kl(T, rows, cols, accuracy=1e-10, max_iterations=20_000, label="transport", newton_after=1000,
+               newton_size=3000):
+    """KL projection of exp(t) onto {X >= 0, X 1 = rows, X^T 1 = cols} by Sinkhorn-Knopp scaling.
+
+    By Sinkhorn's theorem the answer is diag(u) Y diag(v). Potentials f, g with
+    log X = t + f_i + g_j start from one exact log-domain sweep; then the scalings
+    u = rows / (K v), v = cols / (K^T u) of K = exp(t + f + g) run with two
+    matrix-vector products per iteration, and are absorbed into f, g (followed by
+    another log-domain sweep) when they leave [1e-12, 1e12]. Stopping rule: the
+    largest row-sum residual (column sums are exact after each column update) at
+    most ``accuracy * max(1, max margin)``; the returned matrix's row and column
+    residuals are measured again. O(m n) per iteration. Zero margins give zero rows
+    or columns. When ``newton_after`` iterations do not reach the accuracy (slow linear
+    convergence of nearly decomposable matrices) and m + n <= ``newton_size``, damped
+    Newton steps on the same dual finish the job (the answer keeps the diagonal-scaling
+    form); larger matrices continue scaling. Raises SolveError when the accuracy is
+    not reached.
+
+    Returns
+    -------
+    X : (b, m n) answers; info : dict with per-row status, iterations,
+    backend_status (the measured residual) and residual (array).
+
+    >>> import numpy as np
+    >>> X, info = sinkhorn_kl(np.zeros((1, 4)), np.array([1.0, 1.0]), np.array([0.5, 1.5]))
+    >>> X.round(12).tolist()
+    [[0.25, 0.75, 0.25, 0.75]]
+    """
+    T = np.asarray(T, dtype=float)
+    rows = np.asarray(rows, dtype=float)
+    cols = np.asarray(cols, dtype=float)
+    m, n = rows.size, cols.size
+    b = T.shape[0]
+    scale = max(1.0, float(rows.max(initial=0.0)), float(cols.max(initial=0.0)))
+    tol = accuracy * scale
+    ri = np.flatnonzero(rows > 0)
+    ci = np.flatnonzero(cols > 0)
+    out = np.zeros((b, m, n))
+    iters, resids, hows = [], np.zeros(b), []
+    for k in range(b):
+        if ri.size == 0 or ci.size == 0:
+            iters.append(0)
+            hows.append("zero margins: the zero matrix")
+            continue
+        t = T[k].reshape(m, n)[np.ix_(ri, ci)]
+        r_, c_ = rows[ri], cols[ci]
+        X, it, res, ok, f, g = _sinkhorn_one(t, r_, c_, tol, min(max_iterations, newton_after))
+        how = f"Sinkhorn, {it} iterations"
+        if not ok and ri.size + ci.size <= newton_size:
+            # slow linear convergence (a nearly decomposable matrix): damped Newton on the same dual
+            X, steps, res, ok = _dual_newton(t, r_, c_, f, g, tol)
+            it += steps
+            how += f" + dual Newton, {steps} steps"
+        elif not ok and max_iterations > newton_after:
+            X, it2, res, ok, _, _ = _sinkhorn_one(t + f[:, None] + g[None, :], r_, c_, tol,
+                                                  max_iterations - newton_after)
+            it += it2
+            how = f"Sinkhorn, {it} iterations"
+        full = np.zeros((m, n))
+        full[np.ix_(ri, ci)] = X
+        measured = max(float(np.abs(full.sum(axis=1) - rows).max()), float(np.abs(full.sum(axis=0) - cols).max()))
+        if not ok or not np.isfinite(measured) or measured > tol:
+            raise SolveError(f"project_kl on {label}: Sinkhorn scaling stopped after {it} iterations with "
+                             f"marginal residual {max(res, measured):.3g} (row {k}); required "
+                             f"{tol:.3g} = accuracy {accuracy:g} x scale {scale:g}.", status="not_converged")
+        out[k] = full
+        iters.append(it)
+        resids[k] = measured
+        hows.append(f"{how}: marginal residual {measured:.2e}")
+    info = {"status": ["solved"] * b, "iterations": iters, "backend_status": hows, "residual": resids}
+    return out.reshape(b, m * n), info
