@@ -45,7 +45,7 @@ from .isotonic import decreasing_order
 __all__ = ["kl_divergence", "kl_certificate", "simplex_kl", "box_kl", "budget_kl",
            "permutahedron_kl", "sinkhorn_kl"]
 
-TINY = float(np.finfo(float).smallest_subnormal)
+NORMAL = float(np.finfo(float).tiny)     # smallest normal double, 2.2e-308
 
 
 def outside_orthant_error(label, why):
@@ -76,13 +76,13 @@ def kl_divergence(T, X):
 
 
 def kl_gradient(T, X):
-    """The gradient log x - t of x -> KL(x || exp(t)), with underflowed zeros read as the smallest double.
+    """The gradient log x - t of x -> KL(x || exp(t)) at max(x, 2.2e-308).
 
-    A coordinate that rounded to 0 holds a true value below the smallest subnormal
-    (about 5e-324), so log x is taken as log(5e-324) there; the certificate then
-    ignores terms below that size instead of reporting an infinite gradient.
+    Below the smallest normal double (2.2e-308) a float has lost precision and log x is
+    inaccurate (0 after an underflow), so such coordinates are read as 2.2e-308: the
+    gradient is then that of a point within n * 2.2e-308 of x.
     """
-    return np.log(np.maximum(X, TINY)) - T
+    return np.log(np.maximum(X, NORMAL)) - T
 
 
 def kl_certificate(T, X, lmo_fn):
@@ -93,7 +93,9 @@ def kl_certificate(T, X, lmo_fn):
         gap(x) = <g, x> - min_{v in K} <g, v> = <g, x - lmo(g)>  >=  F(x) - F(x*)
 
     by convexity of F (x in K assumed). It is 0 exactly at the projection; rounding
-    leaves terms of order eps * sum_i |g_i| (x_i + v_i). One call of ``lmo_fn``, O(n).
+    leaves terms of order eps * sum_i |g_i| (x_i + v_i). Coordinates below 2.2e-308 are
+    read as 2.2e-308 (see :func:`kl_gradient`), which moves the bound by terms of order
+    n * 2.2e-308 * max |g|. One call of ``lmo_fn``, O(n).
 
     Parameters
     ----------
@@ -109,7 +111,7 @@ def kl_certificate(T, X, lmo_fn):
     True
     """
     T = np.asarray(T, dtype=float)
-    X = np.asarray(X, dtype=float)
+    X = np.maximum(np.asarray(X, dtype=float), NORMAL)
     G = kl_gradient(T, X)
     V = np.asarray(lmo_fn(G), dtype=float)
     return np.einsum("ij,ij->i", G, X - V)
@@ -164,7 +166,7 @@ def box_kl(T, lower, upper, label="box"):
 
 
 # -- budget: capped, weighted simplex -------------------------------------------------------------
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _xorshift(state):
     state ^= (state << np.uint64(13)) & np.uint64(0xFFFFFFFFFFFFFFFF)
     state ^= state >> np.uint64(7)
@@ -172,7 +174,7 @@ def _xorshift(state):
     return state
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _clip_exp(v, lo, hi):
     e = np.exp(v)
     if e < lo:
@@ -182,8 +184,8 @@ def _clip_exp(v, lo, hi):
     return e
 
 
-@njit(cache=True)
-def _budget_row(t, lo, hi, w, total, at_most, uniform, seed, x, idx, free, a, bb):
+@njit(cache=True, error_model="numpy")
+def _budget_row(t, lo, hi, w, total, at_most, uniform, seed, x, idx, free, a, bb, side):
     """One row of the budget KL projection; writes x, returns (status, lam).
 
     status 0: solved; 1: the final Newton search did not settle.
@@ -228,17 +230,15 @@ def _budget_row(t, lo, hi, w, total, at_most, uniform, seed, x, idx, free, a, bb
             return 0, 0.0
         L = 0.0
     # breakpoints: at the upper bound for lam <= a_i, at the lower bound for lam >= b_i
-    m = -np.inf
     for k in range(na):
         i = idx[k]
         a[i] = (t[i] - np.log(hi[i])) / w[i]    # -inf when hi = inf
         bb[i] = (t[i] - np.log(lo[i])) / w[i]   # +inf when lo = 0
-        if t[i] > m:
-            m = t[i]
+    m = -np.inf       # equal weights: the largest t among the free coordinates
     w0 = w[idx[0]]
     cst = 0.0         # contribution of coordinates settled at a bound over (L, R)
     nf = 0            # coordinates free over all of (L, R)
-    S = 0.0           # equal weights: sum over free coordinates of exp(t_i - m)
+    S = 0.0           # equal weights: sum over the free coordinates of exp(t_i - m)
     state = np.uint64(seed) * np.uint64(2654435761) + np.uint64(88172645463325252)
     first = True
     while na > 0:
@@ -283,13 +283,20 @@ def _budget_row(t, lo, hi, w, total, at_most, uniform, seed, x, idx, free, a, bb
                 keep += 1
             elif bb[i] <= L:
                 cst += w[i] * lo[i]
+                side[i] = 0
             elif a[i] >= R:
                 cst += w[i] * hi[i]
+                side[i] = 1
             else:
+                side[i] = 2
                 free[nf] = i
                 nf += 1
                 if uniform:
-                    S += np.exp(t[i] - m)
+                    if t[i] > m:
+                        S = S * np.exp(m - t[i]) + 1.0
+                        m = t[i]
+                    else:
+                        S += np.exp(t[i] - m)
         na = keep
     rem = target - cst
     lam = 0.0
@@ -336,25 +343,33 @@ def _budget_row(t, lo, hi, w, total, at_most, uniform, seed, x, idx, free, a, bb
                 status = 0
                 break
             lam = nxt
+    # write the answer from the settled sides (not from lam, which rounding may put on a breakpoint)
+    if uniform and nf > 0 and rem > 0.0:
+        shift = np.log(rem / (w0 * S)) - m
     for k in range(n):
         if lo[k] == hi[k]:
             continue
-        if uniform and nf > 0 and rem > 0.0 and a[k] <= lam <= bb[k]:
-            x[k] = _clip_exp(t[k] - m + np.log(rem / (w0 * S)), lo[k], hi[k])
+        if side[k] == 0:
+            x[k] = lo[k]
+        elif side[k] == 1:
+            x[k] = hi[k]
+        elif uniform and rem > 0.0:
+            x[k] = _clip_exp(t[k] + shift, lo[k], hi[k])
         else:
             x[k] = _clip_exp(t[k] - lam * w[k], lo[k], hi[k])
     return status, lam
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _budget_rows(T, lo, hi, w, total, at_most, uniform, X, status):
     b, n = T.shape
     idx = np.empty(n, np.int64)
     free = np.empty(n, np.int64)
     a = np.empty(n)
     bb = np.empty(n)
+    side = np.empty(n, np.int8)      # 0: at the lower bound, 1: at the upper bound, 2: free
     for r in range(b):
-        st, _ = _budget_row(T[r], lo, hi, w, total, at_most, uniform, r + 1, X[r], idx, free, a, bb)
+        st, _ = _budget_row(T[r], lo, hi, w, total, at_most, uniform, r + 1, X[r], idx, free, a, bb, side)
         status[r] = st
 
 
@@ -399,7 +414,7 @@ def budget_kl(T, lower, upper, weights, total, at_most=False, label="budget"):
 
 
 # -- permutahedron ----------------------------------------------------------------------------------
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _permutahedron_kl_rows(T, order, wdesc, out):
     """Pool-adjacent-violators on v_B = logsumexp(s_B) - log(sum_B w), per row (s = t sorted decreasingly)."""
     b, n = T.shape
