@@ -96,6 +96,8 @@ class Budget(Family):
         object.__setattr__(self, "_room", room)
         object.__setattr__(self, "_caps", np.minimum(self.upper, self.lower + room / self.weights))
         object.__setattr__(self, "_lip", float(max(1.0, np.linalg.norm(self.weights))))
+        with np.errstate(divide="ignore", invalid="ignore"):   # the KL projection's breakpoints use the logs of the bounds
+            object.__setattr__(self, "_log_bounds", (np.log(self.lower), np.log(self.upper)))
 
     def cvxpy_constraints(self, x):
         cons = [x >= self.lower]
@@ -172,7 +174,8 @@ class Budget(Family):
         why = self.orthant_violation()
         if why:
             raise outside_orthant_error(self.label, why)
-        return budget_kl(T, self.lower, self.upper, self.weights, self.total, self.mode == "at_most", self.label)
+        return budget_kl(T, self.lower, self.upper, self.weights, self.total, self.mode == "at_most", self.label,
+                         self._log_bounds)
 
     @kernel("violation")
     def violation(self, X):
