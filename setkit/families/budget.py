@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
-from ..kernels.bregman import budget_kl, outside_orthant_error
+from ..kernels.bregman import budget_kl, budget_structure, outside_orthant_error
 from ..kernels.simplex import knapsack_lmo_rows, project_capped
 from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation
 from . import Family, kernel, register
@@ -98,6 +98,7 @@ class Budget(Family):
         object.__setattr__(self, "_lip", float(max(1.0, np.linalg.norm(self.weights))))
         with np.errstate(divide="ignore", invalid="ignore"):   # the KL projection's breakpoints use the logs of the bounds
             object.__setattr__(self, "_log_bounds", (np.log(self.lower), np.log(self.upper)))
+        object.__setattr__(self, "_kl_structure", budget_structure(self.lower, self.upper, self.weights))
 
     def cvxpy_constraints(self, x):
         cons = [x >= self.lower]
@@ -175,7 +176,7 @@ class Budget(Family):
         if why:
             raise outside_orthant_error(self.label, why)
         return budget_kl(T, self.lower, self.upper, self.weights, self.total, self.mode == "at_most", self.label,
-                         self._log_bounds)
+                         self._log_bounds, self._kl_structure)
 
     @kernel("violation")
     def violation(self, X):

@@ -229,12 +229,13 @@ def _budget_value(p, t, lo, hi, w, sb, sw, idx, ident, na, free, nf, cst, unifor
 
 @njit(cache=True, error_model="numpy")
 def _budget_row(t, lo, hi, llo, lhi, w, sb, sw, ident, e, fast, total, at_most, uniform, seed, side, idx, free,
-                samp):
+                samp, Mgiven):
     """The multiplier of one row of the budget KL projection; returns (status, lam, shift).
 
     ``sb``, ``sw``: 0 when the bounds (lo, hi, llo, lhi) or the weights are one number (read at
     index 0; less memory traffic), else 1. ``ident``: no fixed coordinate, so the coordinates in
-    play are 0..n-1 until the first settling; ``e`` = exp(t - max t) when ``fast`` (equal weights, log
+    play are 0..n-1 until the first settling; ``Mgiven``: max t if known (else -inf);
+    ``e`` = exp(t - max t) when ``fast`` (equal weights, log
     inputs spanning at most 700: a trial sum then costs one product per coordinate). Writes
     ``side`` (0: lower bound, 1: upper bound, 2: x_i = exp(t_i + shift) for equal weights,
     exp(t_i - lam w_i) otherwise, clipped). status 0: solved; 1: Newton did not settle.
@@ -247,7 +248,14 @@ def _budget_row(t, lo, hi, llo, lhi, w, sb, sw, ident, e, fast, total, at_most, 
     wlo = 0.0
     whi = 0.0
     M = -np.inf
-    for i in range(n):
+    if sb == 0 and sw == 0 and ident and Mgiven > -np.inf:
+        # one lower bound, one upper bound, one weight and no fixed coordinate: nothing to scan
+        side[:] = 2
+        na = n
+        wlo = n * w[0] * lo[0]
+        whi = n * w[0] * hi[0]
+        M = Mgiven
+    for i in range(n if na == 0 else 0):
         if lo[i * sb] == hi[i * sb]:
             const += w[i * sw] * lo[i * sb]
             side[i] = 0
@@ -289,29 +297,50 @@ def _budget_row(t, lo, hi, llo, lhi, w, sb, sw, ident, e, fast, total, at_most, 
         if settle:
             # settle the coordinates with no breakpoint inside (L, R)
             keep = 0
-            for k in range(na):
-                i = k if ident else idx[k]
-                if (L < _bpa(t, lhi, w, i, sb, sw) < R) or (L < _bpb(t, llo, w, i, sb, sw) < R):
-                    idx[keep] = i
-                    keep += 1
-                elif _bpb(t, llo, w, i, sb, sw) <= L:
-                    cst += w[i * sw] * lo[i * sb]
-                    side[i] = 0
-                elif _bpa(t, lhi, w, i, sb, sw) >= R:
-                    cst += w[i * sw] * hi[i * sb]
-                    side[i] = 1
-                else:
-                    side[i] = 2
-                    free[nf] = i
-                    nf += 1
-                    if fast:
-                        S += e[i]
-                    elif uniform:
-                        if t[i] > m:
-                            S = S * np.exp(m - t[i]) + 1.0
-                            m = t[i]
-                        else:
-                            S += np.exp(t[i] - m)
+            if fast:
+                # equal weights with e = exp(t - M): the same rule written without branches
+                # (selects instead of jumps; the categories interleave at random)
+                for k in range(na):
+                    i = k if ident else idx[k]
+                    ai = (t[i] - lhi[i * sb]) / w0
+                    bi = (t[i] - llo[i * sb]) / w0
+                    ins = ((L < ai) & (ai < R)) | ((L < bi) & (bi < R))
+                    atlo = (not ins) & (bi <= L)
+                    athi = (not ins) & (not atlo) & (ai >= R)
+                    isfree = not (ins | atlo | athi)
+                    if ins:
+                        idx[keep] = i
+                        keep += 1
+                    cst += w0 * (lo[i * sb] if atlo else (hi[i * sb] if athi else 0.0))
+                    side[i] = 0 if atlo else (1 if athi else 2)
+                    S += e[i] if isfree else 0.0
+                    nf += isfree
+            else:
+                for k in range(na):
+                    i = k if ident else idx[k]
+                    wi = w[i * sw]
+                    ai = (t[i] - lhi[i * sb]) / wi
+                    bi = (t[i] - llo[i * sb]) / wi
+                    if (L < ai < R) or (L < bi < R):
+                        idx[keep] = i
+                        keep += 1
+                    elif bi <= L:
+                        cst += wi * lo[i * sb]
+                        side[i] = 0
+                    elif ai >= R:
+                        cst += wi * hi[i * sb]
+                        side[i] = 1
+                    else:
+                        # free over (L, R): side stays 2; unequal weights keep a list for the final solve
+                        if not uniform:
+                            free[nf] = i
+                        nf += 1
+                        if uniform:
+                            if t[i] > m:
+                                S = S * np.exp(m - t[i]) + 1.0
+                                m = t[i]
+                            else:
+                                S += np.exp(t[i] - m)
             na = keep
             ident = False
             if na == 0:
@@ -365,10 +394,29 @@ def _budget_row(t, lo, hi, llo, lhi, w, sb, sw, ident, e, fast, total, at_most, 
                 d = max(8, int(3.0 * np.sqrt(ns)))
                 pl = srt[max(0, lo_k - d)]
                 pr = srt[min(ns - 1, hi_k + d)]
-                vl = _budget_value(pl, t, lo, hi, w, sb, sw, idx, ident, na, free, nf, cst, uniform, fast, M, S, m, e, w0)
+                if fast and abs(M - pl * w0) <= 700.0 and abs(M - pr * w0) <= 700.0:
+                    # both trial sums in one pass: products only
+                    Cl = np.exp(M - pl * w0)
+                    Cr = np.exp(M - pr * w0)
+                    accl = 0.0
+                    accr = 0.0
+                    for k in range(na):
+                        i = k if ident else idx[k]
+                        li = lo[i * sb]
+                        hi_ = hi[i * sb]
+                        vl_ = min(max(e[i] * Cl, li), hi_)
+                        vr_ = min(max(e[i] * Cr, li), hi_)
+                        accl += vl_
+                        accr += vr_
+                    vl = cst + w0 * accl + (w0 * S * np.exp(m - pl * w0) if S > 0.0 else 0.0)
+                    vr = cst + w0 * accr + (w0 * S * np.exp(m - pr * w0) if S > 0.0 else 0.0)
+                else:
+                    vl = _budget_value(pl, t, lo, hi, w, sb, sw, idx, ident, na, free, nf, cst, uniform, fast, M, S,
+                                       m, e, w0)
+                    vr = _budget_value(pr, t, lo, hi, w, sb, sw, idx, ident, na, free, nf, cst, uniform, fast, M, S,
+                                       m, e, w0)
                 if vl > target:
                     L = pl
-                    vr = _budget_value(pr, t, lo, hi, w, sb, sw, idx, ident, na, free, nf, cst, uniform, fast, M, S, m, e, w0)
                     if vr > target:
                         L = pr
                     elif vr < target:
@@ -410,8 +458,13 @@ def _budget_row(t, lo, hi, llo, lhi, w, sb, sw, ident, e, fast, total, at_most, 
     if nf == 0 or rem <= 0.0:
         # the sum is constant between the last breakpoints: the root is a breakpoint
         lam = R if R < np.inf else L
-        for k in range(nf):
-            side[free[k]] = 0 if rem <= 0.0 else side[free[k]]
+        if rem <= 0.0:
+            # nothing left for the free coordinates: they sit at their lower bounds (0)
+            if uniform:
+                shift = -np.inf
+            else:
+                for k in range(nf):
+                    side[free[k]] = 0
     elif uniform:
         # w0 S exp(m - lam w0) = rem: x_i = exp(t_i + shift) without forming lam (no cancellation)
         shift = np.log(rem / (w0 * S)) - m
@@ -450,7 +503,8 @@ def _budget_row(t, lo, hi, llo, lhi, w, sb, sw, ident, e, fast, total, at_most, 
 
 
 @njit(cache=True, error_model="numpy")
-def _budget_rows(T, lo, hi, llo, lhi, w, sb, sw, ident, E, fast, total, at_most, uniform, X, wsum, wabs, status):
+def _budget_rows(T, lo, hi, llo, lhi, w, sb, sw, ident, E, fast, Mrow, total, at_most, uniform, X, wsum, wabs,
+                 status):
     """Every row: the multiplier, then the answer from the settled sides (not from lam, which
     rounding may put on a breakpoint), its weighted sum and the sum of |w x|."""
     b, n = T.shape
@@ -461,13 +515,14 @@ def _budget_rows(T, lo, hi, llo, lhi, w, sb, sw, ident, E, fast, total, at_most,
     for r in range(b):
         t = T[r]
         e = E[r] if fast[r] else E[0]
+        M = Mrow[r]
+        if not M > -np.inf:
+            for i in range(n):
+                if t[i] > M:
+                    M = t[i]
         st, lam, shift = _budget_row(t, lo, hi, llo, lhi, w, sb, sw, ident, e, fast[r], total, at_most, uniform,
-                                     r + 1, side, idx, free, samp)
+                                     r + 1, side, idx, free, samp, M)
         status[r] = st
-        M = -np.inf
-        for i in range(n):
-            if t[i] > M:
-                M = t[i]
         product = fast[r] and abs(M + shift) <= 700.0
         C = np.exp(M + shift) if product else 1.0
         if not uniform and not np.isfinite(lam):
@@ -499,7 +554,15 @@ def _budget_rows(T, lo, hi, llo, lhi, w, sb, sw, ident, E, fast, total, at_most,
         wabs[r] = sa
 
 
-def budget_kl(T, lower, upper, weights, total, at_most=False, label="budget", log_bounds=None):
+def budget_structure(lower, upper, weights):
+    """(equal weights, one lower and one upper bound for all, no coordinate with lower == upper)."""
+    lo, hi, w = (np.asarray(v, dtype=float) for v in (lower, upper, weights))
+    return (bool(np.all(w == w.flat[0])) if w.size else True,
+            bool(np.all(lo == lo.flat[0]) and np.all(hi == hi.flat[0])) if lo.size else True,
+            not bool(np.any(lo == hi)))
+
+
+def budget_kl(T, lower, upper, weights, total, at_most=False, label="budget", log_bounds=None, structure=None):
     """KL projection of exp(t) onto {lower <= x <= upper, <w, x> = total (or <= total)}, lower >= 0, w > 0.
 
     x_i = clip(exp(t_i - lam w_i), lower_i, upper_i) with the multiplier lam >= 0
@@ -508,7 +571,8 @@ def budget_kl(T, lower, upper, weights, total, at_most=False, label="budget", lo
     bracket, then random pivots: expected O(n)); equal weights then give lam in closed
     form, unequal weights by Newton's method on the convex last piece. The weighted sum
     of the answer is measured; a relative residual above 1e-10 raises SolveError.
-    ``log_bounds``: optional (log lower, log upper), precomputed by callers that project often.
+    ``log_bounds``: optional (log lower, log upper) and ``structure``: optional
+    :func:`budget_structure`, precomputed by callers that project often.
 
     >>> import numpy as np
     >>> budget_kl(np.log([[4.0, 1.0, 1.0]]), np.zeros(3), np.full(3, 0.5), np.ones(3), 1.0).tolist()
@@ -521,7 +585,7 @@ def budget_kl(T, lower, upper, weights, total, at_most=False, label="budget", lo
     w = np.ascontiguousarray(np.broadcast_to(weights, (n,)), dtype=float)
     if b == 0 or n == 0:
         return np.zeros((b, n))
-    uniform = bool(np.all(w == w[0]))
+    uniform, same_bounds, ident = structure if structure is not None else budget_structure(lo, hi, w)
     if log_bounds is None:
         with np.errstate(divide="ignore"):
             log_bounds = (np.log(lo), np.log(hi))
@@ -529,8 +593,8 @@ def budget_kl(T, lower, upper, weights, total, at_most=False, label="budget", lo
     # exp(t - max t) once, vectorized, for the product-only trial sums (equal weights, spread <= 700)
     fast = np.zeros(b, bool)
     E = np.zeros((1, n))
+    M = T.max(axis=1)
     if uniform:
-        M = T.max(axis=1)
         fast = (M - T.min(axis=1)) <= 700.0
         if fast.any():
             E = np.subtract(T, M[:, None])
@@ -538,9 +602,8 @@ def budget_kl(T, lower, upper, weights, total, at_most=False, label="budget", lo
     X = np.empty_like(T)
     s, sabs = np.empty(b), np.empty(b)
     status = np.zeros(b, np.int64)
-    sb = 0 if (np.all(lo == lo[0]) and np.all(hi == hi[0])) else 1
-    ident = not bool(np.any(lo == hi))
-    _budget_rows(T, lo, hi, llo, lhi, w, sb, 0 if uniform else 1, ident, E, fast, float(total), bool(at_most),
+    sb = 0 if same_bounds else 1
+    _budget_rows(T, lo, hi, llo, lhi, w, sb, 0 if uniform else 1, ident, E, fast, M, float(total), bool(at_most),
                  uniform, X, s, sabs, status)
     if not (np.isfinite(s).all() and np.isfinite(sabs).all()):
         bad = ~np.isfinite(X)
