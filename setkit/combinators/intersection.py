@@ -237,6 +237,33 @@ class Intersection(Family):
         """Largest violation over the parts (NaN if a part has no check), O(sum of the parts' costs)."""
         return np.max([part_violation(p, X) for p in parts], axis=0)
 
+    @kernel("project_kl")
+    def project_kl(self, T, parts):
+        """Cyclic KL projections onto the parts with Dykstra corrections, stopped on the Bregman gap and the parts' residual."""
+        from ..decision_set import DecisionSet
+        from ..kernels.bregman import bregman_dykstra
+        if any(p.routes()["project_kl"].provider != "native" for p in parts):
+            # a part without its own KL projection (a halfspace, a ball...) would cost one conic
+            # solve per sweep: solve the whole intersection by the exponential-cone reference instead
+            return self._kl_reference(parts).project_kl(T)
+        whole = cached(self, "kl_lmo_set", lambda: DecisionSet(self, loose=loose_of(parts)))
+        X, info = bregman_dykstra([lambda Z, p=p: p.run("project_kl", Z)[0] for p in parts], T,
+                                  lambda G: whole.run("lmo", G)[0],
+                                  [lambda P, p=p: part_violation(p, P) for p in parts],
+                                  np.maximum(1.0, float(self.scale())), self.accuracy, self.max_iterations)
+        return self._accept(X, info, parts, "Bregman-Dykstra", np.full(T.shape[0], max(1.0, float(self.scale()))))
+
+    def _kl_reference(self, parts):
+        """This thread's reference workspace for the KL projection (built on first use)."""
+        import threading
+
+        from ..backends import get_backend
+        local = cached(self, "kl_reference", threading.local)
+        ws = getattr(local, "ws", None)
+        if ws is None:
+            ws = local.ws = get_backend("reference")(self, loose=loose_of(parts))
+        return ws
+
     # -- shared by the splitting subclasses -------------------------------------------------
     def _row_scale(self, Y):
         return np.maximum(max(1.0, self.scale()), np.abs(Y).max(axis=1))

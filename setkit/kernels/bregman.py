@@ -43,7 +43,7 @@ from ..errors import InputError, SolveError, UnsupportedOperationError
 from .isotonic import decreasing_order
 
 __all__ = ["kl_divergence", "kl_certificate", "simplex_kl", "box_kl", "budget_kl",
-           "permutahedron_kl", "sinkhorn_kl"]
+           "permutahedron_kl", "sinkhorn_kl", "bregman_dykstra"]
 
 NORMAL = float(np.finfo(float).tiny)     # smallest normal double, 2.2e-308
 
@@ -691,46 +691,78 @@ def _lse(A, axis):
     return (m + np.log(np.exp(A - m).sum(axis=axis, keepdims=True))).squeeze(axis)
 
 
+@njit(cache=True, error_model="numpy")
+def _scaling_loop(K, r, c, tol, max_iterations, it0, absorb_at, u, v):
+    """Sinkhorn-Knopp on K from u = v = 1: u = r / (K v), v = c / (K^T u) until the row residual of
+    diag(u) K diag(v) is at most tol. Returns (iterations, residual, code): code 0 converged,
+    1 a scaling left [1/absorb_at, absorb_at] (absorb into the potentials), 2 out of iterations."""
+    m, n = K.shape
+    for i in range(m):
+        u[i] = 1.0
+    for j in range(n):
+        v[j] = 1.0
+    Kv = np.empty(m)
+    Ktu = np.empty(n)
+    it = it0
+    lo = 1.0 / absorb_at
+    while True:
+        res = 0.0
+        for i in range(m):
+            acc = 0.0
+            for j in range(n):
+                acc += K[i, j] * v[j]
+            Kv[i] = acc
+            d = abs(u[i] * acc - r[i])
+            if not d <= res:
+                res = d                     # NaN propagates as a failure
+        if res <= tol:
+            return it, res, 0
+        if it >= max_iterations:
+            return it, res, 2
+        it += 1
+        bad = False
+        for i in range(m):
+            u[i] = r[i] / Kv[i]
+            if not (lo < u[i] < absorb_at):
+                bad = True
+        for j in range(n):
+            Ktu[j] = 0.0
+        for i in range(m):
+            ui = u[i]
+            for j in range(n):
+                Ktu[j] += K[i, j] * ui
+        for j in range(n):
+            v[j] = c[j] / Ktu[j]
+            if not (lo < v[j] < absorb_at):
+                bad = True
+        if bad:
+            return it, res, 1
+
+
 def _sinkhorn_one(t, r, c, tol, max_iterations, absorb_at=1e12):
-    """One m x n log-input matrix with positive margins; returns (X, iterations, residual, converged)."""
+    """One m x n log-input matrix with positive margins; returns (X, iterations, residual, converged, f, g)."""
     logr, logc = np.log(r), np.log(c)
     # one exact log-domain sweep: rows, then columns
     f = logr - _lse(t, 1)
     g = logc - _lse(t + f[:, None], 0)
     it = 0
-    res = np.inf
-    lo, hi = 1.0 / absorb_at, absorb_at
+    u = np.ones(r.size)
+    v = np.ones(c.size)
     while True:
         K = np.exp(t + f[:, None] + g[None, :])     # columns sum to c (up to rounding)
-        u = np.ones(r.size)
-        v = np.ones(c.size)
-        absorb = False
-        while it < max_iterations:
-            Kv = K @ v
-            # X = diag(u) K diag(v) has exact column sums after the v-update: the row sums decide
-            res = float(np.abs(u * Kv - r).max())
-            if res <= tol:
-                break
-            it += 1
-            with np.errstate(divide="ignore", over="ignore"):
-                u = r / Kv
-                v = c / (K.T @ u)
-            if not (np.all((u > lo) & (u < hi)) and np.all((v > lo) & (v < hi))):
-                absorb = True
-                break
-        if absorb:
-            # move the column scalings into the potentials (where finite) and continue with an exact
-            # log-domain sweep: f from g, then g from f (one Sinkhorn iteration in the log domain)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                gg = g + np.log(v)
-            gg = np.where(np.isfinite(gg), gg, g)
-            f = logr - _lse(t + gg[None, :], 1)
-            g = logc - _lse(t + f[:, None], 0)
-            continue
-        break
+        it, res, code = _scaling_loop(K, r, c, tol, max_iterations, it, absorb_at, u, v)
+        if code != 1:
+            break
+        # move the column scalings into the potentials (where finite) and continue with an exact
+        # log-domain sweep: f from g, then g from f (one Sinkhorn iteration in the log domain)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            gg = g + np.log(v)
+        gg = np.where(np.isfinite(gg), gg, g)
+        f = logr - _lse(t + gg[None, :], 1)
+        g = logc - _lse(t + f[:, None], 0)
     X = (u[:, None] * K) * v[None, :]
     with np.errstate(divide="ignore"):
-        return X, it, res, res <= tol, f + np.log(u), g + np.log(v)
+        return X, it, res, code == 0, f + np.log(u), g + np.log(v)
 
 
 def _dual_newton(t, r, c, f, g, tol, max_steps=100):
@@ -825,6 +857,7 @@ def sinkhorn_kl(T, rows, cols, accuracy=1e-10, max_iterations=20_000, label="tra
     tol = accuracy * scale
     ri = np.flatnonzero(rows > 0)
     ci = np.flatnonzero(cols > 0)
+    positive = ri.size == m and ci.size == n
     out = np.zeros((b, m, n))
     iters, resids, hows = [], np.zeros(b), []
     for k in range(b):
@@ -832,7 +865,9 @@ def sinkhorn_kl(T, rows, cols, accuracy=1e-10, max_iterations=20_000, label="tra
             iters.append(0)
             hows.append("zero margins: the zero matrix")
             continue
-        t = T[k].reshape(m, n)[np.ix_(ri, ci)]
+        t = T[k].reshape(m, n)
+        if not positive:
+            t = t[np.ix_(ri, ci)]
         r_, c_ = rows[ri], cols[ci]
         X, it, res, ok, f, g = _sinkhorn_one(t, r_, c_, tol, min(max_iterations, newton_after))
         how = f"Sinkhorn, {it} iterations"
@@ -846,8 +881,11 @@ def sinkhorn_kl(T, rows, cols, accuracy=1e-10, max_iterations=20_000, label="tra
                                                   max_iterations - newton_after)
             it += it2
             how = f"Sinkhorn, {it} iterations"
-        full = np.zeros((m, n))
-        full[np.ix_(ri, ci)] = X
+        if positive:
+            full = X
+        else:
+            full = np.zeros((m, n))
+            full[np.ix_(ri, ci)] = X
         measured = max(float(np.abs(full.sum(axis=1) - rows).max()), float(np.abs(full.sum(axis=0) - cols).max()))
         if not ok or not np.isfinite(measured) or measured > tol:
             raise SolveError(f"project_kl on {label}: Sinkhorn scaling stopped after {it} iterations with "
@@ -859,3 +897,90 @@ def sinkhorn_kl(T, rows, cols, accuracy=1e-10, max_iterations=20_000, label="tra
         hows.append(f"{how}: marginal residual {measured:.2e}")
     info = {"status": ["solved"] * b, "iterations": iters, "backend_status": hows, "residual": resids}
     return out.reshape(b, m * n), info
+
+
+# -- intersections: cyclic Bregman projections with Dykstra corrections ----------------------------
+def bregman_dykstra(projections, T, lmo_fn, violations, scale, accuracy=1e-7, max_iterations=20_000,
+                    check_every=10):
+    """KL projection of exp(t) onto K_1 ∩ ... ∩ K_m from the parts' own KL projections, batched over rows.
+
+    Dykstra's method with Bregman projections (Censor & Reich 1998; Bauschke & Lewis
+    2000): in the log domain, for each part i in turn, u = log x + q_i,
+    x = P_i^KL(u), q_i = u - log x. The point after a sweep lies in the last part;
+    a row stops when the parts' largest violation is at most ``accuracy * scale`` and
+    the Bregman Frank-Wolfe gap of :func:`kl_certificate` (with the intersection's
+    LMO) is at most 0.5 (accuracy * scale)^2 / max(1, sum x) plus a rounding floor;
+    with x in K the gap bounds KL(x || y) - KL(x* || y), which bounds
+    ||x - x*||_1^2 / (2 sum x) (Pinsker's inequality). The residual is checked every
+    ``check_every`` sweeps, the gap (one LMO of the intersection) only for feasible rows
+    and at doubling intervals while it stays above tolerance. O(sweeps * sum of the
+    parts' KL projection costs).
+
+    Parameters
+    ----------
+    projections : callables mapping a (b, n) log-domain batch to its KL projections onto K_i.
+    T : (b, n) log inputs.
+    lmo_fn : the intersection's LMO on (b, n) directions.
+    violations : callables giving each part's violation of (b, n) points.
+    scale : (b,) magnitudes that make the tolerances relative.
+
+    Returns
+    -------
+    X : (b, n); info : dict with per-row status ("solved" | "not_converged"), iterations,
+    gap and residual arrays.
+    """
+    T = np.asarray(T, dtype=float)
+    b, n = T.shape
+    m = len(projections)
+    scale = np.broadcast_to(np.asarray(scale, dtype=float), (b,)).copy()
+    eps = np.finfo(float).eps
+    out = np.empty_like(T)
+    status = ["not_converged"] * b
+    iters = [0] * b
+    gaps = np.full(b, np.nan)
+    resid = np.full(b, np.nan)
+    rows = np.arange(b)
+    Z = T.copy()                      # log of the current point
+    Q = np.zeros((m, b, n))           # corrections, one per part
+    X = np.exp(np.minimum(T, 709.0))
+    gap_every, next_gap = check_every, 0
+    for sweep in range(1, max_iterations + 1):
+        for i, proj in enumerate(projections):
+            U = Z + Q[i]
+            X = proj(U)
+            Z = np.log(np.maximum(X, NORMAL))
+            Q[i] = U - Z
+        if sweep % check_every and sweep != max_iterations:
+            continue
+        r = np.max([np.asarray(v(X), dtype=float) for v in violations], axis=0)
+        last = sweep == max_iterations
+        feasible = r <= accuracy * scale[rows]
+        if not last and (not feasible.any() or sweep < next_gap):
+            continue
+        # the gap needs one LMO of the intersection (an LP): only for rows that are feasible, and at
+        # doubling intervals while it stays above tolerance
+        ask = np.flatnonzero(feasible | last)
+        g = np.full(rows.size, np.inf)
+        g[ask] = kl_certificate(T[rows[ask]], X[ask], lmo_fn)
+        G = np.log(np.maximum(X, NORMAL)) - T[rows]
+        floor = 64 * eps * (1.0 + np.abs(G * X).sum(axis=1)) * n
+        tol_g = 0.5 * (accuracy * scale[rows]) ** 2 / np.maximum(1.0, X.sum(axis=1)) + floor
+        done = feasible & (g <= tol_g)
+        if last:
+            done = np.ones(rows.size, bool)
+        if not done.all():
+            gap_every = min(2 * gap_every, 640)
+            next_gap = sweep + gap_every
+        for k in np.flatnonzero(done):
+            j = rows[k]
+            out[j] = X[k]
+            iters[j] = sweep
+            gaps[j] = g[k]
+            resid[j] = r[k]
+            if feasible[k] and g[k] <= tol_g[k]:
+                status[j] = "solved"
+        keep = ~done
+        if not keep.any():
+            break
+        rows, Z, Q, X = rows[keep], Z[keep], Q[:, keep], X[keep]
+    return out, {"status": status, "iterations": iters, "gap": gaps, "residual": resid}

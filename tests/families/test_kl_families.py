@@ -112,3 +112,31 @@ def test_ball_inside_the_orthant_uses_the_reference():
     assert abs(np.linalg.norm(d) - 1.0) <= 1e-6
     cos = -(g @ d) / (np.linalg.norm(g) * np.linalg.norm(d))
     assert cos >= 1 - 1e-6
+
+
+def test_intersection_by_bregman_dykstra_matches_capped_simplex(rng):
+    # simplex ∩ box [0, 0.3] is the capped simplex: cyclic KL projections with Dykstra corrections
+    # (Censor & Reich 1998; Bauschke & Lewis 2000) must land on the budget kernel's exact answer
+    K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 6},
+                                                       {"kind": "box", "dim": 6, "lower": 0, "upper": 0.3}]})
+    B = setkit.compile({"kind": "budget", "dim": 6, "total": 1.0, "upper": 0.3})
+    assert K.routes()["project_kl"].provider == "native"
+    T = rng.uniform(-5, 5, (3, 6))
+    X, info = K.run("project_kl", T)
+    assert info["status"] == ["solved"] * 3
+    np.testing.assert_allclose(X, B.run("project_kl", T)[0], atol=1e-7)
+    R, _ = reference(K).run("project_kl", T)
+    np.testing.assert_allclose(X, R, atol=2e-5)
+
+
+def test_intersection_with_a_halfspace_uses_the_reference():
+    # simplex ∩ {x_0 <= 0.2}: the halfspace has no KL projection of its own, so the whole
+    # intersection goes to the reference; capping rule (Warmuth & Kuzmin 2008): x_0 = 0.2 when the
+    # softmax exceeds it, the rest proportional to y with the remaining mass
+    K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 4},
+                                                       {"kind": "polyhedron", "A": [[1, 0, 0, 0]], "b": [0.2]}]})
+    t = np.array([[2.0, 0.0, -1.0, 0.5]])
+    X, _ = K.run("project_kl", t)
+    y = np.exp(t[0])
+    expected = np.concatenate([[0.2], 0.8 * y[1:] / y[1:].sum()])
+    np.testing.assert_allclose(X[0], expected, atol=2e-6)
