@@ -15,9 +15,10 @@ What each method rests on (first-order conditions of the problem above):
   mode at_most keeps x = y when sum y <= total.
 * box [lower, upper] with lower >= 0: separable, x = clip(y, lower, upper).
 * budget {lower <= x <= upper, <w, x> = total}: x_i = clip(y_i exp(-lam w_i), lower_i,
-  upper_i) for the multiplier lam of the weighted sum; the sum is monotone in lam,
-  and lam is found by randomized selection among the 2n breakpoints (expected
-  O(n)), then in closed form (equal weights) or by Newton's method on the last
+  upper_i) for the multiplier lam of the weighted sum (the capping rule of the capped
+  simplex); the sum is monotone in lam, and lam is bracketed between two of the 2n
+  breakpoints by selection (pivots from a random sample, then random pivots: expected
+  O(n)), then found in closed form (equal weights) or by Newton's method on the last
   smooth piece, where the sum is convex and decreasing (unequal weights).
 * permutahedron P(w), w >= 0: with t sorted decreasingly (s) and w sorted
   decreasingly, x_sorted = exp(s - v) where v is the non-increasing minimizer of
@@ -29,7 +30,11 @@ What each method rests on (first-order conditions of the problem above):
 * transport {X >= 0, X 1 = rows, X^T 1 = cols}: X = diag(u) Y diag(v) (Sinkhorn 1964),
   found by Sinkhorn-Knopp scaling with the scalings absorbed into log-domain
   potentials whenever they grow large (stabilized scaling), stopped on the measured
-  largest marginal residual.
+  largest marginal residual; damped Newton steps on the same dual finish nearly
+  decomposable matrices, where scaling converges slowly.
+* intersections of sets that have these projections: cyclic Bregman projections with
+  Dykstra's corrections (:func:`bregman_dykstra`), stopped on the parts' residual and
+  the Bregman gap below.
 
 :func:`kl_certificate` gives the Bregman analogue of the Frank-Wolfe gap, an upper
 bound on KL(x || y) - KL(x* || y) computed from the set's linear minimization oracle.
@@ -774,7 +779,7 @@ def _dual_newton(t, r, c, f, g, tol, max_steps=100):
     backtracking (Armijo). Used when Sinkhorn scaling stalls (nearly decomposable
     matrices); O((m + n) n^2) per step. Returns (X, steps, residual, converged).
     """
-    m, n = r.size, c.size
+    n = c.size
     eps = np.finfo(float).eps
     if not (np.isfinite(f).all() and np.isfinite(g).all()):
         f = np.log(r) - _lse(t, 1)

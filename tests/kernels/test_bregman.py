@@ -95,7 +95,9 @@ def test_capped_simplex_matches_capping_rule(rng, n, cap):
         np.testing.assert_allclose(x, capped_simplex_by_capping_rule(np.exp(t), cap, 1.0), rtol=1e-12,
                                    atol=1e-15)
     # Bregman Frank-Wolfe gap: tiny at the exact answer
-    lmo = lambda G: np.array([capped_lmo(g, cap) for g in G])
+    def lmo(G):
+        return np.array([capped_lmo(g, cap) for g in G])
+
     assert np.all(kl_certificate(T, X, lmo) <= 1e-12 * 15)
 
 
