@@ -699,7 +699,8 @@ def _lse(A, axis):
 @njit(cache=True, error_model="numpy")
 def _scaling_loop(K, r, c, tol, max_iterations, it0, absorb_at, u, v):
     """Sinkhorn-Knopp on K from u = v = 1: u = r / (K v), v = c / (K^T u) until the row residual of
-    diag(u) K diag(v) is at most tol. Returns (iterations, residual, code): code 0 converged,
+    diag(u) K diag(v) is at most tol after a column update (which makes the column sums exact).
+    Returns (iterations, residual, code): code 0 converged,
     1 a scaling left [1/absorb_at, absorb_at] (absorb into the potentials), 2 out of iterations."""
     m, n = K.shape
     for i in range(m):
@@ -720,7 +721,8 @@ def _scaling_loop(K, r, c, tol, max_iterations, it0, absorb_at, u, v):
             d = abs(u[i] * acc - r[i])
             if not d <= res:
                 res = d                     # NaN propagates as a failure
-        if res <= tol:
+        if res <= tol and it > it0:
+            # (only after a column update: then the column sums are exact and the rows decide)
             return it, res, 0
         if it >= max_iterations:
             return it, res, 2
@@ -744,17 +746,29 @@ def _scaling_loop(K, r, c, tol, max_iterations, it0, absorb_at, u, v):
             return it, res, 1
 
 
-def _sinkhorn_one(t, r, c, tol, max_iterations, absorb_at=1e12):
-    """One m x n log-input matrix with positive margins; returns (X, iterations, residual, converged, f, g)."""
-    logr, logc = np.log(r), np.log(c)
-    # one exact log-domain sweep: rows, then columns
-    f = logr - _lse(t, 1)
+def _log_sweep(t, logr, logc, g):
+    """One exact log-domain Sinkhorn iteration from column potentials g; returns (f, g, K = exp(t + f + g))."""
+    f = logr - _lse(t + g[None, :], 1)
     g = logc - _lse(t + f[:, None], 0)
+    return f, g, np.exp(t + f[:, None] + g[None, :])
+
+
+def _sinkhorn_one(t, r, c, tol, max_iterations, absorb_at=1e12):
+    """One m x n log-input matrix with positive margins; returns (X, iterations, residual, converged, u, v, f, g).
+
+    The answer is X = diag(u) exp(t + f + g) diag(v)."""
+    logr, logc = np.log(r), np.log(c)
+    t = np.ascontiguousarray(t)
+    # start from f = log r - (row maxima): every row of K = exp(t + f) has its largest entry r_i,
+    # whatever the scale of t; columns that underflow push their scaling out of range, which
+    # triggers an exact log-domain sweep (absorption) below
+    f = logr - t.max(axis=1)
+    g = np.zeros(c.size)
+    K = np.exp(t + f[:, None])
     it = 0
     u = np.ones(r.size)
     v = np.ones(c.size)
     while True:
-        K = np.exp(t + f[:, None] + g[None, :])     # columns sum to c (up to rounding)
         it, res, code = _scaling_loop(K, r, c, tol, max_iterations, it, absorb_at, u, v)
         if code != 1:
             break
@@ -763,11 +777,9 @@ def _sinkhorn_one(t, r, c, tol, max_iterations, absorb_at=1e12):
         with np.errstate(divide="ignore", invalid="ignore"):
             gg = g + np.log(v)
         gg = np.where(np.isfinite(gg), gg, g)
-        f = logr - _lse(t + gg[None, :], 1)
-        g = logc - _lse(t + f[:, None], 0)
+        f, g, K = _log_sweep(t, logr, logc, gg)
     X = (u[:, None] * K) * v[None, :]
-    with np.errstate(divide="ignore"):
-        return X, it, res, code == 0, f + np.log(u), g + np.log(v)
+    return X, it, res, code == 0, u, v, f, g
 
 
 def _dual_newton(t, r, c, f, g, tol, max_steps=100):
@@ -830,7 +842,7 @@ def sinkhorn_kl(T, rows, cols, accuracy=1e-10, max_iterations=20_000, label="tra
     """KL projection of exp(t) onto {X >= 0, X 1 = rows, X^T 1 = cols} by Sinkhorn-Knopp scaling.
 
     By Sinkhorn's theorem the answer is diag(u) Y diag(v). Potentials f, g with
-    log X = t + f_i + g_j start from one exact log-domain sweep; then the scalings
+    log X = t + f_i + g_j start from the row maxima of t; then the scalings
     u = rows / (K v), v = cols / (K^T u) of K = exp(t + f + g) run with two
     matrix-vector products per iteration, and are absorbed into f, g (followed by
     another log-domain sweep) when they leave [1e-12, 1e12]. Stopping rule: the
@@ -874,16 +886,19 @@ def sinkhorn_kl(T, rows, cols, accuracy=1e-10, max_iterations=20_000, label="tra
         if not positive:
             t = t[np.ix_(ri, ci)]
         r_, c_ = rows[ri], cols[ci]
-        X, it, res, ok, f, g = _sinkhorn_one(t, r_, c_, tol, min(max_iterations, newton_after))
+        X, it, res, ok, u, v, f, g = _sinkhorn_one(t, r_, c_, tol, min(max_iterations, newton_after))
         how = f"Sinkhorn, {it} iterations"
+        if not ok:
+            with np.errstate(divide="ignore"):
+                f, g = f + np.log(u), g + np.log(v)
         if not ok and ri.size + ci.size <= newton_size:
             # slow linear convergence (a nearly decomposable matrix): damped Newton on the same dual
             X, steps, res, ok = _dual_newton(t, r_, c_, f, g, tol)
             it += steps
             how += f" + dual Newton, {steps} steps"
         elif not ok and max_iterations > newton_after:
-            X, it2, res, ok, _, _ = _sinkhorn_one(t + f[:, None] + g[None, :], r_, c_, tol,
-                                                  max_iterations - newton_after)
+            X, it2, res, ok = _sinkhorn_one(t + f[:, None] + g[None, :], r_, c_, tol,
+                                            max_iterations - newton_after)[:4]
             it += it2
             how = f"Sinkhorn, {it} iterations"
         if positive:
