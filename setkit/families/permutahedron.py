@@ -60,6 +60,8 @@ class Permutahedron(Family):
         object.__setattr__(self, "_wd", np.ascontiguousarray(np.sort(self.weights)[::-1]))
         object.__setattr__(self, "_wa", np.sort(self.weights))
         object.__setattr__(self, "_ps", np.cumsum(self._wd))
+        with np.errstate(divide="ignore", invalid="ignore"):    # the KL projection's block values use log w
+            object.__setattr__(self, "_log_wd", np.log(self._wd))
 
     @property
     def _wdesc(self):
@@ -118,7 +120,7 @@ class Permutahedron(Family):
         why = self.orthant_violation()
         if why:
             raise outside_orthant_error(self.label, why)
-        return permutahedron_kl(T, self._wdesc)
+        return permutahedron_kl(T, self._wdesc, self._log_wd)
 
     def _majorization_gap(self, X):
         ps_w = self._ps

@@ -629,24 +629,25 @@ def budget_kl(T, lower, upper, weights, total, at_most=False, label="budget", lo
 
 # -- permutahedron ----------------------------------------------------------------------------------
 @njit(cache=True, error_model="numpy")
-def _permutahedron_kl_rows(T, order, wdesc, out):
-    """Pool-adjacent-violators on v_B = logsumexp(s_B) - log(sum_B w), per row (s = t sorted decreasingly)."""
-    b, n = T.shape
-    s = np.empty(n)
+def _permutahedron_kl_sorted(S, wdesc, logw, out):
+    """Pool-adjacent-violators on v_B = logsumexp(s_B) - log(sum_B w) for rows s of S sorted decreasingly.
+
+    Writes log x in the sorted order; the caller scatters and exponentiates (vectorized passes).
+    """
+    b, n = S.shape
     mx = np.empty(n)      # block maximum of s (its first entry: s is sorted decreasingly)
     se = np.empty(n)      # sum over the block of exp(s_i - mx)
     ws = np.empty(n)      # sum of the block's weights
     gam = np.empty(n)     # block value logsumexp(s_B) - log(sum_B w)
     cnt = np.empty(n, np.int64)
     for r in range(b):
-        for i in range(n):
-            s[i] = T[r, order[r, i]]
+        s = S[r]
         nb = 0
         for i in range(n):
             mx[nb] = s[i]
             se[nb] = 1.0
             ws[nb] = wdesc[i]
-            gam[nb] = s[i] - np.log(wdesc[i])          # +inf for a zero weight
+            gam[nb] = s[i] - logw[i]          # +inf for a zero weight
             cnt[nb] = 1
             nb += 1
             # v must be non-increasing: merge while the previous block's value is below the last one's
@@ -656,23 +657,59 @@ def _permutahedron_kl_rows(T, order, wdesc, out):
                 se[p] = se[p] + se[q] * np.exp(mx[q] - mx[p])
                 ws[p] = ws[p] + ws[q]
                 cnt[p] += cnt[q]
-                gam[p] = mx[p] + np.log(se[p]) - np.log(ws[p])
+                gam[p] = mx[p] + np.log(se[p] / ws[p])
                 nb -= 1
         k = 0
         for blk in range(nb):
-            # x_i = exp(s_i - gam) = exp(s_i - mx) * ws / se
-            c = np.log(ws[blk]) - np.log(se[blk])
+            # log x_i = s_i - gam = (s_i - mx) + log(ws / se)
+            c = np.log(ws[blk] / se[blk])
+            m0 = mx[blk]
             for _ in range(cnt[blk]):
-                out[r, order[r, k]] = np.exp(s[k] - mx[blk] + c)
+                out[r, k] = (s[k] - m0) + c
                 k += 1
 
 
-def permutahedron_kl(T, wdesc):
+@njit(cache=True, error_model="numpy")
+def _permutahedron_kl_sorted_scaled(E, wdesc, out):
+    """The same pooling when e = exp(s - max s) is representable for the whole row (spread <= 600).
+
+    A block's value logsumexp(s_B) - log(sum_B w) is then max s + log(sum_B e / sum_B w), so blocks
+    compare by the ratios sum e / sum w (cross-multiplied: no exp or log per merge), and
+    x = e * sum_B w / sum_B e. Writes x in the sorted order.
+    """
+    b, n = E.shape
+    se = np.empty(n)
+    ws = np.empty(n)
+    cnt = np.empty(n, np.int64)
+    for r in range(b):
+        e = E[r]
+        nb = 0
+        for i in range(n):
+            se[nb] = e[i]
+            ws[nb] = wdesc[i]
+            cnt[nb] = 1
+            nb += 1
+            # previous value < last value  <=>  se_p / ws_p < se_q / ws_q  <=>  se_p ws_q < se_q ws_p
+            while nb > 1 and se[nb - 2] * ws[nb - 1] < se[nb - 1] * ws[nb - 2]:
+                se[nb - 2] += se[nb - 1]
+                ws[nb - 2] += ws[nb - 1]
+                cnt[nb - 2] += cnt[nb - 1]
+                nb -= 1
+        k = 0
+        for blk in range(nb):
+            f = ws[blk] / se[blk]
+            for _ in range(cnt[blk]):
+                out[r, k] = e[k] * f
+                k += 1
+
+
+def permutahedron_kl(T, wdesc, log_wdesc=None):
     """KL projection of exp(t) onto the permutahedron of w >= 0 (``wdesc``: w sorted decreasingly).
 
     Sort t decreasingly (s), then pool-adjacent-violators for the non-increasing v
     minimizing sum_i exp(s_i - v_i) + w_i v_i; a block's value is
     logsumexp(s_B) - log(sum_B w) and x_sorted = exp(s - v). Exact, O(n log n) per row.
+    ``log_wdesc``: optional log(wdesc), precomputed by callers that project often.
 
     >>> import numpy as np
     >>> permutahedron_kl(np.log([[100.0, 1.0, 1.0]]), np.array([3.0, 2.0, 1.0])).round(12).tolist()
@@ -680,12 +717,25 @@ def permutahedron_kl(T, wdesc):
     """
     T = np.ascontiguousarray(T, dtype=float)
     b, n = T.shape
+    wdesc = np.ascontiguousarray(wdesc, dtype=float)
+    if log_wdesc is None:
+        with np.errstate(divide="ignore"):
+            log_wdesc = np.log(wdesc)
     if b == 1:
         order = decreasing_order(T[0])[None, :]
     else:
         order = np.argsort(-T, axis=1, kind="stable")
     out = np.empty_like(T)
-    _permutahedron_kl_rows(T, np.ascontiguousarray(order), np.ascontiguousarray(wdesc, dtype=float), out)
+    for r in range(b):
+        s = T[r][order[r]]
+        v = np.empty(n)
+        if n and s[0] - s[-1] <= 600.0:
+            e = np.exp(s - s[0])
+            _permutahedron_kl_sorted_scaled(e[None, :], wdesc, v[None, :])
+        else:
+            _permutahedron_kl_sorted(s[None, :], wdesc, np.ascontiguousarray(log_wdesc, dtype=float), v[None, :])
+            np.exp(v, out=v)
+        out[r, order[r]] = v
     return out
 
 
