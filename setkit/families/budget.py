@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
+from ..kernels.bregman import budget_kl, budget_structure, outside_orthant_error
 from ..kernels.simplex import knapsack_lmo_rows, project_capped
 from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation
 from . import Family, kernel, register
@@ -128,6 +129,9 @@ class Budget(Family):
         object.__setattr__(self, "_caps", np.minimum(self.upper, self.lower + room / self.weights))
         object.__setattr__(self, "_lip", float(max(1.0, np.linalg.norm(self.weights))))
         object.__setattr__(self, "_data_scale", self.scale())    # the magnitude that marks far points
+        with np.errstate(divide="ignore", invalid="ignore"):   # the KL projection's breakpoints use the logs of the bounds
+            object.__setattr__(self, "_log_bounds", (np.log(self.lower), np.log(self.upper)))
+        object.__setattr__(self, "_kl_structure", budget_structure(self.lower, self.upper, self.weights))
 
     def cvxpy_constraints(self, x):
         cons = [x >= self.lower]
@@ -189,6 +193,23 @@ class Budget(Family):
 
     def _screen(self, X, tol, lip):
         return bounds_sum_screen(X, self.lower, self.upper, self.weights, self.total, self.mode == "equal", tol, lip)
+
+    def orthant_violation(self):
+        """None when every lower bound is >= 0, else the first negative one."""
+        bad = np.flatnonzero(self.lower < 0.0)
+        if bad.size:
+            i = int(bad[0])
+            return f"lower[{i}] = {_fmt(self.lower[i])} < 0 (every lower bound must be >= 0)"
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Capping: clip(y exp(-lam w), lower, upper) with lam by breakpoint selection, exact, expected O(n)."""
+        why = self.orthant_violation()
+        if why:
+            raise outside_orthant_error(self.label, why)
+        return budget_kl(T, self.lower, self.upper, self.weights, self.total, self.mode == "at_most", self.label,
+                         self._log_bounds, self._kl_structure)
 
     @kernel("violation")
     def violation(self, X):

@@ -7,8 +7,8 @@ import numpy as np
 
 from ..description import MAX_SIZE
 from ..errors import EmptySetError
-from . import register
-from . import memo
+from ..kernels.bregman import sinkhorn_kl
+from . import kernel, memo, register
 from ._network import Network, NetworkFamily
 
 
@@ -56,6 +56,9 @@ class Transport(NetworkFamily):
     rows: np.ndarray
     cols: np.ndarray
     traits = frozenset({"polyhedral", "bounded"})
+    # KL projection: Sinkhorn scaling stops at a largest marginal residual of kl_accuracy * scale
+    kl_accuracy = 1e-10
+    kl_max_iterations = 20_000
 
     @classmethod
     def from_spec(cls, r):
@@ -99,3 +102,12 @@ class Transport(NetworkFamily):
     def cvxpy_constraints(self, x):
         import cvxpy as cp
         return [x >= 0, cp.sum(x, axis=1) == self.rows, cp.sum(x, axis=0) == self.cols]
+
+    def orthant_violation(self):
+        """None: transportation plans are nonnegative."""
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Sinkhorn-Knopp scaling with log-domain absorption, to marginal residual 1e-10 x scale, O(mn) per iteration."""
+        return sinkhorn_kl(T, self.rows, self.cols, self.kl_accuracy, self.kl_max_iterations, self.label)
