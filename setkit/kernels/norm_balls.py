@@ -1,0 +1,424 @@
+"""Projections and linear minimization for structured norm balls (compiled, batched over rows).
+
+* ordered weighted l1 (OWL): Omega(x) = sum_i w_i |x|_(i), w nonincreasing >= 0;
+* k-support norm: the gauge of conv{x : ||x||_0 <= k, ||x||_2 <= 1};
+* elastic net: alpha ||x||_1 + beta/2 ||x||_2^2 (a sublevel set, not a norm ball).
+
+All functions are pure; rows are independent. The homogeneous balls (OWL,
+k-support) take rows already divided by a power of two (see
+``kernels.spectral.pow2_scales``) so that squares cannot overflow.
+"""
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+MAX_NEWTON = 10_000
+
+
+# -- ordered weighted l1 ------------------------------------------------------------------------
+@njit(cache=True)
+def _owl_eval(z, w, lam, sums, wsums, cnts):
+    """Pool-adjacent-violators on z - lam w (nonincreasing fit), clipped at 0.
+
+    Returns (number of blocks, g = sum_i w_i u_i, S = sum over positive blocks of (sum_B w)^2 / |B|);
+    -S is the derivative of g in lam on the current piece."""
+    n = z.size
+    nb = 0
+    for i in range(n):
+        sums[nb] = z[i] - lam * w[i]
+        wsums[nb] = w[i]
+        cnts[nb] = 1
+        nb += 1
+        while nb > 1 and sums[nb - 2] * cnts[nb - 1] < sums[nb - 1] * cnts[nb - 2]:
+            sums[nb - 2] += sums[nb - 1]
+            wsums[nb - 2] += wsums[nb - 1]
+            cnts[nb - 2] += cnts[nb - 1]
+            nb -= 1
+    g = 0.0
+    S = 0.0
+    for b in range(nb):
+        m = sums[b] / cnts[b]
+        if m > 0.0:
+            g += wsums[b] * m
+            S += wsums[b] * wsums[b] / cnts[b]
+    return nb, g, S
+
+
+@njit(cache=True)
+def owl_project_sorted(z, w, r, u):
+    """Write into u the projection of z (sorted nonincreasing, >= 0, Omega(z) > r) onto {Omega <= r}.
+
+    The projection is prox_{lam Omega}(z) = max(PAV_nonincreasing(z - lam w), 0) for the
+    multiplier lam >= 0 with g(lam) = <w, u(lam)> = r. g is convex, nonincreasing and
+    piecewise linear (blocks only merge or reach 0 as lam grows, so |g'| only decreases),
+    hence Newton's method from lam = 0 stays left of the root and ends on the root's piece
+    after finitely many steps; each step is one O(n) pooling. Returns (lam, steps, converged).
+    """
+    n = z.size
+    sums = np.empty(n)
+    wsums = np.empty(n)
+    cnts = np.empty(n, np.int64)
+    lam = 0.0
+    nb, g, S = _owl_eval(z, w, lam, sums, wsums, cnts)
+    steps = 0
+    ok = True
+    while g > r:
+        if steps >= MAX_NEWTON or S <= 0.0:
+            ok = False
+            break
+        new = lam + (g - r) / S
+        if not new > lam:
+            break
+        lam = new
+        nb, g, S = _owl_eval(z, w, lam, sums, wsums, cnts)
+        steps += 1
+    k = 0
+    for b in range(nb):
+        m = sums[b] / cnts[b]
+        if m < 0.0:
+            m = 0.0
+        for _ in range(cnts[b]):
+            u[k] = m
+            k += 1
+    # rounding can leave <w, u> a few ulps above r: scale into the ball (u stays sorted)
+    if g > r and g > 0.0:
+        f = r / g
+        for i in range(n):
+            u[i] *= f
+    return lam, steps, ok
+
+
+@njit(cache=True)
+def owl_rows(A, order, w, rt, out):
+    """Rows of A = |Y| / t (with their nonincreasing orders) onto {Omega <= rt_i}; returns #failures.
+
+    Rows already inside are copied. out receives the magnitudes in the original positions."""
+    b, n = A.shape
+    z = np.empty(n)
+    u = np.empty(n)
+    bad = 0
+    for r in range(b):
+        s = 0.0
+        for i in range(n):
+            z[i] = A[r, order[r, i]]
+            s += w[i] * z[i]
+        if s <= rt[r]:
+            for i in range(n):
+                out[r, i] = A[r, i]
+            continue
+        lam, steps, ok = owl_project_sorted(z, w, rt[r], u)
+        if not ok:
+            bad += 1
+        for i in range(n):
+            out[r, order[r, i]] = u[i]
+    return bad
+
+
+# -- k-support norm -----------------------------------------------------------------------------
+@njit(cache=True)
+def ksupport_norm_sorted(z, k):
+    """The k-support norm of a vector whose magnitudes z are sorted nonincreasingly.
+
+    ||z||^2 = sum_{i<q} z_i^2 + (sum_{i>=q} z_i)^2 / (k - q) for the q in 0..k-1 with
+    z_{q-1} >= T_q / (k - q) >= z_q, T_q = sum_{i>=q} z_i (0-based; from the variational form
+    min over 0 < theta <= 1, sum theta <= k of sum z_i^2 / theta_i, whose minimizer is
+    theta_i = min(1, z_i / rho)). O(k) after the sort. Where rounding leaves no q exactly
+    consistent, the q with the smallest inconsistency is used."""
+    n = z.size
+    if k >= n:
+        s = 0.0
+        for i in range(n):
+            s += z[i] * z[i]
+        return np.sqrt(s)
+    T = 0.0
+    for i in range(n):
+        T += z[i]
+    S2 = 0.0
+    best = np.inf
+    best_val = 0.0
+    for q in range(k):
+        tau = T / (k - q)
+        val = S2 + T * tau
+        bad = max(z[q] - tau, 0.0)
+        if q > 0:
+            bad = max(bad, tau - z[q - 1])
+        if bad == 0.0:
+            return np.sqrt(val)
+        if bad < best:
+            best = bad
+            best_val = val
+        S2 += z[q] * z[q]
+        T -= z[q]
+        if T < 0.0:
+            T = 0.0
+    return np.sqrt(best_val)
+
+
+@njit(cache=True)
+def _ks_inner(z, p, k, mu):
+    """s >= 0 with sum_{i<p} clip(s z_i - mu, 0, 1) = k (z sorted nonincreasing, z_i > 0 for i < p, p > k).
+
+    The sum is nondecreasing piecewise linear in s; its breakpoints mu/z_i (entry) and
+    (1 + mu)/z_i (saturation) are both increasing in i, so one merge walk finds the piece, O(p)."""
+    ie = 0          # entries 0..ie-1 have entered
+    js = 0          # entries 0..js-1 are saturated; active = js..ie-1
+    zact = 0.0
+    while True:
+        ne = mu / z[ie] if ie < p else np.inf
+        ns = (1.0 + mu) / z[js] if js < ie else np.inf
+        nxt = ne if ne <= ns else ns
+        if ie > js:
+            phi = js + nxt * zact - mu * (ie - js)
+            if phi >= k or nxt == np.inf:
+                zs = 0.0
+                for i in range(js, ie):
+                    zs += z[i]
+                return (k - js + mu * (ie - js)) / zs
+        if ne <= ns:
+            zact += z[ie]
+            ie += 1
+        else:
+            zact -= z[js]
+            js += 1
+
+
+@njit(cache=True)
+def _ks_point(z, p, k, mu, x):
+    """x = prox of (mu/2) ||.||_sp^2 at z (sorted, first p positive) and the value sum z^2 theta/(theta + mu)^2."""
+    s = _ks_inner(z, p, k, mu)
+    N = 0.0
+    for i in range(z.size):
+        x[i] = 0.0
+    for i in range(p):
+        th = s * z[i] - mu
+        if th > 1.0:
+            th = 1.0
+        if th > 0.0:
+            x[i] = z[i] * th / (th + mu)
+            N += x[i] * x[i] / th
+    return N
+
+
+@njit(cache=True)
+def ksupport_project_sorted(z, k, r, x):
+    """Write into x the projection of z (sorted nonincreasing, >= 0, ||z||_sp > r) onto {||.||_sp <= r}.
+
+    x = prox of (mu/2) ||.||_sp^2, which is x_i = z_i theta_i / (theta_i + mu) with
+    theta_i = clip(s z_i - mu, 0, 1), sum theta = k (minimizing over theta in the variational
+    form of the squared norm); the multiplier mu > 0 makes ||x||_sp = r. ||x(mu)||_sp is
+    nonincreasing in mu: mu is bracketed by halving from sqrt(k) z_0 / r, then bisected until
+    the bracket stops shrinking (about 53 steps), each an O(n) merge walk; x is taken at the
+    feasible end and scaled into the ball if rounding left it a few ulps out. Returns steps."""
+    n = z.size
+    p = 0
+    while p < n and z[p] > 0.0:
+        p += 1
+    if p <= k:
+        # at most k nonzeros: on such vectors the norm is the l2 norm, and the radial l2
+        # projection lies in the (smaller) k-support ball, so it is the projection
+        s = 0.0
+        for i in range(n):
+            s += z[i] * z[i]
+        f = r / np.sqrt(s)
+        for i in range(n):
+            x[i] = z[i] * f
+        return 0
+    tmp = np.empty(n)
+    r2 = r * r
+    hi = np.sqrt(k) * z[0] / r
+    lo = 0.5 * hi
+    steps = 0
+    while _ks_point(z, p, k, lo, tmp) <= r2 and lo > 0.0:
+        hi = lo
+        lo *= 0.5
+        steps += 1
+    while steps < 5000:
+        mid = 0.5 * (lo + hi)
+        if not (lo < mid < hi):
+            break
+        if _ks_point(z, p, k, mid, tmp) > r2:
+            lo = mid
+        else:
+            hi = mid
+        steps += 1
+    _ks_point(z, p, k, hi, x)
+    nrm = ksupport_norm_sorted(x, k)
+    if nrm > r:
+        f = r / nrm
+        for i in range(n):
+            x[i] *= f
+    return steps
+
+
+@njit(cache=True)
+def ksupport_rows(A, order, k, rt, out):
+    """Rows of A = |Y| / t (with their nonincreasing orders) onto {||.||_sp <= rt_i}; rows inside are copied."""
+    b, n = A.shape
+    z = np.empty(n)
+    x = np.empty(n)
+    for r in range(b):
+        for i in range(n):
+            z[i] = A[r, order[r, i]]
+        if ksupport_norm_sorted(z, k) <= rt[r]:
+            for i in range(n):
+                out[r, i] = A[r, i]
+            continue
+        if rt[r] == 0.0:
+            for i in range(n):
+                out[r, i] = 0.0
+            continue
+        ksupport_project_sorted(z, k, rt[r], x)
+        for i in range(n):
+            out[r, order[r, i]] = x[i]
+
+
+@njit(cache=True)
+def ksupport_norm_rows(A, order, k):
+    b, n = A.shape
+    out = np.empty(b)
+    z = np.empty(n)
+    for r in range(b):
+        for i in range(n):
+            z[i] = A[r, order[r, i]]
+        out[r] = ksupport_norm_sorted(z, k)
+    return out
+
+
+# -- elastic net ---------------------------------------------------------------------------------
+@njit(cache=True)
+def elastic_level(alpha, beta, r):
+    """The t >= 0 with alpha t + beta t^2 / 2 = r (stable root), the largest |x_i| in the set."""
+    return 2.0 * r / (alpha + np.sqrt(alpha * alpha + 2.0 * beta * r))
+
+
+@njit(cache=True)
+def elastic_project_row(z, alpha, beta, r, u):
+    """Write into u the projection of z >= 0 (outside) onto {alpha sum u + beta/2 sum u^2 <= r}.
+
+    u_i = (z_i - lam alpha)_+ / (1 + lam beta) (soft threshold then scale, the KKT form) with
+    phi(lam) = alpha sum u + beta/2 sum u^2 = r. Each u_i is convex and nonincreasing in lam, so
+    phi is; Newton's method started at a lower bound of the root (the root of the one-coordinate
+    problem of the largest z, which keeps every square finite) stays left of the root and
+    converges quadratically. Stops when a step no longer moves lam; u is then scaled into the
+    set if rounding left phi a few ulps above r. Returns (lam, steps, converged)."""
+    n = z.size
+    zmax = 0.0
+    for i in range(n):
+        if z[i] > zmax:
+            zmax = z[i]
+    c1 = elastic_level(alpha, beta, r)
+    lam = 0.0
+    if zmax > c1:
+        lam = (zmax - c1) / (alpha + c1 * beta)
+    steps = 0
+    ok = True
+    while True:
+        D = 1.0 + lam * beta
+        a1 = 0.0
+        a2 = 0.0
+        dphi = 0.0
+        for i in range(n):
+            v = z[i] - lam * alpha
+            if v > 0.0:
+                ui = v / D
+                a1 += ui
+                a2 += ui * ui
+                g = alpha + beta * ui
+                dphi += g * g
+        phi = alpha * a1 + 0.5 * beta * a2
+        if phi <= r or dphi == 0.0:
+            break
+        if steps >= 200:
+            ok = False
+            break
+        new = lam + (phi - r) * D / dphi
+        if not new > lam:
+            break
+        lam = new
+        steps += 1
+    D = 1.0 + lam * beta
+    a1 = 0.0
+    a2 = 0.0
+    for i in range(n):
+        v = z[i] - lam * alpha
+        u[i] = v / D if v > 0.0 else 0.0
+        a1 += u[i]
+        a2 += u[i] * u[i]
+    if alpha * a1 + 0.5 * beta * a2 > r:
+        f = 2.0 * r / (alpha * a1 + np.sqrt(alpha * alpha * a1 * a1 + 2.0 * beta * a2 * r))
+        for i in range(n):
+            u[i] *= f
+    return lam, steps, ok
+
+
+@njit(cache=True)
+def elastic_rows(A, alpha, beta, r, out):
+    """Rows of A = |Y| onto the elastic-net set (rows inside copied); returns #failures."""
+    b, n = A.shape
+    bad = 0
+    u = np.empty(n)
+    for row in range(b):
+        a1 = 0.0
+        a2 = 0.0
+        big = 0.0
+        for i in range(n):
+            a1 += A[row, i]
+            big = max(big, A[row, i])
+        # the square is only formed when it cannot overflow (an entry above 1e150 is far outside)
+        inside = False
+        if big <= 1e150:
+            for i in range(n):
+                a2 += A[row, i] * A[row, i]
+            inside = alpha * a1 + 0.5 * beta * a2 <= r
+        if inside:
+            for i in range(n):
+                out[row, i] = A[row, i]
+            continue
+        lam, steps, ok = elastic_project_row(A[row], alpha, beta, r, u)
+        if not ok:
+            bad += 1
+        for i in range(n):
+            out[row, i] = u[i]
+    return bad
+
+
+@njit(cache=True)
+def elastic_lmo_rows(A, alpha, beta, r, out):
+    """Maximizers of <a, x> over the elastic-net set for rows a = |c| / t >= 0 (nonnegative answers).
+
+    beta = 0: (r / alpha) e_j at the largest a_j. Otherwise x_i = (eta a_i - alpha)_+ / beta (KKT,
+    eta = 1/multiplier); on the top-m active set the constraint reads eta^2 S2_m / (2 beta) =
+    r + m alpha^2 / (2 beta) (the linear terms cancel), so eta = sqrt((2 beta r + m alpha^2) / S2_m)
+    for the m with eta a_m > alpha >= eta a_{m+1}; one sort, O(n log n). A single active
+    coordinate uses the stable root of alpha t + beta t^2 / 2 = r."""
+    b, n = A.shape
+    for row in range(b):
+        a = A[row]
+        for i in range(n):
+            out[row, i] = 0.0
+        order = np.argsort(-a)
+        if a[order[0]] <= 0.0:
+            continue
+        if beta == 0.0:
+            out[row, order[0]] = r / alpha
+            continue
+        S2 = 0.0
+        m = 0
+        eta = 0.0
+        for j in range(n):
+            aj = a[order[j]]
+            S2 += aj * aj
+            eta = np.sqrt((2.0 * beta * r + (j + 1) * alpha * alpha) / S2)
+            nxt = a[order[j + 1]] if j + 1 < n else 0.0
+            if eta * nxt <= alpha:
+                m = j + 1
+                break
+        if m == 0:
+            m = n
+        if m == 1:
+            out[row, order[0]] = elastic_level(alpha, beta, r)
+            continue
+        for j in range(m):
+            v = eta * a[order[j]] - alpha
+            out[row, order[j]] = v / beta if v > 0.0 else 0.0
