@@ -7,7 +7,7 @@ import numpy as np
 
 from ..errors import SolveError
 from ..kernels.norm_balls import elastic_level, elastic_lmo_rows, elastic_rows
-from ..kernels.spectral import pow2_scales
+from ..kernels.spectral import pow2_scales, row_norms
 from . import Family, kernel, register
 
 
@@ -113,7 +113,7 @@ class ElasticBall(Family):
     @kernel("distance")
     def distance(self, Y):
         """||y - project(y)||, O(n) per Newton step."""
-        return np.linalg.norm(Y - self.project(Y), axis=1)
+        return row_norms(Y - self.project(Y))
 
     @kernel("violation")
     def violation(self, X):

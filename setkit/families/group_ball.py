@@ -6,7 +6,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..kernels.simplex import project_capped
-from ..kernels.spectral import pow2_scales
+from ..kernels.spectral import pow2_scales, row_norms
 from . import Family, kernel, register
 
 
@@ -165,7 +165,7 @@ class GroupBall(Family):
     @kernel("distance")
     def distance(self, Y):
         """||y - project(y)||, O(n)."""
-        return np.linalg.norm(Y - self.project(Y), axis=1)
+        return row_norms(Y - self.project(Y))
 
     @kernel("violation")
     def violation(self, X):

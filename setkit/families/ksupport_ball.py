@@ -11,7 +11,7 @@ import numpy as np
 
 from ..kernels.isotonic import decreasing_order
 from ..kernels.norm_balls import ksupport_norm_rows, ksupport_rows
-from ..kernels.spectral import pow2_scales
+from ..kernels.spectral import pow2_scales, row_norms
 from . import Family, kernel, register
 
 
@@ -109,7 +109,7 @@ class KSupportBall(Family):
     @kernel("distance")
     def distance(self, Y):
         """||y - project(y)||, O(n log n)."""
-        return np.linalg.norm(Y - self.project(Y), axis=1)
+        return row_norms(Y - self.project(Y))
 
     @kernel("violation")
     def violation(self, X):

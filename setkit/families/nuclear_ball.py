@@ -9,8 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..kernels.spectral import DENSE_MAX_SIDE, pow2_scales, svd_stack, top_singular_triplet
-from ..kernels.vector_ops import l1_ball_project
+from ..kernels.spectral import DENSE_MAX_SIDE, pow2_scales, simplex_sorted, svd_stack, top_singular_triplet
 from . import Family, kernel, register
 
 
@@ -83,11 +82,8 @@ class NuclearBall(Family):
     def _sv_distance(self, s, rt):
         """||s - P(s)|| for singular values s (rows) and per-row radii rt."""
         out = np.zeros(s.shape[0])
-        over = np.flatnonzero(s.sum(axis=1) > rt)
-        zero = np.zeros(s.shape[1])
-        for i in over:
-            p = l1_ball_project(s[i:i + 1], zero, float(rt[i]))[0]
-            out[i] = np.linalg.norm(s[i] - p)
+        for i in np.flatnonzero(s.sum(axis=1) > rt):
+            out[i] = np.linalg.norm(s[i] - simplex_sorted(s[i], float(rt[i])))
         return out
 
     # -- native kernels ---------------------------------------------------------------------------
@@ -100,9 +96,8 @@ class NuclearBall(Family):
         t, M = self._scaled(Y)
         rt = self.radius / t
         U, s, Vt = svd_stack(M)
-        zero = np.zeros(s.shape[1])
         for i in np.flatnonzero(s.sum(axis=1) > rt):
-            sp = l1_ball_project(s[i:i + 1], zero, float(rt[i]))[0]
+            sp = simplex_sorted(s[i], float(rt[i]))      # s >= 0 and sum s > rt: the l1 ball's face
             q = int(np.count_nonzero(sp > 0.0))
             out[i] = t[i] * ((U[i, :, :q] * sp[:q]) @ Vt[i, :q]).reshape(-1)
         return out

@@ -9,8 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..kernels.simplex import project_simplex_rows
-from ..kernels.spectral import DENSE_MAX_SIDE, eigh_stack, extreme_eigenpair, pow2_scales
+from ..kernels.spectral import DENSE_MAX_SIDE, eigh_stack, extreme_eigenpair, pow2_scales, simplex_sorted
 from . import Family, kernel, register
 
 
@@ -86,7 +85,8 @@ class Spectraplex(Family):
         out = np.maximum(lam, 0.0)
         for i in range(lam.shape[0]):
             if self.mode == "equal" or out[i].sum() > tt[i]:
-                out[i] = project_simplex_rows(lam[i:i + 1], float(tt[i]))[0]
+                # eigenvalues come ascending; the sorted simplex projection wants them descending
+                out[i] = simplex_sorted(lam[i, ::-1], float(tt[i]))[::-1]
         return out
 
     # -- native kernels ---------------------------------------------------------------------------

@@ -134,3 +134,37 @@ def extreme_eigenpair(S: np.ndarray, largest: bool):
     j = -1 if largest else 0
     lam, v = float(w[0, j]), V[0, :, j]
     return lam, v, float(np.linalg.norm(S @ v - lam * v)), "lapack"
+
+
+def simplex_sorted(v: np.ndarray, total: float) -> np.ndarray:
+    """Projection of v (sorted nonincreasingly) onto {x >= 0, sum x = total}, accurate for any total.
+
+    The support j is the sorted-prefix rule (Held, Wolfe and Crowder 1974); the kept entries are
+    x_i = (total + sum_{l <= j} (v_i - v_l)) / j, summing differences instead of subtracting a
+    threshold, so that a total far below the entries (say 1e-303 against 1) is not lost to
+    rounding; a final rescale makes the sum exact to rounding. O(k + j^2), j the support size.
+    """
+    k = v.size
+    out = np.zeros(k)
+    if total <= 0.0 or k == 0:
+        return out
+    css = np.cumsum(v)
+    idx = np.arange(1, k + 1)
+    cond = v * idx > css - total
+    j = int(np.flatnonzero(cond)[-1]) + 1 if cond.any() else 1
+    head = v[:j]
+    x = (total + (head[:, None] - head[None, :]).sum(axis=1)) / j
+    x = np.maximum(x, 0.0)
+    s = x.sum()
+    if s > 0.0:
+        x *= total / s
+    out[:j] = x
+    return out
+
+
+def row_norms(V: np.ndarray) -> np.ndarray:
+    """Euclidean norm of each row without overflow or underflow in the squares (power-of-two scaling), O(b n)."""
+    if V.shape[0] == 0:
+        return np.zeros(0)
+    t = pow2_scales(V)
+    return t * np.linalg.norm(V / t[:, None], axis=1)
