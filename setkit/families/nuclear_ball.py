@@ -72,7 +72,10 @@ class NuclearBall(Family):
 
     def cvxpy_constraints(self, x):
         import cvxpy as cp
-        return [cp.normNuc(x) <= self.radius]
+        if self.radius == 0.0:
+            return [x == 0]
+        # in units of the radius: Clarabel's semidefinite cones are far better conditioned at scale 1
+        return [cp.normNuc(x / self.radius) <= 1.0]
 
     # -- helpers ----------------------------------------------------------------------------------
     def _scaled(self, Y):

@@ -16,7 +16,7 @@ class SpectralBall(Family):
     """K = {X in R^{m x n} : sigma_max(X) <= radius}; points are m x n matrices.
 
     Projection: one SVD, singular values clipped at the radius,
-    X = Y - U diag((s - r)_+) V^T; O(m n min(m, n)). LMO: the polar factor,
+    X = U diag(min(s, r)) V^T; O(m n min(m, n)). LMO: the polar factor,
     -radius U V^T from the thin SVD of C (all min(m, n) singular pairs; for a
     rank-deficient C the singular vectors LAPACK returns for the zero singular
     values complete it, and any completion minimizes, since <C, X> only sees
@@ -62,7 +62,10 @@ class SpectralBall(Family):
 
     def cvxpy_constraints(self, x):
         import cvxpy as cp
-        return [cp.sigma_max(x) <= self.radius]
+        if self.radius == 0.0:
+            return [x == 0]
+        # in units of the radius: Clarabel's semidefinite cones are far better conditioned at scale 1
+        return [cp.sigma_max(x / self.radius) <= 1.0]
 
     def _scaled(self, Y):
         t = pow2_scales(Y)
@@ -71,7 +74,7 @@ class SpectralBall(Family):
     # -- native kernels ---------------------------------------------------------------------------
     @kernel("project")
     def project(self, Y):
-        """One SVD, singular values clipped at the radius (Y minus the clipped part), O(m n min(m, n))."""
+        """One SVD, singular values clipped at the radius, rebuilt, O(m n min(m, n))."""
         out = Y.copy()
         if Y.shape[0] == 0:
             return out
@@ -79,9 +82,9 @@ class SpectralBall(Family):
         rt = self.radius / t
         U, s, Vt = svd_stack(M)
         for i in np.flatnonzero(s[:, 0] > rt):
-            ex = s[i] - rt[i]
-            q = int(np.count_nonzero(ex > 0.0))
-            out[i] = t[i] * (M[i] - (U[i, :, :q] * ex[:q]) @ Vt[i, :q]).reshape(-1)
+            # rebuilt from the clipped values (not Y minus the excess, which would leave the top
+            # singular values off by rounding of |Y|, far outside the ball for huge Y)
+            out[i] = t[i] * ((U[i] * np.minimum(s[i], rt[i])) @ Vt[i]).reshape(-1)
         return out
 
     @kernel("distance")

@@ -9,7 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..kernels.spectral import DENSE_MAX_SIDE, eigh_stack, extreme_eigenpair, pow2_scales, simplex_sorted
+from ..kernels.spectral import DENSE_MAX_SIDE, eigh_stack, extreme_eigenpair, pow2_scales, row_norms, simplex_sorted
 from . import Family, kernel, register
 
 
@@ -69,8 +69,12 @@ class Spectraplex(Family):
 
     def cvxpy_constraints(self, x):
         import cvxpy as cp
-        tr = cp.trace(x)
-        return [x == x.T, x >> 0, tr == self.trace if self.mode == "equal" else tr <= self.trace]
+        if self.trace == 0.0:
+            return [x == 0]
+        # in units of the trace (better conditioned cones for large or small t)
+        z = x / self.trace
+        tr = cp.trace(z)
+        return [z == z.T, z >> 0, tr == 1.0 if self.mode == "equal" else tr <= 1.0]
 
     # -- helpers ----------------------------------------------------------------------------------
     def _sym(self, Y):
@@ -114,8 +118,8 @@ class Spectraplex(Family):
         t, S, K = self._sym(Y)
         lam = eigh_stack(S, compute_v=False)
         lp = self._project_eigenvalues(lam, self.trace / t)
-        d2 = np.linalg.norm(lam - lp, axis=1) ** 2 + np.linalg.norm(K.reshape(K.shape[0], -1), axis=1) ** 2
-        return t * np.sqrt(d2)
+        # both parts by overflow-free norms (lam - lp is huge when the trace dwarfs the scaled Y)
+        return t * np.hypot(row_norms(lam - lp), row_norms(K.reshape(K.shape[0], -1)))
 
     @kernel("contains")
     def contains(self, X, tol):
