@@ -18,50 +18,80 @@ MAX_NEWTON = 10_000
 
 # -- ordered weighted l1 ------------------------------------------------------------------------
 @njit(cache=True)
-def _owl_eval(z, w, lam, sums, wsums, cnts):
-    """Pool-adjacent-violators on z - lam w (nonincreasing fit), clipped at 0.
+def _owl_compact(bz, bw, bc, nb, lam):
+    """Pool adjacent violators among the blocks (sum z, sum w, count) at multiplier lam, in place,
+    then drop the tail of blocks whose mean (sum z - lam sum w) / count is <= 0.
 
-    Returns (number of blocks, g = sum_i w_i u_i, S = sum over positive blocks of (sum_B w)^2 / |B|);
-    -S is the derivative of g in lam on the current piece."""
-    n = z.size
-    nb = 0
-    for i in range(n):
-        sums[nb] = z[i] - lam * w[i]
-        wsums[nb] = w[i]
-        cnts[nb] = 1
-        nb += 1
-        while nb > 1 and sums[nb - 2] * cnts[nb - 1] < sums[nb - 1] * cnts[nb - 2]:
-            sums[nb - 2] += sums[nb - 1]
-            wsums[nb - 2] += wsums[nb - 1]
-            cnts[nb - 2] += cnts[nb - 1]
-            nb -= 1
+    Returns (blocks kept, g = sum over kept blocks of (sum w) * mean, S = sum of (sum w)^2 / count)."""
+    m = 0
+    for i in range(nb):
+        bz[m] = bz[i]
+        bw[m] = bw[i]
+        bc[m] = bc[i]
+        m += 1
+        # previous mean < last mean  <=>  (z_p - lam w_p) c_l < (z_l - lam w_l) c_p
+        while m > 1 and (bz[m - 2] - lam * bw[m - 2]) * bc[m - 1] < (bz[m - 1] - lam * bw[m - 1]) * bc[m - 2]:
+            bz[m - 2] += bz[m - 1]
+            bw[m - 2] += bw[m - 1]
+            bc[m - 2] += bc[m - 1]
+            m -= 1
+    while m > 0 and bz[m - 1] - lam * bw[m - 1] <= 0.0:
+        m -= 1
     g = 0.0
     S = 0.0
-    for b in range(nb):
-        m = sums[b] / cnts[b]
-        if m > 0.0:
-            g += wsums[b] * m
-            S += wsums[b] * wsums[b] / cnts[b]
-    return nb, g, S
+    for j in range(m):
+        g += bw[j] * (bz[j] - lam * bw[j]) / bc[j]
+        S += bw[j] * bw[j] / bc[j]
+    return m, g, S
+
+
+@njit(cache=True)
+def _owl_first_blocks(z, w, lam, bz, bw, bc):
+    """The pooling of z - lam w from single entries (as _owl_compact, reading z and w directly)."""
+    m = 0
+    for i in range(z.size):
+        bz[m] = z[i]
+        bw[m] = w[i]
+        bc[m] = 1
+        m += 1
+        while m > 1 and (bz[m - 2] - lam * bw[m - 2]) * bc[m - 1] < (bz[m - 1] - lam * bw[m - 1]) * bc[m - 2]:
+            bz[m - 2] += bz[m - 1]
+            bw[m - 2] += bw[m - 1]
+            bc[m - 2] += bc[m - 1]
+            m -= 1
+    return _owl_compact(bz, bw, bc, m, lam)
 
 
 @njit(cache=True)
 def owl_project_sorted(z, w, r, u):
-    """Write into u the projection of z (sorted nonincreasing, >= 0, Omega(z) > r) onto {Omega <= r}.
+    """Write into u the projection of z (sorted nonincreasing, >= 0) onto {Omega <= r}.
 
     The projection is prox_{lam Omega}(z) = max(PAV_nonincreasing(z - lam w), 0) for the
-    multiplier lam >= 0 with g(lam) = <w, u(lam)> = r. g is convex, nonincreasing and
-    piecewise linear (blocks only merge or reach 0 as lam grows, so |g'| only decreases),
-    hence Newton's method from lam = 0 stays left of the root and ends on the root's piece
-    after finitely many steps; each step is one O(n) pooling. Returns (lam, steps, converged).
+    multiplier lam >= 0 with g(lam) = <w, u(lam)> = r. As lam grows the pooled blocks only merge
+    (the differences of z - lam w decrease, w being nonincreasing) and blocks whose mean reaches 0
+    stay clipped, so |g'| = sum (sum_B w)^2 / |B| only decreases: g is convex, nonincreasing and
+    piecewise linear, and Newton's method from lam = 0 stays left of the root and ends on the
+    root's piece after finitely many steps. Each step pools the previous step's blocks (warm
+    start: O(number of positive blocks), the first step O(n)). Returns (lam, steps, converged);
+    steps = -1 when z is inside (u = z).
     """
     n = z.size
-    sums = np.empty(n)
-    wsums = np.empty(n)
-    cnts = np.empty(n, np.int64)
-    lam = 0.0
-    nb, g, S = _owl_eval(z, w, lam, sums, wsums, cnts)
-    steps = 0
+    g = 0.0
+    S = 0.0
+    for i in range(n):
+        if z[i] > 0.0:
+            g += w[i] * z[i]
+            S += w[i] * w[i]
+    if g <= r:
+        for i in range(n):
+            u[i] = z[i]
+        return 0.0, -1, True
+    bz = np.empty(n)
+    bw = np.empty(n)
+    bc = np.empty(n, np.int64)
+    lam = (g - r) / S
+    nb, g, S = _owl_first_blocks(z, w, lam, bz, bw, bc)
+    steps = 1
     ok = True
     while g > r:
         if steps >= MAX_NEWTON or S <= 0.0:
@@ -71,21 +101,21 @@ def owl_project_sorted(z, w, r, u):
         if not new > lam:
             break
         lam = new
-        nb, g, S = _owl_eval(z, w, lam, sums, wsums, cnts)
+        nb, g, S = _owl_compact(bz, bw, bc, nb, lam)
         steps += 1
+    # rounding can leave <w, u> a few ulps above r: scale into the ball (u stays sorted)
+    f = r / g if (g > r and g > 0.0) else 1.0
     k = 0
     for b in range(nb):
-        m = sums[b] / cnts[b]
+        m = (bz[b] - lam * bw[b]) / bc[b]
         if m < 0.0:
             m = 0.0
-        for _ in range(cnts[b]):
+        m *= f
+        for _ in range(bc[b]):
             u[k] = m
             k += 1
-    # rounding can leave <w, u> a few ulps above r: scale into the ball (u stays sorted)
-    if g > r and g > 0.0:
-        f = r / g
-        for i in range(n):
-            u[i] *= f
+    for i in range(k, n):
+        u[i] = 0.0
     return lam, steps, ok
 
 
