@@ -9,6 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import SolveError
 from ..kernels.isotonic import decreasing_order
 from ..kernels.norm_balls import ksupport_norm_rows, ksupport_rows
 from ..kernels.spectral import pow2_scales, row_norms
@@ -23,12 +24,13 @@ class KSupportBall(Family):
     The norm: ||x||_sp^2 = min over 0 < theta <= 1, sum theta <= k of sum x_i^2 / theta_i, which
     on |x| sorted is sum_{i<q} z_i^2 + (sum_{i>=q} z_i)^2 / (k - q) for one q < k; the dual norm
     is the l2 norm of the k largest |c_i|. LMO: -radius top_k(c) / ||top_k(c)||_2; support:
-    radius ||top_k(c)||_2; O(n) (a partition). Projection: x = prox of (mu/2)||.||_sp^2, i.e.
-    x_i = y_i theta_i / (theta_i + mu) with theta_i = clip(s |y_i| - mu, 0, 1), sum theta = k,
-    and the multiplier mu found by bisection to full precision (about 60 steps of O(n) each)
-    after one sort: O(n log n + 60 n). The bisection is the one iterative part; the answer is
-    placed inside the ball (scaled if rounding left it a few ulps out) and its distance to the
-    exact projection is at the level of the rounding of mu.
+    radius ||top_k(c)||_2; O(n) (a partition). Projection: x = prox of ||.||_sp^2 / (2 nu), i.e.
+    x_i = y_i nu theta_i / (1 + nu theta_i) with theta_i = min(1, (|y_i| - tau)_+ / (nu tau)),
+    sum theta = k (the level tau from one O(n) walk), and the multiplier nu found by bisection
+    to full precision (about 60 steps of O(n) each) after one sort: O(n log n + 60 n). The
+    bisection is the one iterative part; the answer is placed inside the ball (scaled if
+    rounding left it a few ulps out) and its distance to the exact projection is at the level
+    of the rounding of nu. The Frank-Wolfe certificate of ``project(y, details=True)`` bounds it.
 
     >>> import setkit
     >>> K = setkit.compile({"kind": "ksupport_ball", "dim": 3, "k": 2, "radius": 1.0})
@@ -74,14 +76,17 @@ class KSupportBall(Family):
         return max(1.0, self.radius)
 
     def cvxpy_constraints(self, x):
-        # extended formulation of the variational form, in units of the radius (phi = radius * theta):
-        # x_i^2 / phi_i <= s_i (rotated cones), sum s <= radius, 0 <= phi <= radius, sum phi <= k radius
+        # extended formulation of the variational form in xi = x / radius (theta_i in (0, 1]):
+        # xi_i^2 / theta_i <= s_i (rotated cones), sum s <= 1, theta <= 1, sum theta <= k
         import cvxpy as cp
         n, r = self.n, self.radius
-        phi = cp.Variable(n, nonneg=True)
+        if r == 0.0:
+            return [x == 0]
+        xi = x / r
+        theta = cp.Variable(n, nonneg=True)
         s = cp.Variable(n)
-        return [cp.SOC(s + phi, cp.vstack([2 * x, s - phi]), axis=0),
-                cp.sum(s) <= r, phi <= r, cp.sum(phi) <= self.k * r]
+        return [cp.SOC(s + theta, cp.vstack([2 * xi, s - theta]), axis=0),
+                cp.sum(s) <= 1.0, theta <= 1.0, cp.sum(theta) <= self.k]
 
     def _orders(self, A):
         if A.shape[0] == 1:
@@ -104,6 +109,9 @@ class KSupportBall(Family):
         A = np.abs(Y) / t[:, None]
         out = np.empty_like(A)
         ksupport_rows(A, np.ascontiguousarray(self._orders(A)), self.k, self.radius / t, out)
+        if not np.isfinite(out).all():
+            raise SolveError(f"{self.label}: the projection's level search failed on "
+                             f"{int((~np.isfinite(out).all(axis=1)).sum())} point(s).", status="no_convergence")
         return np.copysign(out * t[:, None], Y)
 
     @kernel("distance")

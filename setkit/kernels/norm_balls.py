@@ -186,60 +186,67 @@ def ksupport_norm_sorted(z, k):
 
 
 @njit(cache=True)
-def _ks_inner(z, p, k, mu):
-    """s >= 0 with sum_{i<p} clip(s z_i - mu, 0, 1) = k (z sorted nonincreasing, z_i > 0 for i < p, p > k).
+def _ks_inner(z, p, k, nu):
+    """The level tau with sum_{i<p} min(1, (z_i - tau)_+ / (nu tau)) = k (z sorted nonincreasing,
+    z_i > 0 for i < p, p > k, nu > 0).
 
-    The sum is nondecreasing piecewise linear in s; its breakpoints mu/z_i (entry) and
-    (1 + mu)/z_i (saturation) are both increasing in i, so one merge walk finds the piece, O(p)."""
-    ie = 0          # entries 0..ie-1 have entered
-    js = 0          # entries 0..js-1 are saturated; active = js..ie-1
-    zact = 0.0
-    while True:
-        ne = mu / z[ie] if ie < p else np.inf
-        ns = (1.0 + mu) / z[js] if js < ie else np.inf
-        nxt = ne if ne <= ns else ns
-        if ie > js:
-            phi = js + nxt * zact - mu * (ie - js)
-            if phi >= k or nxt == np.inf:
-                zs = 0.0
-                for i in range(js, ie):
-                    zs += z[i]
-                return (k - js + mu * (ie - js)) / zs
-        if ne <= ns:
-            zact += z[ie]
-            ie += 1
+    The sum is decreasing in tau; walking tau down through the events (entry m turns active at
+    tau = z_m, entry a saturates at tau = z_a / (1 + nu)) finds the piece, on which
+    tau = D / ((m - a) + (k - a) nu), D the sum of the active unsaturated entries: no difference
+    of large numbers, whatever the size of nu. O(p)."""
+    a = 0
+    m = 0
+    D = 0.0
+    for _ in range(2 * p + 2):
+        na = z[m] if m < p else 0.0
+        ns = z[a] / (1.0 + nu) if a < m else -1.0
+        te = na if na >= ns else ns
+        if m > a and D - (m - a) * te >= (k - a) * nu * te:
+            acc = 0.0
+            for i in range(a, m):
+                acc += z[i]
+            return acc / ((m - a) + (k - a) * nu)
+        if na >= ns:
+            D += z[m]
+            m += 1
         else:
-            zact -= z[js]
-            js += 1
+            D -= z[a]
+            a += 1
+    return np.nan
 
 
 @njit(cache=True)
-def _ks_point(z, p, k, mu, x):
-    """x = prox of (mu/2) ||.||_sp^2 at z (sorted, first p positive) and the value sum z^2 theta/(theta + mu)^2."""
-    s = _ks_inner(z, p, k, mu)
-    N = 0.0
+def _ks_point(z, p, k, nu, x):
+    """x = prox of ||.||_sp^2 / (2 nu) at z (sorted, first p positive), and ||x||_sp / nu.
+
+    theta_i = min(1, (z_i - tau)_+ / (nu tau)) (sum theta = k), x_i = z_i nu theta_i / (1 + nu theta_i),
+    and ||x||_sp^2 = sum x_i^2 / theta_i = nu^2 sum theta_i (z_i / (1 + nu theta_i))^2: the returned
+    root sum stays near the size of z however small nu (a tiny radius against z) is."""
+    tau = _ks_inner(z, p, k, nu)
+    R = 0.0
     for i in range(z.size):
         x[i] = 0.0
     for i in range(p):
-        th = s * z[i] - mu
-        if th > 1.0:
-            th = 1.0
-        if th > 0.0:
-            x[i] = z[i] * th / (th + mu)
-            N += x[i] * x[i] / th
-    return N
+        if z[i] > tau:
+            th = (z[i] - tau) / (nu * tau)
+            if th > 1.0:
+                th = 1.0
+            v = z[i] / (1.0 + nu * th)
+            x[i] = v * nu * th
+            R += th * v * v
+    return np.sqrt(R)
 
 
 @njit(cache=True)
 def ksupport_project_sorted(z, k, r, x):
-    """Write into x the projection of z (sorted nonincreasing, >= 0, ||z||_sp > r) onto {||.||_sp <= r}.
+    """Write into x the projection of z (sorted nonincreasing, >= 0, ||z||_sp > r > 0) onto {||.||_sp <= r}.
 
-    x = prox of (mu/2) ||.||_sp^2, which is x_i = z_i theta_i / (theta_i + mu) with
-    theta_i = clip(s z_i - mu, 0, 1), sum theta = k (minimizing over theta in the variational
-    form of the squared norm); the multiplier mu > 0 makes ||x||_sp = r. ||x(mu)||_sp is
-    nonincreasing in mu: mu is bracketed by halving from sqrt(k) z_0 / r, then bisected until
-    the bracket stops shrinking (about 53 steps), each an O(n) merge walk; x is taken at the
-    feasible end and scaled into the ball if rounding left it a few ulps out. Returns steps."""
+    x = prox of ||.||_sp^2 / (2 nu), which is x_i = z_i nu theta_i / (1 + nu theta_i) with
+    theta_i = min(1, (z_i - tau)_+ / (nu tau)), sum theta = k (minimizing over theta in the
+    variational form of the squared norm); nu > 0 makes ||x||_sp = r, and ||x(nu)||_sp is
+    nondecreasing in nu. nu is bracketed from r / (sqrt(k) z_0) (feasible) by doubling, then
+    bisected until the bracket stops shrinking (about 53 steps), each an O(n) walk; x is taken at
+    the feasible end and scaled into the ball if rounding left it a few ulps out. Returns steps."""
     n = z.size
     p = 0
     while p < n and z[p] > 0.0:
@@ -249,31 +256,29 @@ def ksupport_project_sorted(z, k, r, x):
         # projection lies in the (smaller) k-support ball, so it is the projection
         s = 0.0
         for i in range(n):
-            s += z[i] * z[i]
-        f = r / np.sqrt(s)
+            s += (z[i] / z[0]) ** 2
+        f = (r / z[0]) / np.sqrt(s)
         for i in range(n):
             x[i] = z[i] * f
         return 0
     tmp = np.empty(n)
-    r2 = r * r
-    hi = np.sqrt(k) * z[0] / r
-    lo = 0.5 * hi
+    lo = r / (np.sqrt(k) * z[0])
+    hi = 2.0 * lo
     steps = 0
-    while _ks_point(z, p, k, lo, tmp) <= r2 and lo > 0.0:
-        hi = lo
-        lo *= 0.5
+    while hi * _ks_point(z, p, k, hi, tmp) <= r and steps < 5000:
+        lo = hi
+        hi *= 2.0
         steps += 1
     while steps < 5000:
         mid = 0.5 * (lo + hi)
         if not (lo < mid < hi):
             break
-        if _ks_point(z, p, k, mid, tmp) > r2:
-            lo = mid
-        else:
+        if mid * _ks_point(z, p, k, mid, tmp) > r:
             hi = mid
+        else:
+            lo = mid
         steps += 1
-    _ks_point(z, p, k, hi, x)
-    nrm = ksupport_norm_sorted(x, k)
+    nrm = lo * _ks_point(z, p, k, lo, x)
     if nrm > r:
         f = r / nrm
         for i in range(n):
