@@ -178,3 +178,51 @@ def product(n, rng):
 @workload("affine", "affine image 2 x + 1 of a simplex, dim n")
 def affine(n, rng):
     return {"kind": "affine", "set": {"kind": "simplex", "dim": n}, "scale": 2.0, "shift": 1.0}
+
+
+# ---------------------------------------------------------------------------------------------
+# spectral sets (the size is the number of coordinates m^2 of an m x m matrix) and structured
+# norm balls (the size is the dimension)
+# ---------------------------------------------------------------------------------------------
+SPECTRAL_SIZES = (100, 1_024, 10_000, 102_400)
+
+
+@workload("nuclear_ball", "nuclear-norm ball of m x m matrices, n = m^2", sizes_full=SPECTRAL_SIZES,
+          sizes_quick=(25,))
+def nuclear_ball(n, rng):
+    m = _side(n)
+    return {"kind": "nuclear_ball", "rows": m, "cols": m, "radius": float(m)}
+
+
+@workload("spectral_ball", "operator-norm ball of m x m matrices, n = m^2", sizes_full=SPECTRAL_SIZES,
+          sizes_quick=(25,))
+def spectral_ball(n, rng):
+    m = _side(n)
+    return {"kind": "spectral_ball", "rows": m, "cols": m, "radius": 1.0}
+
+
+@workload("spectraplex", "spectraplex of m x m matrices (trace 1), n = m^2", sizes_full=SPECTRAL_SIZES,
+          sizes_quick=(25,))
+def spectraplex(n, rng):
+    return {"kind": "spectraplex", "n": _side(n), "trace": 1.0}
+
+
+@workload("group_ball", "group l1/l2 ball, groups of 3, dim n")
+def group_ball(n, rng):
+    return {"kind": "group_ball", "dim": n, "group_size": 3, "radius": 2.0}
+
+
+@workload("owl_ball", "ordered weighted l1 ball, linear weights, dim n", floors={"project": "sort+isotonic",
+                                                                                 "distance": "sort+isotonic"})
+def owl_ball(n, rng):
+    return {"kind": "owl_ball", "weights": np.linspace(2.0, 0.5, n), "radius": 1.0}
+
+
+@workload("ksupport_ball", "k-support ball, k = n/8, dim n")
+def ksupport_ball(n, rng):
+    return {"kind": "ksupport_ball", "dim": n, "k": max(1, n // 8), "radius": 1.0}
+
+
+@workload("elastic_ball", "elastic-net ball, mix 0.5, dim n", floors={"project": "pass", "distance": "pass"})
+def elastic_ball(n, rng):
+    return {"kind": "elastic_ball", "dim": n, "radius": 1.0, "mix": 0.5}
