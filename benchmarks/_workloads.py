@@ -212,10 +212,11 @@ def group_ball(n, rng):
     return {"kind": "group_ball", "dim": n, "group_size": 3, "radius": 2.0}
 
 
-@workload("owl_ball", "ordered weighted l1 ball, linear weights, dim n", floors={"project": "sort+isotonic",
-                                                                                 "distance": "sort+isotonic"})
+@workload("owl_ball", "ordered weighted l1 ball, 4 weight levels, dim n", floors={"project": "sort+isotonic",
+                                                                                   "distance": "sort+isotonic"})
 def owl_ball(n, rng):
-    return {"kind": "owl_ball", "weights": np.linspace(2.0, 0.5, n), "radius": 1.0}
+    # four levels (OSCAR-like steps): the reference's constraint has 4 sum_largest terms, not n
+    return {"kind": "owl_ball", "weights": np.repeat([2.0, 1.5, 1.0, 0.5], -(-n // 4))[:n], "radius": 1.0}
 
 
 @workload("ksupport_ball", "k-support ball, k = n/8, dim n")
