@@ -53,7 +53,15 @@ def check_against_reference(K, Y, C, rtol=RTOL):
     P = K.project(Y)
     Pr = ref.project(Y)
     err = point_gaps(P, Pr) / sc
-    assert err.max() <= rtol, f"projection differs from the reference by {err.max():.3g} (relative)"
+    off = err > rtol
+    if off.any():
+        # Clarabel's accuracy floor (about 1e-6..1e-5 relative, worse at ties on low-dimensional faces):
+        # a disagreement is the reference's when the native answer is certified, i.e. its Frank-Wolfe
+        # gap g bounds ||p - p*|| <= sqrt(2 g) within the tolerance, and it is at least as close to y
+        cert = np.atleast_1d(K.certificate(Y[off], P[off]))
+        ok = (np.sqrt(2 * np.maximum(cert, 0)) <= rtol * sc[off]) & \
+             (point_gaps(Y[off], P[off]) <= point_gaps(Y[off], Pr[off]) + 1e-12 * sc[off])
+        assert ok.all(), f"projection differs from the reference by {err.max():.3g} (relative) and is not certified"
     # the native projection lies in K (to rounding) and is at least as close as the reference's
     assert (K.violation(P) <= 1e-10 * sc * K.dim).all()
     dist = point_gaps(Y, P)

@@ -120,7 +120,7 @@ def test_intersection_by_bregman_dykstra_matches_capped_simplex(rng):
     K = setkit.compile({"kind": "intersection", "of": [{"kind": "simplex", "dim": 6},
                                                        {"kind": "box", "dim": 6, "lower": 0, "upper": 0.3}]})
     B = setkit.compile({"kind": "budget", "dim": 6, "total": 1.0, "upper": 0.3})
-    assert K.routes()["project_kl"].provider == "native"
+    assert K.routes()["project_kl"].provider == "bregman_dykstra"
     T = rng.uniform(-5, 5, (3, 6))
     X, info = K.run("project_kl", T)
     assert info["status"] == ["solved"] * 3
