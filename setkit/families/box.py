@@ -113,6 +113,15 @@ class Box(Family):
         """Clipping to the bounds, O(n)."""
         return box_ops(Y, self.lower, self.upper, self._tie, 0)[0]
 
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """v where lower < y < upper, 0 elsewhere (the derivative of clipping), O(n).
+
+        At a kink (y_i exactly at a bound) the bound is treated as active: the derivative is 0
+        there, the projector onto the smallest face containing p.
+        """
+        return np.where((Y > self.lower) & (Y < self.upper), V, 0.0)
+
     @kernel("distance")
     def distance(self, Y):
         """Norm of the clipped-off part, O(n)."""

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
+from ..kernels.face import capped_face_rows
 from ..kernels.simplex import knapsack_lmo_rows, project_capped
 from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation
 from . import Family, kernel, register
@@ -142,6 +143,24 @@ class Budget(Family):
     def project(self, Y):
         """Clip to the bounds and shift by the multiplier of the weighted sum, found by randomized breakpoint search, expected O(n)."""
         return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode)
+
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """The face of the projection: on the free set F = {lower < p < upper}, v_F - w_F <w_F, v_F>/<w_F, w_F>, O(n).
+
+        The Jacobian is the projector onto the tangent subspace {d_i = 0 off F, <w_F, d_F> = 0}
+        of the face of p (the weighted sum is active in mode equal, and in mode at_most when
+        <w, clip(y)> >= total; otherwise J v = v on F). At a kink every constraint tight at p
+        is treated as active (a coordinate exactly at a bound is fixed; the tie of the at_most
+        sum keeps the sum): the projector onto the smallest face containing p.
+        """
+        P = self.project(Y)
+        if self.mode == "equal":
+            active = np.ones(Y.shape[0], dtype=np.bool_)
+        else:
+            active = np.clip(Y, self.lower, self.upper) @ self.weights >= self.total
+        return capped_face_rows(P, np.ascontiguousarray(V, dtype=float), self.lower, self.upper, self.weights,
+                                active, np.empty_like(P))
 
     @kernel("lmo")
     def lmo(self, C):

@@ -6,6 +6,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
+from ..kernels.face import simplex_face_rows
 from ..kernels.simplex import project_simplex_rows, simplex_distance_rows
 from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation, simplex_lmo_rows, simplex_support_rows
 from . import Family, kernel, register
@@ -86,6 +87,24 @@ class Simplex(Family):
         if over.any():
             X[over] = project_simplex_rows(Y[over], self.total)
         return X
+
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """The face of the projection: v_S - mean(v_S) on the support S = {p > 0}, 0 off it, O(n).
+
+        The Jacobian is the projector onto the tangent subspace of the face {x_i = 0, i not in S,
+        sum x = total}: (I - 1 1^T/|S|) on S (Martins and Astudillo 2016, "From softmax to
+        sparsemax", the sparsemax Jacobian; from memory). In mode at_most the sum is active when
+        sum max(y, 0) >= total, and J v = v on S = {y > 0} otherwise. At a kink (p_i = 0 exactly,
+        or sum max(y, 0) = total exactly) every constraint tight at p is treated as active: the
+        returned element is the projector onto the smallest face containing p.
+        """
+        P = self.project(Y)
+        if self.mode == "equal":
+            active = np.ones(Y.shape[0], dtype=np.bool_)
+        else:
+            active = np.maximum(Y, 0.0).sum(axis=1) >= self.total
+        return simplex_face_rows(P, np.ascontiguousarray(V, dtype=float), active, np.empty_like(P))
 
     @kernel("distance")
     def distance(self, Y):
