@@ -111,7 +111,11 @@ def faces_of_parts_apply(node) -> bool:
     :data:`FACE_INTERSECTION_MAX_DIM`.
     """
     return (getattr(node, "kind", None) == "intersection" and node.dim <= FACE_INTERSECTION_MAX_DIM
-            and all(p.has_trait("polyhedral") for p in node.children()))
+            and all(p.has_trait("polyhedral") or _is_l2_ball(p) for p in node.children()))
+
+
+def _is_l2_ball(node):
+    return getattr(node, "kind", None) == "ball" and getattr(node, "norm", None) == 2
 
 
 def part_face_projector_rows(part, P, V, rel):
@@ -133,30 +137,66 @@ def part_face_projector_rows(part, P, V, rel):
     return part.run("project_jvp", P, V)[0]
 
 
-def intersect_tangents_rows(parts, P, V, rel=1e-9):
-    """Project each row of V onto the intersection of the parts' face tangent subspaces at the row of P.
+def _null_space(B, n):
+    if B.shape[0] == 0:
+        return np.eye(n)
+    _, sv, Wt = np.linalg.svd(B, full_matrices=True)
+    rank = int(np.sum(sv > 1e-8 * max(1.0, sv.max(initial=0.0))))
+    return Wt[rank:].T
 
-    For a polyhedral part K_i and p in K_i, ``project_jvp`` at p itself returns (by setkit's
-    rule at kinks: every constraint tight at p is active) the projector Pi_i onto the tangent
-    subspace of the smallest face of K_i containing p. The smallest face of the intersection
-    containing p is the intersection of those faces, so its tangent subspace is the
-    intersection of the ranges of the Pi_i: the null space of the stacked (I - Pi_i), found by
-    an SVD. O(k n^2) part products and O(k n^3) per row (k parts).
+
+def intersect_tangents_rows(parts, P, V, rel=1e-9, Y=None):
+    """Jacobian products of the projection onto an intersection of polyhedral parts and l2 balls (implicit differentiation).
+
+    Polyhedral parts: the projector Pi_i onto the tangent subspace of the smallest face of
+    K_i containing p (:func:`part_face_projector_rows`); the smallest face of the
+    intersection containing p is the intersection of those faces, whose tangent subspace
+    T_0 is the null space of the stacked (I - Pi_i). An l2 ball {||x - c|| <= r} with p on
+    its sphere (within ``rel``) adds the constraint phi(x) = ||x - c|| - r with gradient
+    g = (p - c)/r and Hessian (I - g g^T)/r; its multiplier mu >= 0 comes from the KKT
+    conditions y - p = sum_j mu_j g_j + (normals of the polyhedral faces), read on T_0 by
+    least squares. Implicit differentiation of the KKT system then gives
+
+    .. math:: J v = Q (Q^T H Q)^{-1} Q^T v, \quad H = I + \sum_j \mu_j (I - g_j g_j^T)/r_j,
+
+    with Q an orthonormal basis of T = T_0 ∩ {g_j^T d = 0 : mu_j > 0}. For polyhedral parts
+    only, H = I and J is the projector onto T. At kinks the smallest-face rule of each part
+    applies, and a sphere with mu = 0 (touching without pushing) is dropped. ``Y`` (the
+    inputs) is needed only when a ball part is present. O(k n^2) part products and O(k n^3)
+    per row (k parts).
     """
     b, n = P.shape
     out = np.zeros_like(V)
     eye = np.eye(n)
+    poly = [p for p in parts if not _is_l2_ball(p.node)]
+    balls = [p.node for p in parts if _is_l2_ball(p.node)]
     for r in range(b):
+        p = P[r]
         blocks = []
-        for part in parts:
+        for part in poly:
             Pi = part_face_projector_rows(part, np.repeat(P[r:r + 1], n, axis=0), eye, rel)
-            Pi = 0.5 * (Pi + Pi.T)
-            blocks.append(eye - Pi)
-        B = np.vstack(blocks)
-        _, sv, Wt = np.linalg.svd(B, full_matrices=True)
-        rank = int(np.sum(sv > 1e-8 * max(1.0, sv.max(initial=0.0))))
-        Q = Wt[rank:].T
-        out[r] = Q @ (Q.T @ V[r])
+            blocks.append(eye - 0.5 * (Pi + Pi.T))
+        Q0 = _null_space(np.vstack(blocks) if blocks else np.zeros((0, n)), n)
+        grads, curv = [], []
+        for bl in balls:
+            z = p - bl.center
+            if bl.radius > 0 and abs(np.linalg.norm(z) - bl.radius) <= rel * max(1.0, bl.radius, np.abs(p).max()):
+                grads.append(z / np.linalg.norm(z))
+                curv.append(bl.radius)
+        H = eye
+        Q = Q0
+        if grads and Y is not None and Q0.shape[1]:
+            G = np.array(grads)
+            Gt = G @ Q0                               # the sphere normals read on T_0
+            mu = np.linalg.lstsq(Gt.T, Q0.T @ (Y[r] - p), rcond=None)[0]
+            push = mu > rel * max(1.0, float(np.abs(Y[r] - p).max()))
+            H = eye + sum(m * (eye - np.outer(g, g)) / rad for m, g, rad, k in zip(mu, G, curv, push) if k)
+            if push.any():
+                Q = Q0 @ _null_space(Gt[push], Q0.shape[1])
+        if Q.shape[1] == 0:
+            continue
+        w = Q.T @ V[r]
+        out[r] = Q @ np.linalg.solve(Q.T @ H @ Q, w)
     return out
 
 
@@ -177,7 +217,7 @@ def form_jvp(run, context):
         rel = max(1e-9, float(getattr(context.node, "accuracy", 0.0) or 0.0))
         if form is not None and form.n_aux == 0:
             return face_projector_rows(form, P, V, _activity_tol(form, P) * (rel / 1e-9)), info
-        return intersect_tangents_rows(context.parts, P, np.asarray(V, dtype=float), rel), info
+        return intersect_tangents_rows(context.parts, P, np.asarray(V, dtype=float), rel, Y=Y), info
     return jvp
 
 
