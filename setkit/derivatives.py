@@ -157,7 +157,7 @@ def intersect_tangents_rows(parts, P, V, rel=1e-9, Y=None):
     conditions y - p = sum_j mu_j g_j + (normals of the polyhedral faces), read on T_0 by
     least squares. Implicit differentiation of the KKT system then gives
 
-    .. math:: J v = Q (Q^T H Q)^{-1} Q^T v, \quad H = I + \sum_j \mu_j (I - g_j g_j^T)/r_j,
+    .. math:: J v = Q (Q^T H Q)^{-1} Q^T v, \\quad H = I + \\sum_j \\mu_j (I - g_j g_j^T)/r_j,
 
     with Q an orthonormal basis of T = T_0 ∩ {g_j^T d = 0 : mu_j > 0}. For polyhedral parts
     only, H = I and J is the projector onto T. At kinks the smallest-face rule of each part

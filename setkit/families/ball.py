@@ -162,12 +162,15 @@ class Ball(Family):
         if self.norm == "inf":
             return np.where((Y > self._lo) & (Y < self._hi), V, 0.0)
         if self.norm == 2:
-            nz = np.linalg.norm(Z, axis=1)
+            big = np.abs(Z).max(axis=1, initial=0.0)
+            Zs = np.divide(Z, big[:, None], out=np.zeros_like(Z), where=big[:, None] > 0)
+            ns = np.linalg.norm(Zs, axis=1)
+            nz = big * ns                  # ||z|| without overflow in the squares
             out = V.copy()
             rows = nz >= r
             if rows.any():
-                Zo, no = Z[rows], nz[rows]
-                U = np.divide(Zo, no[:, None], out=np.zeros_like(Zo), where=no[:, None] > 0)
+                no = nz[rows]
+                U = np.divide(Zs[rows], ns[rows, None], out=np.zeros_like(Zs[rows]), where=ns[rows, None] > 0)
                 Vo = V[rows]
                 f = np.divide(r, no, out=np.zeros_like(no), where=no > 0)
                 out[rows] = f[:, None] * (Vo - U * np.einsum("ij,ij->i", U, Vo)[:, None])

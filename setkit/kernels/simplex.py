@@ -52,11 +52,14 @@ def _simplex_tau(y, total, v, vt):
         m2 = 0
         for k in range(m):
             yk = v[k]
-            if yk > rho:
+            left = m - 1 - (k - m2)                     # the list size after this removal
+            if yk > rho or left == 0:
+                # (left == 0: at |y| >> total rounding can make every candidate look removable;
+                # the largest one stays, and tau = y_max - total within rounding of |y|)
                 v[m2] = yk
                 m2 += 1
             else:
-                rho += (rho - yk) / (m - 1 - (k - m2))   # the list size after this removal
+                rho += (rho - yk) / left
         if m2 == m:
             s = 0.0
             for k in range(m):
@@ -102,6 +105,17 @@ def project_simplex_rows(Y: np.ndarray, total: float) -> np.ndarray:
     if bad:
         rows = np.flatnonzero(np.isnan(out[:, 0]))
         out[rows] = project_simplex_sorted(Y[rows], total)
+    if np.abs(Y).max(initial=0.0) > 1e12 * total:
+        # |y| >> total: the threshold loses total to rounding; the projection is invariant under
+        # y -> y - max(y) (a shift along 1), which makes the largest entry exactly 0
+        rows = np.flatnonzero(np.abs(out.sum(axis=1) - total) > 1e-9 * total)
+        if rows.size:
+            Ys = Y[rows] - Y[rows].max(axis=1, keepdims=True)
+            sub = np.empty_like(Ys)
+            if _simplex_rows_nb(Ys, float(total), sub):
+                nan = np.isnan(sub[:, 0])
+                sub[nan] = project_simplex_sorted(Ys[nan], total)
+            out[rows] = sub
     return out
 
 
