@@ -67,7 +67,7 @@ def face_projector_rows(form, P, V, tol=None):
     --------
     >>> import numpy as np, setkit
     >>> form = setkit.compile({"kind": "simplex", "dim": 3}).linear_form()
-    >>> face_projector_rows(form, np.array([[0.5, 0.5, 0.0]]), np.array([[1.0, 0.0, 5.0]])).tolist()
+    >>> face_projector_rows(form, np.array([[0.5, 0.5, 0.0]]), np.array([[1.0, 0.0, 5.0]])).round(12).tolist()
     [[0.5, -0.5, 0.0]]
     """
     if form.n_aux:
