@@ -215,6 +215,8 @@ def form_jvp(run, context):
         form = context.linear_form()
         # the accuracy a combinator states for its projection (splitting methods) sets what counts as tight
         rel = max(1e-9, float(getattr(context.node, "accuracy", 0.0) or 0.0))
+        if context.routes()["project"].category == "backend":
+            rel = max(rel, 1e-7)     # a QP solver's answer: tight within its stopping tolerance
         if form is not None and form.n_aux == 0:
             return face_projector_rows(form, P, V, _activity_tol(form, P) * (rel / 1e-9)), info
         return intersect_tangents_rows(context.parts, P, np.asarray(V, dtype=float), rel, Y=Y), info
