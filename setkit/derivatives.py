@@ -111,7 +111,15 @@ def faces_of_parts_apply(node) -> bool:
     :data:`FACE_INTERSECTION_MAX_DIM`.
     """
     return (getattr(node, "kind", None) == "intersection" and node.dim <= FACE_INTERSECTION_MAX_DIM
-            and all(p.has_trait("polyhedral") or _is_l2_ball(p) for p in node.children()))
+            and all(_face_known(p) for p in node.children()))
+
+
+def _face_known(node):
+    """Parts whose face at an approximate point can be read with a tolerance (see part_face_projector_rows)."""
+    if _is_l2_ball(node) or node.kind == "permutahedron" or (node.kind == "ball" and node.norm == 1):
+        return True
+    form = node.linear_form()
+    return form is not None and form.n_aux == 0
 
 
 def _is_l2_ball(node):
@@ -124,7 +132,7 @@ def part_face_projector_rows(part, P, V, rel):
     Constraints within ``rel`` (relative to the data and the point) of tight count as tight,
     so points computed to that accuracy find their face: the linear form without auxiliary
     variables when the part has one, the isotonic blocks with a tie tolerance for a
-    permutahedron, and otherwise the part's own ``project_jvp`` at P (exact ties only).
+    permutahedron, the signed simplex face for an l1 ball.
     """
     node = part.node
     form = part.linear_form()
@@ -134,7 +142,20 @@ def part_face_projector_rows(part, P, V, rel):
         from .kernels.face import permutahedron_face
         wd = np.sort(node.weights)[::-1]
         return permutahedron_face(P, wd, V, mode=0, tol=rel * max(1.0, float(np.abs(wd).max())))
-    return part.run("project_jvp", P, V)[0]
+    if node.kind == "ball" and node.norm == 1:
+        Z = P - node.center
+        t = rel * max(1.0, node.radius, float(np.abs(P).max(initial=0.0)))
+        out = np.array(V, dtype=float, copy=True)
+        rows = np.abs(Z).sum(axis=1) >= node.radius - t
+        if rows.any():
+            S = np.abs(Z[rows]) > t
+            sgn = np.sign(Z[rows]) * S
+            Vo = out[rows]
+            k = S.sum(axis=1)
+            m = np.divide(np.einsum("ij,ij->i", sgn, Vo), k, out=np.zeros(k.shape), where=k > 0)
+            out[rows] = np.where(S, Vo - sgn * m[:, None], 0.0)
+        return out
+    raise UnsupportedOperationError(f"the face of {node.label} at an approximate point is not known to setkit.")
 
 
 def _null_space(B, n):

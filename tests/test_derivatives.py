@@ -294,3 +294,25 @@ def test_distance_gradient_and_hessian_products_match_differences(spec):
     if spec["kind"] == "ball":          # inside: gradient and Hessian product 0
         assert D.distance_grad(K, [0.2, 0.0, -0.1]).tolist() == [0.0, 0.0, 0.0]
         assert D.distance_hvp(K, [0.2, 0.0, -0.1], [1.0, 2.0, 3.0]).tolist() == [0.0, 0.0, 0.0]
+
+
+@pytest.mark.parametrize("spec", [
+    {"kind": "intersection", "of": [{"kind": "ball", "dim": 4, "norm": 1, "radius": 1.0},
+                                    {"kind": "box", "dim": 4, "lower": -0.2, "upper": 0.6}]},
+    {"kind": "intersection", "of": [{"kind": "ball", "dim": 4, "norm": 1, "radius": 1.0},
+                                    {"kind": "polyhedron", "A": [[1, 1, 0, 0]], "b": [0.3]}]},
+], ids=["l1-box", "l1-halfspace"])
+def test_intersections_with_auxiliary_parts_use_the_parts_faces(spec):
+    """An l1 ball's form has auxiliaries: the faces of the parts are intersected (face route)."""
+    K = setkit.compile(spec)
+    assert K.routes()["project_jvp"].provider == "form"
+    assert all(o.worst <= 1 for o in setkit.testing.check_derivatives(K, seed=1, points=6))
+
+
+def test_intersection_with_a_hull_part_is_refused_clearly():
+    """A hull's face at an approximate point is not read with a tolerance: no silent answer."""
+    K = setkit.compile({"kind": "intersection", "of": [{"kind": "hull", "points": [[0, 0], [2, 0], [0, 2]]},
+                                                       {"kind": "box", "dim": 2, "lower": 0.2, "upper": 5}]})
+    assert K.routes()["project_jvp"].provider == "none"
+    with pytest.raises(UnsupportedOperationError, match="project_jvp on intersection"):
+        K.project_vjp([1.0, 1.5], [1.0, 0.0])
