@@ -31,10 +31,20 @@ from .strategies import all_strategies, strategies_for
 
 
 # -- derived rules, declared as data and executed here --------------------------------------
+def row_norms(R):
+    """Euclidean norm of each row without overflow or underflow (rows scaled by their largest entry)."""
+    top = np.abs(R).max(axis=1, initial=0.0) if R.size else np.zeros(R.shape[0])
+    safe = np.where((top > 0) & np.isfinite(top), top, 1.0)
+    with np.errstate(over="ignore", invalid="ignore"):
+        return np.where(np.isfinite(top), safe * np.linalg.norm(R / safe[:, None], axis=1), top)
+
+
 def _distance_from_projection(run, node, context):
     def distance(X):
         P, info = run("project", X)
-        return np.linalg.norm(X - P, axis=1), info
+        with np.errstate(over="ignore", invalid="ignore"):
+            R = X - P
+        return row_norms(R), info
     return distance
 
 
@@ -336,6 +346,7 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
         elif r.category == "strategy":
             if r.provider not in strategies:
                 strategies[r.provider] = all_strategies()[r.provider](node)
+                strategies[r.provider].owner = context
             meth = getattr(strategies[r.provider], op)
             fallback = _generic(op, node) if op in strategies[r.provider].fallback_operators else None
             if fallback is not None:

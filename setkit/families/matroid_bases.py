@@ -1,0 +1,252 @@
+"""The base polytope of a matroid: the convex hull of the indicator vectors of its bases.
+
+Forms (``form``):
+
+* ``uniform`` (``dim`` n, ``k``): the k-subsets of n elements; K = {0 <= x <= 1, sum x = k},
+  the capped simplex;
+* ``partition`` (``groups``: lists of element indices partitioning 0..n-1, ``quotas``: one
+  count per group): exactly q_j elements from group j; K is the product of the capped simplices
+  {0 <= x_G <= 1, sum x_G = q_j};
+* ``rank`` (from Python only: ``rank=callable`` on frozensets, with ``dim``): any matroid given by
+  its rank function; K = B(rank), the base polytope of the (submodular) rank function.
+
+LMO by the greedy algorithm (Edmonds 1971: greedy finds a minimum-weight basis of any matroid).
+Projection: uniform and partition by the capped-simplex breakpoint search of the budget family
+(exact, expected O(n)); a rank oracle by Wolfe's minimum-norm point on the greedy LMO.
+
+Outputs are numerical answers within the stated tolerances; where quotas select people (rotas,
+panels, shortlists) they are to be reviewed by a responsible person and checked against local rules.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from numbers import Integral
+
+import numpy as np
+import scipy.sparse as sp
+
+from ..forms import LinearForm
+from ..kernels.simplex import project_capped
+from . import Family, kernel, memo, register
+from ._graph import fail_at
+from ._screen import screened_contains
+from .submodular_base import BasePolytopeMixin, PythonFunction, check_submodular
+
+
+@register("matroid_bases")
+@dataclass(frozen=True, eq=False, kw_only=True)
+class MatroidBases(BasePolytopeMixin, Family):
+    """K = conv{1_B : B a basis of the matroid} (uniform, partition, or a rank oracle from Python).
+
+    uniform / partition: {0 <= x <= 1, sum over each group = its quota}; LMO: the q_j smallest costs
+    of each group, O(n log n); projection: breakpoint search per group, expected O(n); membership
+    exact from the bounds and sums. rank oracle: greedy LMO (n rank calls), Wolfe's minimum-norm
+    point projection with a gap certificate, membership by subset enumeration (n <= 16).
+
+    >>> import setkit
+    >>> K = setkit.compile({"kind": "matroid_bases", "form": "uniform", "dim": 4, "k": 2})
+    >>> K.lmo([3.0, 1.0, 2.0, 4.0]).tolist()
+    [0.0, 1.0, 1.0, 0.0]
+    >>> K2 = setkit.compile({"kind": "matroid_bases", "form": "partition", "groups": [[0, 1], [2, 3, 4]],
+    ...                      "quotas": [1, 2]})
+    >>> K2.project([1.0, 0.0, 0.0, 0.0, 0.0]).round(6).tolist()
+    [1.0, 0.0, 0.666667, 0.666667, 0.666667]
+    """
+
+    form: str
+    groups: tuple = ()          # tuple of int arrays (uniform: one group of every element)
+    quotas: np.ndarray | None = None
+    n: int = 0
+    fn: object = None           # the rank oracle (form rank)
+    traits = frozenset({"polyhedral", "bounded"})
+
+    @classmethod
+    def from_spec(cls, r):
+        default = "rank" if r.has("rank") else "partition" if r.has("groups") else "uniform"
+        form = r.choice("form", ("uniform", "partition", "rank"), default)
+        if form == "uniform":
+            n = r.integer("dim", min=1)
+            k = r.integer("k", min=0)
+            if k > n:
+                r.fail("k", f"k must be at most dim = {n} (a basis has k of the n elements); got {k}.")
+            return cls(form=form, groups=(np.arange(n),), quotas=np.array([float(k)]), n=n, name=r.name)
+        if form == "partition":
+            raw = r.raw("groups")
+            if not isinstance(raw, (list, tuple)) or not raw:
+                r.fail("groups", f"groups must be a list of lists of element indices; got {raw!r}.")
+            groups, seen = [], {}
+            for j, gr in enumerate(raw):
+                if not isinstance(gr, (list, tuple)) or not gr:
+                    fail_at(r, ("groups", j), f"groups[{j}] must be a nonempty list of element indices; got {gr!r}.")
+                for i in gr:
+                    if isinstance(i, bool) or not isinstance(i, Integral) or i < 0:
+                        fail_at(r, ("groups", j), f"groups[{j}] must hold element indices (whole numbers >= 0); "
+                                                  f"got {i!r}.")
+                    if int(i) in seen:
+                        fail_at(r, ("groups", j), f"element {i} is in groups[{seen[int(i)]}] and groups[{j}]; the "
+                                                  f"groups must be disjoint.")
+                    seen[int(i)] = j
+                groups.append(np.array(sorted(int(i) for i in gr), np.int64))
+            n = max(seen) + 1
+            missing = sorted(set(range(n)) - set(seen))
+            if missing:
+                r.fail("groups", f"the groups must cover the elements 0..{n - 1}; element {missing[0]} is in no "
+                                 f"group (put it in a group of its own with quota 0 or 1).")
+            if r.has("dim"):
+                d = r.integer("dim", min=1)
+                if d != n:
+                    r.fail("dim", f"dim must equal the number of grouped elements, {n}; got {d}.")
+            q = r.array("quotas", ndim=1)
+            if q.size != len(groups):
+                r.fail("quotas", f"quotas must have one entry per group, {len(groups)}; got {q.size}.")
+            for j, (gr, qj) in enumerate(zip(groups, q)):
+                if qj != np.round(qj) or qj < 0 or qj > gr.size:
+                    r.fail("quotas", f"quotas[{j}] must be a whole number between 0 and the size of groups[{j}], "
+                                     f"{gr.size}; got {qj:g}.")
+            return cls(form=form, groups=tuple(groups), quotas=q.astype(float), n=n, name=r.name)
+        # a rank oracle from Python
+        raw = r.raw("rank")
+        if not callable(raw):
+            r.fail("rank", f"rank must be a Python function on frozensets of element indices (builder only: "
+                           f"setkit.build('matroid_bases', form='rank', rank=f, dim=n)); got {raw!r}.")
+        n = r.integer("dim", min=1)
+        fn = PythonFunction(n, raw, "matroid_bases" + (f" '{r.name}'" if r.name else ""))
+        try:
+            M = np.zeros((n + 2, n), bool)
+            M[np.arange(n) + 1, np.arange(n)] = True
+            M[n + 1] = True
+            v = fn.values(M)
+        except Exception as exc:
+            r.fail("rank", f"calling the rank function raised {type(exc).__name__}: {exc}.")
+        if v[0] != 0:
+            r.fail("rank", f"the rank of the empty set must be 0; got {v[0]:g}.")
+        bad = np.flatnonzero((v[1:n + 1] != 0) & (v[1:n + 1] != 1))
+        if bad.size:
+            r.fail("rank", f"the rank of a single element must be 0 or 1; got {v[1 + bad[0]]:g} for element {bad[0]}.")
+        if v[-1] != np.round(v[-1]) or not 0 <= v[-1] <= n:
+            r.fail("rank", f"the rank of the ground set must be a whole number in 0..{n}; got {v[-1]:g}.")
+        sub = check_submodular(fn)
+        if sub is not None:
+            S, i, j, by = sub
+            r.fail("rank", f"the rank function is not submodular: r(S+i) + r(S+j) < r(S+i+j) + r(S) by {by:g} for "
+                           f"S = {S}, i = {i}, j = {j}.")
+        return cls(form=form, n=n, fn=fn, name=r.name)
+
+    @classmethod
+    def benchmark_example(cls, n, rng):
+        """A partition matroid: n elements in groups of 10 with random quotas."""
+        groups = [list(range(i, min(n, i + 10))) for i in range(0, n, 10)]
+        return {"kind": "matroid_bases", "about": "partition matroid, groups of 10", "form": "partition",
+                "groups": groups, "quotas": [int(rng.integers(0, len(g) + 1)) for g in groups]}
+
+    @classmethod
+    def examples(cls):
+        """Small instances for the conformance checks (tests/test_conformance.py)."""
+        return [{"kind": "matroid_bases", "form": "uniform", "dim": 5, "k": 2},
+                {"kind": "matroid_bases", "form": "partition", "groups": [[0, 2, 4], [1, 3], [5]],
+                 "quotas": [2, 1, 0]}]
+
+    @classmethod
+    def random_example(cls, rng):
+        """A random partition matroid: 2..3 groups of 1..4 elements, random quotas."""
+        sizes = rng.integers(1, 5, int(rng.integers(2, 4)))
+        perm = rng.permutation(int(sizes.sum()))
+        groups = np.split(perm, np.cumsum(sizes)[:-1])
+        return {"kind": "matroid_bases", "form": "partition", "groups": [sorted(g.tolist()) for g in groups],
+                "quotas": [int(rng.integers(0, s + 1)) for s in sizes]}
+
+    # -- description -----------------------------------------------------------------------
+    @property
+    def shape(self):
+        return (int(self.n),)
+
+    def scale(self):
+        return 1.0
+
+    def _rows(self):
+        def build():
+            rows = np.concatenate([np.full(g.size, j) for j, g in enumerate(self.groups)])
+            cols = np.concatenate(self.groups)
+            return sp.csr_matrix((np.ones(cols.size), (rows, cols)), shape=(len(self.groups), self.n))
+        return memo(self, "group_rows", build)
+
+    def cvxpy_constraints(self, x):
+        if self.form == "rank":
+            return self._all_subsets_constraints(x, "a rank oracle")
+        return [x >= 0, x <= 1, self._rows() @ x == self.quotas]
+
+    def linear_form(self):
+        if self.form == "rank":
+            return None
+        return LinearForm.build(self.n, A_eq=self._rows(), b_eq=self.quotas, lo=np.zeros(self.n), hi=np.ones(self.n))
+
+    # -- native kernels ----------------------------------------------------------------------
+    @kernel("lmo")
+    def lmo(self, C):
+        """Greedy: the q_j smallest costs of each group (uniform, partition), or n rank calls along the sorted costs."""
+        if self.form == "rank":
+            return self.fn.greedy(C)
+        X = np.zeros_like(C)
+        b = C.shape[0]
+        for g, q in zip(self.groups, self.quotas):
+            q = int(q)
+            if q == 0:
+                continue
+            pick = np.argsort(C[:, g], axis=1, kind="stable")[:, :q]
+            X[np.repeat(np.arange(b), q), g[pick.reshape(-1)]] = 1.0
+        return X
+
+    @kernel("project")
+    def project(self, Y):
+        """Capped-simplex breakpoint search per group (the budget kernel), expected O(n); a rank oracle: Wolfe's minimum-norm point."""
+        if self.form == "rank":
+            return self._mnp_project(Y)
+        X = np.empty_like(Y)
+        for g, q in zip(self.groups, self.quotas):
+            if q == 0 or q == g.size:          # a single point: exact
+                X[:, g] = 0.0 if q == 0 else 1.0
+            else:
+                X[:, g] = project_capped(np.ascontiguousarray(Y[:, g]), 0.0, 1.0, 1.0, float(q), "equal")
+        return X
+
+    @kernel("violation")
+    def violation(self, X):
+        """Largest violated bound or group sum (exact, O(n)); a rank oracle: subset enumeration (n <= 16) or the projection."""
+        if self.form == "rank":
+            return self._base_violation(X)
+        v = np.maximum((-X).max(axis=1, initial=0.0), (X - 1.0).max(axis=1, initial=0.0))
+        sums = np.asarray(X @ self._rows().T.toarray())
+        return np.maximum(v, np.abs(sums - self.quotas).max(axis=1, initial=0.0))
+
+    @kernel("contains")
+    def contains(self, X, tol):
+        """Violation screen (bounds and group sums; rows of norm <= sqrt(n)), the projection only for borderline points."""
+        if self.form == "rank":
+            return self._base_contains(X, tol)
+        return screened_contains(X, tol, self.violation, lambda Z: np.linalg.norm(Z - self.project(Z), axis=1),
+                                 math.sqrt(self.n))
+
+    # -- exact knowledge for setkit.measures ------------------------------------------------------
+    def exact_centroid(self, measure):
+        """uniform / partition: q_j / |G_j| on group j for every measure (each measure is invariant
+        under permuting the elements within a group). A rank oracle: None."""
+        if self.form == "rank":
+            return None
+        c = np.empty(self.n)
+        for g, q in zip(self.groups, self.quotas):
+            c[g] = q / g.size
+        return c
+
+    def exact_sample(self, k, measure, rng):
+        """vertices and directions (uniform, partition): a uniformly random q_j-subset of each group
+        (lmo(g) of a Gaussian g picks one too, by symmetry within groups). volume, rank oracle: None."""
+        if self.form == "rank" or measure == "volume":
+            return None
+        X = np.zeros((k, self.n))
+        for g, q in zip(self.groups, self.quotas):
+            q = int(q)
+            if q:
+                pick = np.argsort(rng.random((k, g.size)), axis=1)[:, :q]
+                X[np.repeat(np.arange(k), q), g[pick.reshape(-1)]] = 1.0
+        return X
