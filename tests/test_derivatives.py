@@ -242,8 +242,48 @@ def test_bad_inputs_raise_setkit_errors():
         K.project_jvp(np.zeros((2, 3)), np.zeros((3, 3)))
     with pytest.raises(InputError):
         K.project_jvp([0.0, np.nan, 1.0], [1.0, 0.0, 0.0])
-    with pytest.raises(SetkitError):         # no KL kernels in this tree: a clear setkit error
-        K.project_jvp([0.2, 0.3, 0.5], [1.0, 0.0, 0.0], geometry="kl")
+    with pytest.raises(InputError, match="y > 0"):
+        K.project_jvp([0.2, 0.0, 0.5], [1.0, 0.0, 0.0], geometry="kl")
+    with pytest.raises(SetkitError):         # no KL Jacobian for a budget yet: a clear setkit error
+        setkit.compile({"kind": "budget", "dim": 3, "total": 1.0, "upper": 0.5}).project_jvp(
+            [0.2, 0.3, 0.5], [1.0, 0.0, 0.0], geometry="kl")
+
+
+# -- KL geometry ----------------------------------------------------------------------------------------
+def test_kl_simplex_jacobian_is_the_softmax_jacobian():
+    """In log coordinates x = total softmax(t): dx/dt = diag(x) - x x^T / total (softmax Jacobian,
+    common practice); with respect to y = exp(t), that times diag(1/y)."""
+    K = setkit.compile({"kind": "simplex", "dim": 4, "total": 2.0})
+    t = np.array([0.3, -1.0, 2.0, 0.0])
+    x = 2.0 * np.exp(t) / np.exp(t).sum()
+    want = np.diag(x) - np.outer(x, x) / 2.0
+    E = np.eye(4)
+    got = np.array([K.project_jvp(t, e, geometry="kl", log_input=True) for e in E]).T
+    np.testing.assert_allclose(got, want, atol=1e-15)
+    y = np.exp(t)
+    got_y = np.array([K.project_jvp(y, e, geometry="kl") for e in E]).T
+    np.testing.assert_allclose(got_y, want / y[None, :], rtol=1e-12)
+    got_vjp = np.array([K.project_vjp(y, e, geometry="kl") for e in E])
+    np.testing.assert_allclose(got_vjp, got_y, rtol=1e-12)        # rows of J^T u = columns of J
+
+
+@pytest.mark.parametrize("spec", [{"kind": "simplex", "dim": 4, "total": 2.0},
+                                  {"kind": "simplex", "dim": 5, "total": 3.5, "mode": "at_most"},
+                                  {"kind": "box", "dim": 3, "lower": 0.5, "upper": 2.0},
+                                  {"kind": "box", "lower": [0.0, 0.1], "upper": ["inf", 0.9]}],
+                         ids=["simplex", "simplex-at-most", "box", "box-half-open"])
+def test_kl_jacobians_match_differences_and_are_adjoint(spec):
+    K = setkit.compile(spec)
+    assert all(o.worst <= 1 for o in setkit.testing.check_derivatives(K, geometry="kl", points=6))
+
+
+def test_kl_at_most_tie_keeps_the_sum_active():
+    """sum y = total exactly: the sum is active, the softmax Jacobian (the limit from above)."""
+    K = setkit.compile({"kind": "simplex", "dim": 2, "total": 1.0, "mode": "at_most"})
+    t = np.log([0.25, 0.75])
+    x = np.array([0.25, 0.75])
+    got = np.array([K.project_jvp(t, e, geometry="kl", log_input=True) for e in np.eye(2)]).T
+    np.testing.assert_allclose(got, np.diag(x) - np.outer(x, x), atol=1e-15)
 
 
 # -- permutahedron: derivative with respect to the weights --------------------------------------------

@@ -175,6 +175,17 @@ class Box(Family):
             raise outside_orthant_error(self.label, why)
         return box_kl(T, self.lower, self.upper, self.label)
 
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """diag(x) v where lower < exp(t) < upper, 0 elsewhere (x = clip(exp(t))), in log coordinates, O(n).
+
+        At a kink (exp(t_i) exactly at a bound) the bound is treated as active: derivative 0.
+        """
+        X = self.project_kl(T)
+        with np.errstate(over="ignore"):
+            E = np.exp(T)
+        return np.where((E > self.lower) & (E < self.upper), X * np.asarray(V, dtype=float), 0.0)
+
     @kernel("violation")
     def violation(self, X):
         """Largest bound violation, O(n)."""

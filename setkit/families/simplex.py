@@ -139,6 +139,26 @@ class Simplex(Family):
         """Normalization total * softmax(t) (at_most: y itself when sum y <= total), exact, O(n)."""
         return simplex_kl(T, self.total, self.mode == "at_most")
 
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """The softmax Jacobian in log coordinates: x v - x <x, v> / total with x = project_kl(t), O(n).
+
+        x = total softmax(t), so dx/dt = diag(x) - x x^T / total (the Jacobian of softmax,
+        common practice). In mode at_most with sum exp(t) < total, x = exp(t) and dx/dt = diag(x);
+        at the tie sum exp(t) = total the sum is treated as active (the smallest face).
+        """
+        X = self.project_kl(T)
+        V = np.asarray(V, dtype=float)
+        XV = X * V
+        if self.total <= 0.0:
+            return np.zeros_like(V)
+        coef = XV.sum(axis=1) / self.total
+        if self.mode == "at_most":
+            with np.errstate(over="ignore"):
+                free = np.exp(T).sum(axis=1) < self.total
+            coef = np.where(free, 0.0, coef)
+        return XV - X * coef[:, None]
+
     @kernel("violation")
     def violation(self, X):
         """Largest violation of x >= 0 and of the sum constraint, O(n)."""
