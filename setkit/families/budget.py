@@ -230,6 +230,29 @@ class Budget(Family):
         return budget_kl(T, self.lower, self.upper, self.weights, self.total, self.mode == "at_most", self.label,
                          self._log_bounds, self._kl_structure)
 
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """In log coordinates, on the free set F = {lower < x < upper}: x_F (v_F - w_F <w x, v>_F / <w^2 x>_F), O(n).
+
+        x_i = clip(exp(t_i - lam w_i)) with <w, x> = total; differentiating on F gives
+        dx_i = x_i (dt_i - w_i dlam) and dlam = <w x, dt>_F / <w^2 x>_F. In mode at_most with
+        <w, clip(exp(t))> < total the sum is inactive (J = diag(x) on F). At a kink every
+        constraint tight at x is active: a coordinate exactly at a bound is fixed, the tie of
+        the at_most sum keeps the sum.
+        """
+        X = self.project_kl(T)
+        V = np.asarray(V, dtype=float)
+        F = (X > self.lower) & (X < self.upper)
+        XF = np.where(F, X, 0.0)
+        wx = XF * self.weights
+        den = wx @ self.weights
+        coef = np.divide(np.einsum("ij,ij->i", wx, V), den, out=np.zeros_like(den), where=den > 0)
+        if self.mode == "at_most":
+            with np.errstate(over="ignore"):
+                free = np.clip(np.exp(T), self.lower, self.upper) @ self.weights < self.total
+            coef = np.where(free, 0.0, coef)
+        return XF * (V - self.weights * coef[:, None])
+
     @kernel("violation")
     def violation(self, X):
         """Largest violation of the bounds and of the weighted sum, O(n)."""
