@@ -21,6 +21,11 @@ containing p: the Jacobian at the nearby points y + eps * n (n in the relative
 interior of the normal cone at p), hence an element of the B-subdifferential (the
 limiting Jacobians) and of Clarke's generalized Jacobian.
 
+KL projections (``project_kl_jvp``, in log coordinates t = log y) have closed forms in the
+families: the simplex (the softmax Jacobian diag(x) - x x^T / total), the box (diag(x) on the
+free coordinates) and the budget (x_F (v_F - w_F <w x, v>_F / <w^2 x>_F)); the same rule at
+kinks applies.
+
 This module holds the generic active-set route (any set with a linear form without
 auxiliary variables: transport, Birkhoff, flow, polyhedron, intersections of such),
 the derivative of the permutahedron projection with respect to its weights, and the
