@@ -352,8 +352,12 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             if fallback is not None:
                 routes[op] = Route(op, r.provider, r.reason + f"; rows it leaves unsettled go to {fallback.provider}",
                                    r.source, r.category)
-            calls[op] = _with_fallback((lambda f: (lambda *a: _as_pair(f(*a, context.parts))))(meth), op,
-                                       fallback, context, node)
+            raw = (lambda f: (lambda *a: f(*a, context.parts)))(meth)
+            if fallback is None:
+                direct[op] = raw          # no unsettled rows to route: the single-point path may call it
+                calls[op] = (lambda f: (lambda *a: _as_pair(f(*a))))(raw)
+            else:
+                calls[op] = _with_fallback((lambda f: (lambda *a: _as_pair(f(*a))))(raw), op, fallback, context, node)
         elif r.category == "derived":
             calls[op] = DERIVED_RULES[op].build(run, node, context)
         elif r.category == "form" and op == "project_jvp":

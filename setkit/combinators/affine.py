@@ -223,7 +223,12 @@ class ChangeOfVariables(Strategy):
     def project(self, Y, parts):
         """a·P_K((y - s)/a) + s: the part's projection after an exact change of variables."""
         n = self.node
-        P, info = parts[0].run("project", n.pre(Y))
+        fn = parts[0].native("project")        # the part's bound kernel when it has one (fewer layers)
+        if fn is not None:
+            P = fn(n.pre(Y))
+            P, info = P if isinstance(P, tuple) else (P, {})
+        else:
+            P, info = parts[0].run("project", n.pre(Y))
         return n.scale_factor * P + n.shift, info
 
     def project_jvp(self, Y, V, parts):

@@ -708,8 +708,10 @@ def permutahedron_kl(T, wdesc, log_wdesc=None):
 
     Sort t decreasingly (s), then pool-adjacent-violators for the non-increasing v
     minimizing sum_i exp(s_i - v_i) + w_i v_i; a block's value is
-    logsumexp(s_B) - log(sum_B w) and x_sorted = exp(s - v). Exact, O(n log n) per row.
-    ``log_wdesc``: optional log(wdesc), precomputed by callers that project often.
+    logsumexp(s_B) - log(sum_B w) and x_sorted = exp(s - v). When the row's log inputs
+    span at most 600, the pooling runs on e = exp(s - max s) with cross-multiplied block
+    comparisons (no exp or log per merge); otherwise in the log domain. Exact, O(n log n)
+    per row. ``log_wdesc``: optional log(wdesc), precomputed by callers that project often.
 
     >>> import numpy as np
     >>> permutahedron_kl(np.log([[100.0, 1.0, 1.0]]), np.array([3.0, 2.0, 1.0])).round(12).tolist()
