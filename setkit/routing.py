@@ -124,6 +124,8 @@ def derived_call(op: str, run, node=None):
 
 FORM_RULES = {
     "violation": "largest violated constraint of the linear form",
+    "project_jvp": "projection of v onto the tangent subspace of the face at project(y): of the linear form, "
+                   "or the intersection of the parts' faces (setkit.derivatives.form_jvp)",
 }
 TAKES_TOL = frozenset({"contains", "project_jvp", "project_vjp", "project_kl_jvp", "project_kl_vjp"})
 # (operators whose kernels take a second flat array: the tolerance, or the tangent / cotangent)
@@ -241,6 +243,11 @@ def _has_form_without_aux(node):
     return form is not None and form.n_aux == 0
 
 
+def _faces_of_parts(node):
+    from .derivatives import faces_of_parts_apply
+    return faces_of_parts_apply(node)
+
+
 def choose(node, overrides: dict | None = None) -> dict:
     """Choose a route for every operator of ``node``; ``overrides`` maps operator -> provider."""
     overrides = dict(overrides or {})
@@ -288,7 +295,7 @@ def choose(node, overrides: dict | None = None) -> dict:
             rule = DERIVED_RULES[op]
             routes[op] = Route(op, "derived", rule.text, rule.source, "derived")
         elif op in FORM_RULES:
-            if _has_form_without_aux(node):
+            if _has_form_without_aux(node) or (op == "project_jvp" and _faces_of_parts(node)):
                 routes[op] = Route(op, "form", FORM_RULES[op], category="form")
             else:
                 routes[op] = Route(op, "none", "no native kernel and no linear form without auxiliaries",
@@ -353,6 +360,9 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
                 calls[op] = _with_fallback((lambda f: (lambda *a: _as_pair(f(*a))))(raw), op, fallback, context, node)
         elif r.category == "derived":
             calls[op] = DERIVED_RULES[op].build(run, node, context)
+        elif r.category == "form" and op == "project_jvp":
+            from .derivatives import form_jvp
+            calls[op] = form_jvp(run, context)
         elif r.category == "form":
             calls[op] = lambda X: (context.linear_form().violation_x(X), {})
         elif r.category == "backend":

@@ -212,7 +212,7 @@ class ChangeOfVariables(Strategy):
     """Every operator of a·K + s from the part's, by an exact change of variables."""
 
     kind = "affine"
-    operators = ("project", "distance", "lmo", "support", "contains", "violation")
+    operators = ("project", "distance", "lmo", "support", "contains", "violation", "project_jvp")
     priority = 10
     about = "exact change of variables"
 
@@ -230,6 +230,14 @@ class ChangeOfVariables(Strategy):
         else:
             P, info = parts[0].run("project", n.pre(Y))
         return n.scale_factor * P + n.shift, info
+
+    def project_jvp(self, Y, V, parts):
+        """J_K((y - s)/a) v: the part's Jacobian product after a change of variables (the factors a cancel).
+
+        P(y) = a P_K((y - s)/a) + s, so J(y) v = a J_K((y - s)/a) (v / a); at a kink the element
+        the part documents.
+        """
+        return parts[0].run("project_jvp", self.node.pre(Y), V)
 
     def distance(self, Y, parts):
         """|a|·d_K((y - s)/a): the part's distance after an exact change of variables."""

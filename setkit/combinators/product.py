@@ -245,6 +245,29 @@ class Product(Family):
         """Block-wise KL projection (log-domain input), one batched call per distinct block, O(sum of the block costs)."""
         return self._points("project_kl", T, parts)
 
+    def _block_columns(self):
+        """For each distinct block g, the (copies, block dim) array of its positions' coordinates."""
+        def build():
+            offs = np.cumsum([0] + [self.blocks[g].dim for g in self.layout])
+            return [np.array([np.arange(offs[i], offs[i + 1]) for i, h in enumerate(self.layout) if h == g],
+                             dtype=np.intp) for g in range(len(self.blocks))]
+        return memo(self, "block_columns", build)
+
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V, parts):
+        """Block-wise Jacobian products (the Jacobian of a product projection is block diagonal), one batched call per distinct block.
+
+        Each block returns the element its own kernel documents at its kinks.
+        """
+        b = Y.shape[0]
+        out = np.empty_like(Y)
+        for g, cols in enumerate(self._block_columns()):
+            k, d = cols.shape
+            flat = cols.ravel()
+            res, _ = parts[g].run("project_jvp", Y[:, flat].reshape(b * k, d), V[:, flat].reshape(b * k, d))
+            out[:, flat] = np.asarray(res).reshape(b, k * d)
+        return out
+
     @kernel("lmo")
     def lmo(self, C, parts):
         """Block-wise LMO, one batched call per distinct block, O(sum of the block costs)."""

@@ -151,6 +151,47 @@ class Ball(Family):
         # p = inf: clip to the box [c - r, c + r] (points inside come back unchanged)
         return np.clip(Y, self._lo, self._hi)
 
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """Closed forms: l2, I inside and (r/||z||)(I - z z^T/||z||^2) v outside (z = y - c); l-inf, the box rule; l1, the signed simplex face, O(n).
+
+        l1 outside the ball: with S = {p_i != c_i} and s = sign(y - c), J v = v_S - s_S <s_S, v_S>/|S|
+        on S and 0 off it (inside: J v = v). At a kink every constraint tight at p is treated as
+        active: a point exactly on the boundary gets the outside formula (for l2 the tangent
+        projector I - z z^T/r^2), an l1 coordinate with p_i = c_i exactly is fixed, an l-inf
+        coordinate exactly at c_i +- r is fixed.
+        """
+        V = np.asarray(V, dtype=float)
+        c, r = self.center, self.radius
+        Z = Y - c
+        if self.norm == "inf":
+            return np.where((Y > self._lo) & (Y < self._hi), V, 0.0)
+        if self.norm == 2:
+            big = np.abs(Z).max(axis=1, initial=0.0)
+            Zs = np.divide(Z, big[:, None], out=np.zeros_like(Z), where=big[:, None] > 0)
+            ns = np.linalg.norm(Zs, axis=1)
+            nz = big * ns                  # ||z|| without overflow in the squares
+            out = V.copy()
+            rows = nz >= r
+            if rows.any():
+                no = nz[rows]
+                U = np.divide(Zs[rows], ns[rows, None], out=np.zeros_like(Zs[rows]), where=ns[rows, None] > 0)
+                Vo = V[rows]
+                f = np.divide(r, no, out=np.zeros_like(no), where=no > 0)
+                out[rows] = f[:, None] * (Vo - U * np.einsum("ij,ij->i", U, Vo)[:, None])
+            return out
+        P = self.project(Y)
+        out = V.copy()
+        rows = np.abs(Z).sum(axis=1) >= r
+        if rows.any():
+            S = (P[rows] != c)
+            sgn = np.sign(Z[rows]) * S
+            Vo = V[rows]
+            k = S.sum(axis=1)
+            m = np.divide(np.einsum("ij,ij->i", sgn, Vo), k, out=np.zeros(k.shape), where=k > 0)
+            out[rows] = np.where(S, Vo - sgn * m[:, None], 0.0)
+        return out
+
     @kernel("distance")
     def distance(self, Y):
         """max(||y - c||_2 - r, 0) for p=2; the norm of y - project(y) otherwise, O(n)."""

@@ -117,6 +117,15 @@ class Box(Family):
         norm when squares would overflow or underflow (exact up to rounding for |y| <= 1e300)."""
         return box_ops(Y, self.lower, self.upper, self._tie, 0)[0]
 
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """v where lower < y < upper, 0 elsewhere (the derivative of clipping), O(n).
+
+        At a kink (y_i exactly at a bound) the bound is treated as active: the derivative is 0
+        there, the projector onto the smallest face containing p.
+        """
+        return np.where((Y > self.lower) & (Y < self.upper), V, 0.0)
+
     @kernel("distance")
     def distance(self, Y):
         """Norm of the clipped-off part, O(n)."""
@@ -165,6 +174,17 @@ class Box(Family):
         if why:
             raise outside_orthant_error(self.label, why)
         return box_kl(T, self.lower, self.upper, self.label)
+
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """diag(x) v where lower < exp(t) < upper, 0 elsewhere (x = clip(exp(t))), in log coordinates, O(n).
+
+        At a kink (exp(t_i) exactly at a bound) the bound is treated as active: derivative 0.
+        """
+        X = self.project_kl(T)
+        with np.errstate(over="ignore"):
+            E = np.exp(T)
+        return np.where((E > self.lower) & (E < self.upper), X * np.asarray(V, dtype=float), 0.0)
 
     @kernel("violation")
     def violation(self, X):

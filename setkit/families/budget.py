@@ -14,6 +14,7 @@ import numpy as np
 
 from ..forms import LinearForm
 from ..kernels.bregman import budget_kl, budget_structure, outside_orthant_error
+from ..kernels.face import capped_face_rows
 from ..kernels.simplex import knapsack_lmo_rows, project_capped
 from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation
 from . import Family, kernel, register
@@ -156,6 +157,24 @@ class Budget(Family):
         """Clip to the bounds and shift by the multiplier of the weighted sum, found by randomized breakpoint search, expected O(n)."""
         return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode, self._data_scale)
 
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """The face of the projection: on the free set F = {lower < p < upper}, v_F - w_F <w_F, v_F>/<w_F, w_F>, O(n).
+
+        The Jacobian is the projector onto the tangent subspace {d_i = 0 off F, <w_F, d_F> = 0}
+        of the face of p (the weighted sum is active in mode equal, and in mode at_most when
+        <w, clip(y)> >= total; otherwise J v = v on F). At a kink every constraint tight at p
+        is treated as active (a coordinate exactly at a bound is fixed; the tie of the at_most
+        sum keeps the sum): the projector onto the smallest face containing p.
+        """
+        P = self.project(Y)
+        if self.mode == "equal":
+            active = np.ones(Y.shape[0], dtype=np.bool_)
+        else:
+            active = np.clip(Y, self.lower, self.upper) @ self.weights >= self.total
+        return capped_face_rows(P, np.ascontiguousarray(V, dtype=float), self.lower, self.upper, self.weights,
+                                active, np.empty_like(P))
+
     @kernel("lmo")
     def lmo(self, C):
         """Continuous-knapsack greedy by increasing c_i / w_i, with randomized selection instead of a sort, expected O(n)."""
@@ -210,6 +229,29 @@ class Budget(Family):
             raise outside_orthant_error(self.label, why)
         return budget_kl(T, self.lower, self.upper, self.weights, self.total, self.mode == "at_most", self.label,
                          self._log_bounds, self._kl_structure)
+
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """In log coordinates, on the free set F = {lower < x < upper}: x_F (v_F - w_F <w x, v>_F / <w^2 x>_F), O(n).
+
+        x_i = clip(exp(t_i - lam w_i)) with <w, x> = total; differentiating on F gives
+        dx_i = x_i (dt_i - w_i dlam) and dlam = <w x, dt>_F / <w^2 x>_F. In mode at_most with
+        <w, clip(exp(t))> < total the sum is inactive (J = diag(x) on F). At a kink every
+        constraint tight at x is active: a coordinate exactly at a bound is fixed, the tie of
+        the at_most sum keeps the sum.
+        """
+        X = self.project_kl(T)
+        V = np.asarray(V, dtype=float)
+        F = (X > self.lower) & (X < self.upper)
+        XF = np.where(F, X, 0.0)
+        wx = XF * self.weights
+        den = wx @ self.weights
+        coef = np.divide(np.einsum("ij,ij->i", wx, V), den, out=np.zeros_like(den), where=den > 0)
+        if self.mode == "at_most":
+            with np.errstate(over="ignore"):
+                free = np.clip(np.exp(T), self.lower, self.upper) @ self.weights < self.total
+            coef = np.where(free, 0.0, coef)
+        return XF * (V - self.weights * coef[:, None])
 
     @kernel("violation")
     def violation(self, X):

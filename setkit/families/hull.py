@@ -103,6 +103,37 @@ class Hull(Family):
             out[i] = (w / ws) @ self.points if ws > 0 else x
         return out
 
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """The projector onto the span of the differences of the points of the face exposed by y - p, O(k d + d^3) per row.
+
+        With n = y - P(y), the face of p is conv{v_i : <n, v_i> = max_j <n, v_j>} (all points when
+        y is in the hull, n = 0), and J v is the projection of v onto the span of v_i - v_0 over
+        that face. At a kink this is the face exposed by y - p (the largest face with that normal;
+        for a point of the hull, the hull itself: J = the projector onto its affine hull),
+        unlike the smallest-face rule of the constraint-described families.
+        """
+        P = self.project(Y)
+        V = np.asarray(V, dtype=float)
+        Nrm = Y - P
+        S = Nrm @ self.points.T
+        scale = self.scale()
+        out = np.empty_like(V)
+        for r in range(Y.shape[0]):
+            nn = float(np.linalg.norm(Nrm[r]))
+            if nn <= 1e-10 * max(scale, float(np.abs(Y[r]).max(initial=0.0))):
+                F = self.points
+            else:
+                F = self.points[S[r] >= S[r].max() - 1e-8 * nn * scale]
+            D = F[1:] - F[0]
+            if D.shape[0] == 0:
+                out[r] = 0.0
+                continue
+            U, sv, Wt = np.linalg.svd(D, full_matrices=False)
+            Q = Wt[sv > 1e-10 * max(1.0, sv.max())].T
+            out[r] = Q @ (Q.T @ V[r])
+        return out
+
     @kernel("lmo")
     def lmo(self, C):
         """A point with the smallest <c, v_i> (the first such point on ties), by a scan; O(k d)."""

@@ -10,6 +10,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..kernels.bregman import outside_orthant_error, permutahedron_kl
+from ..kernels.face import permutahedron_face
 from ..kernels.isotonic import project_permutahedron
 from . import Family, kernel, register
 
@@ -112,6 +113,18 @@ class Permutahedron(Family):
     def project(self, Y):
         """Sort, then pool-adjacent-violators on y_sorted - w_sorted, O(n log n)."""
         return project_permutahedron(Y, self._wdesc)
+
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """v minus its mean over each isotonic block of the projection (the blocks of pool-adjacent-violators), O(n log n).
+
+        x_sigma = y_sigma - iso(y_sigma - w) with iso the isotonic fit, constant on blocks; so
+        dx = dy - (block mean of dy). A block is a face of the majorization constraints; at a
+        kink (two adjacent block means equal, so pooling is optional) blocks are pooled only
+        when strictly violating, i.e. the finer partition: the adjacent constraint is treated as
+        active (the smallest face). Ties in y take the stable sort order.
+        """
+        return permutahedron_face(Y, self._wdesc, V, mode=0)
 
     @kernel("lmo")
     def lmo(self, C):

@@ -7,6 +7,7 @@ import numpy as np
 
 from ..forms import LinearForm
 from ..kernels.bregman import simplex_kl
+from ..kernels.face import simplex_face_rows
 from ..kernels.simplex import project_simplex_rows, simplex_distance_rows
 from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation, simplex_lmo_rows, simplex_support_rows
 from . import Family, kernel, register
@@ -88,6 +89,24 @@ class Simplex(Family):
             X[over] = project_simplex_rows(Y[over], self.total)
         return X
 
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """The face of the projection: v_S - mean(v_S) on the support S = {p > 0}, 0 off it, O(n).
+
+        The Jacobian is the projector onto the tangent subspace of the face {x_i = 0, i not in S,
+        sum x = total}: (I - 1 1^T/|S|) on S (Martins and Astudillo 2016, "From softmax to
+        sparsemax", the sparsemax Jacobian; from memory). In mode at_most the sum is active when
+        sum max(y, 0) >= total, and J v = v on S = {y > 0} otherwise. At a kink (p_i = 0 exactly,
+        or sum max(y, 0) = total exactly) every constraint tight at p is treated as active: the
+        returned element is the projector onto the smallest face containing p.
+        """
+        P = self.project(Y)
+        if self.mode == "equal":
+            active = np.ones(Y.shape[0], dtype=np.bool_)
+        else:
+            active = np.maximum(Y, 0.0).sum(axis=1) >= self.total
+        return simplex_face_rows(P, np.ascontiguousarray(V, dtype=float), active, np.empty_like(P))
+
     @kernel("distance")
     def distance(self, Y):
         """||y - max(y - tau, 0)|| with the threshold of the projection, without forming it, O(n)."""
@@ -119,6 +138,26 @@ class Simplex(Family):
     def project_kl(self, T):
         """Normalization total * softmax(t) (at_most: y itself when sum y <= total), exact, O(n)."""
         return simplex_kl(T, self.total, self.mode == "at_most")
+
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """The softmax Jacobian in log coordinates: x v - x <x, v> / total with x = project_kl(t), O(n).
+
+        x = total softmax(t), so dx/dt = diag(x) - x x^T / total (the Jacobian of softmax,
+        common practice). In mode at_most with sum exp(t) < total, x = exp(t) and dx/dt = diag(x);
+        at the tie sum exp(t) = total the sum is treated as active (the smallest face).
+        """
+        X = self.project_kl(T)
+        V = np.asarray(V, dtype=float)
+        XV = X * V
+        if self.total <= 0.0:
+            return np.zeros_like(V)
+        coef = XV.sum(axis=1) / self.total
+        if self.mode == "at_most":
+            with np.errstate(over="ignore"):
+                free = np.exp(T).sum(axis=1) < self.total
+            coef = np.where(free, 0.0, coef)
+        return XV - X * coef[:, None]
 
     @kernel("violation")
     def violation(self, X):

@@ -105,3 +105,20 @@ def test_simplex_bad_descriptions(spec, key, words):
     msg = str(e.value)
     assert msg.startswith("simplex (<dict>: " + key + ")"), msg
     assert words in msg
+
+
+def test_projection_at_huge_magnitudes_lands_on_the_set():
+    """|y| >> total: the threshold search once divided by zero (all candidates looked removable);
+    now the largest entry takes the whole total (the exact projection when the gap between the
+    two largest entries exceeds total; shift invariance along 1 of the simplex projection)."""
+    import numpy as np
+    import setkit
+    K = setkit.compile({"kind": "simplex", "dim": 4})
+    rng = np.random.default_rng(0)
+    for mag in (1e17, 1e150, 1e300):
+        Y = rng.standard_normal((3, 4)) * mag
+        P = K.project(Y)
+        want = np.zeros_like(Y)
+        want[np.arange(3), Y.argmax(axis=1)] = 1.0
+        np.testing.assert_array_equal(P, want)
+        np.testing.assert_array_equal(K.project(Y[0]), want[0])
