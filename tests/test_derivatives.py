@@ -12,7 +12,7 @@ import setkit
 import setkit.testing
 from setkit import derivatives as D
 from setkit.agreement import reference
-from setkit.errors import InputError, SetkitError, UnsupportedOperationError
+from setkit.errors import InputError, UnsupportedOperationError
 from setkit.families import known_kinds, lookup
 
 # sets whose projection has no Jacobian product in setkit yet (stated in the report and below):
