@@ -162,6 +162,10 @@ class Family:
         """
         return None
 
+    def bound_kernels(self) -> dict:
+        """Operator -> numba function of one point with this set's data bound (for K.jit_kernels()); {} if none."""
+        return {}
+
     def new_workspace(self):
         """A fresh per-thread workspace for kernels marked ``@kernel(op, workspace=True)``, or None."""
         return None

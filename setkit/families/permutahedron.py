@@ -105,6 +105,11 @@ class Permutahedron(Family):
         return permutahedron_form(self.weights)
 
     # -- native kernels ----------------------------------------------------------------------
+    def bound_kernels(self):
+        """project and lmo with this set's data bound, as numba functions of one point (K.jit_kernels())."""
+        from ..kernels.bound import permutahedron_kernels
+        return permutahedron_kernels(self._wdesc)
+
     @kernel("project")
     def project(self, Y):
         """Sort, then pool-adjacent-violators on y_sorted - w_sorted, O(n log n)."""
