@@ -102,3 +102,28 @@ def test_checked_path_still_rejects_non_finite():
             K.project(bad)
         with pytest.raises(InputError, match="finite"):
             K.lmo(bad)
+
+
+@pytest.mark.parametrize("spec", [SPECS[0], SPECS[2], SPECS[4], SPECS[5], SPECS[7], SPECS[9]],
+                         ids=lambda s: f"{s['kind']}-{s.get('norm', '')}")
+def test_batches_over_threads_equal_the_serial_call(spec, monkeypatch):
+    from setkit import parallel
+    K = setkit.compile(spec)
+    rng = np.random.default_rng(7)
+    Y = rng.normal(size=(parallel.MIN_ENTRIES // K.dim + 101, K.dim)) * 3.0
+    Y[::5] = np.round(Y[::5])                                  # ties
+    monkeypatch.setenv("SETKIT_THREADS", "3")                 # uneven chunks, more than the cores
+    split = {op: getattr(K, op)(Y) for op in ("project", "lmo", "distance", "contains")}
+    monkeypatch.setenv("SETKIT_THREADS", "1")
+    for op, got in split.items():
+        np.testing.assert_array_equal(got, getattr(K, op)(Y), err_msg=op)
+
+
+def test_a_failing_row_is_named_correctly_when_split(monkeypatch):
+    from setkit import parallel
+    K = setkit.compile({"kind": "box", "dim": 8, "lower": 0.0})       # unbounded above
+    C = np.ones((parallel.MIN_ENTRIES // 8 + 10, 8))
+    C[-3, 5] = -1.0                                                    # row b-3 has no minimizer
+    monkeypatch.setenv("SETKIT_THREADS", "2")
+    with pytest.raises(setkit.UnboundedDirectionError, match=f"batch row {C.shape[0] - 3}"):
+        K.lmo(C)

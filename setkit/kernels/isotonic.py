@@ -17,7 +17,7 @@ import numpy as np
 from numba import njit
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def pav_decreasing(s, out):
     """Write into ``out`` the non-increasing v minimizing ||v - s||^2 (unweighted), O(n).
 
@@ -47,7 +47,7 @@ def pav_decreasing(s, out):
     return nb
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _permutahedron_rows(Y, order, wdesc, out):
     """Rows of Y onto P(w) given each row's decreasing order: x_sigma = y_sigma - PAV(y_sigma - w).
 
@@ -78,7 +78,7 @@ def _permutahedron_rows(Y, order, wdesc, out):
                 k += 1
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _pack_keys(y, nbits):
     """Order-reversing 64-bit image of each value in the high bits, its index in the low ``nbits``."""
     n = y.size
@@ -96,7 +96,7 @@ def _pack_keys(y, nbits):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _unpack_fix(packed, y, nbits):
     """Indices from the sorted packed keys, then exact order inside runs of equal truncated keys."""
     n = packed.size

@@ -13,7 +13,7 @@ from numba import njit
 _MAX_PASSES = 64
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _simplex_tau(y, total, v, vt):
     """Threshold tau with sum max(y - tau, 0) = total (total > 0), by Condat's method.
 
@@ -66,7 +66,7 @@ def _simplex_tau(y, total, v, vt):
     return np.nan
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _simplex_rows_nb(Y, total, out):
     b, n = Y.shape
     cand = np.empty(n)
@@ -242,7 +242,7 @@ def _interior_point(L, U):
     return 0.0
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
     """Median of up to 15 random breakpoints strictly inside (L, U); NaN if there is none."""
     cnt = 0
@@ -279,7 +279,7 @@ def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
     return samp[cnt // 2]
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _capped_lambda(y, lo, hi, w, total, idx):
     """Multiplier of the capped weighted simplex; see :func:`_capped_search`.
 
@@ -317,7 +317,7 @@ def _capped_lambda(y, lo, hi, w, total, idx):
     return _capped_search(y, lo, hi, w, total, idx, first, sbp)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _capped_search(y, lo, hi, w, total, idx, first, sbp):
     """Multiplier lam with sum w clip(y - lam w, lo, hi) = total, by randomized breakpoint search.
 
@@ -449,7 +449,7 @@ def _capped_search(y, lo, hi, w, total, idx, first, sbp):
     return (fixed + free_c - total) / free_s
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _capped_rows_nb(Y, lo, hi, w, total, rows, out):
     b, n = Y.shape
     idx = np.empty(n, np.int64)
@@ -486,7 +486,7 @@ def project_capped(Y, lo, hi, w, total, mode="equal"):
     return X
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
     """Rows of argmin <c, x> over {lo <= x <= cap, <w, x> = lo.w + room} (<= when ``at_most``).
 
@@ -567,7 +567,7 @@ def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
             m = m2
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def simplex_distance_rows(Y, total, at_most):
     """||y - proj(y)|| per row for {x >= 0, sum x = total} (or <= total), without forming proj(y).
 
