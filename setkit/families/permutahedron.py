@@ -9,7 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..kernels.isotonic import project_permutahedron
+from ..kernels.isotonic import permutahedron_lmo_rows, project_permutahedron
 from . import Family, kernel, register
 
 
@@ -118,10 +118,7 @@ class Permutahedron(Family):
     @kernel("lmo")
     def lmo(self, C):
         """Rearrangement: the k-th largest weight at the k-th smallest c, O(n log n)."""
-        order = np.argsort(C, axis=1, kind="stable")
-        X = np.empty_like(C)
-        np.put_along_axis(X, order, np.broadcast_to(self._wdesc, C.shape), axis=1)
-        return X
+        return permutahedron_lmo_rows(C, self._wdesc)
 
     @kernel("support")
     def support(self, C):
