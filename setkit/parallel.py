@@ -19,7 +19,7 @@ from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
-MIN_ENTRIES = 65_536
+MIN_ENTRIES = 200_000
 SPLIT_OPERATORS = frozenset({"project", "lmo", "distance", "support", "violation", "contains"})
 
 _pool = None
