@@ -123,6 +123,34 @@ def product_targets(kinds, quick, rng, log):
     return out
 
 
+def matrix_targets(kinds, quick, rng, log):
+    """Issue 15's targets (nuclear-ball LMO and projection vs one full SVD, OWL projection vs np.sort +
+    isotonic regression), measured by benchmarks/bench_matrix.py; quick mode at 400 x 400 and n = 1e5."""
+    names = [("nuclear-ball LMO, 2000x2000 (low rank + noise)", ">= 20x faster than one full SVD", ("nuclear_ball",)),
+             ("nuclear-ball LMO, 2000x2000 (noise only)", ">= 20x faster than one full SVD", ("nuclear_ball",)),
+             ("nuclear-ball projection, 2000x2000", "<= 1.5x of one full SVD", ("nuclear_ball",)),
+             ("OWL projection, n=1e+06", "<= 2x of np.sort + isotonic_regression", ("owl_ball",))]
+    miss = _need(kinds, "nuclear_ball", "owl_ball")
+    if miss:
+        return [Target(nm, goal, verdict=miss) for nm, goal, _ in names]
+    try:
+        from .bench_matrix import matrix_rows
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            rows = matrix_rows(rng, 1 if quick else 5, quick=quick)
+    except Exception as exc:
+        return [Target(nm, goal, verdict=f"not available: {type(exc).__name__}: {str(exc)[:200]}")
+                for nm, goal, _ in names]
+    out = []
+    for name, ours, base, what, need, direction, check in rows:
+        t = Target(name, f"{direction} {need:g}x ({'faster than ' if direction == '>=' else 'of '}{what})")
+        ratio = base / ours if direction == ">=" else ours / base
+        t.finish(ratio, need, direction, f"{ms(ours)} vs {ms(base)}",
+                 ("quick mode: 400 x 400 and n = 1e5, not a verdict; " if quick else "") + check)
+        out.append(t)
+    return out
+
+
 def check_targets(mode, rows, log=print, seed=7) -> list:
     quick = mode.name == "quick"
     kinds = set(known_kinds())
@@ -132,6 +160,7 @@ def check_targets(mode, rows, log=print, seed=7) -> list:
     out.extend(product_targets(kinds, quick, rng, log))    # product of simplices
     out.extend(flow_targets(kinds, quick, rng, log))       # repeated flow projection vs cvxpy
     out.append(intersection_target(kinds, quick, rng))     # permutahedron(200) with 3 halfspaces
+    out.extend(matrix_targets(kinds, quick, rng, log))     # nuclear-ball LMO / projection, OWL projection
     out.extend(native_vs_reference(rows, quick, rng))      # natives at n ~ 1,000 vs the reference
     out.append(graph_target(kinds, quick, rng))            # spanning-tree LMO vs networkx
     for t in out:

@@ -340,6 +340,7 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
         elif r.category == "strategy":
             if r.provider not in strategies:
                 strategies[r.provider] = all_strategies()[r.provider](node)
+                strategies[r.provider].owner = context
             meth = getattr(strategies[r.provider], op)
             fallback = _generic(op, node) if op in strategies[r.provider].fallback_operators else None
             if fallback is not None:

@@ -39,6 +39,7 @@ class Strategy:
 
     def __init__(self, node):
         self.node = node
+        self.owner = None      # the compiled set this strategy serves (set by routing when the plan is built)
 
     @classmethod
     def accepts(cls, node) -> tuple[bool, str]:

@@ -53,6 +53,10 @@ def test_jit_kernels_bit_identical(spec):
                 want = getattr(K, op)(y)
             except Exception:      # noqa: BLE001 - a failure of main's kernel itself (e.g. ZeroDivisionError at
                 continue           # equal entries of 1e150 on main before the robust merge): not this test's subject
+            if spec["kind"] == "budget" and op == "project" and np.abs(y).max() > 1e4 * K.node.scale():
+                with pytest.raises(InputError, match="far above"):      # documented refusal, not a worse answer
+                    J.project(y)
+                continue
             got = getattr(J, op)(y)
             assert got.dtype == np.float64 and got.shape == K.shape
             np.testing.assert_array_equal(got, want, err_msg=f"{op} at {y}")

@@ -83,6 +83,19 @@ def form_workspace(form, label="LP"):
     return lp_workspace(form.A_eq, form.b_eq, form.A_ub, form.b_ub, form.lo, form.hi, label)
 
 
+def power_of_two_above(v: float) -> float:
+    """The power of two at or just above |v| (1 for 0 or non-finite): dividing by it is exact."""
+    v = abs(float(v))
+    if v == 0.0 or not np.isfinite(v):
+        return 1.0
+    return float(np.ldexp(1.0, int(np.frexp(v)[1])))
+
+
+def _unit_costs(c):
+    """c divided by a power of two near max |c| (a positive scaling: the same minimizers)."""
+    return c / power_of_two_above(np.abs(c).max(initial=0.0))
+
+
 class _Arrays:
     """Shared by both workspaces: the constraint data and the residual measure."""
 
@@ -97,6 +110,10 @@ class _Arrays:
         self.hi = np.broadcast_to(np.asarray(hi, dtype=float), (self.n,)).copy()
         rhs = np.concatenate([self.b_eq, self.b_ub, self.lo[np.isfinite(self.lo)], self.hi[np.isfinite(self.hi)]])
         self.scale = float(max(1.0, np.abs(rhs).max(initial=0.0)))
+        # the solver sees z / unit (right-hand sides and bounds divided by a power of two near their
+        # magnitude: exact, the same vertices), so its absolute tolerances (1e-10) mean the same for
+        # data near 1e-6 and near 1e9; answers are multiplied back. Costs are scaled per call.
+        self.unit = power_of_two_above(self.scale) if self.scale > 1.0 else 1.0
 
     def residual(self, z) -> float:
         r = 0.0
@@ -158,11 +175,12 @@ class HighsWorkspace(_Arrays):
         lp = highspy.HighsLp()
         lp.num_col_ = self.n
         lp.num_row_ = int(A.shape[0])
+        u = self.unit
         lp.col_cost_ = np.zeros(self.n)
-        lp.col_lower_ = np.where(np.isfinite(self.lo), self.lo, -inf)
-        lp.col_upper_ = np.where(np.isfinite(self.hi), self.hi, inf)
-        lp.row_lower_ = np.concatenate([self.b_eq, np.full(self.A_ub.shape[0], -inf)])
-        lp.row_upper_ = np.concatenate([self.b_eq, self.b_ub])
+        lp.col_lower_ = np.where(np.isfinite(self.lo), self.lo / u, -inf)
+        lp.col_upper_ = np.where(np.isfinite(self.hi), self.hi / u, inf)
+        lp.row_lower_ = np.concatenate([self.b_eq / u, np.full(self.A_ub.shape[0], -inf)])
+        lp.row_upper_ = np.concatenate([self.b_eq / u, self.b_ub / u])
         lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
         lp.a_matrix_.num_col_ = self.n
         lp.a_matrix_.num_row_ = int(A.shape[0])
@@ -198,11 +216,11 @@ class HighsWorkspace(_Arrays):
         return h.getModelStatus(), int(h.getInfo().simplex_iteration_count)
 
     def _solution(self):
-        return np.array(self.h.getSolution().col_value, dtype=float)
+        return np.array(self.h.getSolution().col_value, dtype=float) * self.unit
 
     def minimize(self, c) -> LpAnswer:
         """Minimize <c, z>: an :class:`LpAnswer` (vertex for ``optimal``)."""
-        c = np.asarray(c, dtype=float)
+        c = _unit_costs(np.asarray(c, dtype=float))
         self.h.changeColsCost(self.n, self._idx, c)
         MS = self._MS
         iters = 0
@@ -270,14 +288,15 @@ class LinprogWorkspace(_Arrays):
     def __init__(self, A_eq, b_eq, A_ub, b_ub, lo, hi, label="LP"):
         super().__init__(A_eq, b_eq, A_ub, b_ub, lo, hi, label)
         # linprog defaults every variable to >= 0: always pass explicit bounds
-        self.bounds = np.column_stack([self.lo, self.hi])
+        self.bounds = np.column_stack([self.lo, self.hi]) / self.unit
         self._feasible = None
 
     def _linprog(self, c):
         from scipy.optimize import linprog
         me, mu = self.A_eq.shape[0], self.A_ub.shape[0]
-        return linprog(c, A_ub=self.A_ub if mu else None, b_ub=self.b_ub if mu else None,
-                       A_eq=self.A_eq if me else None, b_eq=self.b_eq if me else None, bounds=self.bounds,
+        u = self.unit
+        return linprog(_unit_costs(c), A_ub=self.A_ub if mu else None, b_ub=self.b_ub / u if mu else None,
+                       A_eq=self.A_eq if me else None, b_eq=self.b_eq / u if me else None, bounds=self.bounds,
                        method="highs-ds", options=dict(primal_feasibility_tolerance=FEASIBILITY_TOL,
                                                        dual_feasibility_tolerance=FEASIBILITY_TOL))
 
@@ -285,7 +304,7 @@ class LinprogWorkspace(_Arrays):
         res = self._linprog(np.asarray(c, dtype=float))
         it = int(getattr(res, "nit", 0) or 0)
         if res.status == 0 and res.x is not None:
-            z = np.asarray(res.x, dtype=float)
+            z = np.asarray(res.x, dtype=float) * self.unit
             r = self.residual(z)
             if r > self.residual_tol(z):
                 raise SolveError(f"highs ({self.label}): the LP answer violates the constraints by {r:.3g} "

@@ -22,7 +22,7 @@ CLARABEL_TIGHT = dict(tol_gap_abs=1e-13, tol_gap_rel=1e-13, tol_feas=1e-12, max_
 
 @register_backend("reference")
 class ReferenceBackend(Backend):
-    operators = ("project", "lmo", "support")
+    operators = ("project", "lmo", "support", "project_kl")
     requires = "cvxpy"
     problem = "conic"
     priority = 1000
@@ -39,6 +39,7 @@ class ReferenceBackend(Backend):
         self.cp = cp
         self._problems = {}
         self._set_scale = max(1.0, float(node.scale()))
+        self._orthant = None      # None until checked; then "" (inside x >= 0) or why not
 
     # -- problem construction -------------------------------------------------
     def _variable(self, s=1.0):
@@ -163,6 +164,99 @@ class ReferenceBackend(Backend):
 
     def project(self, Y):
         return self._loop("project", Y)
+
+    # -- KL (relative entropy) projection ----------------------------------------------------------
+    def _kl_problem(self, s):
+        """min sum z log z - <p, z> over z = x / s in K / s, with p = t - log s + 1.
+
+        (1/s) KL(s z || exp(t)) = sum z log z - z (t - log s + 1) + const: the objective never
+        forms exp(t), so any finite log input is accepted; -entr is the exponential cone.
+        """
+        key = ("project_kl", s)
+        if key not in self._problems:
+            cp = self.cp
+            z, cons = self._variable(s)
+            p = cp.Parameter(self.node.dim)
+            prob = cp.Problem(cp.Minimize(-cp.sum(cp.entr(z)) - p @ z), cons)
+            self._problems[key] = (prob, z, p, cons)
+        return self._problems[key]
+
+    def _solve_kl(self, t, s):
+        cp = self.cp
+        prob, z, p, cons = self._kl_problem(s)
+        p.value = t - np.log(s) + 1.0
+        kept, exc = None, None
+        for settings in (CLARABEL_TIGHT, CLARABEL_SETTINGS):
+            exc = None
+            try:
+                with warnings.catch_warnings():
+                    warnings.filterwarnings("ignore", message="Solution may be inaccurate")
+                    prob.solve(solver=cp.CLARABEL, **settings)
+            except cp.error.SolverError as e:
+                exc = e
+                continue
+            if prob.status == cp.OPTIMAL:
+                return self._finish("project_kl", prob.status, np.array(z.value, dtype=float), cons, s,
+                                    prob.solver_stats)
+            if prob.status == cp.OPTIMAL_INACCURATE and kept is None:
+                kept = (prob.status, np.array(z.value, dtype=float), cons, s, prob.solver_stats, None, z)
+        if kept is not None:
+            return self._finish("project_kl", *kept)
+        return self._finish("project_kl", prob.status if exc is None else None, None, cons, s, None, exc)
+
+    def orthant_violation(self):
+        """"" when the set lies in the nonnegative orthant, else why not (checked once per workspace).
+
+        In order: the family's own hook ``orthant_violation()`` (None: inside), lower bounds >= 0
+        on every point coordinate of the linear form, else one LP per coordinate (min x_i over
+        the set by this backend's lmo).
+        """
+        if self._orthant is not None:
+            return self._orthant
+        node = self.node
+        why = node.orthant_violation()
+        if why is not NotImplemented:
+            self._orthant = why or ""
+            return self._orthant
+        form = node.linear_form()
+        if form is not None and bool(np.all(form.lo[:form.n_x] >= 0.0)):
+            self._orthant = ""
+            return ""
+        d = node.dim
+        why = ""
+        for i in range(d):
+            e = np.zeros(d)
+            e[i] = 1.0
+            try:
+                x, _, _ = self._solve("lmo", e)
+            except UnboundedDirectionError:
+                why = f"coordinate {i} is unbounded below on the set"
+                break
+            if x[i] < -1e-9 * self._set_scale:
+                why = f"the set holds points with x[{i}] = {x[i]:.6g} < 0"
+                break
+        self._orthant = why
+        return why
+
+    def project_kl(self, T):
+        why = self.orthant_violation()
+        if why:
+            from ..kernels.bregman import outside_orthant_error
+            raise outside_orthant_error(self.node.label, why)
+        out = np.empty_like(T)
+        stat, iters = [], []
+        for i, t in enumerate(T):
+            s = self._set_scale
+            x, st, it = self._solve_kl(t, s)
+            big = float(np.abs(x).max(initial=0.0))
+            if big > 10.0 * s:
+                # an unbounded direction of the set: solve again at the answer's own scale
+                x, st, it = self._solve_kl(t, big)
+            out[i] = x
+            stat.append(st)
+            iters.append(it)
+        return out, {"status": ["solved" if s == "optimal" else s for s in stat],
+                     "backend_status": stat, "iterations": iters}
 
     def lmo(self, C):
         return self._loop("lmo", C)

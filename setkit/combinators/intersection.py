@@ -391,6 +391,35 @@ class Dykstra(Strategy):
         return _split(self.node, dykstra, "Dykstra", Y, parts)
 
 
+@register_strategy("bregman_dykstra")
+class BregmanDykstra(Strategy):
+    """KL projection onto an intersection whose parts all have a native KL projection."""
+
+    kind = "intersection"
+    operators = ("project_kl",)
+    priority = 30
+    about = "cyclic Bregman projections with Dykstra corrections"
+
+    @classmethod
+    def accepts(cls, node):
+        missing = [p.label for p in node.parts if "project_kl" not in p.kernels]
+        if missing:
+            return False, (f"{missing[0]} has no native KL projection (one conic solve per sweep would cost more "
+                           f"than one exponential-cone solve of the whole intersection)")
+        return True, "every part has a native KL projection"
+
+    def project_kl(self, T, parts):
+        """Cyclic KL projections onto the parts with Dykstra corrections, stopped on the Bregman gap and the parts' residual."""
+        from ..kernels.bregman import bregman_dykstra
+        node, whole = self.node, self.owner
+        sc = max(1.0, float(node.scale()))
+        X, info = bregman_dykstra([lambda Z, p=p: p.run("project_kl", Z)[0] for p in parts], T,
+                                  lambda G: whole.run("lmo", G)[0],
+                                  [lambda P, p=p: part_violation(p, P) for p in parts],
+                                  np.maximum(1.0, sc), node.accuracy, node.max_iterations)
+        return _accept(node, X, info, parts, "Bregman-Dykstra", np.full(T.shape[0], sc))
+
+
 def _split(node, method, name, Y, parts):
     projs = [(lambda Z, p=p: p.run("project", Z)[0]) for p in parts]
     sc = _row_scale(node, Y)

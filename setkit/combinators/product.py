@@ -240,6 +240,11 @@ class Product(Family):
         """Block-wise projection, one batched call per distinct block, O(sum of the block costs)."""
         return self._points("project", Y, parts)
 
+    @kernel("project_kl")
+    def project_kl(self, T, parts):
+        """Block-wise KL projection (log-domain input), one batched call per distinct block, O(sum of the block costs)."""
+        return self._points("project_kl", T, parts)
+
     @kernel("lmo")
     def lmo(self, C, parts):
         """Block-wise LMO, one batched call per distinct block, O(sum of the block costs)."""

@@ -166,6 +166,14 @@ class Family:
         """Operator -> numba function of one point with this set's data bound (for K.jit_kernels()); {} if none."""
         return {}
 
+    def orthant_violation(self):
+        """Whether the set lies in the nonnegative orthant (the domain of the KL geometry).
+
+        None (or "") when it does, a sentence saying why not otherwise, and ``NotImplemented``
+        (the default) when the family does not know: the reference then checks by LPs.
+        """
+        return NotImplemented
+
     def new_workspace(self):
         """A fresh per-thread workspace for kernels marked ``@kernel(op, workspace=True)``, or None."""
         return None

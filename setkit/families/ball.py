@@ -9,7 +9,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
-from ..kernels.vector_ops import ball_lmo, ball_screen, ball_violation, l1_ball_project, l2_ball_project, l2_dist_rows
+from ..kernels.vector_ops import (ball_lmo, ball_screen, ball_violation, l1_ball_project, l2_ball_project, l2_dist_rows,
+                                  norm_rows)
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -122,14 +123,14 @@ class Ball(Family):
 
     def _norm(self, V):
         if self.norm == 2:
-            return np.linalg.norm(V, axis=1)
+            return norm_rows(np.ascontiguousarray(V, dtype=float))
         if self.norm == 1:
             return np.abs(V).sum(axis=1)
         return np.abs(V).max(axis=1)
 
     def _dual_norm(self, C):
         if self.norm == 2:
-            return np.linalg.norm(C, axis=1)
+            return norm_rows(np.ascontiguousarray(C, dtype=float))
         if self.norm == 1:
             return np.abs(C).max(axis=1)
         return np.abs(C).sum(axis=1)
@@ -142,7 +143,11 @@ class Ball(Family):
 
     @kernel("project")
     def project(self, Y):
-        """Radial scaling (p=2), clipping (p=inf), or the simplex projection of |y - c| with signs restored (p=1), O(n)."""
+        """Radial scaling (p=2), clipping (p=inf), or the simplex projection of |y - c| with signs restored (p=1), O(n).
+
+        Range: p=inf is exact for every finite input; p=2 and p=1 are exact up to rounding for
+        finite |y - c| <= 1e300 and radius in [1e-300, 1e300] (rescaled norms; for p=1, y - c is
+        kept as an unevaluated sum and the threshold is found on |y - c| - max|y - c|)."""
         c, r = self.center, self.radius
         if self.norm == 2:
             return l2_ball_project(Y, c, r)
@@ -155,12 +160,12 @@ class Ball(Family):
     def distance(self, Y):
         """max(||y - c||_2 - r, 0) for p=2; the norm of y - project(y) otherwise, O(n)."""
         if self.norm == 2:
-            return np.maximum(np.linalg.norm(Y - self.center, axis=1) - self.radius, 0.0)
+            return np.maximum(l2_dist_rows(Y, self.center) - self.radius, 0.0)
         if self.norm == "inf":
             # y - clip(y): maximum/minimum instead of np.clip (less overhead); they can differ from
             # clip only in the sign of a zero, which the squares in the norm do not see
-            return np.linalg.norm(Y - np.minimum(np.maximum(Y, self._lo), self._hi), axis=1)
-        return np.linalg.norm(Y - self.project(Y), axis=1)
+            return norm_rows(Y - np.minimum(np.maximum(Y, self._lo), self._hi))
+        return norm_rows(Y - self.project(Y))
 
     @kernel("lmo")
     def lmo(self, C):

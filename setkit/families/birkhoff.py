@@ -8,6 +8,8 @@ import numpy as np
 from . import kernel, register
 from .transport import Transport
 
+MAX_SIDE = 10_000        # n^2 coordinates (edges of the bipartite network) within description.MAX_SIZE
+
 
 @register("birkhoff")
 @dataclass(frozen=True, eq=False, kw_only=True)
@@ -23,7 +25,7 @@ class Birkhoff(Transport):
 
     @classmethod
     def from_spec(cls, r):
-        n = r.integer("n", min=1)
+        n = r.integer("n", min=1, max=MAX_SIDE)
         return cls(rows=np.ones(n), cols=np.ones(n), name=r.name)
 
     @classmethod

@@ -6,6 +6,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import UnboundedDirectionError
+from ..kernels.bregman import box_kl, outside_orthant_error
 from ..forms import LinearForm
 from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation, box_lmo_bounded, box_ops, box_values
 from . import Family, kernel, register
@@ -115,7 +116,10 @@ class Box(Family):
 
     @kernel("project")
     def project(self, Y):
-        """Clipping to the bounds, O(n)."""
+        """Clipping to the bounds, O(n).
+
+        Exact for every finite input (clipping does no arithmetic); the distance rescales its
+        norm when squares would overflow or underflow (exact up to rounding for |y| <= 1e300)."""
         return box_ops(Y, self.lower, self.upper, self._tie, 0)[0]
 
     @kernel("distance")
@@ -150,6 +154,22 @@ class Box(Family):
 
     def _screen(self, X, tol, lip):
         return bounds_sum_screen(X, self.lower, self.upper, self._zeros, 0.0, True, tol, lip)
+
+    def orthant_violation(self):
+        """None when every lower bound is >= 0, else the first negative one."""
+        bad = np.flatnonzero(~(self.lower >= 0.0))
+        if bad.size:
+            i = int(bad[0])
+            return f"lower[{i}] = {self.lower[i]:.6g} < 0 (every lower bound must be >= 0)"
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Clipping y = exp(t) to the bounds (lower >= 0), exact, O(n)."""
+        why = self.orthant_violation()
+        if why:
+            raise outside_orthant_error(self.label, why)
+        return box_kl(T, self.lower, self.upper, self.label)
 
     @kernel("violation")
     def violation(self, X):

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
+from ..kernels.bregman import budget_kl, budget_structure, outside_orthant_error
 from ..kernels.simplex import knapsack_lmo_rows, project_capped
 from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation
 from . import Family, kernel, register
@@ -70,7 +71,15 @@ class Budget(Family):
             r.fail("weights", f"weights must be positive; got {_fmt(w[i])} at index {i}.")
         mode = r.choice("mode", ("equal", "at_most"), "equal")
         ws = "the weighted sum" if weighted else "the sum"
-        smin = float(w @ lo)
+        with np.errstate(over="ignore", invalid="ignore"):
+            smin = float(w @ lo)
+            fin = np.isfinite(hi)
+            shi = float(w[fin] @ hi[fin])
+            room = (total - smin) / w
+        if not (np.isfinite(smin) and np.isfinite(shi) and np.all(np.isfinite(room))):
+            r.fail("weights" if weighted else "total",
+                   f"{ws} of the bounds, or the room total - {ws} of lower bounds divided by a weight, exceeds "
+                   f"the float range (|x| < 1.8e308); rescale the data (every kernel works on these sums).")
         if total < smin:
             r.fail("total", f"total must be at least {ws} of lower bounds, {_fmt(smin)}; got {_fmt(total)}.")
         if mode == "equal":
@@ -119,6 +128,10 @@ class Budget(Family):
         object.__setattr__(self, "_room", room)
         object.__setattr__(self, "_caps", np.minimum(self.upper, self.lower + room / self.weights))
         object.__setattr__(self, "_lip", float(max(1.0, np.linalg.norm(self.weights))))
+        object.__setattr__(self, "_data_scale", self.scale())    # the magnitude that marks far points
+        with np.errstate(divide="ignore", invalid="ignore"):   # the KL projection's breakpoints use the logs of the bounds
+            object.__setattr__(self, "_log_bounds", (np.log(self.lower), np.log(self.upper)))
+        object.__setattr__(self, "_kl_structure", budget_structure(self.lower, self.upper, self.weights))
 
     def cvxpy_constraints(self, x):
         cons = [x >= self.lower]
@@ -142,12 +155,12 @@ class Budget(Family):
         """project and lmo with this set's data bound, as numba functions of one point (K.jit_kernels())."""
         from ..kernels.bound import budget_kernels
         return budget_kernels(self.lower, self.upper, self.weights, self.total, self.mode == "at_most",
-                              self._caps, self._room)
+                              self._caps, self._room, self._data_scale)
 
     @kernel("project")
     def project(self, Y):
         """Clip to the bounds and shift by the multiplier of the weighted sum, found by randomized breakpoint search, expected O(n)."""
-        return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode)
+        return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode, self._data_scale)
 
     @kernel("lmo")
     def lmo(self, C):
@@ -186,6 +199,23 @@ class Budget(Family):
 
     def _screen(self, X, tol, lip):
         return bounds_sum_screen(X, self.lower, self.upper, self.weights, self.total, self.mode == "equal", tol, lip)
+
+    def orthant_violation(self):
+        """None when every lower bound is >= 0, else the first negative one."""
+        bad = np.flatnonzero(self.lower < 0.0)
+        if bad.size:
+            i = int(bad[0])
+            return f"lower[{i}] = {_fmt(self.lower[i])} < 0 (every lower bound must be >= 0)"
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Capping: clip(y exp(-lam w), lower, upper) with lam by breakpoint selection, exact, expected O(n)."""
+        why = self.orthant_violation()
+        if why:
+            raise outside_orthant_error(self.label, why)
+        return budget_kl(T, self.lower, self.upper, self.weights, self.total, self.mode == "at_most", self.label,
+                         self._log_bounds, self._kl_structure)
 
     @kernel("violation")
     def violation(self, X):

@@ -8,6 +8,7 @@ description file), or, from Python, as a networkx DiGraph (edge attributes
 from __future__ import annotations
 
 import csv
+import io
 import os
 from dataclasses import dataclass
 from numbers import Integral, Real
@@ -15,6 +16,7 @@ from typing import Mapping
 
 import numpy as np
 
+from ..description import MAX_SIZE, decode_text
 from ..errors import DescriptionError, EmptySetError
 from . import memo, register
 from ._network import Network, NetworkFamily, check_feasible
@@ -23,6 +25,11 @@ EDGE_KEYS = ("from", "to", "capacity", "lower")
 
 
 def _num(r, path, v, what, allow_inf=True):
+    tv = type(v)
+    if tv is float or (tv is int and -2 ** 1023 < v < 2 ** 1023):     # the common case, without ABC checks
+        v = float(v)
+        if v - v == 0.0 or (allow_inf and v == v):
+            return v
     if isinstance(v, bool):
         _fail_at(r, path, f"{what} must be a number; got {v!r}.")
     if isinstance(v, str):
@@ -32,7 +39,11 @@ def _num(r, path, v, what, allow_inf=True):
             _fail_at(r, path, f"{what} must be a number; got {v!r}.")
     if not isinstance(v, Real):
         _fail_at(r, path, f"{what} must be a number; got {v!r}.")
-    v = float(v)
+    try:
+        v = float(v)
+    except OverflowError:
+        _fail_at(r, path, f"{what} must be within the float range (|x| < 1.8e308); got an integer with "
+                          f"{len(str(abs(int(v))))} digits.")
     if np.isnan(v) or (np.isinf(v) and not allow_inf):
         _fail_at(r, path, f"{what} must be a {'number' if allow_inf else 'finite number'}; got {v}.")
     return v
@@ -52,8 +63,14 @@ def _read_csv(r, path):
     full = path if os.path.isabs(path) else os.path.join(base, path)
     if not os.path.exists(full):
         r.fail("edges", f"the edge-list file {path!r} does not exist (looked for {full}).")
-    with open(full, newline="", encoding="utf-8") as fh:
-        rows = [row for row in csv.reader(fh) if row and not row[0].lstrip().startswith("#")]
+    try:
+        with open(full, "rb") as fh:
+            text = decode_text(fh.read(), full)
+    except OSError as exc:
+        r.fail("edges", f"the edge-list file {path!r} cannot be read: {exc.strerror or exc}.")
+    except DescriptionError as exc:
+        r.fail("edges", f"the edge-list file {path!r} cannot be read: {str(exc).split('): ', 1)[-1]}")
+    rows = [row for row in csv.reader(io.StringIO(text, newline="")) if row and not row[0].lstrip().startswith("#")]
     if not rows:
         r.fail("edges", f"the edge-list file {path!r} is empty; expected a header row from,to[,capacity][,lower].")
     header = [h.strip().lower() for h in rows[0]]
@@ -112,6 +129,9 @@ class Flow(NetworkFamily):
             if isinstance(v, Integral) and not isinstance(v, bool):
                 if v < 1:
                     r.fail("nodes", f"nodes must be at least 1 when given as a count; got {v}.")
+                if v > MAX_SIZE:
+                    r.fail("nodes", f"nodes must be at most {MAX_SIZE:,} (the size limit of setkit); got "
+                                    f"{v if v < 10 ** 20 else f'{float(v):.3g}'}.")
                 names = list(range(int(v)))
             elif isinstance(v, (list, tuple)):
                 names = list(v)
@@ -168,7 +188,7 @@ class Flow(NetworkFamily):
                         r.fail("edges", f"edge {k} given as a list must be [from, to], [from, to, capacity] or "
                                         f"[from, to, capacity, lower]; got {len(e)} entries.")
                     e = dict(zip(EDGE_KEYS, e))
-                elif not isinstance(e, Mapping):
+                elif type(e) is not dict and not isinstance(e, Mapping):
                     r.fail("edges", f"edge {k} must be a mapping with keys from, to (and optionally capacity, "
                                     f"lower); got {e!r}.")
                 bad = [a for a in e if a not in EDGE_KEYS]

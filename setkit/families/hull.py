@@ -84,14 +84,23 @@ class Hull(Family):
 
     @kernel("project")
     def project(self, Y):
-        """Wolfe's nearest-point algorithm on the convex weights, stopped on the Frank-Wolfe gap; O(k d) per cycle."""
+        """Wolfe's nearest-point algorithm on the convex weights, stopped on the Frank-Wolfe gap; O(k d) per cycle.
+
+        The answer is returned as the convex combination weights @ points (in the set up to the
+        rounding of that product, at the data's scale, whatever |y| is); its distance to the exact
+        projection is at most sqrt(gap) <= 1e-7 max_i ||v_i - y|| (the gap bounds the squared
+        error), i.e. the accuracy is relative to |y - v|: a point at 1e12 from a unit hull may land
+        up to ~1e5 along the face it projects to (measured: on the face, in the set, within that
+        bound). Rows are solved one by one (no row influences another). Range: finite |y| and
+        points <= 1e300 (the work is rescaled by a power of two)."""
         out = np.empty_like(Y)
         for i, y in enumerate(Y):
-            x, _w, gap, cycles, ok = nearest_in_hull(self.points, y)
+            x, w, gap, cycles, ok = nearest_in_hull(self.points, y)
             if not ok:
                 raise SolveError(f"{self.label}: projection of batch row {i} did not converge in {cycles} cycles "
                                  f"(Frank-Wolfe gap {gap:.3g}).", status="not_converged")
-            out[i] = x
+            ws = w.sum()
+            out[i] = (w / ws) @ self.points if ws > 0 else x
         return out
 
     @kernel("lmo")

@@ -9,6 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..kernels.bregman import outside_orthant_error, permutahedron_kl
 from ..kernels.isotonic import permutahedron_lmo_rows, project_permutahedron
 from . import Family, kernel, register
 
@@ -77,6 +78,8 @@ class Permutahedron(Family):
         object.__setattr__(self, "_wd", np.ascontiguousarray(np.sort(self.weights)[::-1]))
         object.__setattr__(self, "_wa", np.sort(self.weights))
         object.__setattr__(self, "_ps", np.cumsum(self._wd))
+        with np.errstate(divide="ignore", invalid="ignore"):    # the KL projection's block values use log w
+            object.__setattr__(self, "_log_wd", np.log(self._wd))
 
     @property
     def _wdesc(self):
@@ -124,6 +127,20 @@ class Permutahedron(Family):
     def support(self, C):
         """Sorted c against sorted w (both increasing), O(n log n)."""
         return np.sort(C, axis=1) @ self._wa
+
+    def orthant_violation(self):
+        """None when every weight is >= 0 (the vertices are then nonnegative), else the smallest weight."""
+        if self._wa[0] < 0.0:
+            return f"the smallest weight is {self._wa[0]:.6g} < 0 (every weight must be >= 0)"
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Sort, then pool-adjacent-violators on the KL dual (block value logsumexp(t_B) - log sum w_B), exact, O(n log n)."""
+        why = self.orthant_violation()
+        if why:
+            raise outside_orthant_error(self.label, why)
+        return permutahedron_kl(T, self._wdesc, self._log_wd)
 
     def _majorization_gap(self, X):
         ps_w = self._ps

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-from ..errors import EmptySetError, SolveError
+from ..errors import DescriptionError, EmptySetError
 from ..forms import LinearForm
 from . import Family, register
 
@@ -36,6 +36,8 @@ def _matrix(r, key, n_cols):
         if M.ndim != 2:
             r.fail(key, f"{key} must be a matrix (a list of rows); got an array of shape {M.shape}.")
         M = sp.csr_matrix(M)
+    if M.shape[1] == 0:
+        r.fail(key, f"{key} must have at least one column (one per coordinate); got a matrix of shape {M.shape}.")
     if n_cols is not None and M.shape[1] != n_cols:
         r.fail(key, f"{key} must have {n_cols} columns (one per coordinate); got {M.shape[1]}.")
     return M
@@ -165,10 +167,32 @@ class Polyhedron(Family):
                             np.column_stack([np.zeros(mA + 2 * mC), np.full(mA + 2 * mC, np.inf)])])
         res = linprog(c, A_ub=A_ub, b_ub=self.b if mA else None, A_eq=A_eq, b_eq=self.d if mC else None,
                       bounds=bounds, method="highs")
-        if res.status != 0:
-            raise SolveError(f"{self.label}: the emptiness check did not finish (HiGHS status {res.status}: "
-                             f"{res.message}).")
         tol = 1e-9 * max(1.0, self.scale())
+        if res.status not in (0, 2):
+            # HiGHS reads |values| >= 1e20 as infinite and refuses some such models: retry with every
+            # row divided by a power of two near its largest entry (exact; the same set), violations then
+            # measured in those row units
+            def unit(M, rhs):
+                mags = np.maximum(abs(M).max(axis=1).toarray().ravel() if M.shape[0] else np.zeros(0),
+                                  np.where(np.isfinite(rhs), np.abs(rhs), 0.0))
+                return np.ldexp(1.0, np.frexp(np.where(mags > 0, mags, 1.0))[1])
+            uA = unit(self.A, self.b) if mA else np.ones(0)
+            uC = unit(self.C, self.d) if mC else np.ones(0)
+            A_ub = sp.hstack([sp.diags(1 / uA) @ self.A, -I_A, sp.csr_matrix((mA, 2 * mC))]).tocsr() if mA else None
+            A_eq = sp.hstack([sp.diags(1 / uC) @ self.C, sp.csr_matrix((mC, mA)), I_C, -I_C]).tocsr() if mC else None
+            res = linprog(c, A_ub=A_ub, b_ub=self.b / uA if mA else None, A_eq=A_eq,
+                          b_eq=self.d / uC if mC else None, bounds=bounds, method="highs")
+            tol = 1e-9
+        if res.status not in (0, 2):
+            fail("A" if mA else "C", f"the emptiness check could not decide whether the set is empty (HiGHS "
+                                       f"status {res.status}: {res.message}); the data span "
+                                       f"{self.scale():.3g} in magnitude, beyond what the LP solver handles "
+                                       f"(it reads 1e20 and above as infinite). Rescale the constraints.",
+                   DescriptionError)
+        if res.status == 2:        # the elastic LP is always feasible unless the bounds contradict
+            fail("A" if mA else "C", "the set is empty: the constraints and bounds admit no point (the elastic "
+                                     "emptiness LP reports no solution at all).",
+                   EmptySetError)
         if res.fun <= tol:
             return
         parts = []

@@ -6,6 +6,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
+from ..kernels.bregman import simplex_kl
 from ..kernels.simplex import project_simplex_rows, simplex_distance_rows
 from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation, simplex_lmo_rows, simplex_support_rows
 from . import Family, kernel, register
@@ -115,6 +116,15 @@ class Simplex(Family):
     def _screen(self, X, tol, lip):
         return bounds_sum_screen(X, self._zeros, self._inf, self._ones, self.total, self.mode == "equal", tol, lip)
 
+    def orthant_violation(self):
+        """None: the simplex lies in the nonnegative orthant."""
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Normalization total * softmax(t) (at_most: y itself when sum y <= total), exact, O(n)."""
+        return simplex_kl(T, self.total, self.mode == "at_most")
+
     @kernel("violation")
     def violation(self, X):
         """Largest violation of x >= 0 and of the sum constraint, O(n)."""
@@ -141,10 +151,13 @@ class Simplex(Family):
         unit, tk = params["unit"], params["total"]
         if params.get("all_one"):
             # every total is 1: X / 1 and 1 * x are exact, so the unit operator is the answer
-            if op in ("project", "lmo", "support", "violation"):
+            if op in ("project", "lmo", "support", "violation", "project_kl"):
                 return getattr(unit, op)(X)
             return None
         t = np.tile(tk, X.shape[0] // tk.size)
+        if op == "project_kl":
+            # KL(t z || y) = t KL(z || y / t) + const: project log y - log t onto the unit simplex
+            return t[:, None] * unit.project_kl(X - np.log(t)[:, None])
         if op == "project":
             return t[:, None] * unit.project(X / t[:, None])
         if op == "lmo":

@@ -5,9 +5,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..description import MAX_SIZE
 from ..errors import EmptySetError
-from . import register
-from . import memo
+from ..kernels.bregman import sinkhorn_kl
+from . import kernel, memo, register
 from ._network import Network, NetworkFamily
 
 
@@ -29,6 +30,9 @@ def read_margins(r):
         neg = np.flatnonzero(v < 0)
         if neg.size:
             r.fail(key, f"{key} must be nonnegative (amounts shipped); entry {int(neg[0])} is {v[neg[0]]:g}.")
+    if rows.size * cols.size > MAX_SIZE:
+        r.fail("cols", f"a plan of {rows.size:,} x {cols.size:,} entries exceeds {MAX_SIZE:,} coordinates (the size "
+                       f"limit of setkit).")
     tr, tc = float(rows.sum()), float(cols.sum())
     if abs(tr - tc) > 1e-9 * max(1.0, tr, tc):
         r.fail("cols", f"the row sums total {tr:.10g} but the column sums total {tc:.10g}; a transportation "
@@ -52,6 +56,9 @@ class Transport(NetworkFamily):
     rows: np.ndarray
     cols: np.ndarray
     traits = frozenset({"polyhedral", "bounded"})
+    # KL projection: Sinkhorn scaling stops at a largest marginal residual of kl_accuracy * scale
+    kl_accuracy = 1e-10
+    kl_max_iterations = 20_000
 
     @classmethod
     def from_spec(cls, r):
@@ -95,3 +102,12 @@ class Transport(NetworkFamily):
     def cvxpy_constraints(self, x):
         import cvxpy as cp
         return [x >= 0, cp.sum(x, axis=1) == self.rows, cp.sum(x, axis=0) == self.cols]
+
+    def orthant_violation(self):
+        """None: transportation plans are nonnegative."""
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Sinkhorn-Knopp scaling with log-domain absorption, to marginal residual 1e-10 x scale, O(mn) per iteration."""
+        return sinkhorn_kl(T, self.rows, self.cols, self.kl_accuracy, self.kl_max_iterations, self.label)

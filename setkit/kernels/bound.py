@@ -15,6 +15,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from ..errors import InputError
 from .isotonic import _permutahedron_rows
 from .simplex import _capped_rows_nb, _simplex_rows_nb, knapsack_lmo_rows
 from .vector_ops import ball_lmo, box_lmo_bounded, box_ops, l1_ball_project, l2_ball_project, simplex_lmo_rows
@@ -24,10 +25,12 @@ from .vector_ops import ball_lmo, box_lmo_bounded, box_ops, l1_ball_project, l2_
 def simplex_sorted_row(y, total):
     """The sorted-prefix threshold of one row (the rare fallback of the compiled pivot search).
 
-    Same arithmetic, in the same order, as ``project_simplex_sorted``: sort decreasingly,
+    Same arithmetic, in the same order, as ``project_simplex_sorted``: shift by the maximum, sort decreasingly,
     running sums, the last k with u_k * k > css_k - total, x = max(y - tau, 0).
     """
     n = y.size
+    top = y.max()
+    y = np.maximum(y - top, -2.0 * total)         # shift_to_top: the same projection, no cancellation
     u = -np.sort(-y)
     css = np.cumsum(u)
     rho = 0
@@ -118,13 +121,22 @@ def ball_kernels(center, radius, p, lo, hi):
     return {"project": project, "lmo": lmo}
 
 
-def budget_kernels(lower, upper, weights, total, at_most, caps, room):
-    """project and lmo of {lower <= x <= upper, <w, x> = total} (or <= total when ``at_most``)."""
+def budget_kernels(lower, upper, weights, total, at_most, caps, room, data_scale):
+    """project and lmo of {lower <= x <= upper, <w, x> = total} (or <= total when ``at_most``).
+
+    The projection serves points with max |y| <= 1e4 * data_scale (the range where the Python-level
+    operator solves once); farther points, which the Python-level operator re-solves after a shift,
+    raise InputError here instead of answering less accurately.
+    """
     lo, hi, w, cap = (np.ascontiguousarray(v, dtype=float) for v in (lower, upper, weights, caps))
     total, room, at_most = float(total), float(room), bool(at_most)
+    far = 1e4 * float(data_scale)
 
     @njit(nogil=True)
     def project(y):
+        if np.abs(y).max() > far:
+            raise InputError("jit_kernels budget project: |y| is far above the set's data (more than 1e4 times "
+                             "its scale); call K.project for such points")
         Y = y.reshape(1, y.size)
         rows = np.zeros(1, np.int64)
         if at_most:
@@ -133,7 +145,7 @@ def budget_kernels(lower, upper, weights, total, at_most, caps, room):
                 return X[0]
         else:
             X = np.empty_like(Y)
-        _capped_rows_nb(Y, lo, hi, w, total, rows, X)
+        _capped_rows_nb(Y, lo, hi, w, total, rows, X, np.zeros(1))
         return X[0]
 
     @njit(nogil=True)

@@ -14,9 +14,19 @@ import numpy as np
 
 
 def nearest_in_hull(V: np.ndarray, y: np.ndarray, tol_rel: float = 1e-14, max_cycles: int | None = None):
-    """argmin_{x in conv(rows of V)} ||x - y||; returns (x, weights, gap, cycles, converged)."""
+    """argmin_{x in conv(rows of V)} ||x - y||; returns (x, weights, gap, cycles, converged).
+
+    Works on W = (V - y) / 2^e with 2^e near max|V - y| (the same nearest point, scaled
+    exactly), so squared norms neither overflow nor underflow for |V - y| in 1e-300..1e300.
+    """
     k, dim = V.shape
     W = V - y                      # shift: nearest point of conv(W) to the origin
+    # scale by a power of two (exact): squared norms stay finite and normal for |W| in 1e-300..1e300
+    top = float(np.abs(W).max(initial=0.0))
+    unit = 1.0
+    if top > 0.0 and np.isfinite(top):
+        unit = float(np.ldexp(1.0, int(np.frexp(top)[1])))
+        W = W / unit
     sq = np.einsum("ij,ij->i", W, W)
     scale2 = max(float(sq.max()), 1e-300)
     tol = tol_rel * scale2
@@ -34,7 +44,7 @@ def nearest_in_hull(V: np.ndarray, y: np.ndarray, tol_rel: float = 1e-14, max_cy
         xx = float(x @ x)
         gap = xx - float(g[j])           # = max_j <-x, w_j - x> = FW gap in the original coordinates
         if gap <= tol or j in S:
-            return x + y, _weights(k, S, lam), max(gap, 0.0), cycles, gap <= max(tol, 1e-12 * scale2)
+            return unit * x + y, _weights(k, S, lam), max(gap, 0.0) * unit * unit, cycles, gap <= max(tol, 1e-12 * scale2)
         S.append(j)
         lam = np.append(lam, 0.0)
         for _minor in range(len(S) + 2):
@@ -54,7 +64,7 @@ def nearest_in_hull(V: np.ndarray, y: np.ndarray, tol_rel: float = 1e-14, max_cy
             lam = lam[~drop]
             lam = lam / lam.sum()
         x = lam @ W[S]
-    return x + y, _weights(k, S, lam), max(gap, 0.0), cycles, False
+    return unit * x + y, _weights(k, S, lam), max(gap, 0.0) * unit * unit, cycles, False
 
 
 def _affine_minimizer(P):

@@ -53,20 +53,37 @@ def _permutahedron_rows(Y, order, wdesc, out):
 
     One gather (y in decreasing order), the pooling on y_sigma - w, and one scatter
     that writes y_sigma - (block mean) straight to the answer.
+
+    Exact at every magnitude: every coordinate of the answer lies in [w_min, w_max],
+    and inside a pooled block x_i - x_{i+1} = y_i - y_{i+1}, so no block spans a gap
+    of y larger than spread = w_max - w_min. The sorted y is cut into clusters at such
+    gaps (a barrier for the pooling) and each cluster is pooled relative to its first
+    value: x_i = (y_i - ref) - mean_block((y - ref) - w), where y_i - ref is exact
+    (Sterbenz) or at the cluster's own scale. No cancellation at |y| = 1e17 (plain
+    y - w would lose w entirely), no overflow of y - w near 1e308. Exact up to
+    rounding for finite |y| <= 1e300.
     """
     b, n = Y.shape
     ys = np.empty(n)
+    refs = np.empty(n)
     sums = np.empty(n)
     cnts = np.empty(n, np.int64)
+    spread = wdesc[0] - wdesc[n - 1] if n > 0 else 0.0
     for r in range(b):
         for i in range(n):
             ys[i] = Y[r, order[r, i]]
         nb = 0
+        floor = 0
+        ref = ys[0] if n > 0 else 0.0
         for i in range(n):
-            sums[nb] = ys[i] - wdesc[i]
+            if i > 0 and ys[i - 1] - ys[i] > 2.0 * spread:
+                floor = nb          # a new cluster: no pool crosses this gap
+                ref = ys[i]
+            refs[i] = ref
+            sums[nb] = (ys[i] - ref) - wdesc[i]
             cnts[nb] = 1
             nb += 1
-            while nb > 1 and sums[nb - 2] * cnts[nb - 1] < sums[nb - 1] * cnts[nb - 2]:
+            while nb > floor + 1 and sums[nb - 2] * cnts[nb - 1] < sums[nb - 1] * cnts[nb - 2]:
                 sums[nb - 2] += sums[nb - 1]
                 cnts[nb - 2] += cnts[nb - 1]
                 nb -= 1
@@ -74,7 +91,7 @@ def _permutahedron_rows(Y, order, wdesc, out):
         for blk in range(nb):
             v = sums[blk] / cnts[blk]
             for _ in range(cnts[blk]):
-                out[r, order[r, k]] = ys[k] - v
+                out[r, order[r, k]] = (ys[k] - refs[k]) - v
                 k += 1
 
 

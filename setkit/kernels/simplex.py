@@ -56,7 +56,10 @@ def _simplex_tau(y, total, v, vt):
                 v[m2] = yk
                 m2 += 1
             else:
-                rho += (rho - yk) / (m - 1 - (k - m2))   # the list size after this removal
+                left = m - 1 - (k - m2)                  # the list size after this removal
+                if left <= 0:
+                    return np.nan                        # never with shifted input; the caller sorts
+                rho += (rho - yk) / left
         if m2 == m:
             s = 0.0
             for k in range(m):
@@ -68,21 +71,47 @@ def _simplex_tau(y, total, v, vt):
 
 @njit(cache=True, nogil=True)
 def _simplex_rows_nb(Y, total, out):
+    """Rows shifted by their maximum and floored at -2 total (see :func:`shift_to_top`), then Condat."""
     b, n = Y.shape
     cand = np.empty(n)
     wait = np.empty(n)
+    z = np.empty(n)
     bad = 0
+    floor = -2.0 * total
     for r in range(b):
-        tau = _simplex_tau(Y[r], total, cand, wait)
+        top = Y[r, 0]
+        for j in range(1, n):
+            if Y[r, j] > top:
+                top = Y[r, j]
+        for j in range(n):
+            v = Y[r, j] - top
+            z[j] = v if v > floor else floor
+        tau = _simplex_tau(z, total, cand, wait)
         if np.isnan(tau):
             bad += 1
             for j in range(n):
                 out[r, j] = np.nan
             continue
         for j in range(n):
-            v = Y[r, j] - tau
+            v = z[j] - tau
             out[r, j] = v if v > 0.0 else 0.0
     return bad
+
+
+def shift_to_top(Y: np.ndarray, total: float) -> np.ndarray:
+    """Rows of Y shifted by their maximum and floored at -2 total: the same simplex projection.
+
+    The threshold satisfies max(y) - total <= tau < max(y), so subtracting max(y)
+    (a translation along the all-ones normal of the simplex's affine hull) changes
+    tau by the same amount and no coordinate of the answer; coordinates below
+    max(y) - total are zero in the answer, so flooring them changes nothing
+    either. Every coordinate that ends up positive is within ``total`` of max(y),
+    where y - max(y) is exact (Sterbenz), so the answer no longer depends on
+    |y|: no cancellation at 1e17 and no overflow of sums at 1e300.
+    """
+    with np.errstate(over="ignore", invalid="ignore"):
+        Z = Y - Y.max(axis=1, keepdims=True)
+    return np.maximum(Z, -2.0 * total)
 
 
 def project_simplex_rows(Y: np.ndarray, total: float) -> np.ndarray:
@@ -91,12 +120,17 @@ def project_simplex_rows(Y: np.ndarray, total: float) -> np.ndarray:
     x = max(y - tau, 0) with the threshold tau of the KKT conditions found by
     Condat's method in compiled code (O(n) per row in practice); rows where its
     clean-up needs too many passes fall back to the sorted-prefix threshold
-    (Held, Wolfe and Crowder 1974), O(n log n).
+    (Held, Wolfe and Crowder 1974), O(n log n). Rows are first shifted by their
+    maximum (:func:`shift_to_top`), so the answer is exact up to a few ulps of
+    ``total`` for every finite y with |y| <= 1e300 and total in [1e-300, 1e300]
+    (n * total below the float range).
     """
     Y = np.ascontiguousarray(Y, dtype=float)
     b, n = Y.shape
     if total == 0.0:
         return np.zeros_like(Y)
+    if b == 0:
+        return np.empty_like(Y)
     out = np.empty_like(Y)
     bad = _simplex_rows_nb(Y, float(total), out)
     if bad:
@@ -106,10 +140,16 @@ def project_simplex_rows(Y: np.ndarray, total: float) -> np.ndarray:
 
 
 def project_simplex_sorted(Y: np.ndarray, total: float) -> np.ndarray:
-    """Rows of Y onto {x >= 0, sum x = total} by the sorted-prefix threshold, O(b n log n)."""
+    """Rows of Y onto {x >= 0, sum x = total} by the sorted-prefix threshold, O(b n log n).
+
+    Exact at every magnitude, like :func:`project_simplex_rows` (rows shifted by their maximum).
+    """
     b, n = Y.shape
     if total == 0.0:
         return np.zeros_like(Y)
+    if b == 0:
+        return np.empty_like(Y)
+    Y = shift_to_top(np.asarray(Y, dtype=float), total)
     U = -np.sort(-Y, axis=1)
     css = np.cumsum(U, axis=1)
     css -= total
@@ -127,6 +167,7 @@ def project_simplex_large(y: np.ndarray, total: float) -> np.ndarray:
     coordinates above the running threshold until it stops changing. O(n) on average.
     """
     # Michelot's fixed point: tau = (sum_{v in S} v - total)/|S|, S = {y > tau}; starts from all
+    y = shift_to_top(np.asarray(y, dtype=float)[None, :], total)[0]
     v = y
     tau = (v.sum() - total) / v.size
     while True:
@@ -450,11 +491,12 @@ def _capped_search(y, lo, hi, w, total, idx, first, sbp):
 
 
 @njit(cache=True, nogil=True)
-def _capped_rows_nb(Y, lo, hi, w, total, rows, out):
+def _capped_rows_nb(Y, lo, hi, w, total, rows, out, lams):
     b, n = Y.shape
     idx = np.empty(n, np.int64)
     for r in rows:
         lam = _capped_lambda(Y[r], lo, hi, w, total, idx)
+        lams[r] = lam
         for j in range(n):
             out[r, j] = min(max(Y[r, j] - lam * w[j], lo[j]), hi[j])
 
@@ -465,12 +507,109 @@ def _vector(v, shape):
     return np.ascontiguousarray(np.broadcast_to(np.asarray(v, dtype=float), shape))
 
 
-def project_capped(Y, lo, hi, w, total, mode="equal"):
+def _split(a):
+    """Veltkamp's split of a (|a| <= 2^996): a = hi + lo with hi holding the top 26 bits."""
+    t = 134217729.0 * a
+    hi = t - (t - a)
+    return hi, a - hi
+
+
+def two_product(a, b):
+    """(p, e) with p = fl(a b) and p + e = a b exactly (Dekker 1971), elementwise, no FMA needed.
+
+    The factors are first scaled to mantissas in [0.5, 1) by their binary exponents, so the
+    split cannot overflow; e is exact unless a b is below ~1e-290 (subnormal partial terms)."""
+    ma, ea = np.frexp(a)
+    mb, eb = np.frexp(b)
+    p = ma * mb
+    ah, al = _split(ma)
+    bh, bl = _split(mb)
+    e = ((ah * bh - p) + ah * bl + al * bh) + al * bl
+    ex = ea + eb
+    with np.errstate(over="ignore"):
+        return np.ldexp(p, ex), np.ldexp(e, ex)
+
+
+def shift_by_multiplier(Y, w, lam):
+    """Rows y - lam w, computed so that coordinates near lam w lose nothing to cancellation.
+
+    lam w is formed exactly as p + e (:func:`two_product`); y - p is exact where y is
+    within a factor 2 of p (Sterbenz), and only the final subtraction of the small e rounds.
+    Results are kept within +-1e300 (beyond that a coordinate sits at a bound anyway).
+    """
+    p, e = two_product(lam[:, None], np.broadcast_to(w, Y.shape))
+    with np.errstate(over="ignore", invalid="ignore"):
+        Z = (Y - p) - e
+    return np.clip(np.nan_to_num(Z, nan=0.0), -1e300, 1e300)
+
+
+def _float_key(x):
+    """An int64 that orders like the float x (adjacent floats have adjacent keys)."""
+    i = int(np.array(x, dtype=np.float64).view(np.int64))
+    return i if i >= 0 else -(i & 0x7FFFFFFFFFFFFFFF)
+
+
+def _key_float(k):
+    i = k if k >= 0 else (-k) | (-0x8000000000000000)
+    return float(np.array(i, dtype=np.int64).view(np.float64))
+
+
+def _root_breakpoint(y, lo, hi, w, total):
+    """A float c next to the root of g(lam) = sum w clip(y - lam w, lo, hi) = total.
+
+    g is evaluated on y - c w formed by :func:`shift_by_multiplier` (no cancellation);
+    outside the finite breakpoints the end breakpoint is returned, otherwise a
+    bisection on the ordered bit patterns of the floats (at most 64 evaluations,
+    O(n) each) ends at adjacent floats c < c' with g(c) >= total > g(c'). After
+    shifting by c the free coordinates are at the scale of the answer.
+    """
+    with np.errstate(over="ignore", invalid="ignore"):
+        t = np.concatenate([(y - hi) / w, (y - lo) / w])
+    t = t[np.isfinite(t)]
+    if t.size == 0:
+        return 0.0
+
+    def g(cs):
+        Z = shift_by_multiplier(np.broadcast_to(y, (len(cs), y.size)), w, np.asarray(cs, dtype=float))
+        return np.clip(Z, lo, hi) @ w
+
+    lo_c, hi_c = float(t.min()), float(t.max())
+    ends = g([lo_c, hi_c])
+    if ends[0] < total:
+        return lo_c
+    if ends[1] >= total:
+        return hi_c
+    ka, kb = _float_key(lo_c), _float_key(hi_c)
+    while kb - ka > 1:
+        # a 32-way search on the ordered bit patterns: one batched evaluation narrows by 32
+        ks = sorted({ka + (kb - ka) * j // 32 for j in range(1, 32)} - {ka, kb})
+        if not ks:
+            ks = [ka + 1]
+        vals = g([_key_float(k) for k in ks])
+        above = np.flatnonzero(vals >= total)
+        below = np.flatnonzero(vals < total)
+        if above.size:
+            ka = ks[int(above.max())]
+        if below.size:
+            nb = [ks[j] for j in below if ks[j] > ka]
+            if nb:
+                kb = min(nb)
+    return _key_float(ka)
+
+
+def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
     """Project rows of Y onto {lo <= x <= hi, <w, x> = total} (mode "equal") or <= total ("at_most").
 
     The multiplier of the weighted sum comes from the compiled randomized
     breakpoint search (expected O(n) per row); lower bounds must be finite,
     upper bounds may be +inf, weights positive, and the total reachable.
+
+    Range: the answer is x_i = clip(y_i - lam w_i, lo_i, hi_i); when |lam| w is
+    far above the data (|y| ~ 1e17 and more) the subtraction would cancel, so
+    such rows are solved a second time on y - lam0 w (:func:`shift_by_multiplier`,
+    the same projection since the set is unchanged and only lam moves by lam0),
+    where the free coordinates are small and exact. Exact up to a few ulps of
+    the data for finite |y| <= 1e300 (data within the float range).
     """
     Y = np.ascontiguousarray(Y, dtype=float)
     lo, hi, w = (_vector(v, Y.shape[1:]) for v in (lo, hi, w))
@@ -482,7 +621,30 @@ def project_capped(Y, lo, hi, w, total, mode="equal"):
     else:
         X = np.empty_like(Y)
         rows = np.arange(Y.shape[0])
-    _capped_rows_nb(Y, lo, hi, w, float(total), rows, X)
+    if rows.size == 0:
+        return X
+    lams = np.zeros(Y.shape[0])
+    _capped_rows_nb(Y, lo, hi, w, float(total), rows, X, lams)
+    if data_scale is None:
+        fin = np.concatenate([lo, hi[np.isfinite(hi)], [total]])
+        data_scale = float(max(1.0, np.abs(fin).max()))
+    wmax = float(w.max(initial=1.0))
+    # rows far from the data: the multiplier cannot be represented finely enough next to |y| (its
+    # float grid is ulp(|y|)), so solve again on y - c w with c the breakpoint next to the root
+    big = rows[np.abs(Y[rows]).max(axis=1, initial=0.0) > 1e4 * data_scale]
+    if big.size:
+        # each shift leaves the free coordinates at about one ulp of the old multiplier, i.e. 2^-52 times
+        # smaller: repeat until the multiplier is at the data's scale (at most ~20 rounds from 1e300)
+        Z = Y[big].copy()
+        for k in range(Z.shape[0]):
+            for _ in range(40):
+                c = _root_breakpoint(Z[k], lo, hi, w, total)
+                if abs(c) * wmax <= 1e4 * data_scale:
+                    break
+                Z[k] = shift_by_multiplier(Z[k][None, :], w, np.array([c]))[0]
+        Xb = np.empty_like(Z)
+        _capped_rows_nb(Z, lo, hi, w, float(total), np.arange(Z.shape[0]), Xb, np.zeros(Z.shape[0]))
+        X[big] = Xb
     return X
 
 
@@ -568,15 +730,42 @@ def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
 
 
 @njit(cache=True, nogil=True)
+def scaled_norm(v, n):
+    """||v[:n]||_2 without overflow or underflow: the plain sum, rescaled by max |v_j| when it
+    overflows or may have lost terms to underflow. Exact up to rounding for every finite v."""
+    s = 0.0
+    for j in range(n):
+        s += v[j] * v[j]
+    if s < np.inf and s > 1e-280:
+        return np.sqrt(s)
+    m = 0.0
+    for j in range(n):
+        a = abs(v[j])
+        if a > m:
+            m = a
+    if m == 0.0 or not m < np.inf:
+        return m
+    s = 0.0
+    for j in range(n):
+        a = v[j] / m
+        s += a * a
+    return m * np.sqrt(s)
+
+
+@njit(cache=True, nogil=True)
 def simplex_distance_rows(Y, total, at_most):
     """||y - proj(y)|| per row for {x >= 0, sum x = total} (or <= total), without forming proj(y).
 
-    The threshold tau by Condat's method (sorted fallback); O(n) per row.
+    The threshold tau by Condat's method (sorted fallback) on the row shifted by
+    its maximum (see :func:`shift_to_top`), and a norm that neither overflows nor
+    underflows: exact up to rounding for finite |y| <= 1e300. O(n) per row.
     """
     b, n = Y.shape
     out = np.empty(b)
     cand = np.empty(n)
     wait = np.empty(n)
+    z = np.empty(n)
+    e = np.empty(n)
     for r in range(b):
         y = Y[r]
         if at_most:
@@ -584,27 +773,31 @@ def simplex_distance_rows(Y, total, at_most):
             for j in range(n):
                 s += max(y[j], 0.0)
             if s <= total:
-                d = 0.0
                 for j in range(n):
-                    m = min(y[j], 0.0)
-                    d += m * m
-                out[r] = np.sqrt(d)
+                    e[j] = min(y[j], 0.0)
+                out[r] = scaled_norm(e, n)
                 continue
         if total == 0.0:
-            tau = np.inf
-        else:
-            tau = _simplex_tau(y, total, cand, wait)
-            if np.isnan(tau):
-                u = -np.sort(-y)
-                cs = 0.0
-                for k in range(n):
-                    cs += u[k]
-                    t = (cs - total) / (k + 1)
-                    if u[k] > t:
-                        tau = t
-        d = 0.0
+            for j in range(n):
+                e[j] = y[j]
+            out[r] = scaled_norm(e, n)
+            continue
+        top = y[0]
         for j in range(n):
-            e = y[j] - max(y[j] - tau, 0.0)
-            d += e * e
-        out[r] = np.sqrt(d)
+            if y[j] > top:
+                top = y[j]
+        for j in range(n):
+            z[j] = max(y[j] - top, -2.0 * total)
+        tau = _simplex_tau(z, total, cand, wait)
+        if np.isnan(tau):
+            u = -np.sort(-z)
+            cs = 0.0
+            for k in range(n):
+                cs += u[k]
+                t = (cs - total) / (k + 1)
+                if u[k] > t:
+                    tau = t
+        for j in range(n):
+            e[j] = y[j] - max(z[j] - tau, 0.0)
+        out[r] = scaled_norm(e, n)
     return out

@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from .simplex import _simplex_tau
+from .simplex import _simplex_tau, scaled_norm
 
 
 @njit(cache=True, nogil=True)
@@ -33,15 +33,18 @@ def bounds_sum_violation(X, lo, hi, w, total, equal):
 
 @njit(cache=True, nogil=True)
 def l2_ball_project(Y, c, radius):
-    """c + (y - c) min(1, r / ||y - c||) per row; rows inside are copied unchanged."""
+    """c + (y - c) min(1, r / ||y - c||) per row; rows inside are copied unchanged.
+
+    The norm is rescaled when the plain sum of squares would overflow or underflow,
+    so the answer is exact up to rounding for finite |y - c| <= 1e300.
+    """
     b, n = Y.shape
     out = np.empty_like(Y)
+    dv = np.empty(n)
     for r in range(b):
-        s = 0.0
         for j in range(n):
-            d = Y[r, j] - c[j]
-            s += d * d
-        nv = np.sqrt(s)
+            dv[j] = Y[r, j] - c[j]
+        nv = scaled_norm(dv, n)       # no overflow above 1e154, no underflow below 1e-154
         if nv <= radius:
             for j in range(n):
                 out[r, j] = Y[r, j]
@@ -61,13 +64,10 @@ def ball_lmo(C, c, radius, p):
         for j in range(n):
             out[r, j] = c[j]
         if p == 2:
-            s = 0.0
-            for j in range(n):
-                s += C[r, j] * C[r, j]
-            if s > 0.0:
-                f = radius / np.sqrt(s)
+            nc = scaled_norm(C[r], n)       # no overflow/underflow of the sum of squares
+            if nc > 0.0:
                 for j in range(n):
-                    out[r, j] -= f * C[r, j]
+                    out[r, j] -= radius * (C[r, j] / nc)
         elif p == 0:
             for j in range(n):
                 v = C[r, j]
@@ -96,19 +96,29 @@ def ball_violation(X, c, radius, p):
     """max(||x - c||_p - r, 0) per row; p = 1, 2 or 0 (meaning inf)."""
     b, n = X.shape
     out = np.empty(b)
+    dv = np.empty(n)
     for r in range(b):
         s = 0.0
         for j in range(n):
             d = abs(X[r, j] - c[j])
-            if p == 2:
-                s += d * d
-            elif p == 1:
+            dv[j] = d
+            if p == 1:
                 s += d
-            else:
+            elif p == 0:
                 s = max(s, d)
         if p == 2:
-            s = np.sqrt(s)
+            s = scaled_norm(dv, n)
         out[r] = max(s - radius, 0.0)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def norm_rows(X):
+    """||x||_2 per row without overflow or underflow (rescaled when needed), O(n)."""
+    b, n = X.shape
+    out = np.empty(b)
+    for r in range(b):
+        out[r] = scaled_norm(X[r], n)
     return out
 
 
@@ -116,18 +126,37 @@ def ball_violation(X, c, radius, p):
 def l1_ball_project(Y, c, radius):
     """Rows onto {||x - c||_1 <= r}: unchanged inside, else c + sign(v) max(|v| - tau, 0), v = y - c.
 
-    tau is the simplex threshold of |v| for the total r (Condat's method), O(n).
+    tau is the simplex threshold of |v| for the total r (Condat's method) on |v|
+    shifted by its maximum and floored at -2r (the same threshold, minus max|v|;
+    see ``setkit.kernels.simplex.shift_to_top``), so the answer is exact up to
+    rounding for finite |y - c| <= 1e300 and r in [1e-300, 1e300]. O(n).
     """
     b, n = Y.shape
     out = np.empty_like(Y)
     a = np.empty(n)
+    al = np.empty(n)
     cand = np.empty(n)
     wait = np.empty(n)
     for r in range(b):
         s = 0.0
+        top = 0.0
+        top_l = 0.0
         for j in range(n):
-            a[j] = abs(Y[r, j] - c[j])
-            s += a[j]
+            # v = y - c as an unevaluated sum vh + vl (TwoSum): |y| >> |c| loses nothing of c
+            yj = Y[r, j]
+            cj = c[j]
+            vh = yj - cj
+            bb = vh - yj
+            vl = (yj - (vh - bb)) + (-cj - bb)
+            if vh < 0.0 or (vh == 0.0 and vl < 0.0):
+                vh = -vh
+                vl = -vl
+            a[j] = vh
+            al[j] = vl
+            s += vh
+            if vh > top or (vh == top and vl > top_l):
+                top = vh
+                top_l = vl
         if s <= radius:
             for j in range(n):
                 out[r, j] = Y[r, j]
@@ -136,6 +165,9 @@ def l1_ball_project(Y, c, radius):
             for j in range(n):
                 out[r, j] = c[j]
             continue
+        for j in range(n):
+            # |v_j| - max|v| (exact where it matters: Sterbenz on the high parts)
+            a[j] = max((a[j] - top) + (al[j] - top_l), -2.0 * radius)
         tau = _simplex_tau(a, radius, cand, wait)
         if np.isnan(tau):          # clean-up did not settle: the sorted threshold
             u = -np.sort(-a)
@@ -148,9 +180,9 @@ def l1_ball_project(Y, c, radius):
                     tau = t
         for j in range(n):
             d = Y[r, j] - c[j]
-            m = abs(d) - tau
+            m = a[j] - tau
             if m > 0.0:
-                out[r, j] = c[j] + (m if d > 0 else -m)
+                out[r, j] = c[j] + (m if (d > 0 or (d == 0 and Y[r, j] > c[j])) else -m)
             else:
                 out[r, j] = c[j]
     return out
@@ -181,16 +213,22 @@ def box_values(X, lo, hi, op):
     """Box values per row. op 0: distance ||x - clip(x)||; 1: support sum max(c lo, c hi) (finite bounds)."""
     b, n = X.shape
     out = np.empty(b)
+    dv = np.empty(n)
     for r in range(b):
         s = 0.0
         for j in range(n):
             v = X[r, j]
             if op == 0:
                 d = v - min(max(v, lo[j]), hi[j])
+                dv[j] = d
                 s += d * d
             else:
                 s += v * hi[j] if v > 0.0 else v * lo[j]
-        out[r] = np.sqrt(s) if op == 0 else s
+        if op == 0:
+            # rescaled norm when the plain sum overflowed or may have lost terms to underflow
+            out[r] = np.sqrt(s) if (s < np.inf and s > 1e-280) else scaled_norm(dv, n)
+        else:
+            out[r] = s
     return out
 
 
@@ -255,12 +293,11 @@ def l2_dist_rows(X, c):
     """||x - c||_2 per row (sequential sum; used as a screen beside the exact NumPy distance)."""
     b, n = X.shape
     out = np.empty(b)
+    dv = np.empty(n)
     for r in range(b):
-        s = 0.0
         for j in range(n):
-            d = X[r, j] - c[j]
-            s += d * d
-        out[r] = np.sqrt(s)
+            dv[j] = X[r, j] - c[j]
+        out[r] = scaled_norm(dv, n)
     return out
 
 
