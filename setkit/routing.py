@@ -27,6 +27,7 @@ import numpy as np
 from .backends import all_backends, get_backend
 from .errors import BackendUnavailableError, SolveError, UnsupportedOperationError
 from .families import OPERATORS, memo
+from .parallel import split_rows
 from .strategies import all_strategies, strategies_for
 
 
@@ -342,7 +343,7 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             else:
                 raw = fn
             direct[op] = raw
-            calls[op] = (lambda f: (lambda *a: _as_pair(f(*a))))(raw)
+            calls[op] = (lambda f: (lambda *a: _as_pair(f(*a))))(split_rows(raw, op))   # large batches: all cores
         elif r.category == "strategy":
             if r.provider not in strategies:
                 strategies[r.provider] = all_strategies()[r.provider](node)

@@ -60,3 +60,9 @@ def test_ensemble_budget():
     with_pen = number(out, "largest distance of a combined decision from the set:")
     without = number(out, "without the penalty: largest distance")
     assert with_pen <= without + 1e-9
+
+
+def test_jitted_learner():
+    out = run_example("jitted_learner.py")
+    assert "identical iterates: True" in out
+    assert "in the set: True" in out

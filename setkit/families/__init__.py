@@ -162,6 +162,10 @@ class Family:
         """
         return None
 
+    def bound_kernels(self) -> dict:
+        """Operator -> numba function of one point with this set's data bound (for K.jit_kernels()); {} if none."""
+        return {}
+
     def orthant_violation(self):
         """Whether the set lies in the nonnegative orthant (the domain of the KL geometry).
 

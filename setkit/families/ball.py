@@ -136,6 +136,11 @@ class Ball(Family):
         return np.abs(C).sum(axis=1)
 
     # -- native kernels ----------------------------------------------------------------------
+    def bound_kernels(self):
+        """project and lmo with this set's data bound, as numba functions of one point (K.jit_kernels())."""
+        from ..kernels.bound import ball_kernels
+        return ball_kernels(self.center, self.radius, self._p, self._lo, self._hi)
+
     @kernel("project")
     def project(self, Y):
         """Radial scaling (p=2), clipping (p=inf), or the simplex projection of |y - c| with signs restored (p=1), O(n).

@@ -109,6 +109,11 @@ class Box(Family):
         object.__setattr__(self, "_zeros", np.zeros(self.lower.size))
         object.__setattr__(self, "_all_finite", bool(np.isfinite(self.lower).all() and np.isfinite(self.upper).all()))
 
+    def bound_kernels(self):
+        """project (and lmo when bounded) with this set's data bound, as numba functions of one point."""
+        from ..kernels.bound import box_kernels
+        return box_kernels(self.lower, self.upper, self._tie, self._all_finite)
+
     @kernel("project")
     def project(self, Y):
         """Clipping to the bounds, O(n).

@@ -152,6 +152,12 @@ class Budget(Family):
         return LinearForm.build(self.dim, A_ub=row, b_ub=[self.total], lo=self.lower, hi=self.upper)
 
     # -- native kernels ----------------------------------------------------------------------
+    def bound_kernels(self):
+        """project and lmo with this set's data bound, as numba functions of one point (K.jit_kernels())."""
+        from ..kernels.bound import budget_kernels
+        return budget_kernels(self.lower, self.upper, self.weights, self.total, self.mode == "at_most",
+                              self._caps, self._room, self._data_scale)
+
     @kernel("project")
     def project(self, Y):
         """Clip to the bounds and shift by the multiplier of the weighted sum, found by randomized breakpoint search, expected O(n)."""

@@ -11,7 +11,7 @@ import numpy as np
 
 from ..kernels.bregman import outside_orthant_error, permutahedron_kl
 from ..kernels.face import permutahedron_face
-from ..kernels.isotonic import project_permutahedron
+from ..kernels.isotonic import permutahedron_lmo_rows, project_permutahedron
 from . import Family, kernel, register
 
 
@@ -109,6 +109,11 @@ class Permutahedron(Family):
         return permutahedron_form(self.weights)
 
     # -- native kernels ----------------------------------------------------------------------
+    def bound_kernels(self):
+        """project and lmo with this set's data bound, as numba functions of one point (K.jit_kernels())."""
+        from ..kernels.bound import permutahedron_kernels
+        return permutahedron_kernels(self._wdesc)
+
     @kernel("project")
     def project(self, Y):
         """Sort, then pool-adjacent-violators on y_sorted - w_sorted, O(n log n)."""
@@ -129,10 +134,7 @@ class Permutahedron(Family):
     @kernel("lmo")
     def lmo(self, C):
         """Rearrangement: the k-th largest weight at the k-th smallest c, O(n log n)."""
-        order = np.argsort(C, axis=1, kind="stable")
-        X = np.empty_like(C)
-        np.put_along_axis(X, order, np.broadcast_to(self._wdesc, C.shape), axis=1)
-        return X
+        return permutahedron_lmo_rows(C, self._wdesc)
 
     @kernel("support")
     def support(self, C):

@@ -78,6 +78,11 @@ class Simplex(Family):
             return LinearForm.build(self.n, A_eq=ones, b_eq=[self.total], lo=0.0)
         return LinearForm.build(self.n, A_ub=ones, b_ub=[self.total], lo=0.0)
 
+    def bound_kernels(self):
+        """project and lmo with this set's data bound, as numba functions of one point (K.jit_kernels())."""
+        from ..kernels.bound import simplex_kernels
+        return simplex_kernels(self.total, self.mode == "at_most")
+
     @kernel("project")
     def project(self, Y):
         """Sorted-threshold projection (pivot search for long single vectors), O(n log n)."""

@@ -13,7 +13,7 @@ from numba import njit
 _MAX_PASSES = 64
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _simplex_tau(y, total, v, vt):
     """Threshold tau with sum max(y - tau, 0) = total (total > 0), by Condat's method.
 
@@ -69,7 +69,7 @@ def _simplex_tau(y, total, v, vt):
     return np.nan
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _simplex_rows_nb(Y, total, out):
     """Rows shifted by their maximum and floored at -2 total (see :func:`shift_to_top`), then Condat."""
     b, n = Y.shape
@@ -283,7 +283,7 @@ def _interior_point(L, U):
     return 0.0
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
     """Median of up to 15 random breakpoints strictly inside (L, U); NaN if there is none."""
     cnt = 0
@@ -320,7 +320,7 @@ def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
     return samp[cnt // 2]
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _capped_lambda(y, lo, hi, w, total, idx):
     """Multiplier of the capped weighted simplex; see :func:`_capped_search`.
 
@@ -358,7 +358,7 @@ def _capped_lambda(y, lo, hi, w, total, idx):
     return _capped_search(y, lo, hi, w, total, idx, first, sbp)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _capped_search(y, lo, hi, w, total, idx, first, sbp):
     """Multiplier lam with sum w clip(y - lam w, lo, hi) = total, by randomized breakpoint search.
 
@@ -490,7 +490,7 @@ def _capped_search(y, lo, hi, w, total, idx, first, sbp):
     return (fixed + free_c - total) / free_s
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _capped_rows_nb(Y, lo, hi, w, total, rows, out, lams):
     b, n = Y.shape
     idx = np.empty(n, np.int64)
@@ -648,7 +648,7 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
     return X
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
     """Rows of argmin <c, x> over {lo <= x <= cap, <w, x> = lo.w + room} (<= when ``at_most``).
 
@@ -729,7 +729,7 @@ def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
             m = m2
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def scaled_norm(v, n):
     """||v[:n]||_2 without overflow or underflow: the plain sum, rescaled by max |v_j| when it
     overflows or may have lost terms to underflow. Exact up to rounding for every finite v."""
@@ -752,7 +752,7 @@ def scaled_norm(v, n):
     return m * np.sqrt(s)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def simplex_distance_rows(Y, total, at_most):
     """||y - proj(y)|| per row for {x >= 0, sum x = total} (or <= total), without forming proj(y).
 

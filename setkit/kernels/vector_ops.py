@@ -12,7 +12,7 @@ from numba import njit
 from .simplex import _simplex_tau, scaled_norm
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def bounds_sum_violation(X, lo, hi, w, total, equal):
     """max(lo - x, x - hi, |<w, x> - total| (equal) or (<w, x> - total)+, 0) per row."""
     b, n = X.shape
@@ -31,7 +31,7 @@ def bounds_sum_violation(X, lo, hi, w, total, equal):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def l2_ball_project(Y, c, radius):
     """c + (y - c) min(1, r / ||y - c||) per row; rows inside are copied unchanged.
 
@@ -55,7 +55,7 @@ def l2_ball_project(Y, c, radius):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def ball_lmo(C, c, radius, p):
     """center - r u with u the unit-norm maximizer of <c, u>; p = 1, 2 or 0 (meaning inf)."""
     b, n = C.shape
@@ -91,7 +91,7 @@ def ball_lmo(C, c, radius, p):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def ball_violation(X, c, radius, p):
     """max(||x - c||_p - r, 0) per row; p = 1, 2 or 0 (meaning inf)."""
     b, n = X.shape
@@ -112,7 +112,7 @@ def ball_violation(X, c, radius, p):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def norm_rows(X):
     """||x||_2 per row without overflow or underflow (rescaled when needed), O(n)."""
     b, n = X.shape
@@ -122,7 +122,7 @@ def norm_rows(X):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def l1_ball_project(Y, c, radius):
     """Rows onto {||x - c||_1 <= r}: unchanged inside, else c + sign(v) max(|v| - tau, 0), v = y - c.
 
@@ -188,7 +188,7 @@ def l1_ball_project(Y, c, radius):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def box_ops(X, lo, hi, tie, op):
     """Box kernels in one pass per row. op 0: projection (clip); 1: LMO (lower where c > 0, upper
     where c < 0, ``tie`` where c = 0); returns (points, index of an unbounded coordinate or -1)."""
@@ -208,7 +208,7 @@ def box_ops(X, lo, hi, tie, op):
     return out, bad
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def box_values(X, lo, hi, op):
     """Box values per row. op 0: distance ||x - clip(x)||; 1: support sum max(c lo, c hi) (finite bounds)."""
     b, n = X.shape
@@ -232,7 +232,7 @@ def box_values(X, lo, hi, op):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def bounds_sum_screen(X, lo, hi, w, total, equal, tol, lip):
     """bounds_sum_violation per row, except that a row stops early (returning a partial value
     > tol[r] * lip) as soon as a bound is violated by more than tol[r] * lip: a membership screen
@@ -263,7 +263,7 @@ def bounds_sum_screen(X, lo, hi, w, total, equal, tol, lip):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def ball_screen(X, c, radius, p, tol, lip):
     """ball_violation per row for p = 1 or 0 (inf), stopping early (with a partial value > tol[r] * lip)
     once the partial norm already exceeds radius + tol[r] * lip."""
@@ -288,7 +288,7 @@ def ball_screen(X, c, radius, p, tol, lip):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def l2_dist_rows(X, c):
     """||x - c||_2 per row (sequential sum; used as a screen beside the exact NumPy distance)."""
     b, n = X.shape
@@ -301,7 +301,7 @@ def l2_dist_rows(X, c):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def box_lmo_bounded(C, lo, hi, tie):
     """box_ops(C, lo, hi, tie, 1)[0] for finite bounds (no unboundedness check, one return value)."""
     b, n = C.shape
@@ -313,7 +313,7 @@ def box_lmo_bounded(C, lo, hi, tie):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def simplex_lmo_rows(C, total, at_most):
     """Simplex LMO per row: total e_j at the first smallest c_j (the origin when at_most and c_j >= 0)."""
     b, n = C.shape
@@ -330,7 +330,7 @@ def simplex_lmo_rows(C, total, at_most):
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def simplex_support_rows(C, total, at_most):
     """Simplex support per row: total max c (max(c) replaced by 0 when at_most and it is below 0)."""
     b, n = C.shape
