@@ -352,3 +352,26 @@ def test_a_failing_alternative_backend(failing_backend, capsys):
     # run with that backend: the failed solve is reported, exit 1
     code, _, err = run(["run", "project", SIMPLEX, "--at", "[1, 0, 0, 0, 0]", "--backend", "always_fails"], capsys)
     assert code == 1 and "did not converge" in err
+
+
+def test_progress_line_is_cleared_on_a_terminal_and_keeps_its_total(monkeypatch):
+    import time as _time
+
+    class FakeTerminal(io.StringIO):
+        def isatty(self):
+            return True
+
+    monkeypatch.setenv("SETKIT_PROGRESS_AFTER", "0")
+    stream = FakeTerminal()
+    with cli.Progress("verify", total=3, stream=stream) as prog:
+        steps = cli.StepsOnly(prog)
+        steps.total = 50                      # inner work may announce its own count: ignored
+        steps.advance("lmo by highs")
+        prog.advance("first file")
+        _time.sleep(0.7)
+        prog.clear()
+    text = stream.getvalue()
+    assert text.endswith(cli.CLEAR_LINE)
+    shown = [chunk for chunk in text.split(cli.CLEAR_LINE) if chunk]
+    assert shown and all("/3" in chunk for chunk in shown) and not any("/50" in c for c in shown)
+    assert "\n" not in text
