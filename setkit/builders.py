@@ -240,7 +240,7 @@ def ball(*, radius: float, dim: int | None = None, norm: Literal[1, 2, "inf"] = 
     Notes
     -----
     Every operator is O(n): projection by radial scaling (p = 2), clipping
-    (p = inf) or a simplex projection of |y - c| (p = 1); support
+    (p = inf) or a simplex projection of ``|y - c|`` (p = 1); support
     <s, c> + r ||s||_q with q the dual exponent.
 
     Examples

@@ -401,7 +401,7 @@ class DecisionSet:
 
         Parameters
         ----------
-        y : array_like, shape (..., *K.shape)
+        y : array_like, shape (...) + K.shape
             Points; leading axes are a batch.
         details : bool
             Return a :class:`Details` record (point, status, route, measured residual,
@@ -740,7 +740,7 @@ class DecisionSet:
         return DecisionSet(node, loose=self._loose)
 
     def sample(self, k: int, measure: str = "volume", rng=None, **kw):
-        """k points of the set drawn from ``measure`` (seeded by ``rng``); shape (k, *K.shape).
+        """k points of the set drawn from ``measure`` (seeded by ``rng``); shape (k,) + K.shape.
 
         Exact samplers where known, hit-and-run otherwise (with a warning when it mixes slowly).
 

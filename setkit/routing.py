@@ -25,7 +25,7 @@ from typing import Any, Callable, Mapping
 import numpy as np
 
 from .backends import all_backends, get_backend
-from .errors import BackendUnavailableError, SolveError, UnsupportedOperationError
+from .errors import BackendUnavailableError, SolveError, UnboundedDirectionError, UnsupportedOperationError
 from .families import OPERATORS, memo
 from .parallel import split_rows
 from .strategies import all_strategies, strategies_for
@@ -51,7 +51,17 @@ def _distance_from_projection(run, node, context):
 
 def _support_from_lmo(run, node, context):
     def support(C):
-        L, info = run("lmo", -C)       # max <c, x> = <c, argmin <-c, x>>
+        try:
+            L, info = run("lmo", -C)       # max <c, x> = <c, argmin <-c, x>>
+        except UnboundedDirectionError as exc:
+            # speak of the operator the user called, with the user's own c (the LMO saw -c)
+            ray = getattr(exc, "ray", None)
+            given = (f" (given c = {np.array2string(C[0], precision=4, threshold=8)})" if len(C) == 1
+                     else f" (for at least one of the {len(C)} given directions)")
+            raise UnboundedDirectionError(
+                f"{node.label}: support(c) = max <c, x> over the set is +infinity: the set is unbounded "
+                f"in a direction d with <c, d> > 0{given}. Use a direction c on which the set is bounded "
+                f"(the set's recession directions must have <c, d> <= 0).", ray=ray) from None
         return np.einsum("ij,ij->i", C, L), info
     return support
 

@@ -59,17 +59,89 @@ def test_inspect_json_and_catalog_names(capsys):
 
 # -- verify ----------------------------------------------------------------------------------------
 def test_verify_ok_with_timings_and_json_report(tmp_path, capsys):
-    report = tmp_path / "report.json"
-    code, out, _ = run(["verify", SIMPLEX, DEPOTS, "--points", "2", "--json", str(report)], capsys)
+    code, out, _ = run(["verify", SIMPLEX, DEPOTS, "--points", "2"], capsys)
     assert code == 0
     assert "all operators agree with the reference" in out
     assert "timings and agreement of every backend" in out and "osqp" in out and "highs" in out
-    data = json.loads(report.read_text())
+    assert "first calls in this process, including compilation" in out and "warm ms/pt" in out
+    # --json: one JSON document on stdout and nothing else, whatever the position of the option
+    code, out, _ = run(["verify", SIMPLEX, DEPOTS, "--points", "2", "--json"], capsys)
+    assert code == 0
+    data = json.loads(out)
     assert [d["file"] for d in data] == [SIMPLEX, DEPOTS]
     assert all(d["ok"] for d in data)
     providers = {(r["operator"], r["provider"]) for r in data[0]["backends"]}
     assert {("project", "native"), ("project", "osqp"), ("project", "reference"), ("lmo", "highs")} <= providers
     assert all(r["ms_per_call"] > 0 for r in data[0]["backends"])
+    assert set(data[0]["first_call_ms"]) == {"project", "distance", "contains", "lmo", "support"}
+    assert all(isinstance(r["ms_per_point"], float) for r in data[0]["rows"])
+    code, out2, _ = run(["--json", "verify", SIMPLEX, "--points", "2", "--no-timings"], capsys)
+    assert code == 0 and json.loads(out2)[0]["file"] == SIMPLEX
+
+
+def test_verify_table_columns_line_up(capsys):
+    code, out, _ = run(["verify", SIMPLEX, "--points", "1", "--no-timings"], capsys)
+    lines = out.splitlines()
+    head = next(i for i, line in enumerate(lines) if "operator" in line and "route" in line)
+    table = lines[head:head + 7]
+    assert table[-1].split()[0] == "certificate"
+    # every right-aligned number column ends at the same character as its header
+    end = table[0].index("ref ms/pt") + len("ref ms/pt")
+    for line in table[1:]:
+        assert line[end - 1] != " " and line[end] == " ", line
+
+
+def test_bad_arguments_exit_2_with_one_line(tmp_path, capsys):
+    for argv in (["verify", SIMPLEX, "--points", "0"], ["verify", SIMPLEX, "--points", "-3"],
+                 ["run", "project", SIMPLEX, "--at", "[1,0,0,0,0]", "--out", str(tmp_path / "no" / "o.json")],
+                 ["compare", SIMPLEX, "--repeat", "0"], ["verify"], ["run", "nosuchop", SIMPLEX],
+                 ["verify", SIMPLEX, "--points", "two"]):
+        code, out, err = run(argv, capsys)
+        assert code == 2, argv
+        assert out == "" and err.startswith("setkit: ") and err.count("\n") == 1, (argv, err)
+
+
+def test_penalty_option_has_the_python_name_and_the_old_alias(capsys):
+    code, out, _ = run(["run", "penalty", SIMPLEX, "--at", "[3, 0, 0, 0, 0]", "--G", "2"], capsys)
+    new = json.loads(out)
+    code2, out2, _ = run(["run", "penalty", SIMPLEX, "--at", "[3, 0, 0, 0, 0]", "--weight", "2"], capsys)
+    assert code == code2 == 0 and new["result"] == json.loads(out2)["result"] and new["G"] == 2.0
+    # the simplex vertex (1, 0, 0, 0, 0) is the nearest point: G * dist = 2 * 2 (closed form)
+    assert new["result"] == pytest.approx(4.0)
+
+
+def test_json_outputs_are_typed_and_public(capsys):
+    for name in [p.stem for p in sorted(CATALOG.glob("*.yaml"))]:
+        code, out, _ = run(["inspect", name, "--json"], capsys)
+        assert code == 0
+        text = out
+
+        def walk(node):
+            assert isinstance(node["shape"], list)
+            for key, value in node["parameters"].items():
+                assert not key.startswith("_") and key not in ("cut_matrix", "n_eq"), (name, key)
+                assert not (isinstance(value, str) and value.startswith("array of shape")), (name, key)
+            for part in node["parts"]:
+                walk(part)
+        walk(json.loads(text)["tree"])
+    code, out, _ = run(["catalog", "--json"], capsys)
+    assert all(isinstance(e["shape"], list) for e in json.loads(out) if e["shape"] is not None)
+
+
+def test_support_on_an_unbounded_set_speaks_of_support(capsys):
+    import setkit
+    from setkit.errors import UnboundedDirectionError
+    K = setkit.box(lower=[0, 0], upper=[np.inf, 1])
+    with pytest.raises(UnboundedDirectionError) as info:
+        K.support([1.0, -2.0])
+    msg = str(info.value)
+    assert "support(c)" in msg and "lmo" not in msg and "c[0] = 1.0" in msg
+    # the derived rule (support from the LMO) speaks of support too, with the user's c
+    Kd = K.with_backends(support="derived")
+    with pytest.raises(UnboundedDirectionError) as info:
+        Kd.support([1.0, -2.0])
+    assert "support(c)" in str(info.value) and "[ 1. -2.]" in str(info.value)
+    assert K.support([-1.0, 2.0]) == pytest.approx(2.0)   # max over [0, inf) x [0, 1] of -x0 + 2 x1
 
 
 def test_verify_disagreement_exits_1(broken_kind, capsys):
@@ -191,11 +263,11 @@ def test_run_bad_point_files_exit_2(tmp_path, capsys):
 
 # -- compare ---------------------------------------------------------------------------------------
 def test_compare_table_and_json(tmp_path, capsys):
-    out_json = tmp_path / "cmp.json"
-    code, out, _ = run(["compare", DEPOTS, "--points", "2", "--repeat", "2", "--json", str(out_json)], capsys)
+    code, out, _ = run(["compare", DEPOTS, "--points", "2", "--repeat", "2"], capsys)
     assert code == 0
-    assert "median of 2 run(s)" in out and "fastest agreeing:" in out
-    rows = json.loads(out_json.read_text())["rows"]
+    assert "median of 2 run(s)" in out and "fastest agreeing:" in out and "first calls" in out
+    code, out, _ = run(["compare", DEPOTS, "--points", "2", "--repeat", "2", "--json"], capsys)
+    rows = json.loads(out)["rows"]
     assert {r["operator"] for r in rows} == {"project", "distance", "lmo", "support"}
     assert all(r["agrees"] for r in rows if r["ms_per_call"] is not None)
 
@@ -280,3 +352,26 @@ def test_a_failing_alternative_backend(failing_backend, capsys):
     # run with that backend: the failed solve is reported, exit 1
     code, _, err = run(["run", "project", SIMPLEX, "--at", "[1, 0, 0, 0, 0]", "--backend", "always_fails"], capsys)
     assert code == 1 and "did not converge" in err
+
+
+def test_progress_line_is_cleared_on_a_terminal_and_keeps_its_total(monkeypatch):
+    import time as _time
+
+    class FakeTerminal(io.StringIO):
+        def isatty(self):
+            return True
+
+    monkeypatch.setenv("SETKIT_PROGRESS_AFTER", "0")
+    stream = FakeTerminal()
+    with cli.Progress("verify", total=3, stream=stream) as prog:
+        steps = cli.StepsOnly(prog)
+        steps.total = 50                      # inner work may announce its own count: ignored
+        steps.advance("lmo by highs")
+        prog.advance("first file")
+        _time.sleep(0.7)
+        prog.clear()
+    text = stream.getvalue()
+    assert text.endswith(cli.CLEAR_LINE)
+    shown = [chunk for chunk in text.split(cli.CLEAR_LINE) if chunk]
+    assert shown and all("/3" in chunk for chunk in shown) and not any("/50" in c for c in shown)
+    assert "\n" not in text

@@ -154,7 +154,14 @@ class Box(Family):
         """sum_i max(c_i lower_i, c_i upper_i), O(n); raises when unbounded along c."""
         if self._all_finite:
             return box_values(C, self.lower, self.upper, 1)
-        return np.einsum("ij,ij->i", C, self.lmo(-C))
+        X, bad = box_ops(-C, self.lower, self.upper, self._tie, 1)
+        if bad >= 0:
+            i, j = divmod(int(bad), C.shape[1])
+            side = "upper" if C[i, j] > 0 else "lower"
+            raise UnboundedDirectionError(
+                f"{self.label}: support(c) is +infinity: coordinate {j} has an infinite {side} bound and "
+                f"c[{j}] = {C[i, j]} (batch row {i}); support is finite only where c_j = 0 on unbounded sides.")
+        return np.einsum("ij,ij->i", C, X)
 
     @kernel("contains")
     def contains(self, X, tol):
