@@ -63,6 +63,21 @@ class LinearForm:
         v = np.maximum(v, (X - self.hi).max(axis=1, initial=0.0))
         return v
 
+    def _normalized_rows(self):
+        """(A^T as CSC, b, 1/row norms, is_equality) per block of rows, computed once per form."""
+        from .families import memo
+
+        def build():
+            out = []
+            for A, b, eq in ((self.A_eq, self.b_eq, True), (self.A_ub, self.b_ub, False)):
+                if A.shape[0] == 0:
+                    continue
+                nrm = np.sqrt(np.asarray(A.multiply(A).sum(axis=1)).ravel()) if hasattr(A, "multiply") else \
+                    np.linalg.norm(A, axis=1)
+                out.append((A.T.tocsc() if hasattr(A, "tocsc") else A.T, b, 1.0 / np.where(nrm > 0, nrm, 1.0), eq))
+            return out
+        return memo(self, "normalized_rows", build)
+
     def membership_screen(self, X: np.ndarray, tol: np.ndarray) -> np.ndarray:
         """+1 (in K), -1 (farther than tol from K) or 0 (undecided) per row, from the constraints alone.
 
@@ -74,13 +89,8 @@ class LinearForm:
             raise ValueError("membership_screen needs a form without auxiliary variables.")
         X = np.atleast_2d(X)
         v = np.zeros(X.shape[0])
-        for A, b, eq in ((self.A_eq, self.b_eq, True), (self.A_ub, self.b_ub, False)):
-            if A.shape[0] == 0:
-                continue
-            nrm = np.sqrt(np.asarray(A.multiply(A).sum(axis=1)).ravel()) if hasattr(A, "multiply") else \
-                np.linalg.norm(A, axis=1)
-            nrm = np.where(nrm > 0, nrm, 1.0)
-            r = (X @ A.T - b) / nrm
+        for AT, b, inv, eq in self._normalized_rows():
+            r = (X @ AT - b) * inv
             v = np.maximum(v, np.abs(r).max(axis=1) if eq else r.max(axis=1, initial=0.0))
         v = np.maximum(v, (self.lo - X).max(axis=1, initial=0.0))
         v = np.maximum(v, (X - self.hi).max(axis=1, initial=0.0))

@@ -321,8 +321,12 @@ class CutDual(Strategy):
         """Dual over the few cut multipliers (semismooth Newton, L-BFGS-B fallback), one base projection per step, O(steps * base cost)."""
         base = parts[self.base]
         node = self.node
+        fn = base.native("project")          # the base's bound kernel when it has one (one layer per step)
 
         def proj(Z):
+            if fn is not None:
+                out = fn(Z)
+                return out[0] if isinstance(out, tuple) else out
             return base.run("project", Z)[0]
 
         sc = _row_scale(node, Y)

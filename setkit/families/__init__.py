@@ -219,8 +219,8 @@ class Family:
         return None
 
     @classmethod
-    def benchmark_example(cls, n: int):
-        """A description dict of about ``n`` coordinates for scaling benchmarks, or None."""
+    def benchmark_example(cls, n: int, rng):
+        """A description dict of about ``n`` coordinates for scaling benchmarks (seeded by ``rng``), or None."""
         return None
 
 
