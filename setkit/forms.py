@@ -63,6 +63,15 @@ class LinearForm:
         v = np.maximum(v, (X - self.hi).max(axis=1, initial=0.0))
         return v
 
+    def residual(self, z: np.ndarray) -> float:
+        """Largest violation of the form's constraints at z = (x, aux) (equalities in absolute value)."""
+        r = 0.0
+        if self.A_eq.shape[0]:
+            r = max(r, float(np.abs(self.A_eq @ z - self.b_eq).max()))
+        if self.A_ub.shape[0]:
+            r = max(r, float((self.A_ub @ z - self.b_ub).max(initial=0.0)))
+        return max(r, float((self.lo - z).max(initial=0.0)), float((z - self.hi).max(initial=0.0)))
+
     def _normalized_rows(self):
         """(A^T as CSC, b, 1/row norms, is_equality) per block of rows, computed once per form."""
         from .families import memo

@@ -220,12 +220,9 @@ def _backend_route(op, node, name, forced):
 
 
 def _generic(op, node):
-    for name, cls in sorted(all_backends().items(), key=lambda kv: kv[1].priority):
-        if op in cls.operators and cls.available():
-            ok, why = cls.accepts(node)
-            if ok:
-                return Route(op, name, f"no native kernel; generic {cls.problem} backend: {cls.about}",
-                             category="backend")
+    """The first backend of :func:`_chain` for ``op`` as a route, or None."""
+    for name, cls in _chain(op, node):
+        return Route(op, name, f"no native kernel; generic {cls.problem} backend: {cls.about}", category="backend")
     return None
 
 

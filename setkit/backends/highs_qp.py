@@ -74,13 +74,7 @@ class HighsQPBackend(Backend):
         self._idx = np.arange(n, dtype=np.int32)
 
     def _residual(self, z):
-        f = self.form
-        r = 0.0
-        if f.A_eq.shape[0]:
-            r = max(r, float(np.abs(f.A_eq @ z - f.b_eq).max()))
-        if f.A_ub.shape[0]:
-            r = max(r, float((f.A_ub @ z - f.b_ub).max(initial=0.0)))
-        return max(r, float((f.lo - z).max(initial=0.0)), float((z - f.hi).max(initial=0.0)))
+        return self.form.residual(z)
 
     def project(self, Y):
         f = self.form

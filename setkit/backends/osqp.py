@@ -103,14 +103,7 @@ class OsqpBackend(Backend):
         return bool(self.form.membership_screen(y[None, :], np.full(1, np.inf))[0] == 1) or self._residual(y) == 0.0
 
     def _residual(self, z):
-        f = self.form
-        r = 0.0
-        if f.A_eq.shape[0]:
-            r = max(r, float(np.abs(f.A_eq @ z - f.b_eq).max()))
-        if f.A_ub.shape[0]:
-            r = max(r, float((f.A_ub @ z - f.b_ub).max(initial=0.0)))
-        r = max(r, float((f.lo - z).max(initial=0.0)), float((z - f.hi).max(initial=0.0)))
-        return r
+        return self.form.residual(z)
 
     def project(self, Y):
         f = self.form

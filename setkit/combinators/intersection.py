@@ -364,11 +364,10 @@ class DualSplitting(Strategy):
 
     @classmethod
     def accepts(cls, node):
-        if node.is_polyhedral_without_aux():
-            return False, "every part is polyhedral: one merged QP serves the projection"
-        if node.splitting == "dykstra":
+        ok, why = _splitting_applies(node)
+        if ok and node.splitting == "dykstra":
             return False, "the description asks for Dykstra's method"
-        return True, "some part is not a few linear rows"
+        return ok, why
 
     def project(self, Y, parts):
         """Accelerated dual proximal gradient on the parts' projections, stopped on the duality gap and residual, O(iterations * sum of part costs)."""  # noqa: E501 (one line: explain() shows it)
@@ -386,9 +385,7 @@ class Dykstra(Strategy):
 
     @classmethod
     def accepts(cls, node):
-        if node.is_polyhedral_without_aux():
-            return False, "every part is polyhedral: one merged QP serves the projection"
-        return True, "some part is not a few linear rows"
+        return _splitting_applies(node)
 
     def project(self, Y, parts):
         """Dykstra's alternating projections with corrections, stopped on the duality gap and residual, O(iterations * sum of part costs)."""
@@ -422,6 +419,13 @@ class BregmanDykstra(Strategy):
                                   [lambda P, p=p: part_violation(p, P) for p in parts],
                                   np.maximum(1.0, sc), node.accuracy, node.max_iterations)
         return _accept(node, X, info, parts, "Bregman-Dykstra", np.full(T.shape[0], sc))
+
+
+def _splitting_applies(node):
+    """Splitting serves the projection unless every part is polyhedral (then one merged QP does)."""
+    if node.is_polyhedral_without_aux():
+        return False, "every part is polyhedral: one merged QP serves the projection"
+    return True, "some part is not a few linear rows"
 
 
 def _split(node, method, name, Y, parts):
