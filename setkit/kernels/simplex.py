@@ -70,8 +70,107 @@ def _simplex_tau(y, total, v, vt):
 
 
 @njit(cache=True, nogil=True)
+def simplex_tau_inplace(z, total):
+    """:func:`_simplex_tau` with no work buffers: Condat's lists kept inside ``z`` itself (z is destroyed).
+
+    The same steps as :func:`_simplex_tau` (the same running thresholds); only the order of
+    the final list differs, so tau may differ in the last bits of its sum. Reading z[i] happens before anything is written at a position >= i: the lists only
+    hold values already read, so they fit in z[:i]. Layout: the set-aside values vt occupy
+    z[0:mt] in the order they were set aside, the candidate list v follows at z[mt:mt + m]; a
+    reset of v retires it in place (mt += m) instead of copying it; the set-aside values that
+    rejoin are compacted to the front and v moved behind them. Returns NaN when the
+    clean-up needs too many passes (the caller then sorts). O(n) in practice, no allocation.
+    """
+    n = z.size
+    m = 1
+    mt = 0
+    rho = z[0] - total
+    for i in range(1, n):
+        yi = z[i]
+        if yi > rho:
+            rho += (yi - rho) / (m + 1)
+            if rho > yi - total:
+                z[mt + m] = yi
+                m += 1
+            else:
+                mt += m                         # v retires in place: it becomes the tail of vt
+                z[mt] = yi
+                m = 1
+                rho = yi - total
+    # v at z[mt:mt + m], vt at z[0:mt]: the set-aside values above rho join the list (in the
+    # order they were set aside, as in _simplex_tau), written at the front (s <= k: read first),
+    # then v moves down behind them; the list is z[0:m] (only the order of its terms differs)
+    s = 0
+    mv = m
+    for k in range(mt):
+        yk = z[k]
+        if yk > rho:
+            z[s] = yk
+            s += 1
+            m += 1
+            rho += (yk - rho) / m
+    if s < mt:
+        for k in range(mv):
+            z[s + k] = z[mt + k]
+    base = 0
+    for _ in range(_MAX_PASSES):
+        m2 = 0
+        for k in range(m):
+            yk = z[base + k]
+            if yk > rho:
+                z[base + m2] = yk
+                m2 += 1
+            else:
+                left = m - 1 - (k - m2)
+                if left <= 0:
+                    return np.nan
+                rho += (rho - yk) / left
+        if m2 == m:
+            s = 0.0
+            for k in range(m):
+                s += z[base + k]
+            return (s - total) / m
+        m = m2
+    return np.nan
+
+
+@njit(cache=True, nogil=True)
 def _simplex_rows_nb(Y, total, out):
-    """Rows shifted by their maximum and floored at -2 total (see :func:`shift_to_top`), then Condat."""
+    """Rows shifted by their maximum and floored at -2 total (see :func:`shift_to_top`), then Condat.
+
+    No work buffer: the shifted row is written into its output row, Condat's lists live there
+    (:func:`simplex_tau_inplace`), and the answer max(z - tau, 0) is recomputed from y.
+    Memory: the output only. Returns the number of rows that need the sorted fallback
+    (their output rows are NaN).
+    """
+    b, n = Y.shape
+    bad = 0
+    floor = -2.0 * total
+    for r in range(b):
+        top = Y[r, 0]
+        for j in range(1, n):
+            if Y[r, j] > top:
+                top = Y[r, j]
+        z = out[r]
+        for j in range(n):
+            v = Y[r, j] - top
+            z[j] = v if v > floor else floor
+        tau = simplex_tau_inplace(z, total)
+        if np.isnan(tau):
+            bad += 1
+            for j in range(n):
+                out[r, j] = np.nan
+            continue
+        for j in range(n):
+            v = Y[r, j] - top
+            v = (v if v > floor else floor) - tau
+            out[r, j] = v if v > 0.0 else 0.0
+    return bad
+
+
+@njit(cache=True, nogil=True)
+def simplex_rows_buffered(Y, total, out):
+    """The previous row kernel (separate work buffers for z and Condat's two lists), kept as a reference."""
     b, n = Y.shape
     cand = np.empty(n)
     wait = np.empty(n)
@@ -375,18 +474,18 @@ def _capped_search(y, lo, hi, w, total, idx, first, sbp):
     n = y.size
     for i in range(n):
         idx[i] = i
-    m = n
-    fixed = 0.0
-    free_c = 0.0
-    free_s = 0.0
-    L = -np.inf
-    U = np.inf
+    return _capped_rounds(y, lo, hi, w, total, idx, n, 0.0, 0.0, 0.0, -np.inf, np.inf, np.inf, -np.inf, first, sbp)
+
+
+@njit(cache=True, nogil=True)
+def _capped_rounds(y, lo, hi, w, total, idx, m, fixed, free_c, free_s, L, U, gL, gU, first, sbp):
+    """The rounds of :func:`_capped_search` from a given state: the undecided coordinates idx[:m],
+    the running sums of the decided ones (fixed: w x at a bound; free_c, free_s: w y and w^2 of the
+    free ones), the bracket (L, U) with g(L) = gL >= total >= g(U) = gU (infinite ends allowed)."""
     seed = np.full(1, 88172645463325252, np.int64)
     samp = np.empty(15)
     step = 1
     secant = False
-    gL = np.inf
-    gU = -np.inf
     piv = first
     if np.isnan(piv) or not np.isfinite(piv):
         piv = _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp)
@@ -490,15 +589,293 @@ def _capped_search(y, lo, hi, w, total, idx, first, sbp):
     return (fixed + free_c - total) / free_s
 
 
+# single rows at least this long take the sampled-bracket kernel (capped_project_long)
+LONG_ROW = 32768
+
+
+@njit(cache=True, nogil=True)
+def _capped_sample_bracket(y, lo, hi, w, total):
+    """A bracket (L, U) for the multiplier of a long capped weighted simplex, from a sample.
+
+    4096 coordinates in 256 random blocks of 16 consecutive ones (cache friendly), the same
+    problem solved on them with the total scaled by k/n (:func:`_capped_search`), and the
+    sample breakpoints 3 sqrt(K) + 8 ranks either side of the sample's root (K finite sample
+    breakpoints) as the ends. Infinite ends where the sample runs out. Returns (L, U, ok);
+    ok is False when the sample problem is infeasible or degenerate (the caller then searches
+    without a bracket). The bracket is only a guess: the caller verifies it exactly.
+    """
+    n = y.size
+    nblk = 256
+    k = nblk * 16
+    ys = np.empty(k)
+    ls = np.empty(k)
+    hs = np.empty(k)
+    ws = np.empty(k)
+    seed = np.int64(7046029254386353131)
+    smin = 0.0
+    smax = 0.0
+    t = 0
+    for _ in range(nblk):
+        seed = seed * 6364136223846793005 + 1442695040888963407
+        j0 = ((seed >> 20) & 0x7FFFFFFFFFF) % (n - 15)
+        for j in range(j0, j0 + 16):
+            ys[t] = y[j]
+            ls[t] = lo[j]
+            hs[t] = hi[j]
+            ws[t] = w[j]
+            smin += ws[t] * ls[t]
+            smax += ws[t] * hs[t]
+            t += 1
+    ts = total * (k / n)
+    if not (smin < ts and ts < smax):
+        return -np.inf, np.inf, False
+    lam_s = _capped_search(ys, ls, hs, ws, ts, np.empty(k, np.int64), np.nan, np.empty(0))
+    bp = np.empty(2 * k)
+    K = 0
+    for t in range(k):
+        a = (ys[t] - hs[t]) / ws[t]
+        if np.isfinite(a):
+            bp[K] = a
+            K += 1
+        a = (ys[t] - ls[t]) / ws[t]
+        if np.isfinite(a):
+            bp[K] = a
+            K += 1
+    if K < 64:
+        return -np.inf, np.inf, False
+    sbp = np.sort(bp[:K])
+    p = np.searchsorted(sbp, lam_s)
+    r = int(3.0 * np.sqrt(K)) + 8
+    L = sbp[p - r - 1] if p - r - 1 >= 0 else -np.inf
+    U = sbp[p + r] if p + r < K else np.inf
+    if not (L < U):
+        return -np.inf, np.inf, False
+    return L, U, True
+
+
+@njit(cache=True, nogil=True)
+def _capped_narrow(ys, ls, hs, ws, m, fixed, free_c, free_s, L, U, gL, gU, total, piv, vals, seed):
+    """One narrowing round on compact data (ys, ls, hs, ws)[:m] of the capped weighted simplex.
+
+    Three pivots inside (L, U) (the quartiles of the breakpoints of a 64-coordinate random
+    sample); vectorized passes evaluate g at each exactly (the decided coordinates enter
+    through the sums); the bracket shrinks to the two neighbouring pivots around the root; a
+    last pass moves every coordinate whose status is constant on the new bracket into the sums
+    and compacts the others in place. About 4x fewer undecided coordinates per round. Returns the new state
+    (m, fixed, free_c, free_s, L, U, gL, gU), or the same m when no pivot was found.
+    """
+    P = 0
+    for _ in range(64):
+        seed[0] = seed[0] * 6364136223846793005 + 1442695040888963407
+        j = ((seed[0] >> 20) & 0x7FFFFFFFFFF) % m
+        for side in range(2):
+            bp = (ys[j] - (hs[j] if side == 0 else ls[j])) / ws[j]
+            if bp > L and bp < U and P < piv.size:
+                piv[P] = bp
+                P += 1
+    if P == 0:
+        return m, fixed, free_c, free_s, L, U, gL, gU
+    cand = np.sort(piv[:P])
+    Q = 0
+    for t in range(1, 4):                  # the sample's quartiles: 3 evaluations shrink the set about 4x
+        v = cand[(t * P) // 4]
+        if Q == 0 or v > vals[Q - 1]:
+            vals[Q] = v
+            Q += 1
+    pv = vals[:Q].copy()
+    base = fixed + free_c
+    nL, nU, ngL, ngU = L, U, gL, gU
+    for t in range(Q):
+        gt = base - pv[t] * free_s + _g_sum(ys, ls, hs, ws, m, pv[t])
+        if gt >= total:
+            nL = pv[t]
+            ngL = gt
+        else:
+            nU = pv[t]
+            ngU = gt
+            break
+    m2 = 0
+    for k in range(m):
+        yk = ys[k]
+        lk = ls[k]
+        hk = hs[k]
+        wk = ws[k]
+        a = yk - hk
+        b = yk - lk
+        if a >= nU * wk:
+            fixed += wk * hk
+        elif b <= nL * wk:
+            fixed += wk * lk
+        elif a <= nL * wk and b >= nU * wk:
+            free_c += wk * yk
+            free_s += wk * wk
+        else:
+            ys[m2] = yk
+            ls[m2] = lk
+            hs[m2] = hk
+            ws[m2] = wk
+            m2 += 1
+    return m2, fixed, free_c, free_s, nL, nU, ngL, ngU
+
+
+@njit(cache=True, nogil=True, fastmath={"reassoc"})
+def _settle_chunk(y, lo, hi, w, j0, j1, L, U, keep):
+    """Sums of the coordinates j0 <= j < j1 whose status is constant on (L, U), and keep[j - j0] for the others.
+
+    Branch-free and vectorizable: only the order of the four sums is left to the compiler
+    (``reassoc``), every term is the same. Returns (fixed, free_c, free_s, count kept).
+    """
+    fixed = 0.0
+    fixed_lo = 0.0
+    free_c = 0.0
+    free_s = 0.0
+    cnt = 0
+    for j in range(j0, j1):
+        yj = y[j]
+        lj = lo[j]
+        hj = hi[j]
+        wj = w[j]
+        a = yj - hj
+        b = yj - lj
+        Uw = U * wj
+        Lw = L * wj
+        f_hi = a >= Uw                                       # at the upper bound on (L, U)
+        f_lo = (b <= Lw) & ~f_hi                             # at the lower bound on (L, U)
+        f_free = (a <= Lw) & (b >= Uw) & ~f_hi & ~f_lo       # free on (L, U)
+        k = ~(f_hi | f_lo | f_free)
+        fixed += wj * hj if f_hi else 0.0
+        fixed_lo += wj * lj if f_lo else 0.0
+        free_c += wj * yj if f_free else 0.0
+        free_s += wj * wj if f_free else 0.0
+        keep[j - j0] = k
+        cnt += np.int64(k)
+    return fixed + fixed_lo, free_c, free_s, cnt
+
+
+@njit(cache=True, nogil=True, fastmath={"reassoc"})
+def _g_sum(ys, ls, hs, ws, m, lam):
+    """sum_k w_k clip(y_k - lam w_k, l_k, h_k) over k < m (vectorizable; only the order of the sum is free)."""
+    s = 0.0
+    for k in range(m):
+        x = ys[k] - lam * ws[k]
+        x = x if x > ls[k] else ls[k]
+        x = x if x < hs[k] else hs[k]
+        s += ws[k] * x
+    return s
+
+
+@njit(cache=True, nogil=True)
+def _write_clipped(y, lo, hi, w, lam, out):
+    """out = clip(y - lam w, lo, hi) (selects instead of min/max, so the loop vectorizes)."""
+    for j in range(y.size):
+        x = y[j] - lam * w[j]
+        x = x if x > lo[j] else lo[j]
+        out[j] = x if x < hi[j] else hi[j]
+
+
+@njit(cache=True, nogil=True)
+def capped_project_long(y, lo, hi, w, total, out):
+    """One long vector onto {lo <= x <= hi, <w, x> = total}, writing x into ``out``; returns the multiplier.
+
+    The same multiplier as :func:`_capped_search` (up to
+    the order of its sums), by a route that reads the data twice: a bracket (L, U) guessed
+    from a sample (:func:`_capped_sample_bracket`); one pass, in chunks of 1024, that settles
+    every coordinate whose status is constant on (L, U) into running sums and copies the
+    undecided coordinates' data into ``out`` (a quarter each for y, lo, hi, w); g(L) and
+    g(U) evaluated exactly on that compact set, which checks the guess; narrowing rounds
+    (:func:`_capped_narrow`, about 4x fewer undecided each) and the search rounds
+    (:func:`_capped_rounds`) on it; one pass writing x. If the guess is wrong (g(L) < total,
+    g(U) > total, or more than n/4 undecided), the full search runs instead, with ``out`` as
+    its index buffer. Memory: ``out``, 1024 flags and O(sqrt n)-sized
+    samples. Expected O(n).
+    Requires finite lo, w > 0, sum w lo <= total <= sum w hi, n >= LONG_ROW.
+    """
+    n = y.size
+    L, U, ok = _capped_sample_bracket(y, lo, hi, w, total)
+    lam = np.nan
+    if ok:
+        q = n // 4
+        m = 0
+        fixed = 0.0
+        free_c = 0.0
+        free_s = 0.0
+        keep = np.empty(1024, np.bool_)
+        for j0 in range(0, n, 1024):
+            j1 = min(j0 + 1024, n)
+            f1, f2, f3, cnt = _settle_chunk(y, lo, hi, w, j0, j1, L, U, keep)
+            fixed += f1
+            free_c += f2
+            free_s += f3
+            if m + cnt > q:
+                m = q + 1
+                break
+            for j in range(j0, j1):
+                if keep[j - j0]:
+                    out[m] = y[j]
+                    out[q + m] = lo[j]
+                    out[2 * q + m] = hi[j]
+                    out[3 * q + m] = w[j]
+                    m += 1
+        if m <= q:
+            ys, ls, hs, ws = out[0:m], out[q:q + m], out[2 * q:2 * q + m], out[3 * q:3 * q + m]
+            base = fixed + free_c
+            gL = base - L * free_s + _g_sum(ys, ls, hs, ws, m, L) if L > -np.inf else np.inf
+            gU = base - U * free_s + _g_sum(ys, ls, hs, ws, m, U) if U < np.inf else -np.inf
+            if gL >= total and gU <= total:
+                piv = np.empty(128)
+                vals = np.empty(15)
+                seed = np.full(1, 88172645463325252, np.int64)
+                while m > 256:
+                    m2, fixed, free_c, free_s, L, U, gL, gU = _capped_narrow(ys, ls, hs, ws, m, fixed, free_c,
+                                                                             free_s, L, U, gL, gU, total, piv,
+                                                                             vals, seed)
+                    if m2 == m:
+                        break
+                    m = m2
+                first = np.nan
+                if L > -np.inf and U < np.inf and gL > gU:
+                    t = L + (gL - total) * ((U - L) / (gL - gU))
+                    if t > L and t < U:
+                        first = t
+                lam = _capped_rounds(ys, ls, hs, ws, total, np.arange(m), m, fixed, free_c, free_s, L, U, gL, gU,
+                                     first, np.empty(0))
+    if np.isnan(lam):
+        # no usable bracket: the full search, with ``out`` as its index buffer
+        lam = _capped_lambda(y, lo, hi, w, total, out.view(np.int64))
+    _write_clipped(y, lo, hi, w, lam, out)
+    return lam
+
+
 @njit(cache=True, nogil=True)
 def _capped_rows_nb(Y, lo, hi, w, total, rows, out, lams):
+    """The listed rows of Y onto the capped weighted simplex, into ``out``; multipliers into ``lams``.
+
+    Rows of at least LONG_ROW coordinates take :func:`capped_project_long`; shorter ones the
+    randomized breakpoint search with the output row as its index buffer (no allocation).
+    """
     b, n = Y.shape
-    idx = np.empty(n, np.int64)
     for r in rows:
-        lam = _capped_lambda(Y[r], lo, hi, w, total, idx)
+        if n >= LONG_ROW:
+            lams[r] = capped_project_long(Y[r], lo, hi, w, total, out[r])
+            continue
+        lam = _capped_lambda(Y[r], lo, hi, w, total, out[r].view(np.int64))
         lams[r] = lam
         for j in range(n):
             out[r, j] = min(max(Y[r, j] - lam * w[j], lo[j]), hi[j])
+
+
+@njit(cache=True, nogil=True)
+def rows_max_abs(Y, rows):
+    """max_j |Y[r, j]| for each listed row r (0 for empty rows), without a temporary array."""
+    out = np.zeros(rows.size)
+    for k in range(rows.size):
+        m = 0.0
+        for v in Y[rows[k]]:
+            a = abs(v)
+            if a > m:
+                m = a
+        out[k] = m
+    return out
 
 
 def _vector(v, shape):
@@ -631,7 +1008,7 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
     wmax = float(w.max(initial=1.0))
     # rows far from the data: the multiplier cannot be represented finely enough next to |y| (its
     # float grid is ulp(|y|)), so solve again on y - c w with c the breakpoint next to the root
-    big = rows[np.abs(Y[rows]).max(axis=1, initial=0.0) > 1e4 * data_scale]
+    big = rows[rows_max_abs(Y, rows) > 1e4 * data_scale]
     if big.size:
         # each shift leaves the free coordinates at about one ulp of the old multiplier, i.e. 2^-52 times
         # smaller: repeat until the multiplier is at the data's scale (at most ~20 rounds from 1e300)

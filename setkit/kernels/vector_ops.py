@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from .simplex import _simplex_tau, scaled_norm
+from .simplex import _simplex_tau, scaled_norm, simplex_tau_inplace
 
 
 @njit(cache=True, nogil=True)
@@ -123,8 +123,85 @@ def norm_rows(X):
 
 
 @njit(cache=True, nogil=True)
+def _abs_diff2(yj, cj):
+    """|y - c| as an unevaluated sum vh + vl (TwoSum, sign folded in): |y| >> |c| loses nothing of c."""
+    vh = yj - cj
+    bb = vh - yj
+    vl = (yj - (vh - bb)) + (-cj - bb)
+    if vh < 0.0 or (vh == 0.0 and vl < 0.0):
+        vh = -vh
+        vl = -vl
+    return vh, vl
+
+
+@njit(cache=True, nogil=True)
 def l1_ball_project(Y, c, radius):
     """Rows onto {||x - c||_1 <= r}: unchanged inside, else c + sign(v) max(|v| - tau, 0), v = y - c.
+
+    tau is the simplex threshold of |v| for the total r (Condat's method) on |v|
+    shifted by its maximum and floored at -2r (the same threshold, minus max|v|;
+    see ``setkit.kernels.simplex.shift_to_top``), so the answer is exact up to
+    rounding for finite |y - c| <= 1e300 and r in [1e-300, 1e300]. O(n).
+
+    No work buffer: |v| (as TwoSum parts) is recomputed in each of three passes, the shifted
+    values are written into the output row and Condat's lists live there
+    (``simplex_tau_inplace``). Memory: the output only.
+    """
+    b, n = Y.shape
+    out = np.empty_like(Y)
+    floor = -2.0 * radius
+    for r in range(b):
+        s = 0.0
+        top = 0.0
+        top_l = 0.0
+        for j in range(n):
+            vh, vl = _abs_diff2(Y[r, j], c[j])
+            s += vh
+            if vh > top or (vh == top and vl > top_l):
+                top = vh
+                top_l = vl
+        if s <= radius:
+            for j in range(n):
+                out[r, j] = Y[r, j]
+            continue
+        if radius == 0.0:
+            for j in range(n):
+                out[r, j] = c[j]
+            continue
+        z = out[r]
+        for j in range(n):
+            vh, vl = _abs_diff2(Y[r, j], c[j])
+            # |v_j| - max|v| (exact where it matters: Sterbenz on the high parts)
+            z[j] = max((vh - top) + (vl - top_l), floor)
+        tau = simplex_tau_inplace(z, radius)
+        if np.isnan(tau):          # clean-up did not settle: the sorted threshold
+            for j in range(n):
+                vh, vl = _abs_diff2(Y[r, j], c[j])
+                z[j] = max((vh - top) + (vl - top_l), floor)
+            u = -np.sort(-z)
+            cs = 0.0
+            tau = 0.0
+            for k in range(n):
+                cs += u[k]
+                t = (cs - radius) / (k + 1)
+                if u[k] > t:
+                    tau = t
+        for j in range(n):
+            yj = Y[r, j]
+            cj = c[j]
+            vh, vl = _abs_diff2(yj, cj)
+            d = yj - cj
+            m = max((vh - top) + (vl - top_l), floor) - tau
+            if m > 0.0:
+                out[r, j] = cj + (m if (d > 0 or (d == 0 and yj > cj)) else -m)
+            else:
+                out[r, j] = cj
+    return out
+
+
+@njit(cache=True, nogil=True)
+def l1_ball_project_buffered(Y, c, radius):
+    """The previous kernel (four work buffers), kept as a reference. Rows onto {||x - c||_1 <= r}: unchanged inside, else c + sign(v) max(|v| - tau, 0), v = y - c.
 
     tau is the simplex threshold of |v| for the total r (Condat's method) on |v|
     shifted by its maximum and floored at -2r (the same threshold, minus max|v|;
