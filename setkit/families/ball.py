@@ -83,6 +83,8 @@ class Ball(Family):
         object.__setattr__(self, "_p", 0 if self.norm == "inf" else int(self.norm))   # 0 means inf
         object.__setattr__(self, "_lo", self.center - self.radius)
         object.__setattr__(self, "_hi", self.center + self.radius)
+        # the l1 projection kernel takes an empty center for the origin (no TwoSum needed)
+        object.__setattr__(self, "_l1_center", self.center if self.center.any() else np.empty(0))
         # ||u||_p <= lip ||u||_2 (the membership screen's constant for p = 1, inf)
         object.__setattr__(self, "_lip", float(np.sqrt(self.center.size)) if self.norm == 1 else 1.0)
 
@@ -152,7 +154,7 @@ class Ball(Family):
         if self.norm == 2:
             return l2_ball_project(Y, c, r)
         if self.norm == 1:
-            return l1_ball_project(Y, c, r)
+            return l1_ball_project(Y, self._l1_center, r)
         # p = inf: clip to the box [c - r, c + r] (points inside come back unchanged)
         return np.clip(Y, self._lo, self._hi)
 

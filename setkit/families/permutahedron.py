@@ -11,7 +11,7 @@ import numpy as np
 
 from ..kernels.bregman import outside_orthant_error, permutahedron_kl
 from ..kernels.face import permutahedron_face
-from ..kernels.isotonic import permutahedron_lmo_rows, project_permutahedron
+from ..kernels.isotonic import permutahedron_lmo, project_permutahedron
 from . import Family, kernel, register
 
 
@@ -133,8 +133,8 @@ class Permutahedron(Family):
 
     @kernel("lmo")
     def lmo(self, C):
-        """Rearrangement: the k-th largest weight at the k-th smallest c, O(n log n)."""
-        return permutahedron_lmo_rows(C, self._wdesc)
+        """Rearrangement: the k-th largest weight at the k-th smallest c (ties by index), O(n log n)."""
+        return permutahedron_lmo(C, self._wdesc)
 
     @kernel("support")
     def support(self, C):

@@ -16,7 +16,7 @@ import numpy as np
 from numba import njit
 
 from ..errors import InputError
-from .isotonic import _permutahedron_rows
+from .isotonic import permutahedron_lmo_packed, permutahedron_rows_packed
 from .simplex import _capped_rows_nb, _simplex_rows_nb, knapsack_lmo_rows
 from .vector_ops import ball_lmo, box_lmo_bounded, box_ops, l1_ball_project, l2_ball_project, simplex_lmo_rows
 
@@ -163,18 +163,10 @@ def permutahedron_kernels(wdesc):
 
     @njit(nogil=True)
     def project(y):
-        Y = y.reshape(1, y.size)
-        order = np.argsort(-y, kind="mergesort").reshape(1, y.size)
-        out = np.empty_like(Y)
-        _permutahedron_rows(Y, order, wd, out)
-        return out[0]
+        return permutahedron_rows_packed(y.reshape(1, y.size), wd)[0]
 
     @njit(nogil=True)
     def lmo(c):
-        order = np.argsort(c, kind="mergesort")
-        x = np.empty_like(c)
-        for k in range(c.size):
-            x[order[k]] = wd[k]
-        return x
+        return permutahedron_lmo_packed(c.reshape(1, c.size), wd)[0]
 
     return {"project": project, "lmo": lmo}

@@ -67,32 +67,39 @@ def _permutahedron_rows(Y, order, wdesc, out):
     ys = np.empty(n)
     refs = np.empty(n)
     sums = np.empty(n)
-    cnts = np.empty(n, np.int64)
-    spread = wdesc[0] - wdesc[n - 1] if n > 0 else 0.0
+    cnts = np.empty(n)
     for r in range(b):
-        for i in range(n):
-            ys[i] = Y[r, order[r, i]]
-        nb = 0
-        floor = 0
-        ref = ys[0] if n > 0 else 0.0
-        for i in range(n):
-            if i > 0 and ys[i - 1] - ys[i] > 2.0 * spread:
-                floor = nb          # a new cluster: no pool crosses this gap
-                ref = ys[i]
-            refs[i] = ref
-            sums[nb] = (ys[i] - ref) - wdesc[i]
-            cnts[nb] = 1
-            nb += 1
-            while nb > floor + 1 and sums[nb - 2] * cnts[nb - 1] < sums[nb - 1] * cnts[nb - 2]:
-                sums[nb - 2] += sums[nb - 1]
-                cnts[nb - 2] += cnts[nb - 1]
-                nb -= 1
-        k = 0
-        for blk in range(nb):
-            v = sums[blk] / cnts[blk]
-            for _ in range(cnts[blk]):
-                out[r, order[r, k]] = (ys[k] - refs[k]) - v
-                k += 1
+        _pav_row(Y[r], order[r], wdesc, out[r], ys, refs, sums, cnts)
+
+
+@njit(cache=True, nogil=True)
+def _pav_row(y, order, wdesc, out, ys, refs, sums, cnts):
+    """One row of :func:`_permutahedron_rows` with its work buffers given (counts as floats: exact)."""
+    n = y.size
+    spread = wdesc[0] - wdesc[n - 1] if n > 0 else 0.0
+    for i in range(n):
+        ys[i] = y[order[i]]
+    nb = 0
+    floor = 0
+    ref = ys[0] if n > 0 else 0.0
+    for i in range(n):
+        if i > 0 and ys[i - 1] - ys[i] > 2.0 * spread:
+            floor = nb          # a new cluster: no pool crosses this gap
+            ref = ys[i]
+        refs[i] = ref
+        sums[nb] = (ys[i] - ref) - wdesc[i]
+        cnts[nb] = 1.0
+        nb += 1
+        while nb > floor + 1 and sums[nb - 2] * cnts[nb - 1] < sums[nb - 1] * cnts[nb - 2]:
+            sums[nb - 2] += sums[nb - 1]
+            cnts[nb - 2] += cnts[nb - 1]
+            nb -= 1
+    k = 0
+    for blk in range(nb):
+        v = sums[blk] / cnts[blk]
+        for _ in range(int(cnts[blk])):
+            out[order[k]] = (ys[k] - refs[k]) - v
+            k += 1
 
 
 @njit(cache=True, nogil=True)
@@ -150,6 +157,157 @@ def _unpack_fix(packed, y, nbits):
     return order
 
 
+@njit(cache=True, nogil=True)
+def order_bits(n):
+    """Low bits that hold an index below n in a packed sort key (at least 1)."""
+    nbits = 1
+    while (1 << nbits) < n:
+        nbits += 1
+    return nbits
+
+
+@njit(cache=True, nogil=True)
+def pack_rows(Y, nbits, decreasing):
+    """Packed sort keys per row: an order-preserving 64-bit image of y (reversed when ``decreasing``)
+    in the high bits, the index in the low ``nbits``. Sorting the keys of a row as unsigned integers
+    sorts its values up to the dropped low bits, ties by index (:func:`keys_to_order` finishes)."""
+    b, n = Y.shape
+    out = np.empty((b, n), np.uint64)
+    sign = np.uint64(1) << np.uint64(63)
+    sh = np.uint64(nbits)
+    for r in range(b):
+        u = Y[r].view(np.uint64)
+        for i in range(n):
+            v = u[i]
+            k = ~v if v & sign else v | sign
+            if decreasing:
+                k = ~k
+            out[r, i] = ((k >> sh) << sh) | np.uint64(i)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def keys_to_order(packed, y, nbits, decreasing, order):
+    """The exact order of y from its sorted packed keys, into ``order`` (ties by index).
+
+    Runs of keys equal in their high bits (values that differ only in the dropped low bits, or
+    are equal) are put in exact order by insertion sort (merge sort for runs over 32), which
+    keeps equal values in index order. The result is unique: the stable order of y by value
+    (decreasing or increasing), where -0.0 and +0.0 count as different (-0.0 first when
+    increasing)."""
+    n = packed.size
+    sh = np.uint64(nbits)
+    mask = (np.uint64(1) << sh) - np.uint64(1)
+    for i in range(n):
+        order[i] = np.int64(packed[i] & mask)
+    i = 0
+    while i < n:
+        key = packed[i] >> sh
+        j = i + 1
+        while j < n and (packed[j] >> sh) == key:
+            j += 1
+        if j - i > 1:
+            if j - i <= 32:
+                for a in range(i + 1, j):
+                    t = order[a]
+                    v = y[t]
+                    c = a - 1
+                    while c >= i and ((y[order[c]] < v) if decreasing else (y[order[c]] > v)):
+                        order[c + 1] = order[c]
+                        c -= 1
+                    order[c + 1] = t
+            else:
+                seg = order[i:j].copy()
+                vals = np.empty(j - i)
+                for a in range(j - i):
+                    vals[a] = -y[seg[a]] if decreasing else y[seg[a]]
+                p = np.argsort(vals, kind="mergesort")
+                for a in range(j - i):
+                    order[i + a] = seg[p[a]]
+        i = j
+
+
+@njit(cache=True, nogil=True)
+def permutahedron_rows_keys(Y, keys, nbits, wdesc):
+    """Rows of Y onto P(w) given each row's sorted packed keys (decreasing): exact order, then pooling."""
+    b, n = Y.shape
+    out = np.empty_like(Y)
+    order = np.empty(n, np.int64)
+    ys = np.empty(n)
+    refs = np.empty(n)
+    sums = np.empty(n)
+    cnts = np.empty(n)
+    for r in range(b):
+        keys_to_order(keys[r], Y[r], nbits, True, order)
+        _pav_row(Y[r], order, wdesc, out[r], ys, refs, sums, cnts)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def permutahedron_rows_packed(Y, wdesc):
+    """:func:`permutahedron_rows_keys` with the keys packed and sorted here (numba's sort): one
+    compiled call, for single points and small batches; the same answer bit for bit (the order
+    is unique)."""
+    b, n = Y.shape
+    if n == 0:
+        return np.empty_like(Y)
+    nbits = order_bits(n)
+    keys = pack_rows(Y, nbits, True)
+    for r in range(b):
+        keys[r].sort()
+    return permutahedron_rows_keys(Y, keys, nbits, wdesc)
+
+
+@njit(cache=True, nogil=True)
+def permutahedron_lmo_keys(C, keys, nbits, wdesc):
+    """Rearrangement per row from sorted packed keys (increasing): the k-th largest weight at the
+    k-th smallest c, ties by index."""
+    b, n = C.shape
+    out = np.empty_like(C)
+    order = np.empty(n, np.int64)
+    for r in range(b):
+        keys_to_order(keys[r], C[r], nbits, False, order)
+        for k in range(n):
+            out[r, order[k]] = wdesc[k]
+    return out
+
+
+@njit(cache=True, nogil=True)
+def permutahedron_lmo_packed(C, wdesc):
+    """:func:`permutahedron_lmo_keys` with keys packed and sorted here (numba's sort), one compiled call."""
+    b, n = C.shape
+    if n == 0:
+        return np.empty_like(C)
+    nbits = order_bits(n)
+    keys = pack_rows(C, nbits, False)
+    for r in range(b):
+        keys[r].sort()
+    return permutahedron_lmo_keys(C, keys, nbits, wdesc)
+
+
+# batches with at least this many rows sort their packed keys with NumPy (a vectorized sort)
+NUMPY_SORT_ROWS = 64
+
+
+def permutahedron_lmo(C, wdesc):
+    """Rows of argmin <c, x> over P(w): the k-th largest weight at the k-th smallest c_i.
+
+    Ties in c go by index (the stable order; -0.0 counts as below +0.0). Keys packed from c
+    and its indices are sorted as unsigned integers (NumPy's sort for batches, numba's for
+    small ones; the same unique order), runs equal in the packed bits finished exactly.
+    O(n log n) per row.
+    """
+    C = np.ascontiguousarray(C, dtype=float)
+    b, n = C.shape
+    wdesc = np.ascontiguousarray(wdesc, dtype=float)
+    if b < NUMPY_SORT_ROWS or n == 0 or n > 2 ** 40:
+        return permutahedron_lmo_packed(C, wdesc) if n <= 2 ** 40 else permutahedron_lmo_rows(C, wdesc)
+    nbits = order_bits(n)
+    keys = pack_rows(C, nbits, False)
+    keys.sort(axis=1)
+    return permutahedron_lmo_keys(C, keys, nbits, wdesc)
+
+
 def decreasing_order(y: np.ndarray) -> np.ndarray:
     """Indices that sort a float64 vector in decreasing order (ties in any order), exact.
 
@@ -171,12 +329,21 @@ def decreasing_order(y: np.ndarray) -> np.ndarray:
 def project_permutahedron(Y: np.ndarray, wdesc: np.ndarray) -> np.ndarray:
     """Project the rows of Y onto the permutahedron of w (``wdesc``: w sorted decreasingly).
 
-    Sort each row, then pool-adjacent-violators; O(n log n) per row.
+    Sort each row, then pool-adjacent-violators; O(n log n) per row. Rows shorter than
+    50,000 sort packed keys (value bits and index, see :func:`pack_rows`): the order is the
+    stable decreasing order of y (ties by index; +0.0 before -0.0), unique, so batches
+    (NumPy's sort) and single points (numba's) give the same answer bit for bit.
     """
     Y = np.ascontiguousarray(Y, dtype=float)
     b, n = Y.shape
     if n < 50_000:
-        return permutahedron_rows_sorted_inside(Y, np.ascontiguousarray(wdesc, dtype=float))
+        wdesc = np.ascontiguousarray(wdesc, dtype=float)
+        if b < NUMPY_SORT_ROWS or n == 0:
+            return permutahedron_rows_packed(Y, wdesc)
+        nbits = order_bits(n)
+        keys = pack_rows(Y, nbits, True)
+        keys.sort(axis=1)                    # NumPy's vectorized sort (releases the GIL)
+        return permutahedron_rows_keys(Y, keys, nbits, wdesc)
     if b == 1:
         order = decreasing_order(Y[0])[None, :]
     else:

@@ -846,19 +846,122 @@ def capped_project_long(y, lo, hi, w, total, out):
     return lam
 
 
+# rows up to this long try the safeguarded Newton iteration first (capped_newton)
+NEWTON_ROW = 4096
+
+
+@njit(cache=True, nogil=True, fastmath={"reassoc"})
+def _capped_piece(y, lo, hi, w, lam):
+    """The linear piece of g at lam: (sum of w x over coordinates at a bound, sum of w y and of w^2
+    over the free ones), with x = y - lam w compared to the bounds. Vectorizable (only the order
+    of the sums is left to the compiler; the same data and lam give the same bits)."""
+    fixed = 0.0
+    free_c = 0.0
+    free_s = 0.0
+    for j in range(y.size):
+        wj = w[j]
+        x = y[j] - lam * wj
+        up = x >= hi[j]
+        down = (x <= lo[j]) & ~up
+        free = ~(up | down)
+        fixed += wj * hi[j] if up else (wj * lo[j] if down else 0.0)
+        free_c += wj * y[j] if free else 0.0
+        free_s += wj * wj if free else 0.0
+    return fixed, free_c, free_s
+
+
+@njit(cache=True, nogil=True)
+def capped_newton(y, lo, hi, w, total):
+    """Multiplier of the capped weighted simplex by safeguarded Newton steps on g; NaN if it stalls.
+
+    g(lam) = sum w clip(y - lam w, lo, hi) is piecewise linear: at lam it equals
+    fixed + free_c - lam free_s (:func:`_capped_piece`), and the Newton step
+    (fixed + free_c - total) / free_s is the root of that piece. A step is accepted when it
+    lies strictly inside the bracket (L, U) kept from the signs of g - total; otherwise (or
+    after two moves of the same end) the secant of the bracket, or an outward doubling while
+    one end is infinite. The answer is returned when a Newton step lands on the piece it came
+    from (its sums repeat, so g = total there up to rounding), or g = total exactly. Each step
+    is one vectorized pass, O(n); a few steps for typical rows. After 60 steps it gives up
+    (NaN) and the caller runs the breakpoint search.
+    """
+    L = -np.inf
+    U = np.inf
+    gL = np.inf
+    gU = -np.inf
+    sw = 0.0
+    sy = 0.0
+    for j in range(y.size):
+        sw += w[j] * w[j]
+        sy += w[j] * y[j]
+    lam = (sy - total) / sw if sw > 0.0 else 0.0          # every coordinate free
+    newton = False
+    pf = np.nan
+    pc = np.nan
+    ps = np.nan
+    side = 0
+    same = 0
+    for _ in range(60):
+        fixed, free_c, free_s = _capped_piece(y, lo, hi, w, lam)
+        if newton and fixed == pf and free_c == pc and free_s == ps:
+            return lam                                     # the step stayed on its piece: the root
+        g = fixed + free_c - lam * free_s
+        if g == total:
+            return lam
+        if g > total:
+            L = lam
+            gL = g
+            same = same + 1 if side == 1 else 1
+            side = 1
+        else:
+            U = lam
+            gU = g
+            same = same + 1 if side == -1 else 1
+            side = -1
+        nxt = np.nan
+        newton = False
+        if free_s > 0.0 and same < 3:
+            t = (fixed + free_c - total) / free_s
+            if t == lam:
+                return lam                                 # lam is the root of its own piece
+            if t > L and t < U:
+                nxt = t
+                newton = True
+                pf = fixed
+                pc = free_c
+                ps = free_s
+        if np.isnan(nxt):
+            same = 0
+            if L > -np.inf and U < np.inf:
+                t = L + (gL - total) * ((U - L) / (gL - gU))
+                nxt = t if (t > L and t < U) else 0.5 * (L + U)
+                if not (nxt > L and nxt < U):
+                    break                                  # no float strictly inside: let the search decide
+            elif U < np.inf:
+                nxt = U - 2.0 * max(1.0, abs(U))
+            else:
+                nxt = L + 2.0 * max(1.0, abs(L))
+            if not np.isfinite(nxt):
+                break
+        lam = nxt
+    return np.nan
+
+
 @njit(cache=True, nogil=True)
 def _capped_rows_nb(Y, lo, hi, w, total, rows, out, lams):
     """The listed rows of Y onto the capped weighted simplex, into ``out``; multipliers into ``lams``.
 
-    Rows of at least LONG_ROW coordinates take :func:`capped_project_long`; shorter ones the
-    randomized breakpoint search with the output row as its index buffer (no allocation).
+    Rows of at least LONG_ROW coordinates take :func:`capped_project_long`; rows up to NEWTON_ROW
+    the safeguarded Newton iteration (:func:`capped_newton`); the others, and rows where Newton
+    stalls, the randomized breakpoint search with the output row as its index buffer (no allocation).
     """
     b, n = Y.shape
     for r in rows:
         if n >= LONG_ROW:
             lams[r] = capped_project_long(Y[r], lo, hi, w, total, out[r])
             continue
-        lam = _capped_lambda(Y[r], lo, hi, w, total, out[r].view(np.int64))
+        lam = capped_newton(Y[r], lo, hi, w, total) if n <= NEWTON_ROW else np.nan
+        if np.isnan(lam):
+            lam = _capped_lambda(Y[r], lo, hi, w, total, out[r].view(np.int64))
         lams[r] = lam
         for j in range(n):
             out[r, j] = min(max(Y[r, j] - lam * w[j], lo[j]), hi[j])

@@ -145,9 +145,11 @@ def l1_ball_project(Y, c, radius):
 
     No work buffer: |v| (as TwoSum parts) is recomputed in each of three passes, the shifted
     values are written into the output row and Condat's lists live there
-    (``simplex_tau_inplace``). Memory: the output only.
+    (``simplex_tau_inplace``). Memory: the output only. An empty ``c`` means the origin as
+    center (then |v| = |y| needs no TwoSum and c is not read).
     """
     b, n = Y.shape
+    zc = c.size == 0
     out = np.empty_like(Y)
     floor = -2.0 * radius
     for r in range(b):
@@ -155,7 +157,7 @@ def l1_ball_project(Y, c, radius):
         top = 0.0
         top_l = 0.0
         for j in range(n):
-            vh, vl = _abs_diff2(Y[r, j], c[j])
+            vh, vl = (abs(Y[r, j]), 0.0) if zc else _abs_diff2(Y[r, j], c[j])
             s += vh
             if vh > top or (vh == top and vl > top_l):
                 top = vh
@@ -166,17 +168,17 @@ def l1_ball_project(Y, c, radius):
             continue
         if radius == 0.0:
             for j in range(n):
-                out[r, j] = c[j]
+                out[r, j] = 0.0 if zc else c[j]
             continue
         z = out[r]
         for j in range(n):
-            vh, vl = _abs_diff2(Y[r, j], c[j])
+            vh, vl = (abs(Y[r, j]), 0.0) if zc else _abs_diff2(Y[r, j], c[j])
             # |v_j| - max|v| (exact where it matters: Sterbenz on the high parts)
             z[j] = max((vh - top) + (vl - top_l), floor)
         tau = simplex_tau_inplace(z, radius)
         if np.isnan(tau):          # clean-up did not settle: the sorted threshold
             for j in range(n):
-                vh, vl = _abs_diff2(Y[r, j], c[j])
+                vh, vl = (abs(Y[r, j]), 0.0) if zc else _abs_diff2(Y[r, j], c[j])
                 z[j] = max((vh - top) + (vl - top_l), floor)
             u = -np.sort(-z)
             cs = 0.0
@@ -188,8 +190,8 @@ def l1_ball_project(Y, c, radius):
                     tau = t
         for j in range(n):
             yj = Y[r, j]
-            cj = c[j]
-            vh, vl = _abs_diff2(yj, cj)
+            cj = 0.0 if zc else c[j]
+            vh, vl = (abs(yj), 0.0) if zc else _abs_diff2(yj, cj)
             d = yj - cj
             m = max((vh - top) + (vl - top_l), floor) - tau
             if m > 0.0:
