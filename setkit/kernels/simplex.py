@@ -1143,8 +1143,8 @@ def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
     idx = np.empty(n, np.int64)
     r = np.empty(n)
     p3 = np.empty(3)
-    seed = np.int64(2862933555777941757)
     for row in range(b):
+        seed = np.int64(2862933555777941757)    # per row: a row's answer never depends on its batch
         m = 0
         for i in range(n):
             out[row, i] = lo[i]

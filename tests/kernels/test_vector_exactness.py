@@ -1,0 +1,230 @@
+"""The allocation-free and batch kernels of the vector families against the kernels they replaced.
+
+Issue 12 rewrote the multiplier searches for long vectors and batches:
+
+* simplex and l1 ball: Condat's lists kept in the output row (``simplex_tau_inplace``) instead of
+  three work buffers -- compared with the buffered kernels kept beside them;
+* capped / weighted budget: a sampled bracket and one settling pass for rows of at least
+  ``LONG_ROW`` coordinates (``capped_project_long``), safeguarded Newton steps for rows up to
+  ``NEWTON_ROW`` (``capped_newton``) -- compared with the randomized breakpoint search
+  (``_capped_lambda``) and with the sorting breakpoint search ``capped_threshold_rows``;
+* permutahedron projection and LMO: packed (value, index) keys sorted as integers -- compared with
+  the merge-sort kernels (stable argsort, ties by index).
+
+Outside references: the cvxpy reference (Clarabel) on small cases; the KKT conditions of the
+continuous quadratic knapsack (x = clip(y - lam w, lo, hi) with <w, x> = total; Kiwiel,
+"Breakpoint searching algorithms for the continuous quadratic knapsack problem", 2008) checked
+in exact rational arithmetic; the sorted threshold of the simplex projection (Held, Wolfe and
+Crowder, "Validation of subgradient optimization", 1974).
+"""
+from fractions import Fraction as Fr
+
+import numpy as np
+import pytest
+
+import setkit
+from setkit.agreement import reference
+from setkit.kernels.isotonic import (permutahedron_lmo, permutahedron_lmo_rows, permutahedron_rows_packed,
+                                     permutahedron_rows_sorted_inside, project_permutahedron)
+from setkit.kernels.simplex import (LONG_ROW, NEWTON_ROW, _capped_lambda, _capped_rows_nb, _simplex_rows_nb,
+                                    capped_newton, capped_project_long, capped_threshold_rows, project_capped,
+                                    simplex_rows_buffered)
+from setkit.kernels.vector_ops import l1_ball_project, l1_ball_project_buffered
+
+SCALES = (1e-300, 1e-150, 1e-3, 1.0, 1e6, 1e17, 1e150, 1e300)
+
+
+def _rows(n, scale, rng):
+    """Gaussian rows at one scale, plus ties, a constant row, signed zeros and mixed scales."""
+    Y = scale * rng.standard_normal((6, n))
+    Y[1] = scale                                   # all tied
+    Y[2, : max(1, n // 2)] = Y[2, 0]               # half tied
+    Y[3] = np.round(rng.standard_normal(n)) * scale
+    Y[4, : n // 3] *= 1e-12                        # mixed scales
+    Y[5] = 0.0
+    if n > 2:
+        Y[5, 1] = -0.0
+    return Y
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 17, 200, 5000])
+def test_simplex_in_place_equals_buffered(n):
+    rng = np.random.default_rng(n)
+    for scale in SCALES:
+        for total in (1e-300, 1e-3, 1.0, 1e3, 1e300 / max(n, 1)):
+            Y = _rows(n, scale, rng)
+            a, b = np.empty_like(Y), np.empty_like(Y)
+            assert _simplex_rows_nb(Y, total, a) == simplex_rows_buffered(Y, total, b)
+            np.testing.assert_allclose(a, b, rtol=0, atol=1e-12 * total)
+            assert np.array_equal(a, b)            # the same threshold: the list order does not matter here
+
+
+@pytest.mark.parametrize("n", [1, 2, 5, 100, 3000])
+def test_l1_ball_in_place_equals_buffered(n):
+    rng = np.random.default_rng(100 + n)
+    for scale in SCALES:
+        for radius in (1e-300, 1.0, 1e300):
+            Y = _rows(n, scale, rng)
+            c = rng.standard_normal(n) * min(scale, 1e300)
+            for center in (c, np.zeros(n)):
+                a = l1_ball_project(Y, center, radius)
+                b = l1_ball_project_buffered(Y, center, radius)
+                np.testing.assert_allclose(a, b, rtol=0, atol=1e-12 * radius + 1e-12 * np.abs(center).max(initial=0))
+            # the empty center means the origin, bit for bit
+            assert np.array_equal(l1_ball_project(Y, np.empty(0), radius), l1_ball_project(Y, np.zeros(n), radius))
+
+
+def _budget_case(n, rng, caps=True, weights=True):
+    w = rng.uniform(0.5, 2.0, n) if weights else np.ones(n)
+    lo = -rng.uniform(0.0, 1.0, n)
+    hi = lo + rng.uniform(0.1, 2.0, n) if caps else np.full(n, np.inf)
+    fin = np.where(np.isfinite(hi), hi, lo + 3.0)
+    total = float(w @ lo + 0.4 * (w @ fin - w @ lo))
+    return lo, hi, w, total
+
+
+def _kkt_exact(y, lo, hi, w, total, x, lam):
+    """Residual of the KKT conditions in rationals: |<w, x> - total| and max |x - clip(y - lam w)|."""
+    s = sum(Fr(float(wi)) * Fr(float(xi)) for wi, xi in zip(w, x))
+    return abs(float(s - Fr(total)))
+
+
+@pytest.mark.parametrize("n", [1, 2, 7, 100, 1000, NEWTON_ROW])
+def test_capped_newton_equals_search(n):
+    rng = np.random.default_rng(200 + n)
+    for trial in range(12):
+        lo, hi, w, total = _budget_case(n, rng, caps=trial % 3 != 0, weights=trial % 2 == 0)
+        y = rng.standard_normal(n) * 10.0 ** rng.uniform(-3, 6)
+        if trial % 4 == 0:
+            y = np.round(y)                        # ties
+        lam_n = capped_newton(y, lo, hi, w, total)
+        lam_s = _capped_lambda(y, lo, hi, w, total, np.empty(n, np.int64))
+        if np.isnan(lam_n):
+            continue                               # Newton gave up: the row takes the search (checked below)
+        xn, xs = np.clip(y - lam_n * w, lo, hi), np.clip(y - lam_s * w, lo, hi)
+        np.testing.assert_allclose(xn, xs, rtol=0, atol=1e-12 * max(1.0, np.abs(y).max()))
+        assert abs(xn @ w - total) <= 1e-12 * max(1.0, np.abs(w * y).sum())
+
+
+@pytest.mark.parametrize("caps,weights", [(True, True), (True, False), (False, True)])
+def test_capped_long_equals_search(caps, weights):
+    rng = np.random.default_rng(7 + 2 * caps + weights)
+    n = LONG_ROW + 1234
+    lo, hi, w, total = _budget_case(n, rng, caps, weights)
+    for scale in (1e-3, 1.0, 1e6):
+        for tie in (False, True):
+            y = rng.standard_normal(n) * scale
+            if tie:
+                y = np.round(y)
+            out = np.empty(n)
+            lam = capped_project_long(y, lo, hi, w, total, out)
+            lam_s = _capped_lambda(y, lo, hi, w, total, np.empty(n, np.int64))
+            xs = np.clip(y - lam_s * w, lo, hi)
+            np.testing.assert_allclose(out, xs, rtol=0, atol=1e-12 * max(1.0, scale))
+            np.testing.assert_array_equal(out, np.clip(y - lam * w, lo, hi))
+            assert _kkt_exact(y, lo, hi, w, total, out, lam) <= 1e-9 * max(1.0, abs(total))
+    # a constant vector (every breakpoint tied: no bracket from the sample) takes the full search
+    y = np.full(n, 0.25)
+    out = np.empty(n)
+    lam = capped_project_long(y, lo, hi, w, total, out)
+    lam_s = _capped_lambda(y, lo, hi, w, total, np.empty(n, np.int64))
+    np.testing.assert_allclose(out, np.clip(y - lam_s * w, lo, hi), rtol=0, atol=1e-12)
+
+
+def test_capped_rows_against_sorting_search():
+    """All row kernels (Newton, search, long) against the sorting breakpoint search, at the edges."""
+    rng = np.random.default_rng(11)
+    for n in (1, 3, 60, NEWTON_ROW + 5):
+        lo, hi, w, total = _budget_case(n, rng)
+        Y = _rows(n, 1.0, rng)
+        X = project_capped(Y, lo, hi, w, total)
+        lam = capped_threshold_rows(Y, lo, hi, w, total)
+        ref = np.clip(Y - lam[:, None] * w, lo, hi)
+        np.testing.assert_allclose(X, ref, rtol=0, atol=1e-11)
+        # far points (the shifted re-solve) and tiny ones
+        for s in (1e-300, 1e300):
+            Z = rng.standard_normal((3, n)) * s
+            XZ = project_capped(Z, lo, hi, w, total)
+            assert np.all(XZ >= lo) and np.all(XZ <= hi)
+            assert np.all(np.abs(XZ @ w - total) <= 1e-9 * max(1.0, abs(total)))
+
+
+def test_budget_long_vector_through_the_set_matches_reference_conditions():
+    """A long vector through K.project (routing, fast path) meets the exact KKT conditions."""
+    rng = np.random.default_rng(3)
+    n = LONG_ROW * 2
+    K = setkit.compile({"kind": "budget", "dim": n, "upper": 0.01, "total": 1.0})
+    y = rng.standard_normal(n)
+    x = K.project(y)
+    assert np.all(x >= 0.0) and np.all(x <= 0.01)
+    assert abs(float(sum(Fr(float(v)) for v in x)) - 1.0) <= 1e-12 * n
+    # x = clip(y - lam, 0, 0.01) with one lam: the free coordinates share y - x
+    free = (x > 0) & (x < 0.01)
+    shift = y[free] - x[free]
+    assert np.ptp(shift) <= 1e-12
+
+
+def test_empty_batches_and_n1():
+    lo, hi, w = np.zeros(1), np.ones(1), np.ones(1)
+    assert project_capped(np.empty((0, 1)), lo, hi, w, 0.5).shape == (0, 1)
+    np.testing.assert_array_equal(project_capped(np.array([[7.0]]), lo, hi, w, 0.5), [[0.5]])
+    out = np.empty((0, 5))
+    _capped_rows_nb(np.empty((0, 5)), np.zeros(5), np.ones(5), np.ones(5), 1.0, np.empty(0, np.int64), out, np.empty(0))
+    wd = np.array([1.0])
+    assert permutahedron_rows_packed(np.empty((0, 1)), wd).shape == (0, 1)
+    assert project_permutahedron(np.empty((0, 4)), np.arange(4.0)[::-1].copy()).shape == (0, 4)
+    assert permutahedron_lmo(np.empty((0, 4)), np.arange(4.0)[::-1].copy()).shape == (0, 4)
+    np.testing.assert_array_equal(project_permutahedron(np.array([[5.0]]), wd), [[1.0]])
+    for kind in ({"kind": "budget", "dim": 3, "upper": 1.0, "total": 1.0},
+                 {"kind": "permutahedron", "weights": [3.0, 1.0, 0.0]}):
+        K = setkit.compile(kind)
+        assert K.project(np.empty((0, 3))).shape == (0, 3)
+        assert K.lmo(np.empty((0, 3))).shape == (0, 3)
+
+
+@pytest.mark.parametrize("n", [1, 2, 5, 64, 100, 700])
+def test_permutahedron_packed_keys_equal_merge_sort(n):
+    rng = np.random.default_rng(300 + n)
+    for scale in SCALES:
+        wd = np.sort(rng.standard_normal(n))[::-1].copy()
+        for b in (1, 3, 80):                       # small batches: numba's sort; 80 rows: NumPy's
+            Y = np.concatenate([_rows(n, scale, rng), scale * rng.standard_normal((b, n))])
+            new = project_permutahedron(Y, wd)
+            assert np.array_equal(new, permutahedron_rows_packed(Y, wd))    # one order: bit for bit
+            old = permutahedron_rows_sorted_inside(Y, wd)
+            np.testing.assert_allclose(new, old, rtol=0, atol=1e-12 * max(1.0, np.abs(wd).max()))
+            L_new, L_old = permutahedron_lmo(Y, wd), permutahedron_lmo_rows(Y, wd)
+            # ties go by index in both; only a tie between -0.0 and +0.0 may be ordered differently
+            plain = ~(Y == 0.0).any(axis=1)
+            assert np.array_equal(L_new[plain], L_old[plain])
+            np.testing.assert_allclose((L_new * Y).sum(1), (L_old * Y).sum(1), rtol=1e-12, atol=0)
+
+
+def test_permutahedron_lmo_ties_by_index():
+    """Ties in c: the larger weight goes to the smaller index (the stable order)."""
+    K = setkit.compile({"kind": "permutahedron", "weights": [3.0, 2.0, 1.0, 0.0]})
+    np.testing.assert_array_equal(K.lmo([1.0, 0.5, 0.5, 1.0]), [1.0, 3.0, 2.0, 0.0])
+    np.testing.assert_array_equal(K.lmo(np.array([[1.0, 0.5, 0.5, 1.0]] * 70))[0], [1.0, 3.0, 2.0, 0.0])
+
+
+@pytest.mark.parametrize("spec", [
+    {"kind": "budget", "dim": 6, "upper": [0.5, 1.0, 0.2, 2.0, 1.0, 0.3], "weights": [1, 2, 0.5, 1, 3, 1],
+     "total": 2.0},
+    {"kind": "budget", "dim": 5, "lower": -1.0, "upper": 1.0, "total": 0.5},
+    {"kind": "ball", "dim": 5, "norm": 1, "radius": 0.7},
+    {"kind": "simplex", "dim": 6, "total": 2.0},
+    {"kind": "permutahedron", "weights": [4.0, 2.5, 1.0, 0.0, -1.0]},
+])
+def test_small_cases_against_cvxpy_reference(spec):
+    """The rewritten kernels on small sets against the cvxpy reference (Clarabel), single points and batches."""
+    K = setkit.compile(spec)
+    R = reference(K)
+    rng = np.random.default_rng(5)
+    Y = 3.0 * rng.standard_normal((4, K.dim))
+    Y[0] = np.round(Y[0])                          # ties
+    for y in Y:
+        np.testing.assert_allclose(K.project(y), R.project(y), atol=2e-5 * max(1.0, np.abs(y).max()))
+    np.testing.assert_allclose(K.project(Y), np.array([K.project(y) for y in Y]), rtol=0, atol=0)
+    big = np.repeat(Y, 20, axis=0)                 # past NUMPY_SORT_ROWS: the NumPy-sort path
+    np.testing.assert_array_equal(K.project(big)[::20], K.project(Y))
+    np.testing.assert_array_equal(K.lmo(big)[::20], K.lmo(Y))
