@@ -9,13 +9,16 @@ One side-by-side run (medians of interleaved repeats) reporting the ratios of pr
    obvious NumPy one-liner -- target 1.2x;
 2. batches of 10,000 x 100 against ``np.sort(Y, axis=1)``, with cpu/wall of the threaded call --
    targets: cpu/wall >= 1.7 on 2 cores, budget and permutahedron within 3x of the sort;
-3. large single vectors (n = 1e6, 1e7) against ``np.copy`` -- target 4x -- with the peak of
-   traced Python/NumPy allocations (tracemalloc; allocations inside compiled numba code are not
-   traced) against the input's size -- target 2x;
+3. large single vectors (n = 1e6, 1e7) against ``np.copy`` -- target 4x (wall time; the CPU-time
+   ratio is printed beside it, it depends less on other processes) -- with the peak of traced
+   allocations (tracemalloc: NumPy's, and numba's, whose runtime allocates through Python's
+   allocator) against the input's size -- target 2x;
 4. the first call in a fresh process (import, compile or load cached kernels, one call) --
    targets < 0.5 s for vector families, < 2 s for flows.
 
-Usage: ``python benchmarks/bench_overhead.py [--quick] [--skip-large] [--skip-first]``.
+Usage: ``python benchmarks/bench_overhead.py [--quick] [--skip-large] [--skip-first]``; the last full
+run is kept in ``benchmarks/bench_overhead_last_run.txt`` (the run before the issue-12 kernels in
+``benchmarks/bench_overhead_before.txt``).
 Every row says met or missed with its ratio; the load average is printed with the table.
 """
 from __future__ import annotations
@@ -58,15 +61,23 @@ def spec_of(kind, n, rng):
     raise ValueError(kind)
 
 
-def interleaved(fns, repeats, number):
-    """Median seconds per call of each callable, timing blocks of ``number`` calls in turn."""
+def interleaved(fns, repeats, number, cpu=None):
+    """Median seconds per call of each callable, timing blocks of ``number`` calls in turn.
+
+    With a list ``cpu``, the medians of the process CPU time per call are appended to it (less
+    sensitive than wall time to other processes on a shared machine; for single-threaded code)."""
     times = [[] for _ in fns]
+    cpus = [[] for _ in fns]
     for _ in range(repeats):
         for i, f in enumerate(fns):
+            c0 = time.process_time()
             t0 = time.perf_counter()
             for _ in range(number):
                 f()
             times[i].append((time.perf_counter() - t0) / number)
+            cpus[i].append((time.process_time() - c0) / number)
+    if cpu is not None:
+        cpu.extend(float(np.median(c)) for c in cpus)
     return [float(np.median(t)) for t in times]
 
 
@@ -180,17 +191,19 @@ def large(sizes, repeats, rows):
         for kind in ("simplex", "budget-caps", "budget-weights", "l1 ball", "linf ball", "box"):
             K = setkit.compile(spec_of(kind, int(n), rng))
             K.project(y)
-            t = interleaved([lambda: K.project(y), lambda: np.copy(y)], repeats, 1)
+            c = []
+            t = interleaved([lambda: K.project(y), lambda: np.copy(y)], repeats, 1, cpu=c)
+            # tracemalloc sees NumPy's allocations and numba's (its runtime allocates through Python's allocator)
             tracemalloc.start()
             K.project(y)
             peak = tracemalloc.get_traced_memory()[1]
             tracemalloc.stop()
-            r, m = t[0] / t[1], peak / y.nbytes
+            r, m, rc = t[0] / t[1], peak / y.nbytes, c[0] / c[1]
             v = verdict(r, 4.0) + "; memory " + ("met" if m <= 2.0 else f"MISSED ({m:.2f}x > 2x)")
             rows.append({"part": "large", "set": kind, "n": int(n), "setkit_ms": t[0] * 1e3, "copy_ms": t[1] * 1e3,
-                         "vs_copy": r, "peak_over_input": m, "verdict": v})
+                         "vs_copy": r, "vs_copy_cpu": rc, "peak_over_input": m, "verdict": v})
             print(f"  large n={int(n):<9} {kind:<15} project {t[0]*1e3:8.2f} ms  np.copy {t[1]*1e3:6.2f} ms  "
-                  f"ratio {r:5.2f}  traced peak {m:.2f}x input  {v}", flush=True)
+                  f"ratio {r:5.2f} (cpu time {rc:5.2f})  traced peak {m:.2f}x input  {v}", flush=True)
 
 
 # -- 4. first call ------------------------------------------------------------------------------
