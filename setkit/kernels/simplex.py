@@ -71,22 +71,36 @@ def _simplex_tau(y, total, v, vt):
 
 @njit(cache=True, nogil=True)
 def simplex_tau_inplace(z, total):
-    """:func:`_simplex_tau` with no work buffers: Condat's lists kept inside ``z`` itself (z is destroyed).
+    """:func:`simplex_tau_shifted` on z itself (z is destroyed; see there)."""
+    return simplex_tau_shifted(z, 0.0, -np.inf, total, z)
 
-    The same steps as :func:`_simplex_tau` (the same running thresholds); only the order of
-    the final list differs, so tau may differ in the last bits of its sum. Reading z[i] happens before anything is written at a position >= i: the lists only
-    hold values already read, so they fit in z[:i]. Layout: the set-aside values vt occupy
+
+@njit(cache=True, nogil=True)
+def simplex_tau_shifted(y, top, floor, total, z):
+    """The threshold of z = max(y - top, floor) (computed on the fly), with Condat's lists kept in ``z``.
+
+    :func:`_simplex_tau` without its two work buffers (z is overwritten). The same steps as
+    :func:`_simplex_tau` (the same running thresholds); only the order of the final list
+    differs, so tau may differ in the last bits of its sum. The lists only hold values already
+    read, so they fit in z[:i] when the i-th value is read (also when z is y itself). Layout: the set-aside values vt occupy
     z[0:mt] in the order they were set aside, the candidate list v follows at z[mt:mt + m]; a
     reset of v retires it in place (mt += m) instead of copying it; the set-aside values that
     rejoin are compacted to the front and v moved behind them. Returns NaN when the
     clean-up needs too many passes (the caller then sorts). O(n) in practice, no allocation.
-    """
-    n = z.size
+
+    ``z`` may be ``y`` itself (top = 0, floor = -inf: the values as they are) or a separate
+    buffer of the same size (then y is only read, and z holds no copy of the shifted values:
+    one pass less)."""
+    n = y.size
     m = 1
     mt = 0
-    rho = z[0] - total
+    v0 = y[0] - top
+    v0 = v0 if v0 > floor else floor
+    z[0] = v0
+    rho = v0 - total
     for i in range(1, n):
-        yi = z[i]
+        yi = y[i] - top
+        yi = yi if yi > floor else floor
         if yi > rho:
             rho += (yi - rho) / (m + 1)
             if rho > yi - total:
@@ -97,9 +111,12 @@ def simplex_tau_inplace(z, total):
                 z[mt] = yi
                 m = 1
                 rho = yi - total
-    # v at z[mt:mt + m], vt at z[0:mt]: the set-aside values above rho join the list (in the
-    # order they were set aside, as in _simplex_tau), written at the front (s <= k: read first),
-    # then v moves down behind them; the list is z[0:m] (only the order of its terms differs)
+    return _condat_finish(z, m, mt, rho, total)
+
+
+@njit(cache=True, nogil=True)
+def _condat_finish(z, m, mt, rho, total):
+    """The set-aside values rejoin, then Condat's clean-up passes (lists laid out as in simplex_tau_inplace)."""
     s = 0
     mv = m
     for k in range(mt):
@@ -112,13 +129,12 @@ def simplex_tau_inplace(z, total):
     if s < mt:
         for k in range(mv):
             z[s + k] = z[mt + k]
-    base = 0
     for _ in range(_MAX_PASSES):
         m2 = 0
         for k in range(m):
-            yk = z[base + k]
+            yk = z[k]
             if yk > rho:
-                z[base + m2] = yk
+                z[m2] = yk
                 m2 += 1
             else:
                 left = m - 1 - (k - m2)
@@ -126,10 +142,10 @@ def simplex_tau_inplace(z, total):
                     return np.nan
                 rho += (rho - yk) / left
         if m2 == m:
-            s = 0.0
+            sm = 0.0
             for k in range(m):
-                s += z[base + k]
-            return (s - total) / m
+                sm += z[k]
+            return (sm - total) / m
         m = m2
     return np.nan
 
@@ -138,8 +154,8 @@ def simplex_tau_inplace(z, total):
 def _simplex_rows_nb(Y, total, out):
     """Rows shifted by their maximum and floored at -2 total (see :func:`shift_to_top`), then Condat.
 
-    No work buffer: the shifted row is written into its output row, Condat's lists live there
-    (:func:`simplex_tau_inplace`), and the answer max(z - tau, 0) is recomputed from y.
+    No work buffer: Condat's lists live in the output row (:func:`simplex_tau_shifted` shifts
+    on the fly), and the answer max(z - tau, 0) is recomputed from y.
     Memory: the output only. Returns the number of rows that need the sorted fallback
     (their output rows are NaN).
     """
@@ -151,11 +167,7 @@ def _simplex_rows_nb(Y, total, out):
         for j in range(1, n):
             if Y[r, j] > top:
                 top = Y[r, j]
-        z = out[r]
-        for j in range(n):
-            v = Y[r, j] - top
-            z[j] = v if v > floor else floor
-        tau = simplex_tau_inplace(z, total)
+        tau = simplex_tau_shifted(Y[r], top, floor, total, out[r])
         if np.isnan(tau):
             bad += 1
             for j in range(n):

@@ -203,7 +203,9 @@ def l1_ball_project(Y, c, radius):
 
 @njit(cache=True, nogil=True)
 def l1_ball_project_buffered(Y, c, radius):
-    """The previous kernel (four work buffers), kept as a reference. Rows onto {||x - c||_1 <= r}: unchanged inside, else c + sign(v) max(|v| - tau, 0), v = y - c.
+    """The previous kernel (four work buffers), kept as a reference for the tests.
+
+    Rows onto {||x - c||_1 <= r}: unchanged inside, else c + sign(v) max(|v| - tau, 0), v = y - c.
 
     tau is the simplex threshold of |v| for the total r (Condat's method) on |v|
     shifted by its maximum and floored at -2r (the same threshold, minus max|v|;
