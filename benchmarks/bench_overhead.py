@@ -16,7 +16,8 @@ One side-by-side run (medians of interleaved repeats) reporting the ratios of pr
 4. the first call in a fresh process (import, compile or load cached kernels, one call) --
    targets < 0.5 s for vector families, < 2 s for flows.
 
-Usage: ``python benchmarks/bench_overhead.py [--quick] [--skip-large] [--skip-first]``; the last full
+Usage: ``python benchmarks/bench_overhead.py [--quick] [--skip-single] [--skip-batch] [--skip-large]
+[--skip-first]``; the last full
 run is kept in ``benchmarks/bench_overhead_last_run.txt`` (the run before the issue-12 kernels in
 ``benchmarks/bench_overhead_before.txt``).
 Every row says met or missed with its ratio; the load average is printed with the table.
@@ -170,17 +171,20 @@ def batches(b, n, repeats, rows):
                 c0, w0 = time.process_time(), time.perf_counter()
                 f(Y)
                 cpu_wall.append((time.process_time() - c0) / (time.perf_counter() - w0))
-            t = interleaved([threaded, serial, lambda: np.sort(Y, axis=1)], repeats, 1)
+            c = []
+            t = interleaved([threaded, serial, lambda: np.sort(Y, axis=1)], repeats, 1, cpu=c)
             cw = float(np.median(cpu_wall))
             r = t[0] / t[2]
+            rc = c[1] / c[2]          # CPU time of the serial call over that of the sort (load-robust)
             v = ("cpu/wall " + ("met" if cw >= 1.7 else f"MISSED ({cw:.2f} < 1.7)"))
             if kind in ("budget", "permutahedron"):
                 v += "; vs sort " + verdict(r, 3.0)
             rows.append({"part": "batch", "set": kind, "op": op, "b": b, "n": n, "threaded_ms": t[0] * 1e3,
-                         "serial_ms": t[1] * 1e3, "sort_ms": t[2] * 1e3, "vs_sort": r, "cpu_wall": cw, "verdict": v})
+                         "serial_ms": t[1] * 1e3, "sort_ms": t[2] * 1e3, "vs_sort": r, "serial_cpu_vs_sort_cpu": rc,
+                         "cpu_wall": cw, "verdict": v})
             print(f"  batch {b}x{n} {kind:<13} {op:<7} threaded {t[0]*1e3:7.2f} ms  serial {t[1]*1e3:7.2f} ms  "
-                  f"np.sort {t[2]*1e3:6.2f} ms  ratio {r:5.2f}  cpu/wall {cw:.2f}  ({parallel.thread_count()} "
-                  f"threads)  {v}", flush=True)
+                  f"np.sort {t[2]*1e3:6.2f} ms  ratio {r:5.2f} (serial cpu time {rc:5.2f})  cpu/wall {cw:.2f}  "
+                  f"({parallel.thread_count()} threads)  {v}", flush=True)
 
 
 # -- 3. large vectors ---------------------------------------------------------------------------
@@ -260,16 +264,20 @@ def first_calls(rows, repeats):
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="fewer repeats, n up to 1e6, batch 2000 x 100")
+    ap.add_argument("--skip-single", action="store_true")
+    ap.add_argument("--skip-batch", action="store_true")
     ap.add_argument("--skip-large", action="store_true")
     ap.add_argument("--skip-first", action="store_true")
     a = ap.parse_args(argv)
     rows = []
     print(f"bench_overhead: {load()}; numba threads via setkit.parallel", flush=True)
     reps = 5 if a.quick else 9
-    single_points((10, 50, 100, 1000), reps, rows)
-    print(f"  ({load()})", flush=True)
-    batches(2_000 if a.quick else 10_000, 100, 3 if a.quick else 7, rows)
-    print(f"  ({load()})", flush=True)
+    if not a.skip_single:
+        single_points((10, 50, 100, 1000), reps, rows)
+        print(f"  ({load()})", flush=True)
+    if not a.skip_batch:
+        batches(2_000 if a.quick else 10_000, 100, 3 if a.quick else 7, rows)
+        print(f"  ({load()})", flush=True)
     if not a.skip_large:
         large((1e6,) if a.quick else (1e6, 1e7), 3 if a.quick else 5, rows)
         print(f"  ({load()})", flush=True)
