@@ -17,7 +17,7 @@ from numba import njit
 
 from ..errors import InputError
 from .isotonic import permutahedron_lmo_packed, permutahedron_rows_packed
-from .simplex import _capped_rows_nb, _simplex_rows_nb, knapsack_lmo_rows
+from .simplex import LONG_ROW, _capped_rows_nb, _simplex_rows_nb, capped_project_long, knapsack_lmo_rows
 from .vector_ops import ball_lmo, box_lmo_bounded, box_ops, l1_ball_project, l2_ball_project, simplex_lmo_rows
 
 
@@ -145,7 +145,10 @@ def budget_kernels(lower, upper, weights, total, at_most, caps, room, data_scale
                 return X[0]
         else:
             X = np.empty_like(Y)
-        _capped_rows_nb(Y, lo, hi, w, total, rows, X, np.zeros(1))
+        if y.size >= LONG_ROW:
+            capped_project_long(y, lo, hi, w, total, X[0])
+        else:
+            _capped_rows_nb(Y, lo, hi, w, total, rows, X, np.zeros(1))
         return X[0]
 
     @njit(nogil=True)

@@ -962,15 +962,13 @@ def capped_newton(y, lo, hi, w, total):
 def _capped_rows_nb(Y, lo, hi, w, total, rows, out, lams):
     """The listed rows of Y onto the capped weighted simplex, into ``out``; multipliers into ``lams``.
 
-    Rows of at least LONG_ROW coordinates take :func:`capped_project_long`; rows up to NEWTON_ROW
-    the safeguarded Newton iteration (:func:`capped_newton`); the others, and rows where Newton
+    Rows up to NEWTON_ROW take the safeguarded Newton iteration (:func:`capped_newton`); the others, and rows where Newton
     stalls, the randomized breakpoint search with the output row as its index buffer (no allocation).
+    (Rows of at least LONG_ROW coordinates go to :func:`capped_project_long` from
+    :func:`project_capped`: kept out of this kernel so that its first compilation stays short.)
     """
     b, n = Y.shape
     for r in rows:
-        if n >= LONG_ROW:
-            lams[r] = capped_project_long(Y[r], lo, hi, w, total, out[r])
-            continue
         lam = capped_newton(Y[r], lo, hi, w, total) if n <= NEWTON_ROW else np.nan
         if np.isnan(lam):
             lam = _capped_lambda(Y[r], lo, hi, w, total, out[r].view(np.int64))
@@ -1116,7 +1114,11 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
     if rows.size == 0:
         return X
     lams = np.zeros(Y.shape[0])
-    _capped_rows_nb(Y, lo, hi, w, float(total), rows, X, lams)
+    if Y.shape[1] >= LONG_ROW:
+        for r in rows:
+            lams[r] = capped_project_long(Y[r], lo, hi, w, float(total), X[r])
+    else:
+        _capped_rows_nb(Y, lo, hi, w, float(total), rows, X, lams)
     if data_scale is None:
         fin = np.concatenate([lo, hi[np.isfinite(hi)], [total]])
         data_scale = float(max(1.0, np.abs(fin).max()))

@@ -228,3 +228,12 @@ def test_small_cases_against_cvxpy_reference(spec):
     big = np.repeat(Y, 20, axis=0)                 # past NUMPY_SORT_ROWS: the NumPy-sort path
     np.testing.assert_array_equal(K.project(big)[::20], K.project(Y))
     np.testing.assert_array_equal(K.lmo(big)[::20], K.lmo(Y))
+
+
+def test_budget_jit_kernel_bit_identical_on_a_long_vector():
+    """K.jit_kernels().project runs the same long-row kernel as K.project (n >= LONG_ROW)."""
+    n = LONG_ROW + 10
+    rng = np.random.default_rng(9)
+    K = setkit.compile({"kind": "budget", "dim": n, "upper": rng.uniform(0.5, 2.0, n), "total": 0.3 * n})
+    y = rng.standard_normal(n)
+    assert np.array_equal(K.jit_kernels().project(y), K.project(y))
