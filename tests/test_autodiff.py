@@ -183,9 +183,9 @@ def test_torch_set_without_jacobian_products(torch, torch_project):
 
 def test_missing_framework_names_the_extra(monkeypatch):
     from setkit.autodiff import jax_project, torch_project
-    monkeypatch.setitem(sys.modules, "torch", None)
-    monkeypatch.setitem(sys.modules, "jax", None)
     K = setkit.compile({"kind": "simplex", "dim": 3})
+    monkeypatch.setitem(sys.modules, "torch", None)       # `import torch` now raises ImportError
+    monkeypatch.setitem(sys.modules, "jax", None)
     with pytest.raises(BackendUnavailableError, match=r'pip install "setkit\[torch\]"'):
         torch_project(K, np.zeros(3))
     with pytest.raises(BackendUnavailableError, match=r'pip install "setkit\[jax\]"'):

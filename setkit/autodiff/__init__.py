@@ -48,21 +48,48 @@ def _layer_module(framework: str):
 
 
 def torch_project(K, y, geometry: str = "euclidean", *, log_input: bool = False):
-    """Differentiable projection of a torch tensor onto K (a ``torch.autograd.Function``).
+    """Differentiable projection of a CPU torch tensor onto K (a ``torch.autograd.Function``).
 
-    .. math:: y \\mapsto P_K(y), \\qquad \\bar y = J_{P_K}(y)^\\top \\bar p
+    .. math:: p = P_K(y), \\qquad \\bar y = J_{P_K}(y)^\\top \\bar p
 
-    Forward: ``K.project(y, geometry=geometry, log_input=log_input)``; backward:
-    ``K.project_vjp`` with the incoming gradient. See
-    :func:`setkit.autodiff.torch_layer.torch_project` for the full description.
+    Parameters
+    ----------
+    K : setkit.DecisionSet
+        The compiled set (compile it once, outside the training loop).
+    y : torch.Tensor, shape (..., *K.shape), on the CPU
+        Points; leading axes are a batch; float32 or float64 (kept in the output).
+    geometry : {"euclidean", "kl"}
+        As in ``K.project``; ``"kl"`` needs y > 0 (or ``log_input=True``).
+    log_input : bool
+        With ``geometry="kl"``: y holds t = log y, and gradients are with respect to t.
 
-    Cost: one projection forward, one vector-Jacobian product backward (which recomputes
-    what it needs of the projection), plus a dtype conversion for float32 tensors.
+    Returns
+    -------
+    torch.Tensor of y's shape and dtype: forward ``K.project``, backward ``K.project_vjp``.
 
     Raises
     ------
     BackendUnavailableError
         When torch is not installed (install ``setkit[torch]``).
+    InputError
+        A tensor on another device than the CPU (no silent copies), not floating, of the wrong
+        trailing shape, not finite; an unknown geometry.
+
+    Notes
+    -----
+    Details (kinks, double backward, errors): :func:`setkit.autodiff.torch_layer.torch_project`.
+    Cost: one projection forward, one vector-Jacobian product backward (which recomputes what
+    it needs of the projection), plus a dtype conversion for float32 tensors.
+
+    Examples
+    --------
+    >>> import pytest, setkit
+    >>> torch = pytest.importorskip("torch")     # the example runs where the extra is installed
+    >>> K = setkit.compile({"kind": "simplex", "dim": 3})
+    >>> y = torch.tensor([0.9, 0.4, -0.2], dtype=torch.float64, requires_grad=True)
+    >>> torch_project(K, y)[0].backward()
+    >>> y.grad.tolist()
+    [0.5, -0.5, 0.0]
     """
     return _layer_module("torch").torch_project(K, y, geometry, log_input=log_input)
 
@@ -70,17 +97,43 @@ def torch_project(K, y, geometry: str = "euclidean", *, log_input: bool = False)
 def jax_project(K, y, geometry: str = "euclidean", *, log_input: bool = False):
     """Differentiable projection of a JAX array onto K (``jax.custom_vjp`` over ``jax.pure_callback``).
 
-    .. math:: y \\mapsto P_K(y), \\qquad \\bar y = J_{P_K}(y)^\\top \\bar p
+    .. math:: p = P_K(y), \\qquad \\bar y = J_{P_K}(y)^\\top \\bar p
 
-    Works under ``jax.jit``, ``jax.vmap`` and ``jax.grad``. See
-    :func:`setkit.autodiff.jax_layer.jax_project` for the full description.
+    Parameters
+    ----------
+    K : setkit.DecisionSet
+        The compiled set (compile it once, outside the function you transform).
+    y : jax.Array or array_like, shape (..., *K.shape), on the CPU
+        Points; leading axes are a batch; float32 or float64 (kept in the output).
+    geometry : {"euclidean", "kl"}
+        As in ``K.project``; ``"kl"`` needs y > 0 (or ``log_input=True``).
+    log_input : bool
+        With ``geometry="kl"``: y holds t = log y, and gradients are with respect to t.
 
-    Cost: one projection forward, one vector-Jacobian product backward, each through a
-    host callback (a copy of the batch in and out).
+    Returns
+    -------
+    jax.Array of y's shape and dtype: forward ``K.project``, backward ``K.project_vjp``.
 
     Raises
     ------
     BackendUnavailableError
         When jax is not installed (install ``setkit[jax]``).
+    InputError
+        A concrete array placed on another device than the CPU, not floating, of the wrong
+        trailing shape; an unknown geometry; non-finite values (eager calls).
+
+    Notes
+    -----
+    Works under ``jax.jit``, ``jax.vmap`` and ``jax.grad`` (reverse mode only). Details:
+    :func:`setkit.autodiff.jax_layer.jax_project`. Cost: one projection forward, one
+    vector-Jacobian product backward, each through a host callback (a copy in and out).
+
+    Examples
+    --------
+    >>> import pytest, setkit
+    >>> jax = pytest.importorskip("jax")         # the example runs where the extra is installed
+    >>> K = setkit.compile({"kind": "simplex", "dim": 3})
+    >>> [float(g) for g in jax.grad(lambda y: jax_project(K, y)[0])(jax.numpy.array([0.9, 0.4, -0.2]))]
+    [0.5, -0.5, 0.0]
     """
     return _layer_module("jax").jax_project(K, y, geometry, log_input=log_input)
