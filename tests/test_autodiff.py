@@ -63,6 +63,10 @@ def test_torch_gradcheck(name, compiled, torch, torch_project):
     K, scale = compiled[name], dict((s[0], s[2]) for s in SETS)[name]
     y = torch.tensor(_point(K, scale, seed=len(name)), dtype=torch.float64, requires_grad=True)
     assert torch.autograd.gradcheck(lambda t: torch_project(K, t), (y,), eps=1e-6, atol=1e-6, rtol=1e-4)
+    # the points exercise a proper face: the Jacobian (a projector on polyhedra, whose trace is the face
+    # dimension) is neither zero (vertices only) nor the identity (interior points only)
+    J = torch.autograd.functional.jacobian(lambda t: torch_project(K, t), y).reshape(y.numel(), y.numel())
+    assert 0.5 <= float(torch.trace(J)) <= y.numel() - 0.5
     # the forward pass is the set's projection, unchanged
     np.testing.assert_array_equal(torch_project(K, y).detach().numpy(), K.project(y.detach().numpy()))
 
