@@ -309,3 +309,18 @@ def test_jax_refuses_arrays_on_other_devices(jx):
     K = setkit.compile({"kind": "simplex", "dim": 3})
     with pytest.raises(InputError, match="placed on gpu.*CPU arrays only.*device_put"):
         jax_project(K, OnGpu())
+
+
+def test_jax_layer_cache_lets_sets_go(jx):
+    """The per-set cache of compiled layers does not keep a set alive once the caller drops it."""
+    import gc
+    import weakref
+    jax, jnp, _, jax_project = jx
+
+    def use_a_set():
+        K = setkit.compile({"kind": "simplex", "dim": 3})
+        jax.grad(lambda t: jax_project(K, t)[0])(jnp.asarray([0.9, 0.4, -0.2]))
+        return weakref.ref(K)
+    ref = use_a_set()
+    gc.collect()
+    assert ref() is None

@@ -77,13 +77,27 @@ def _layer(K, geometry: str, log_input: bool):
 
 
 def _build_layer(K, geometry: str, log_input: bool):
-    """The custom_vjp function y -> P_K(y) for one set and geometry."""
+    """The custom_vjp function y -> P_K(y) for one set and geometry.
+
+    The callbacks hold the set by a weak reference: the cache above is keyed weakly by the set,
+    and a strong reference from its values (or from JAX's caches of compiled callbacks) would
+    keep every set ever used alive.
+    """
     vjp_op = operators_for(geometry)[1]
+    set_ref = weakref.ref(K)
+    del K
+
+    def the_set():
+        K = set_ref()
+        if K is None:
+            raise InputError(f"{WHERE}: the set this function was traced with no longer exists; "
+                             f"keep a reference to K for as long as the function is used.")
+        return K
 
     def project_on_host(y):
         y = np.asarray(y)
         try:
-            P = K.project(y, geometry=geometry, log_input=log_input)
+            P = the_set().project(y, geometry=geometry, log_input=log_input)
         except SetkitError as exc:
             _ERRORS.remember(exc)
             raise
@@ -92,7 +106,7 @@ def _build_layer(K, geometry: str, log_input: bool):
     def vjp_on_host(y, g):
         y, g = np.broadcast_arrays(np.asarray(y), np.asarray(g))
         try:
-            U = K.project_vjp(y, g, geometry=geometry, log_input=log_input)
+            U = the_set().project_vjp(y, g, geometry=geometry, log_input=log_input)
         except SetkitError as exc:
             _ERRORS.remember(exc)
             raise
@@ -106,7 +120,7 @@ def _build_layer(K, geometry: str, log_input: bool):
         return project(y), y
 
     def backward(y, g):
-        check_route(K, vjp_op, WHERE)          # while tracing the backward pass: setkit's error, at once
+        check_route(the_set(), vjp_op, WHERE)  # while tracing the backward pass: setkit's error, at once
         return (jax.pure_callback(vjp_on_host, jax.ShapeDtypeStruct(y.shape, y.dtype), y, g, **_BATCHING),)
 
     project.defvjp(forward, backward)
