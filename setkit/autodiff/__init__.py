@@ -56,7 +56,7 @@ def torch_project(K, y, geometry: str = "euclidean", *, log_input: bool = False)
     ----------
     K : setkit.DecisionSet
         The compiled set (compile it once, outside the training loop).
-    y : torch.Tensor, shape (..., *K.shape), on the CPU
+    y : torch.Tensor, shape ``(..., *K.shape)``, on the CPU
         Points; leading axes are a batch; float32 or float64 (kept in the output).
     geometry : {"euclidean", "kl"}
         As in ``K.project``; ``"kl"`` needs y > 0 (or ``log_input=True``).
@@ -103,7 +103,7 @@ def jax_project(K, y, geometry: str = "euclidean", *, log_input: bool = False):
     ----------
     K : setkit.DecisionSet
         The compiled set (compile it once, outside the function you transform).
-    y : jax.Array or array_like, shape (..., *K.shape), on the CPU
+    y : jax.Array or array_like, shape ``(..., *K.shape)``, on the CPU
         Points; leading axes are a batch; float32 or float64 (kept in the output).
     geometry : {"euclidean", "kl"}
         As in ``K.project``; ``"kl"`` needs y > 0 (or ``log_input=True``).

@@ -147,7 +147,7 @@ def jax_project(K, y, geometry: str = "euclidean", *, log_input: bool = False):
     ----------
     K : setkit.DecisionSet
         The compiled set (compile it once, outside the function you transform).
-    y : jax.Array or array_like, shape (..., *K.shape), on the CPU
+    y : jax.Array or array_like, shape ``(..., *K.shape)``, on the CPU
         Points; leading axes are a batch. float32 (JAX's default) or float64 (with
         ``jax.config.update("jax_enable_x64", True)``); other floating dtypes are
         computed in float64 and rounded back.

@@ -89,7 +89,7 @@ def torch_project(K, y, geometry: str = "euclidean", *, log_input: bool = False)
     ----------
     K : setkit.DecisionSet
         The compiled set (compile it once, outside the training loop).
-    y : torch.Tensor, shape (..., *K.shape), on the CPU
+    y : torch.Tensor, shape ``(..., *K.shape)``, on the CPU
         Points; leading axes are a batch. float32 or float64 (other floating dtypes are
         computed in float64 and rounded back).
     geometry : {"euclidean", "kl"}
