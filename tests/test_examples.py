@@ -66,3 +66,24 @@ def test_jitted_learner():
     out = run_example("jitted_learner.py")
     assert "identical iterates: True" in out
     assert "in the set: True" in out
+
+
+def test_train_scorer(tmp_path):
+    """Gradient descent through the torch layer: both losses fall, the learned ranking and slots hold up out of sample."""
+    pytest.importorskip("torch")
+    pytest.importorskip("matplotlib")
+    png = tmp_path / "loss.png"
+    out = run_example("train_scorer.py", "--plot", str(png))
+    m = re.search(r"ranking: training loss: ([0-9.]+) -> ([0-9.]+)", out)
+    assert m and float(m.group(2)) < 0.2 * float(m.group(1))
+    m = re.search(r"ranking: held-out loss: ([0-9.]+) -> ([0-9.]+)", out)
+    assert m and float(m.group(2)) < 0.2 * float(m.group(1))
+    # Spearman's rho of the learned order against the observed one (scipy.stats.spearmanr), out of sample
+    rho0, rho = number(out, "held-out Spearman rho before training:"), number(out, "held-out Spearman rho after training:")
+    assert rho >= 0.9 and rho > rho0 + 0.3
+    m = re.search(r"slots: held-out loss: ([0-9.]+) -> ([0-9.]+)", out)
+    assert m and float(m.group(2)) < 0.2 * float(m.group(1))
+    assert number(out, "slots: held-out accuracy:") >= 0.9
+    assert number(out, "mean number of nonzero probabilities:") < 2.5          # sparse: most slots get exactly 0
+    assert "soft ranks inside the permutahedron: yes" in out and "probabilities inside the simplex: yes" in out
+    assert png.is_file() and png.stat().st_size > 10_000
