@@ -714,20 +714,21 @@ def check_kl_projection(K, seed: int = 0, points: int = 3, rtol: float = DEFAULT
     """Check the KL (Bregman) projection of ``K``: feasibility, the Bregman gap, the reference, batches.
 
     The projection checked is ``K.project(t, geometry="kl", log_input=True)``, the
-    minimizer over K of KL(x || y) = sum x log(x/y) - x + y with y = exp(t). On seeded
+    minimizer over K of ``KL(x || y) = sum x log(x/y) - x + y`` with ``y = exp(t)``. On seeded
     log-domain inputs (near the set, spread, all ties, and y about 1e-6 and 1e6), with
-    s = max(1, data scale) and scale(x) = max(1, |x|_inf):
+    ``s = max(1, data scale)`` and ``scale(x) = max(1, max_i abs(x_i))``:
 
     * feasibility: ``K.violation(x)`` (or the Euclidean distance when the set has no
       violation measure) at most ``gap_rtol * scale(x) * s`` for native routes, ``rtol * ...``
       for solver routes;
-    * KL first-order optimality: the Bregman gap <g, x - lmo(g)> with g = log x - t (an upper
-      bound on KL(x || y) - min_K KL(. || y), computed with the set's LMO) at most
-      ``tol * (1 + sum_i |g_i| (x_i + |v_i|))``, tol = gap_rtol (native) or rtol (solver routes);
+    * KL first-order optimality: the Bregman gap ``<g, x - lmo(g)>`` with ``g = log x - t`` (an
+      upper bound on ``KL(x || y) - min_K KL(. || y)``, computed with the set's LMO) at most
+      ``tol * (1 + sum_i abs(g_i) (x_i + abs(v_i)))``, v = lmo(g), tol = gap_rtol (native) or
+      rtol (solver routes);
     * agreement with the exponential-cone reference (cvxpy + Clarabel) on the first
-      ``reference_points`` inputs: |x - x_ref|_inf <= ``rtol * scale(x_ref) * s``; a larger
-      difference is accepted only when KL(x || y) <= KL(x_ref || y) and x passed the gap
-      check (the reference's own accuracy floor near faces);
+      ``reference_points`` inputs: ``max_i abs(x_i - x_ref_i) <= rtol * scale(x_ref) * s``; a
+      larger difference is accepted only when ``KL(x || y) <= KL(x_ref || y)`` and x passed the
+      gap check (the reference's own accuracy floor near faces);
     * fixed points: a positive answer x is its own projection (within the feasibility tolerance);
     * batches and input forms: a batched call equals the one-by-one calls, and
       ``K.project(exp(t), geometry="kl")`` equals the log-input call where exp(t) is
