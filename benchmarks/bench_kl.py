@@ -15,6 +15,9 @@ Rows (inputs are log-domain, t = log y):
 4. every native KL projection at dimension about 1000 against the exponential-cone
    reference (cvxpy + Clarabel) on the same point. Target: at least 1000x faster.
 
+The run without --quick and --only writes its table to benchmarks/bench_kl_last_run.txt, one
+line per row with the ratio and met/NO, then the rows that missed.
+
 The machine may be shared: only ratios of timings taken in the same run mean anything.
 Every answer is checked (feasibility, agreement with the comparator) before its time counts.
 """
@@ -140,7 +143,15 @@ REFERENCE_SETS = {
     "birkhoff": lambda n, rng: {"kind": "birkhoff", "n": int(round(n ** 0.5))},
     "transport": lambda n, rng: {"kind": "transport", "rows": [2.0] * 25, "cols": [1.25] * 40},
     "product": lambda n, rng: {"kind": "product", "of": [{"kind": "simplex", "dim": 100}], "copies": n // 100},
+    # the flow family's own benchmark instance (n edges on n/4 nodes); its KL route is dual Newton in Python
+    "flow": lambda n, rng: _flow_instance(n, rng),
 }
+
+
+def _flow_instance(n, rng):
+    from setkit.families import lookup
+    spec = lookup("flow").benchmark_example(n, rng)
+    return spec[0] if isinstance(spec, list) else spec
 
 
 def reference_rows(n, rng, names=None):
