@@ -4,7 +4,6 @@ from dataclasses import dataclass
 import numpy as np
 import pytest
 
-import setkit
 import setkit.testing as T
 from setkit.decision_set import DecisionSet
 from setkit.families import kernel

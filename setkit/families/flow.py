@@ -341,7 +341,7 @@ class Flow(NetworkFamily):
 
     @kernel("project_kl")
     def project_kl(self, T):
-        """Dual Newton (Levenberg-Marquardt damped, Armijo backtracking) on node potentials, to conservation residual 1e-10 x scale; one sparse solve per step."""
+        """Dual Newton on node potentials (damped, backtracking), to conservation residual 1e-10 x scale; a sparse solve per step."""
         from ..kernels.bregman import flow_kl, outside_orthant_error
         why = self.orthant_violation()
         if why:
