@@ -244,8 +244,8 @@ def test_bad_inputs_raise_setkit_errors():
         K.project_jvp([0.0, np.nan, 1.0], [1.0, 0.0, 0.0])
     with pytest.raises(InputError, match="y > 0"):
         K.project_jvp([0.2, 0.0, 0.5], [1.0, 0.0, 0.0], geometry="kl")
-    with pytest.raises(UnsupportedOperationError):   # no KL Jacobian for a permutahedron yet: a clear error
-        setkit.compile({"kind": "permutahedron", "weights": [3.0, 2.0, 1.0]}).project_jvp(
+    with pytest.raises(UnsupportedOperationError):   # no KL Jacobian for a hull (reference route): a clear error
+        setkit.compile({"kind": "hull", "points": [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0]]}).project_jvp(
             [0.2, 0.3, 0.5], [1.0, 0.0, 0.0], geometry="kl")
 
 

@@ -87,3 +87,27 @@ def test_train_scorer(tmp_path):
     assert number(out, "mean number of nonzero probabilities:") < 2.5          # sparse: most slots get exactly 0
     assert "soft ranks inside the permutahedron: yes" in out and "probabilities inside the simplex: yes" in out
     assert png.is_file() and png.stat().st_size > 10_000
+
+
+def test_mirror_descent(tmp_path):
+    png = tmp_path / "regret.png"
+    out = run_example("mirror_descent.py", "--out", str(png))
+    blocks = out.split("assignment:")
+    assert len(blocks) == 2
+    for block in blocks:
+        rounds = number(block, "rounds:")
+        for learner in ("EG", "OGD"):
+            regret, bound = number(block, f"{learner} regret:"), number(block, f"{learner} bound:")
+            # the fixed-horizon regret bounds of online mirror descent (entropy regularizer, Pinsker) and of
+            # projected gradient descent (Zinkevich, 2003) hold on every loss sequence
+            assert regret <= bound
+            assert regret >= -bound / rounds
+        assert number(block, "largest violation of a decision:") <= 1e-8
+    assert "all decisions inside the sets: yes" in out
+    order = re.search(r"EG final airtime order: (.+)", out).group(1).split(", ")
+    assert len(order) == 8 and len(set(order)) == 8
+    try:
+        import matplotlib  # noqa: F401
+    except ImportError:
+        return
+    assert png.exists() and png.stat().st_size > 10_000
