@@ -27,11 +27,13 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..forms import LinearForm
+from ..kernels.face import capped_face_rows
 from ..kernels.simplex import project_capped
+from ..kernels.structured_faces import ordered_partition_jvp
 from . import Family, kernel, memo, register
 from ._graph import fail_at
 from ._screen import screened_contains
-from .submodular_base import BasePolytopeMixin, PythonFunction, check_submodular
+from .submodular_base import MNP_FACE_RTOL, BasePolytopeMixin, PythonFunction, check_submodular
 
 
 @register("matroid_bases")
@@ -209,6 +211,30 @@ class MatroidBases(BasePolytopeMixin, Family):
             else:
                 X[:, g] = project_capped(np.ascontiguousarray(Y[:, g]), 0.0, 1.0, 1.0, float(q), "equal")
         return X
+
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """Face of the answer: per group v minus its mean on the free coordinates, 0 at the bounds, O(n); rank oracle: level-set means.
+
+        uniform / partition: the Jacobian is the projector onto {d_i = 0 where p_i is 0 or 1,
+        sum of d over the free part of each group = 0} (a coordinate exactly at a bound is fixed:
+        the smallest face). A rank oracle: the base polytope's face exposed by y - p, i.e. v minus
+        its mean on each level set of y - p (values within 1e-7 relative count as equal, the
+        accuracy of the minimum-norm-point answer).
+        """
+        V = np.ascontiguousarray(V, dtype=float)
+        if self.form == "rank":
+            P = self._mnp_project(Y)[0]
+            return ordered_partition_jvp(Y, P, V, MNP_FACE_RTOL)
+        P = self.project(Y)
+        out = np.zeros_like(V)
+        active = np.ones(Y.shape[0], dtype=np.bool_)
+        for g, q in zip(self.groups, self.quotas):
+            if 0 < q < g.size:
+                m = g.size
+                out[:, g] = capped_face_rows(np.ascontiguousarray(P[:, g]), np.ascontiguousarray(V[:, g]), np.zeros(m),
+                                             np.ones(m), np.ones(m), active, np.empty((Y.shape[0], m)))
+        return out
 
     @kernel("violation")
     def violation(self, X):

@@ -242,6 +242,42 @@ class Paths(NetworkFamily):
             P[bad] = project_rows(Y[bad], lambda c: vertices(c[None, :])[0], scale=1.0, label=self.label)[0]
         return P
 
+    @kernel("project_jvp", workspace=True)
+    def project_jvp(self, Y, V, ws):
+        """Flow face of the answer: v_F - B_F^T z, z by a sparse solve with the free edges' Laplacian (grounded per component), per point.
+
+        The path polytope is the unit-flow polytope {B x = e_s - e_t, 0 <= x <= 1}, so its Jacobian
+        is the flow family's active-constraint rule: the projector onto {d_i = 0 on edges at a
+        bound, B_F d_F = 0 on the free edges F}, i.e. v_F - B_F^T z with (B_F B_F^T) z = B_F v_F.
+        The Laplacian B_F B_F^T is singular once per connected component of the free edges; one
+        node of each is grounded (z = 0 there) and the rest solved by a sparse LU. Edges within
+        1e-9 of a bound count as at the bound (the smallest face).
+        """
+        from scipy.sparse.csgraph import connected_components
+        from scipy.sparse.linalg import splu
+        P = self.project(Y, ws)
+        V = np.asarray(V, dtype=float)
+        out = np.zeros_like(V)
+        B = self.network().incidence_matrix().tocsc()
+        n = B.shape[0]
+        for r in range(Y.shape[0]):
+            free = np.flatnonzero((P[r] > 1e-9) & (P[r] < 1.0 - 1e-9))
+            if free.size == 0:
+                continue
+            BF = B[:, free]
+            L = (BF @ BF.T).tocsr()
+            rhs = BF @ V[r, free]
+            ncomp, lab = connected_components(L, directed=False)
+            ground = np.zeros(n, bool)
+            ground[np.unique(lab, return_index=True)[1]] = True
+            keep = np.flatnonzero(~ground)
+            z = np.zeros(n)
+            if keep.size:
+                Lk = L[keep][:, keep].tocsc()
+                z[keep] = splu(Lk).solve(rhs[keep])
+            out[r, free] = V[r, free] - BF.T @ z
+        return out
+
     def _form_violation(self, X):
         return memo(self, "linear_form", self.linear_form).violation_x(X)
 

@@ -32,8 +32,10 @@ import scipy.sparse as sp
 
 from ..errors import DescriptionError, UnsupportedOperationError
 from ..forms import LinearForm
+from ..kernels.face import permutahedron_face
 from ..kernels.isotonic import project_permutahedron
 from ..kernels.minnorm import project_rows, uncertified_rows
+from ..kernels.structured_faces import ordered_partition_jvp
 from . import Family, kernel, memo, register
 from ._graph import fail_at, read_edges
 from ._screen import screened_contains
@@ -41,6 +43,9 @@ from ._screen import screened_contains
 EXHAUSTIVE_MAX = 16          # membership by enumerating subsets up to this many elements
 CHECK_EXHAUSTIVE_MAX = 12    # submodularity of a Python function checked on every pair up to this size
 CHECK_RANDOM = 300           # otherwise on this many random (S, i, j)
+# level sets of y - p closer than this (relative) count as one block of the face, for projections by
+# the minimum-norm-point method (its answers are certified to about this accuracy)
+MNP_FACE_RTOL = 1e-7
 
 
 def subset_masks(n):
@@ -498,6 +503,23 @@ class SubmodularBase(BasePolytopeMixin, Family):
                 P[bad] = self._mnp_project(Y[bad])[0]
             return P
         return self._mnp_project(Y)
+
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """Ordered-partition face: v minus its mean on each level set of y - p (concave: isotonic blocks), O(n log n) after the projection.
+
+        The face of B(F) exposed by u = y - p is {x : x(S) = F(S) for S = {u >= c}}; where p is in
+        its relative interior (almost every y) the projection is locally the projection onto its
+        affine hull, with tangent space {d : d(A) = 0 on each level set A of u}. Concave of
+        cardinality: the blocks of pool-adjacent-violators (exact; at a tie of adjacent blocks the
+        finer partition: the smallest face). Otherwise the minimum-norm-point answer's level sets,
+        values within 1e-7 relative counting as equal (a near tie is treated as a tie).
+        """
+        V = np.ascontiguousarray(V, dtype=float)
+        if isinstance(self.fn, ConcaveCardinality):
+            return permutahedron_face(Y, self._wd, V, mode=0)
+        P = self._mnp_project(Y)[0]
+        return ordered_partition_jvp(Y, P, V, MNP_FACE_RTOL)
 
     def project_min_norm_point(self, Y):
         """Wolfe's minimum-norm point on the greedy LMO for every form (an independent route for tests)."""
