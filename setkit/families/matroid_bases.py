@@ -27,6 +27,8 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..forms import LinearForm
+from ..kernels.base_kl import base_polytope_kl, partition_kl_jvp
+from ..kernels.bregman import budget_kl
 from ..kernels.face import capped_face_rows
 from ..kernels.simplex import project_capped
 from ..kernels.structured_faces import ordered_partition_jvp
@@ -234,6 +236,51 @@ class MatroidBases(BasePolytopeMixin, Family):
                 m = g.size
                 out[:, g] = capped_face_rows(np.ascontiguousarray(P[:, g]), np.ascontiguousarray(V[:, g]), np.zeros(m),
                                              np.ones(m), np.ones(m), active, np.empty((Y.shape[0], m)))
+        return out
+
+    def orthant_violation(self):
+        """None: every point of a matroid base polytope is in [0, 1]^n."""
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Capping per group: clip(y exp(-lam_j), 0, 1) summing to q_j (the capped-simplex rule), exact, expected O(n); a rank oracle: weighted min-norm point, KL-certified."""
+        if T.shape[0] == 0:
+            return T.copy()
+        if self.form == "rank":
+            total = float(self.fn.values(np.ones((1, self.n), bool))[0])
+            return base_polytope_kl(T, self.fn.greedy, total=total, bound=1.0, label=self.label)
+        X = np.empty_like(T)
+        for g, q in zip(self.groups, self.quotas):
+            if q == 0 or q == g.size:          # a single point: exact
+                X[:, g] = 0.0 if q == 0 else 1.0
+            else:
+                m = g.size
+                X[:, g] = budget_kl(np.ascontiguousarray(T[:, g]), np.zeros(m), np.ones(m), np.ones(m), float(q),
+                                    label=self.label)
+        return X
+
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """In log coordinates, per group on F = {0 < x < 1}: x_F (v_F - <x, v>_F / <x>_F), O(n); a rank oracle: softmax per block of the partition.
+
+        x_i = min(y_i exp(-lam_j), 1) with sum over group j equal to q_j: dx_i = x_i (dt_i - dlam_j)
+        on the free coordinates and dlam_j = <x, dt>_F / <x>_F; coordinates at 1 are fixed (one
+        exactly at 1 is treated as fixed: the smallest face).
+        """
+        X = self.project_kl(T)
+        X = X[0] if isinstance(X, tuple) else X
+        V = np.asarray(V, dtype=float)
+        if self.form == "rank":
+            return partition_kl_jvp(T, X, V)
+        out = np.zeros_like(V)
+        for g, q in zip(self.groups, self.quotas):
+            if 0 < q < g.size:
+                Xg = X[:, g]
+                XF = np.where((Xg > 0.0) & (Xg < 1.0), Xg, 0.0)
+                den = XF.sum(axis=1)
+                coef = np.divide(np.einsum("ij,ij->i", XF, V[:, g]), den, out=np.zeros_like(den), where=den > 0)
+                out[:, g] = XF * (V[:, g] - coef[:, None])
         return out
 
     @kernel("violation")

@@ -18,6 +18,7 @@ from numba import njit
 
 from ..errors import EmptySetError
 from ..forms import LinearForm
+from ..kernels.base_kl import base_polytope_kl, partition_kl_jvp
 from ..kernels.minnorm import project_rows
 from ..kernels.structured_faces import ordered_partition_jvp
 from . import Family, kernel, register
@@ -296,6 +297,30 @@ class SpanningTrees(Family):
         """
         P = self.project(Y)[0]
         return ordered_partition_jvp(Y, P, np.ascontiguousarray(V, dtype=float), MNP_FACE_RTOL)
+
+    def orthant_violation(self):
+        """None: every point of the spanning-tree polytope is >= 0."""
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Weighted minimum-norm point on the Kruskal LMO (Fujishige's lexicographically optimal base), polished on its ordered partition; KL-certified.
+
+        The KL projection onto a base polytope equals the minimizer of sum x_e^2 / y_e over it
+        (see setkit.kernels.base_kl), found by Wolfe's method on Kruskal with costs c / sqrt(y);
+        then x = (n - 1 split by the tight blocks) * softmax(t) per block. SolveError when the
+        KL certificate is above 1e-9 (n - 1).
+        """
+        if T.shape[0] == 0:
+            return T.copy()
+        return base_polytope_kl(T, self.lmo, total=float(self.n_nodes - 1), bound=1.0, label=self.label)
+
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """Softmax Jacobian on each block of the KL answer's ordered partition (log coordinates), O(m log m) after the projection."""
+        X = self.project_kl(T)
+        X = X[0] if isinstance(X, tuple) else X
+        return partition_kl_jvp(T, X, V)
 
     def _excess(self, X):
         n = self.n_nodes
