@@ -244,7 +244,7 @@ class MatroidBases(BasePolytopeMixin, Family):
 
     @kernel("project_kl")
     def project_kl(self, T):
-        """Capping per group: clip(y exp(-lam_j), 0, 1) summing to q_j (the capped-simplex rule), exact, expected O(n); a rank oracle: weighted min-norm point, KL-certified."""
+        """Capping per group: clip(y exp(-lam_j), 0, 1) summing to q_j, exact, expected O(n); rank oracle: weighted min-norm point, KL-certified."""
         if T.shape[0] == 0:
             return T.copy()
         if self.form == "rank":

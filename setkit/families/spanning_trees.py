@@ -304,7 +304,7 @@ class SpanningTrees(Family):
 
     @kernel("project_kl")
     def project_kl(self, T):
-        """Weighted minimum-norm point on the Kruskal LMO (Fujishige's lexicographically optimal base), polished on its ordered partition; KL-certified.
+        """Weighted minimum-norm point on the Kruskal LMO (lexicographically optimal base), polished on its ordered partition; KL-certified.
 
         The KL projection onto a base polytope equals the minimizer of sum x_e^2 / y_e over it
         (see setkit.kernels.base_kl), found by Wolfe's method on Kruskal with costs c / sqrt(y);

@@ -540,7 +540,7 @@ class SubmodularBase(BasePolytopeMixin, Family):
 
     @kernel("project_kl")
     def project_kl(self, T):
-        """Concave of cardinality: the permutahedron's KL pooling (exact); else weighted min-norm point on the greedy LMO, polished on its ordered partition, KL-certified.
+        """Concave of cardinality: the permutahedron's KL pooling (exact); else weighted min-norm point on the greedy LMO, polished, KL-certified.
 
         Raises the orthant error when B(F) has points with negative coordinates (e.g. a cut
         function, whose base polytope is symmetric about 0). Otherwise the KL projection equals
