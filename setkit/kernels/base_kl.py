@@ -20,12 +20,14 @@ greedy call with costs constant on the blocks, and inside a block x = mass * sof
 point replaces the minimum-norm point when the two agree (to 1e-6 relative) and its
 KL certificate (the Bregman Frank-Wolfe gap, :func:`setkit.kernels.bregman.kl_certificate`)
 is no larger. Rows whose log inputs spread over more than 30, or whose certificate is above
-``1e-9 * max(1, F(V))`` (plus the rounding level of its terms, 1e-13 n sum |log x - t| x), are solved by the decomposition algorithm (Fujishige 1980; Groenevelt
-1991, from memory) in the log domain, with the Euclidean minimum-norm point as its submodular
-minimization step; a row still above the accepted certificate raises SolveError.
+``1e-9 * max(1, F(V))`` (plus the rounding level of its terms, 1e-13 n sum |log x - t| x),
+are solved by the decomposition algorithm (Fujishige 1980; Groenevelt 1991, from memory)
+in the log domain, with the Euclidean minimum-norm point as its submodular minimization step;
+a row still above the accepted certificate raises SolveError.
 
 Cost per row: the minimum-norm point (one LMO call and O(n k^2) work per major cycle, k the
-corral size), then one sort and two LMO calls.
+corral size), then one sort and two LMO calls; the decomposition: up to n - 1 minimum-norm
+points on shrinking blocks.
 """
 from __future__ import annotations
 
