@@ -27,6 +27,9 @@ class ElasticBall(Family):
     LMO: x_i = -sign(c_i) (eta |c_i| - a)_+ / (1 - a) with eta from one sort (closed form on
     the active set); the vertex -(radius / a) sign(c_j) e_j when a = 1. Support: <c, -lmo(-c)>.
 
+    Derivatives: native and exact (implicit differentiation of the active constraint on the support;
+    project_vjp derived). KL geometry: refused, the set is not inside x >= 0.
+
     >>> import setkit
     >>> K = setkit.compile({"kind": "elastic_ball", "dim": 2, "mix": 1.0, "radius": 1.0})
     >>> K.project([2.0, 0.5]).round(12).tolist()

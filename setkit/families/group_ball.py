@@ -24,6 +24,9 @@ class GroupBall(Family):
     t_g / a_g; O(n). LMO: the whole radius on the group maximizing ||c_g|| / w_g, along -c_g;
     support: radius max_g ||c_g|| / w_g (the dual norm).
 
+    Derivatives: native and exact (group-wise radial scaling and the multiplier's implicit derivative;
+    project_vjp derived). KL geometry: refused, the ball is not inside x >= 0.
+
     >>> import setkit
     >>> K = setkit.compile({"kind": "group_ball", "groups": [[0, 1], [2]], "radius": 1.0})
     >>> K.project([3.0, 4.0, 0.5]).round(12).tolist()

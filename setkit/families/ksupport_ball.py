@@ -34,6 +34,9 @@ class KSupportBall(Family):
     rounding left it a few ulps out) and its distance to the exact projection is at the level
     of the rounding of nu. The Frank-Wolfe certificate of ``project(y, details=True)`` bounds it.
 
+    Derivatives: native (implicit differentiation of the KKT system on the answer's smooth piece, exact
+    at the computed answer; project_vjp derived). KL geometry: refused, the ball is not inside x >= 0.
+
     >>> import setkit
     >>> K = setkit.compile({"kind": "ksupport_ball", "dim": 3, "k": 2, "radius": 1.0})
     >>> float(K.support([3.0, -4.0, 1.0]))

@@ -48,6 +48,10 @@ class MatroidBases(BasePolytopeMixin, Family):
     exact from the bounds and sums. rank oracle: greedy LMO (n rank calls), Wolfe's minimum-norm
     point projection with a gap certificate, membership by subset enumeration (n <= 16).
 
+    Derivatives: native (uniform, partition: exact capped faces per group; rank oracle: level sets of
+    y - p). KL geometry: native (uniform, partition: capping per group, exact; rank oracle: weighted
+    minimum-norm point or the decomposition algorithm, KL-certified), with native KL Jacobians.
+
     >>> import setkit
     >>> K = setkit.compile({"kind": "matroid_bases", "form": "uniform", "dim": 4, "k": 2})
     >>> K.lmo([3.0, 1.0, 2.0, 4.0]).tolist()

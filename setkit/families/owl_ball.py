@@ -35,6 +35,9 @@ class OwlBall(Family):
     maximizing (sum of the k largest |c_i|) / W_k, W_k = w_1 + ... + w_k; support: radius times
     that maximum (the dual norm).
 
+    Derivatives: native and exact (project_jvp from the isotonic blocks of the answer; project_vjp
+    derived, the Jacobian being symmetric). KL geometry: refused, the ball is not inside x >= 0.
+
     >>> import setkit
     >>> K = setkit.compile({"kind": "owl_ball", "weights": [2.0, 1.0], "radius": 1.0})
     >>> K.project([3.0, -1.0]).round(12).tolist()

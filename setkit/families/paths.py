@@ -107,6 +107,9 @@ class Paths(NetworkFamily):
     Projection: dual Newton on node potentials (the flow kernel). LMO: shortest path by the
     recursion over a topological order, O(n + m) per direction (numba); with cycles, HiGHS simplex.
 
+    Derivatives: native and exact (the flow face: free edges, grounded Laplacian). KL geometry:
+    the generic exponential-cone reference (no native route yet; no KL Jacobian).
+
     >>> import setkit
     >>> K = setkit.compile({"kind": "paths", "edges": [["s", "a"], ["a", "t"], ["s", "t"]],
     ...                     "source": "s", "target": "t"})

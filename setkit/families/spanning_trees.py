@@ -139,6 +139,10 @@ class SpanningTrees(Family):
     when it does not reach it. Membership and violation: the subset constraints are checked by
     enumerating node subsets for graphs of at most 12 nodes, by n minimum cuts otherwise.
 
+    Derivatives: native (the ordered-partition face: level sets of y - p). KL geometry: native
+    (weighted minimum-norm point on Kruskal or the decomposition algorithm, KL-certified), with
+    native KL Jacobians.
+
     >>> import setkit
     >>> K = setkit.compile({"kind": "spanning_trees", "nodes": 3, "edges": [[0, 1], [1, 2], [0, 2]]})
     >>> K.lmo([1.0, 3.0, 2.0]).tolist()

@@ -367,6 +367,11 @@ class SubmodularBase(BasePolytopeMixin, Family):
     (exact); otherwise Wolfe's minimum-norm point on the greedy LMO with a gap certificate.
     Membership: exact by subset enumeration for n <= 16, else through the projection.
 
+    Derivatives: native (concave of cardinality: isotonic blocks, exact; otherwise the level sets of
+    y - p). KL geometry: native when B(F) lies in x >= 0 (else refused, e.g. a cut function): the
+    permutahedron's pooling for concave of cardinality, otherwise weighted minimum-norm point or the
+    decomposition algorithm, KL-certified; native KL Jacobians.
+
     >>> import setkit
     >>> K = setkit.compile({"kind": "submodular_base", "function": "concave_cardinality",
     ...                     "values": [0, 3, 5, 6]})
