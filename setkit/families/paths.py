@@ -108,7 +108,7 @@ class Paths(NetworkFamily):
     recursion over a topological order, O(n + m) per direction (numba); with cycles, HiGHS simplex.
 
     Derivatives: native and exact (the flow face: free edges, grounded Laplacian). KL geometry:
-    the generic exponential-cone reference (no native route yet; no KL Jacobian).
+    native, the flow family's dual Newton on node potentials (no KL Jacobian yet).
 
     >>> import setkit
     >>> K = setkit.compile({"kind": "paths", "edges": [["s", "a"], ["a", "t"], ["s", "t"]],
@@ -248,6 +248,13 @@ class Paths(NetworkFamily):
         if bad.any():
             P[bad] = project_rows(Y[bad], lambda c: vertices(c[None, :])[0], scale=1.0, label=self.label)[0]
         return P
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """KL projection onto the unit-flow polytope: the flow family's damped dual Newton on node potentials."""
+        from ..kernels.bregman import flow_kl
+        m = self.tail.size
+        return flow_kl(T, self.tail, self.head, np.zeros(m), np.ones(m), self.network().supply, self.label)
 
     @kernel("project_jvp", workspace=True)
     def project_jvp(self, Y, V, ws):

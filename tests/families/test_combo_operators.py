@@ -266,12 +266,14 @@ def test_kl_of_a_zero_radius_ball_is_the_origin():
 
 
 def test_paths_kl(rng):
-    # paths has no KL kernel of its own: the exponential-cone reference serves it (or a KL route the
-    # network families share, if one is added); the answer is in the set with a tiny KL certificate
+    # paths projects in KL natively with the flow family's dual Newton (unit supply, capacities 1);
+    # the answer is in the set with a tiny KL certificate and agrees with the exponential-cone reference
     K = setkit.compile(POLYTOPES["paths"])
-    assert K.routes()["project_kl"].provider in ("reference", "native")
+    assert K.routes()["project_kl"].provider == "native"
     t = rng.uniform(-1, 1, (2, K.dim))
     X = K.project(t, geometry="kl", log_input=True)
-    assert np.all(K.violation(X) <= 1e-6) and np.all(X >= -1e-9)
-    gap = kl_certificate(t, np.maximum(X, 0.0), lambda G: K.run("lmo", G)[0])
-    assert np.all(gap <= 1e-5)
+    assert np.all(K.violation(X) <= 1e-9) and np.all(X >= 0.0)
+    gap = kl_certificate(t, X, lambda G: K.run("lmo", G)[0])
+    assert np.all(gap <= 1e-9)
+    R = K.with_backends(project_kl="reference").project(t, geometry="kl", log_input=True)
+    assert np.abs(X - R).max() <= 1e-5
