@@ -26,6 +26,16 @@ computed block instead). dask is an optional extra: ``pip install "setkit[dask]"
 
 Complexity: that of the operator per block, plus dask's per-task overhead (about a millisecond
 per block on distributed): use blocks of thousands of rows.
+
+>>> import numpy as np, dask.array as da, setkit
+>>> K = setkit.compile({"kind": "simplex", "dim": 3})
+>>> P = K.project(da.from_array(2.0 * np.eye(3), chunks=(2, 3)))
+>>> type(P).__name__, P.chunks
+('Array', ((2, 1), (3,)))
+>>> P.compute().tolist()
+[[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]]
+>>> K.distance(da.from_array(2.0 * np.eye(3), chunks=(2, 3))).compute().round(6).tolist()
+[1.0, 1.0, 1.0]
 """
 from __future__ import annotations
 
@@ -43,7 +53,12 @@ VALUE_OPERATORS = ("distance", "support", "violation", "certificate", "value")
 
 
 def is_dask_array(a) -> bool:
-    """Whether ``a`` is a dask array (checked by type, without importing dask)."""
+    """Whether ``a`` is a dask array (checked by type, without importing dask).
+
+    >>> import numpy as np
+    >>> is_dask_array(np.zeros(3)), is_dask_array([1.0, 2.0])
+    (False, False)
+    """
     t = type(a)
     return t.__module__.startswith("dask.") and hasattr(t, "__dask_graph__") and hasattr(a, "chunks")
 
