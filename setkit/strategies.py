@@ -71,8 +71,11 @@ def strategies_for(kind: str) -> list[type]:
     Only the module declaring ``kind`` is imported (built-in strategies live beside their kind);
     strategies registered by other modules count once those are imported.
     """
-    from .families import lookup
-    lookup(kind)
+    from .families import builtin_index
+    module = builtin_index().get(kind)
+    if module is not None:                   # a node of an unregistered class has no module to import
+        import importlib
+        importlib.import_module(module)
     return sorted((c for c in list(_STRATEGIES.values()) if c.kind == kind), key=lambda c: (c.priority, c.name))
 
 
