@@ -78,7 +78,7 @@ def main(argv=None):
         f"{load()}")
     t0 = time.perf_counter()
     with LocalCluster(n_workers=2, processes=True, threads_per_worker=1, dashboard_address=None,
-                      env={"SETKIT_THREADS": "1"}) as cluster, Client(cluster) as client:
+                      env={"SETKIT_THREADS": "1"}) as cluster, Client(cluster):
         startup = time.perf_counter() - t0
         say(f"cluster: 2 worker processes x 1 thread, started in {startup:.1f} s (not counted below)")
         say(f"{'workload':<28} {'batch':>14} {'blocks':>6} {'in-process':>11} {'dask':>10} {'rows/s here':>12} "
@@ -117,7 +117,6 @@ def main(argv=None):
             nblocks = len(D.chunks[0])
             say(f"{name:<28} {str(Y.shape):>14} {nblocks:>6} {h:10.3f}s {r:9.3f}s {b / h:12.0f} {b / r:12.0f} "
                 f"{h / r:8.2f}x  yes ({how})")
-            del D
         say(f"({load()}; medians of {repeats} interleaved repeats; dask/here > 1 means the cluster was faster)")
     if a.out:
         with open(a.out, "w") as fh:
