@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import AccuracyWarning, InputError, SolveError
+from .errors import AccuracyWarning, InputError, SetkitError, SolveError
 from .routing import build_plan, check_nonempty
 
 
@@ -769,8 +769,34 @@ class DecisionSet:
             raise SolveError(f"centered: the centroid of {self.node.label} has shape {c.shape}; expected {self.shape}.")
         from .combinators.affine import translated
         label = self.node.name or self.node.kind
-        node = translated(self.node, -c.reshape(-1), name=f"{label} centered ({measure})")
+        node = translated(self.node, -c.reshape(-1), name=f"{label} centered ({measure})",
+                          orthant_note=self._centered_orthant_note(c.reshape(-1), measure))
         return DecisionSet(node, loose=self._loose)
+
+    def _centered_orthant_note(self, c, measure):
+        """Why K - centroid leaves x >= 0 (the KL geometry's domain), or "" for a one-point set.
+
+        The centroid c lies in the relative interior of K, so unless K is the single point c, a
+        coordinate that varies over K takes values below its mean c_i: K - c holds a point with
+        a negative coordinate. One LMO call in a seeded random direction tells the cases apart
+        (its answer differs from c unless K = {c}, with probability one).
+        """
+        g = np.random.default_rng(13).standard_normal(self.dim)
+        try:
+            v, _ = self._run("lmo", g[None, :])
+        except SetkitError:
+            v = None
+        if v is not None and np.abs(v[0] - c).max() <= 1e-12 * max(1.0, float(np.abs(c).max())):
+            return ""
+        if v is not None:
+            i = int(np.argmax(c - v[0]))
+            detail = (f"e.g. coordinate {i} of the vertex {v[0][i]:.6g} minus the centroid "
+                      f"{c[i]:.6g} is {v[0][i] - c[i]:.6g}")
+        else:
+            detail = "the set is not a single point"
+        return (f"it is {self.node.label} translated by minus its {measure} centroid (a centered set), so "
+                f"every coordinate that varies over the set takes negative values ({detail}). For mirror "
+                f"descent, project onto the set itself with geometry='kl' and subtract the centroid afterwards")
 
     def sample(self, k: int, measure: str = "volume", rng=None, **kw):
         """k points of the set drawn from ``measure`` (seeded by ``rng``); shape (k,) + K.shape.
@@ -793,6 +819,8 @@ class DecisionSet:
         t <= δ and t - δ/2 beyond (the Moreau envelope, gradient G (x - P_K x)/max(d, δ));
         ``"ball"``: P = E_u[G d(x + δu)], u uniform in the unit ball (seeded estimate with
         standard errors). ``width`` is δ. Returns an object with ``value(x)`` and ``grad(x)``.
+        ``geometry="kl"`` (keyword): P = G min_{z in K} KL(z || x) on x > 0, gradient
+        G (1 - q(x)/x) with q the KL projection; no smoothing applies (see setkit.penalty).
 
         Examples
         --------
