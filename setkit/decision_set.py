@@ -73,6 +73,11 @@ _F64 = np.dtype(np.float64)
 GEOMETRIES = ("euclidean", "kl")
 
 
+def _is_dask(a) -> bool:
+    """Whether a is a dask array (by its type's module: dask is not imported for this)."""
+    return type(a).__module__[:5] == "dask." and hasattr(a, "chunks")
+
+
 def kl_divergence(X, T):
     """Generalized relative entropy KL(x || y) = sum x log(x/y) - x + y per row, from t = log y (0 log 0 = 0)."""
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
@@ -349,6 +354,13 @@ class DecisionSet:
         v = np.asarray(v)
         return v.reshape(lead)[()] if lead == () else v.reshape(lead)
 
+    # -- dask arrays: lazy block-by-block calls (setkit.chunked) -----------------------------------
+    def _lazy(self, op, arrays, details=False, out_kind="points", **kw):
+        from . import chunked
+        if details:
+            raise chunked.no_details(self, op)
+        return chunked.lazy_call(self, op, arrays, kw=kw, out_kind=out_kind)
+
     # -- dispatch ------------------------------------------------------------------------------
     def _run(self, op, X, tol=None):
         return self._plan.run(op, X, tol)
@@ -425,11 +437,15 @@ class DecisionSet:
         [[1.0, 0.0], [0.5, 0.5]]
         """
         if geometry != "euclidean" and self._geometry(geometry, "project") == "kl":
+            if _is_dask(y):
+                return self._lazy("project", [(y, "y")], details, geometry="kl", log_input=log_input)
             return self._kl_project(y, details, log_input)[0]
         if not details:
             P = self._fast("project", y)
             if P is not None:
                 return P.reshape(self._shape)
+        if _is_dask(y):
+            return self._lazy("project", [(y, "y")], details)
         Y, lead = self._batch(y, "y", "project")
         t0 = time.perf_counter()
         P, info = self._run("project", Y)
@@ -453,17 +469,23 @@ class DecisionSet:
         5.0
         """
         if geometry != "euclidean" and self._geometry(geometry, "distance") == "kl":
+            if _is_dask(y):
+                return self._lazy("distance", [(y, "y")], out_kind="values", geometry="kl", log_input=log_input)
             _, T, X, lead = self._kl_project(y, False, log_input, "distance")
             return self._out_values(kl_divergence(X, T), lead)
         d = self._fast("distance", y)
         if d is not None:
             return d[0] if type(d) is np.ndarray and d.shape == (1,) else self._out_values(d, ())
+        if _is_dask(y):
+            return self._lazy("distance", [(y, "y")], out_kind="values")
         Y, lead = self._batch(y, "y", "distance")
         d, _ = self._run("distance", Y)
         return self._out_values(d, lead)
 
     def _jacobian_product(self, op, y, w, wname, geometry, log_input):
         g = self._geometry(geometry, op)
+        if _is_dask(y):
+            return self._lazy(op, [(y, "y"), (w, wname)], geometry=g, log_input=log_input)
         if g == "kl":
             T, lead = self._log_input(y, "y", op, log_input)
         else:
@@ -522,6 +544,8 @@ class DecisionSet:
             L = self._fast("lmo", c)
             if L is not None:
                 return L.reshape(self._shape)
+        if _is_dask(c):
+            return self._lazy("lmo", [(c, "c")], details)
         C, lead = self._batch(c, "c", "lmo")
         t0 = time.perf_counter()
         L, info = self._run("lmo", C)
@@ -547,6 +571,8 @@ class DecisionSet:
         v = self._fast("support", c)
         if v is not None:
             return v[0] if type(v) is np.ndarray and v.shape == (1,) else self._out_values(v, ())
+        if _is_dask(c):
+            return self._lazy("support", [(c, "c")], out_kind="values")
         C, lead = self._batch(c, "c", "support")
         # sigma(c) = -min <-c, x>
         v, _ = self._run("support", C)
@@ -586,6 +612,9 @@ class DecisionSet:
                     if type(v) is np.ndarray and v.shape == (1,):
                         return v.astype(bool, copy=False)[0]
                     return self._out_values(np.asarray(v, dtype=bool), ())
+        if _is_dask(x):
+            from . import chunked
+            return chunked.lazy_call(self, "contains", [(x, "x")], out_kind="flags", tol=tol)
         X, lead = self._batch(x, "x", "contains")
         if tol is None:
             t = self._default_tol(X)
@@ -609,6 +638,8 @@ class DecisionSet:
         >>> float(setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}).violation([1.5, 0.5]))
         0.5
         """
+        if _is_dask(x):
+            return self._lazy("violation", [(x, "x")], out_kind="values")
         X, lead = self._batch(x, "x", "violation")
         if self._routes["violation"].provider == "none":
             return self._out_values(np.full(X.shape[0], np.nan), lead)
@@ -628,6 +659,8 @@ class DecisionSet:
         >>> float(K.certificate([2.0, 0.0], K.project([2.0, 0.0])))
         0.0
         """
+        if _is_dask(y):
+            return self._lazy("certificate", [(y, "y"), (p, "p")], out_kind="values")
         Y, lead = self._batch(y, "y", "certificate")
         P, _ = self._batch(p, "p", "certificate")
         return self._out_values(self._gap(Y, P), lead)

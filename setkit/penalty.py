@@ -39,6 +39,7 @@ from typing import Any
 
 import numpy as np
 
+from .chunked import is_dask_array, lazy_call, no_details
 from .errors import InputError, UnsupportedOperationError
 
 SMOOTHINGS = (None, "moreau", "ball")
@@ -221,6 +222,12 @@ class DistancePenalty:
         g_se = pg.std(axis=1, ddof=1) / math.sqrt(h) if h > 1 else np.full((b, dim), np.nan)
         return v, v_se, g, g_se
 
+    def _lazy(self, op, x, details, out_kind):
+        """A dask array in: the penalty block by block, lazily (setkit.chunked); this penalty is shipped once."""
+        if details:
+            raise no_details(self.K, f"penalty.{op}")
+        return lazy_call(self.K, op, [(x, "x")], target=self, out_kind=out_kind)
+
     def _estimator(self, what):
         if self.geometry == "kl":
             return ("exact: G*KL(q(x) || x), q the KL projection" if what == "value"
@@ -273,6 +280,8 @@ class DistancePenalty:
         >>> round(float(est.estimate), 12), est.samples     # d is affine on that ball: the mean is exact
         (3.0, 64)
         """
+        if is_dask_array(x):
+            return self._lazy("value", x, details, "values")
         X, lead = self.K.flatten(x, "x", "penalty.value")
         v, se, _, _ = self._compute(X, False)
         out = self.K.unflatten_values(v, lead)
@@ -316,6 +325,8 @@ class DistancePenalty:
         >>> K.penalty(3.0, "moreau", width=2.0).grad([2.0, 0.5]).tolist()
         [1.5, 0.0]
         """
+        if is_dask_array(x):
+            return self._lazy("grad", x, details, "points")
         X, lead = self.K.flatten(x, "x", "penalty.grad")
         _, _, g, gse = self._compute(X, True)
         out = self.K.unflatten_points(g, lead)
@@ -351,6 +362,8 @@ class DistancePenalty:
         >>> float(v), g.tolist()
         (3.0, [3.0, 0.0])
         """
+        if is_dask_array(x):      # two lazy arrays (each block is projected once for each)
+            return self._lazy("value", x, False, "values"), self._lazy("grad", x, False, "points")
         X, lead = self.K.flatten(x, "x", "penalty.value_and_grad")
         v, _, g, _ = self._compute(X, True)
         return self.K.unflatten_values(v, lead), self.K.unflatten_points(g, lead)
