@@ -246,8 +246,41 @@ class NuclearBall(Family):
         q = min(q, k)
         return U[:, :, :q], t[:, None] * sp[:, :q], Vt[:, :q, :]
 
+    # -- the KL geometry --------------------------------------------------------------------------
+    def orthant_violation(self):
+        """Why the set is not inside the nonnegative orthant (radius > 0), None for the set {0}."""
+        if self.radius == 0.0:
+            return None
+        return (f"matrix entries of its points can be negative: -radius e1 e1^T (entry [0, 0] = {-self.radius:.6g}) "
+                f"is in the nuclear-norm ball")
+
     # -- exact knowledge for setkit.measures ------------------------------------------------------
     def exact_centroid(self, measure):
         """The zero matrix for every measure: the set, its extreme points and the law of lmo(g) are
         symmetric under X -> -X."""
         return np.zeros(self.shape)
+
+    def exact_sample(self, k, measure, rng):
+        """vertices and directions: radius u v^T with u, v independent and uniform on their unit
+        spheres. The extreme points are the matrices radius u v^T; the law of lmo(g) = -radius u1 v1^T
+        for a Gaussian g is invariant under X -> P X Q^T (P, Q orthogonal), and so is the product of the
+        uniform laws; an invariant law on that orbit is unique, so both measures are this one.
+        volume: exact only for a single row or column (an l2 ball: a uniform direction times
+        radius U^(1/dim)); None for larger matrices (no exact sampler is known to us: hit-and-run)."""
+        m, n, r = self.rows, self.cols, self.radius
+        if measure in ("vertices", "directions"):
+            u = rng.standard_normal((k, m))
+            v = rng.standard_normal((k, n))
+            u /= np.linalg.norm(u, axis=1, keepdims=True)
+            v /= np.linalg.norm(v, axis=1, keepdims=True)
+            return r * np.einsum("bi,bj->bij", u, v).reshape(k, m * n)
+        if measure == "volume" and min(m, n) == 1:
+            return sphere_ball_draws(k, m * n, r, rng)
+        return None
+
+
+def sphere_ball_draws(k, d, r, rng):
+    """k uniform points of the Euclidean ball of radius r in R^d: a uniform direction times r U^(1/d), O(k d)."""
+    Z = rng.standard_normal((k, d))
+    Z /= np.linalg.norm(Z, axis=1, keepdims=True)
+    return r * Z * rng.random((k, 1)) ** (1.0 / d)

@@ -7,7 +7,7 @@ import numpy as np
 
 from ..kernels.spectral import pow2_scales, singular_map_jvp, svd_stack
 from . import Family, kernel, register
-from .nuclear_ball import read_matrix_ball
+from .nuclear_ball import read_matrix_ball, sphere_ball_draws
 
 
 @register("spectral_ball")
@@ -190,6 +190,35 @@ class SpectralBall(Family):
             return -U, np.full((b, k), self.radius), Vt
         return U, np.minimum(t[:, None] * s, self.radius), Vt
 
+    def orthant_violation(self):
+        """Why the set is not inside the nonnegative orthant (radius > 0), None for the set {0}."""
+        if self.radius == 0.0:
+            return None
+        return (f"matrix entries of its points can be negative: -radius e1 e1^T (entry [0, 0] = {-self.radius:.6g}) "
+                f"is in the operator-norm ball")
+
     def exact_centroid(self, measure):
         """The zero matrix for every measure (the set and its extreme points are symmetric under X -> -X)."""
         return np.zeros(self.shape)
+
+    def exact_sample(self, k, measure, rng):
+        """vertices and directions: radius Q with Q uniform (Haar) among the m x n matrices whose
+        singular values are all 1, drawn as the Q factor of a Gaussian matrix with the signs of R's
+        diagonal moved into Q (Mezzadri, "How to generate random matrices from the classical compact
+        groups", 2007; from memory). Those matrices times the radius are the extreme points, and the
+        law of lmo(g) = -radius polar(g) is invariant under X -> P X Q^T, hence the same Haar law.
+        volume: exact only for a single row or column (an l2 ball); None otherwise (hit-and-run)."""
+        m, n, r = self.rows, self.cols, self.radius
+        if measure in ("vertices", "directions"):
+            tall = m >= n
+            G = rng.standard_normal((k, m, n) if tall else (k, n, m))
+            Q, R = np.linalg.qr(G)
+            d = np.sign(np.diagonal(R, axis1=1, axis2=2))
+            d[d == 0.0] = 1.0
+            Q = Q * d[:, None, :]
+            if not tall:
+                Q = np.swapaxes(Q, 1, 2)
+            return r * Q.reshape(k, m * n)
+        if measure == "volume" and min(m, n) == 1:
+            return sphere_ball_draws(k, m * n, r, rng)
+        return None

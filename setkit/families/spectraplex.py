@@ -243,6 +243,14 @@ class Spectraplex(Family):
         Vq = V[:, :, ::-1][:, :, :q]
         return Vq, t[:, None] * lp[:, ::-1][:, :q], np.swapaxes(Vq, 1, 2)
 
+    # -- the KL geometry --------------------------------------------------------------------------
+    def orthant_violation(self):
+        """Why the set is not inside the nonnegative orthant (n >= 2 and trace > 0), else None."""
+        if self.n == 1 or self.trace == 0.0:
+            return None
+        return (f"off-diagonal entries of its points can be negative: (t/2)(e1 - e2)(e1 - e2)^T is in the "
+                f"spectraplex with entry [0, 1] = {-self.trace / 2:.6g}")
+
     # -- exact knowledge for setkit.measures ------------------------------------------------------
     def exact_centroid(self, measure):
         """Closed forms by orthogonal invariance (X -> Q X Q^T keeps the set and each measure, so the
@@ -255,4 +263,24 @@ class Spectraplex(Family):
         if measure == "volume":
             D = n * (n + 1) / 2
             return np.eye(n) * (t * D / ((D + 1) * n))
+        return None
+
+    def exact_sample(self, k, measure, rng):
+        """mode equal, vertices and directions: t v v^T with v uniform on the unit sphere. The extreme
+        points are t v v^T; lmo(g) = t v v^T for the eigenvector v of the smallest eigenvalue of
+        sym(g), whose law is invariant under v -> Q v for a Gaussian g, hence uniform. n = 1: the set is
+        {t} (equal) or [0, t] (at_most, volume: uniform). None otherwise: at_most with vertices (the
+        extreme points mix the atom 0 with the sphere) or directions (the generic route draws lmo(g)
+        exactly), and volume for n >= 2 (no exact sampler is known to us: hit-and-run)."""
+        n, t = self.n, self.trace
+        if n == 1:
+            if self.mode == "equal":
+                return np.full((k, 1), t)
+            if measure == "volume":
+                return t * rng.random((k, 1))
+            return None
+        if self.mode == "equal" and measure in ("vertices", "directions"):
+            v = rng.standard_normal((k, n))
+            v /= np.linalg.norm(v, axis=1, keepdims=True)
+            return t * np.einsum("bi,bj->bij", v, v).reshape(k, n * n)
         return None
