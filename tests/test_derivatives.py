@@ -21,8 +21,8 @@ UNSUPPORTED = {
     # a matrix image M K + s: its linear form carries the part's coordinates as auxiliaries
     ("affine", 1), ("affine", 2),
 }
-UNSUPPORTED_KINDS = {"elastic_ball", "group_ball", "ksupport_ball", "nuclear_ball", "owl_ball", "spanning_trees",
-                     "spectral_ball", "spectraplex", "submodular_base"}
+UNSUPPORTED_KINDS = {"elastic_ball", "group_ball", "ksupport_ball", "owl_ball", "spanning_trees",
+                     "submodular_base"}
 
 
 def _examples():

@@ -167,7 +167,7 @@ class NuclearBall(Family):
         """-radius u1 v1^T for the top singular pair of C: dense SVD up to 120 per side, else Lanczos (value within 1e-9 relative, measured residual)."""
         b = C.shape[0]
         us, vs, nonzero, methods, _ = self._top_pairs(C)
-        out = -self.radius * np.einsum("bi,bj->bij", us, vs).reshape(b, -1)
+        out = -self.radius * np.einsum("bi,bj->bij", us, vs).reshape(b, self.rows * self.cols)
         out[~nonzero] = 0.0
         return out, {"status": ["solved"] * b, "backend_status": methods, "iterations": [0] * b}
 
