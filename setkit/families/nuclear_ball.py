@@ -164,7 +164,7 @@ class NuclearBall(Family):
 
     @kernel("lmo")
     def lmo(self, C):
-        """-radius u1 v1^T for the top singular pair of C: dense SVD up to 120 per side, else Lanczos (value within 1e-9 relative, measured residual)."""
+        """-radius u1 v1^T for the top singular pair of C: dense SVD up to 120 per side, else Lanczos (value within 1e-9 relative)."""
         b = C.shape[0]
         us, vs, nonzero, methods, _ = self._top_pairs(C)
         out = -self.radius * np.einsum("bi,bj->bij", us, vs).reshape(b, self.rows * self.cols)
