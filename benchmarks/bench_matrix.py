@@ -125,7 +125,7 @@ def main(argv=None):
         import platform
         head = (f"# python -m benchmarks.bench_matrix {' '.join(argv if argv is not None else sys.argv[1:])}, "
                 f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}, {platform.node() or 'this machine'}; "
-                f"load average before the run {os.getloadavg()[0]:.1f} (2 cores shared with other jobs: absolute "
+                f"load average at the end of the run {os.getloadavg()[0]:.1f} (2 cores shared with other jobs: absolute "
                 f"times are inflated, each ratio is timed interleaved)\n")
         with open(a.log, "w") as f:
             f.write(head + out + "\n")

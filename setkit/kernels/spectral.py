@@ -183,7 +183,7 @@ def top_singular_triplet(C: np.ndarray):
             if bound <= VALUE_RTOL * sv:
                 if A is not C:
                     u, v = v, u
-                return u, sv, v, res, f"{how} (basis {dim}), value error <= {bound:.1e}"
+                return u, sv, v, res, f"{how} (basis {dim}), value error <= {bound / sv:.1e} relative"
     U, s, Vt = svd_stack(C[None])
     u, v = U[0, :, 0], Vt[0, 0]
     sv = float(s[0, 0])
@@ -225,7 +225,7 @@ def extreme_eigenpair(S: np.ndarray, largest: bool):
             th2 = float(lam[1]) if np.isfinite(lam[1]) else -np.inf
             bound = _value_bound(res, th, th2, float(r[1]) + 1e-6 * scale)
             if bound <= VALUE_RTOL * scale:
-                return sign * th, v, res, f"{how} (basis {dim}), value error <= {bound:.1e}"
+                return sign * th, v, res, f"{how} (basis {dim}), value error <= {bound / scale:.1e} of the spectral scale"
     w, V = eigh_stack(S[None])
     j = -1 if largest else 0
     lam, v = float(w[0, j]), V[0, :, j]
