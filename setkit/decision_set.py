@@ -525,6 +525,55 @@ class DecisionSet:
         """Vector-Jacobian product of the projection: J(y)^T u (see :meth:`project_jvp`)."""
         return self._jacobian_product("project_vjp", y, u, "u", geometry, log_input)
 
+    def project_factors(self, y):
+        """The projection of a matrix set in factored form: (U, s, Vt) with project(y) = U diag(s) Vt.
+
+        Offered by the spectral families (nuclear_ball and spectraplex return only the kept
+        singular values / eigenvalues, so q is the answer's rank, padded with zero values to the
+        largest rank in a batch; spectral_ball returns its full thin SVD). Shapes:
+        lead + (m, q), lead + (q,), lead + (q, n). Same cost and accuracy as ``project``; always
+        the family's own kernel (``with_backends`` does not apply).
+
+        Examples
+        --------
+        >>> import setkit
+        >>> K = setkit.compile({"kind": "nuclear_ball", "rows": 2, "cols": 2, "radius": 1.0})
+        >>> U, s, Vt = K.project_factors([[3.0, 0.0], [0.0, 1.0]])
+        >>> s.tolist(), (U * s) @ Vt
+        ([1.0], array([[1., 0.],
+               [0., 0.]]))
+        """
+        return self._factors("project", y, "y")
+
+    def lmo_factors(self, c):
+        """The LMO answer of a matrix set in factored form: (U, s, Vt) with lmo(c) = U diag(s) Vt.
+
+        nuclear_ball: (-u1, [radius], v1^T), spectraplex: (v, [trace], v^T) (rank one; a zero
+        value where the answer is 0), spectral_ball: (-U, radius, Vt). Shapes as in
+        :meth:`project_factors`. Saves forming an m x n matrix in Frank-Wolfe loops.
+
+        Examples
+        --------
+        >>> import setkit
+        >>> K = setkit.compile({"kind": "spectraplex", "n": 2})
+        >>> U, s, Vt = K.lmo_factors([[1.0, 0.0], [0.0, -1.0]])
+        >>> s.tolist(), abs(U[:, 0]).tolist()
+        ([1.0], [0.0, 1.0])
+        """
+        return self._factors("lmo", c, "c")
+
+    def _factors(self, op, y, argname):
+        X, lead = self._batch(y, argname, op + "_factors")
+        out = self.node.factored(op, X)
+        if out is None:
+            from .errors import UnsupportedOperationError
+            raise UnsupportedOperationError(
+                f"{op}_factors on {self.node.label}: this set offers no factored form (the spectral families "
+                f"nuclear_ball, spectral_ball and spectraplex do); call {op}(...) for the dense answer.")
+        U, s, Vt = (np.asarray(a, dtype=float) for a in out)
+        lead = tuple(lead)
+        return U.reshape(lead + U.shape[1:]), s.reshape(lead + s.shape[1:]), Vt.reshape(lead + Vt.shape[1:])
+
     def lmo(self, c, details: bool = False):
         """Linear minimization oracle: a minimizer of a linear function over the set.
 

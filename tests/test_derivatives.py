@@ -21,7 +21,7 @@ UNSUPPORTED = {
     # a matrix image M K + s: its linear form carries the part's coordinates as auxiliaries
     ("affine", 1), ("affine", 2),
 }
-UNSUPPORTED_KINDS = {"nuclear_ball", "spectral_ball", "spectraplex"}
+UNSUPPORTED_KINDS: set = set()   # every family serves project_jvp / project_vjp
 
 
 def _examples():

@@ -177,6 +177,15 @@ class Family:
         """
         return NotImplemented
 
+    def factored(self, op: str, X):
+        """Low-rank answers of a matrix set in factored form, or None when the family offers none.
+
+        ``op`` is "project" or "lmo", ``X`` a flat (b, dim) batch; returns (U (b, m, q), s (b, q),
+        Vt (b, q, n)) with answer_i = U_i diag(s_i) Vt_i (read by DecisionSet.project_factors and
+        lmo_factors).
+        """
+        return None
+
     def new_workspace(self):
         """A fresh per-thread workspace for kernels marked ``@kernel(op, workspace=True)``, or None."""
         return None
