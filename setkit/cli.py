@@ -757,8 +757,9 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--out", required=True, metavar="FILE", help="the picture: a .png or .svg file")
     d.add_argument("--at", metavar="JSON", help="the centre of the sample points (default: the centroid)")
     d.add_argument("--axes", default="0,1", help="the two coordinates drawn, e.g. '0,1' or '2,5' (default 0,1)")
-    d.add_argument("--mode", choices=("shadow",), default="shadow",
-                   help="higher dimensions: the shadow (orthogonal projection) of the set on the two axes")
+    d.add_argument("--mode", choices=("shadow", "slice"), default="shadow",
+                   help="higher dimensions: 'shadow' (orthogonal projection of the set on the two axes) or "
+                        "'slice' (the points of the set that agree with --at on every other coordinate)")
     d.add_argument("--points", type=int, default=6, help="sample points whose projections are drawn; >= 1")
     d.add_argument("--seed", type=int, default=0, help="seed of the sample points")
     d.add_argument("--measure", default="volume", choices=("volume", "vertices", "directions"),

@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import AccuracyWarning, InputError, SolveError
+from .errors import AccuracyWarning, InputError, SetkitError, SolveError
 from .routing import build_plan, check_nonempty
 
 
@@ -71,6 +71,11 @@ def _finite_max_abs(a):
 
 _F64 = np.dtype(np.float64)
 GEOMETRIES = ("euclidean", "kl")
+
+
+def _is_dask(a) -> bool:
+    """Whether a is a dask array (by its type's module: dask is not imported for this)."""
+    return type(a).__module__[:5] == "dask." and hasattr(a, "chunks")
 
 
 def kl_divergence(X, T):
@@ -349,6 +354,13 @@ class DecisionSet:
         v = np.asarray(v)
         return v.reshape(lead)[()] if lead == () else v.reshape(lead)
 
+    # -- dask arrays: lazy block-by-block calls (setkit.chunked) -----------------------------------
+    def _lazy(self, op, arrays, details=False, out_kind="points", **kw):
+        from . import chunked
+        if details:
+            raise chunked.no_details(self, op)
+        return chunked.lazy_call(self, op, arrays, kw=kw, out_kind=out_kind)
+
     # -- dispatch ------------------------------------------------------------------------------
     def _run(self, op, X, tol=None):
         return self._plan.run(op, X, tol)
@@ -425,11 +437,15 @@ class DecisionSet:
         [[1.0, 0.0], [0.5, 0.5]]
         """
         if geometry != "euclidean" and self._geometry(geometry, "project") == "kl":
+            if _is_dask(y):
+                return self._lazy("project", [(y, "y")], details, geometry="kl", log_input=log_input)
             return self._kl_project(y, details, log_input)[0]
         if not details:
             P = self._fast("project", y)
             if P is not None:
                 return P.reshape(self._shape)
+        if _is_dask(y):
+            return self._lazy("project", [(y, "y")], details)
         Y, lead = self._batch(y, "y", "project")
         t0 = time.perf_counter()
         P, info = self._run("project", Y)
@@ -453,17 +469,23 @@ class DecisionSet:
         5.0
         """
         if geometry != "euclidean" and self._geometry(geometry, "distance") == "kl":
+            if _is_dask(y):
+                return self._lazy("distance", [(y, "y")], out_kind="values", geometry="kl", log_input=log_input)
             _, T, X, lead = self._kl_project(y, False, log_input, "distance")
             return self._out_values(kl_divergence(X, T), lead)
         d = self._fast("distance", y)
         if d is not None:
             return d[0] if type(d) is np.ndarray and d.shape == (1,) else self._out_values(d, ())
+        if _is_dask(y):
+            return self._lazy("distance", [(y, "y")], out_kind="values")
         Y, lead = self._batch(y, "y", "distance")
         d, _ = self._run("distance", Y)
         return self._out_values(d, lead)
 
     def _jacobian_product(self, op, y, w, wname, geometry, log_input):
         g = self._geometry(geometry, op)
+        if _is_dask(y):
+            return self._lazy(op, [(y, "y"), (w, wname)], geometry=g, log_input=log_input)
         if g == "kl":
             T, lead = self._log_input(y, "y", op, log_input)
         else:
@@ -503,6 +525,55 @@ class DecisionSet:
         """Vector-Jacobian product of the projection: J(y)^T u (see :meth:`project_jvp`)."""
         return self._jacobian_product("project_vjp", y, u, "u", geometry, log_input)
 
+    def project_factors(self, y):
+        """The projection of a matrix set in factored form: (U, s, Vt) with project(y) = U diag(s) Vt.
+
+        Offered by the spectral families (nuclear_ball and spectraplex return only the kept
+        singular values / eigenvalues, so q is the answer's rank, padded with zero values to the
+        largest rank in a batch; spectral_ball returns its full thin SVD). Shapes:
+        lead + (m, q), lead + (q,), lead + (q, n). Same cost and accuracy as ``project``; always
+        the family's own kernel (``with_backends`` does not apply).
+
+        Examples
+        --------
+        >>> import setkit
+        >>> K = setkit.compile({"kind": "nuclear_ball", "rows": 2, "cols": 2, "radius": 1.0})
+        >>> U, s, Vt = K.project_factors([[3.0, 0.0], [0.0, 1.0]])
+        >>> s.tolist(), (U * s) @ Vt
+        ([1.0], array([[1., 0.],
+               [0., 0.]]))
+        """
+        return self._factors("project", y, "y")
+
+    def lmo_factors(self, c):
+        """The LMO answer of a matrix set in factored form: (U, s, Vt) with lmo(c) = U diag(s) Vt.
+
+        nuclear_ball: (-u1, [radius], v1^T), spectraplex: (v, [trace], v^T) (rank one; a zero
+        value where the answer is 0), spectral_ball: (-U, radius, Vt). Shapes as in
+        :meth:`project_factors`. Saves forming an m x n matrix in Frank-Wolfe loops.
+
+        Examples
+        --------
+        >>> import setkit
+        >>> K = setkit.compile({"kind": "spectraplex", "n": 2})
+        >>> U, s, Vt = K.lmo_factors([[1.0, 0.0], [0.0, -1.0]])
+        >>> s.tolist(), abs(U[:, 0]).tolist()
+        ([1.0], [0.0, 1.0])
+        """
+        return self._factors("lmo", c, "c")
+
+    def _factors(self, op, y, argname):
+        X, lead = self._batch(y, argname, op + "_factors")
+        out = self.node.factored(op, X)
+        if out is None:
+            from .errors import UnsupportedOperationError
+            raise UnsupportedOperationError(
+                f"{op}_factors on {self.node.label}: this set offers no factored form (the spectral families "
+                f"nuclear_ball, spectral_ball and spectraplex do); call {op}(...) for the dense answer.")
+        U, s, Vt = (np.asarray(a, dtype=float) for a in out)
+        lead = tuple(lead)
+        return U.reshape(lead + U.shape[1:]), s.reshape(lead + s.shape[1:]), Vt.reshape(lead + Vt.shape[1:])
+
     def lmo(self, c, details: bool = False):
         """Linear minimization oracle: a minimizer of a linear function over the set.
 
@@ -522,6 +593,8 @@ class DecisionSet:
             L = self._fast("lmo", c)
             if L is not None:
                 return L.reshape(self._shape)
+        if _is_dask(c):
+            return self._lazy("lmo", [(c, "c")], details)
         C, lead = self._batch(c, "c", "lmo")
         t0 = time.perf_counter()
         L, info = self._run("lmo", C)
@@ -547,6 +620,8 @@ class DecisionSet:
         v = self._fast("support", c)
         if v is not None:
             return v[0] if type(v) is np.ndarray and v.shape == (1,) else self._out_values(v, ())
+        if _is_dask(c):
+            return self._lazy("support", [(c, "c")], out_kind="values")
         C, lead = self._batch(c, "c", "support")
         # sigma(c) = -min <-c, x>
         v, _ = self._run("support", C)
@@ -586,6 +661,9 @@ class DecisionSet:
                     if type(v) is np.ndarray and v.shape == (1,):
                         return v.astype(bool, copy=False)[0]
                     return self._out_values(np.asarray(v, dtype=bool), ())
+        if _is_dask(x):
+            from . import chunked
+            return chunked.lazy_call(self, "contains", [(x, "x")], out_kind="flags", tol=tol)
         X, lead = self._batch(x, "x", "contains")
         if tol is None:
             t = self._default_tol(X)
@@ -609,6 +687,8 @@ class DecisionSet:
         >>> float(setkit.compile({"kind": "box", "dim": 2, "lower": 0, "upper": 1}).violation([1.5, 0.5]))
         0.5
         """
+        if _is_dask(x):
+            return self._lazy("violation", [(x, "x")], out_kind="values")
         X, lead = self._batch(x, "x", "violation")
         if self._routes["violation"].provider == "none":
             return self._out_values(np.full(X.shape[0], np.nan), lead)
@@ -628,6 +708,8 @@ class DecisionSet:
         >>> float(K.certificate([2.0, 0.0], K.project([2.0, 0.0])))
         0.0
         """
+        if _is_dask(y):
+            return self._lazy("certificate", [(y, "y"), (p, "p")], out_kind="values")
         Y, lead = self._batch(y, "y", "certificate")
         P, _ = self._batch(p, "p", "certificate")
         return self._out_values(self._gap(Y, P), lead)
@@ -736,8 +818,34 @@ class DecisionSet:
             raise SolveError(f"centered: the centroid of {self.node.label} has shape {c.shape}; expected {self.shape}.")
         from .combinators.affine import translated
         label = self.node.name or self.node.kind
-        node = translated(self.node, -c.reshape(-1), name=f"{label} centered ({measure})")
+        node = translated(self.node, -c.reshape(-1), name=f"{label} centered ({measure})",
+                          orthant_note=self._centered_orthant_note(c.reshape(-1), measure))
         return DecisionSet(node, loose=self._loose)
+
+    def _centered_orthant_note(self, c, measure):
+        """Why K - centroid leaves x >= 0 (the KL geometry's domain), or "" for a one-point set.
+
+        The centroid c lies in the relative interior of K, so unless K is the single point c, a
+        coordinate that varies over K takes values below its mean c_i: K - c holds a point with
+        a negative coordinate. One LMO call in a seeded random direction tells the cases apart
+        (its answer differs from c unless K = {c}, with probability one).
+        """
+        g = np.random.default_rng(13).standard_normal(self.dim)
+        try:
+            v, _ = self._run("lmo", g[None, :])
+        except SetkitError:
+            v = None
+        if v is not None and np.abs(v[0] - c).max() <= 1e-12 * max(1.0, float(np.abs(c).max())):
+            return ""
+        if v is not None:
+            i = int(np.argmax(c - v[0]))
+            detail = (f"e.g. coordinate {i} of the vertex {v[0][i]:.6g} minus the centroid "
+                      f"{c[i]:.6g} is {v[0][i] - c[i]:.6g}")
+        else:
+            detail = "the set is not a single point"
+        return (f"it is {self.node.label} translated by minus its {measure} centroid (a centered set), so "
+                f"every coordinate that varies over the set takes negative values ({detail}). For mirror "
+                f"descent, project onto the set itself with geometry='kl' and subtract the centroid afterwards")
 
     def sample(self, k: int, measure: str = "volume", rng=None, **kw):
         """k points of the set drawn from ``measure`` (seeded by ``rng``); shape (k,) + K.shape.
@@ -760,6 +868,8 @@ class DecisionSet:
         t <= δ and t - δ/2 beyond (the Moreau envelope, gradient G (x - P_K x)/max(d, δ));
         ``"ball"``: P = E_u[G d(x + δu)], u uniform in the unit ball (seeded estimate with
         standard errors). ``width`` is δ. Returns an object with ``value(x)`` and ``grad(x)``.
+        ``geometry="kl"`` (keyword): P = G min_{z in K} KL(z || x) on x > 0, gradient
+        G (1 - q(x)/x) with q the KL projection; no smoothing applies (see setkit.penalty).
 
         Examples
         --------

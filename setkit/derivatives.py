@@ -23,8 +23,12 @@ limiting Jacobians) and of Clarke's generalized Jacobian.
 
 KL projections (``project_kl_jvp``, in log coordinates t = log y) have closed forms in the
 families: the simplex (the softmax Jacobian diag(x) - x x^T / total), the box (diag(x) on the
-free coordinates) and the budget (x_F (v_F - w_F <w x, v>_F / <w^2 x>_F)); the same rule at
-kinks applies.
+free coordinates), the budget (x_F (v_F - w_F <w x, v>_F / <w^2 x>_F)), the permutahedron (the
+softmax Jacobian on each pooling block, :func:`setkit.kernels.bregman.permutahedron_kl_jvp`),
+transport and Birkhoff (implicit differentiation of Sinkhorn's fixed point,
+:func:`setkit.kernels.bregman.transport_kl_jvp`) and products (block-wise); the same rule at
+kinks applies. In log coordinates these Jacobians are symmetric, so ``project_kl_vjp`` is
+served by the same kernels.
 
 This module holds the generic active-set route (any set with a linear form without
 auxiliary variables: transport, Birkhoff, flow, polyhedron, intersections of such),

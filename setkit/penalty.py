@@ -20,6 +20,16 @@ Definitions (exact; d(x) = dist(x, K), p(x) = project(x)):
 Every variant is G-Lipschitz, so if a loss f is G-Lipschitz, f + P is
 2G-Lipschitz, and with the unsmoothed penalty a minimizer of f + P over the
 whole space can be taken inside K.
+
+KL geometry (``geometry="kl"``, sets inside the nonnegative orthant, points x > 0):
+P(x) = G·D(x) with D(x) = min_{z in K} KL(z || x) = KL(q(x) || x), q(x) the KL projection
+of x; grad P(x) = G·(1 - q(x)/x) (Danskin's theorem: the minimizer is unique since
+KL(. || x) is strictly convex, so D is differentiable with the partial gradient of
+KL(z || x) in x at z = q(x)). D is convex and 0 exactly on K ∩ {x > 0}, but not
+Lipschitz (it grows like x log x), so ``lipschitz`` is undefined there. The Moreau and
+ball smoothings are Euclidean constructions (a Huber function of the Euclidean distance,
+an average over a Euclidean ball that leaves x > 0) and are refused with this geometry;
+D is already smooth on x > 0.
 """
 from __future__ import annotations
 
@@ -29,9 +39,11 @@ from typing import Any
 
 import numpy as np
 
-from .errors import InputError
+from .chunked import is_dask_array, lazy_call, no_details
+from .errors import InputError, UnsupportedOperationError
 
 SMOOTHINGS = (None, "moreau", "ball")
+PENALTY_GEOMETRIES = ("euclidean", "kl")
 
 
 @dataclass(frozen=True)
@@ -67,10 +79,22 @@ class DistancePenalty:
     """
 
     def __init__(self, K, G, smoothing=None, width=None, *, samples: int = 64, rng=None,
-                 resample: bool = False):
+                 resample: bool = False, geometry: str = "euclidean"):
         label = K.node.label
         if smoothing not in SMOOTHINGS:
             raise InputError(f"penalty on {label}: smoothing must be None, 'moreau' or 'ball'; got {smoothing!r}.")
+        geometry = "euclidean" if geometry is None else str(geometry).lower()
+        if geometry not in PENALTY_GEOMETRIES:
+            raise InputError(f"penalty on {label}: geometry must be 'euclidean' or 'kl'; got {geometry!r}.")
+        if geometry == "kl" and smoothing is not None:
+            why = ("the Moreau smoothing is the Huber function of the Euclidean distance" if smoothing == "moreau"
+                   else "the ball smoothing averages over x + delta*u, which leaves the positive orthant where "
+                        "KL(z || x) is undefined")
+            raise UnsupportedOperationError(
+                f"penalty on {label}: smoothing {smoothing!r} does not apply to geometry='kl': {why}. The KL "
+                f"penalty G*min_z KL(z || x) is already differentiable on x > 0: use smoothing=None with "
+                f"geometry='kl', or geometry='euclidean' with this smoothing.")
+        self.geometry = geometry
         try:
             G = float(G)
         except (TypeError, ValueError):
@@ -108,6 +132,7 @@ class DistancePenalty:
 
     def __repr__(self):
         sm = "" if self.smoothing is None else f", smoothing={self.smoothing!r}, width={self.width}"
+        sm += ", geometry='kl'" if self.geometry == "kl" else ""
         return f"<DistancePenalty G={self.G} on {self.K.node.label}{sm}>"
 
     @property
@@ -124,6 +149,10 @@ class DistancePenalty:
         >>> setkit.simplex(dim=3).penalty(2.5, "moreau", width=0.1).lipschitz
         2.5
         """
+        if self.geometry == "kl":
+            raise UnsupportedOperationError(
+                f"penalty on {self.K.node.label}: the KL penalty G*min_z KL(z || x) has no Lipschitz constant "
+                f"(it grows like x log x as x grows and its gradient 1 - z/x is unbounded as x -> 0).")
         return self.G
 
     # -- sampling --------------------------------------------------------------------------------
@@ -146,9 +175,26 @@ class DistancePenalty:
         tol = 1e-12 * np.maximum(1.0, np.abs(X).max(axis=1))
         return d, R, tol
 
+    def _kl(self, X, want_grad):
+        from .kernels.bregman import kl_divergence
+        bad = np.flatnonzero((X <= 0).any(axis=1)) if X.size else np.zeros(0, int)
+        if bad.size:
+            i = int(bad[0])
+            j = int(np.flatnonzero(X[i] <= 0)[0])
+            raise InputError(f"penalty on {self.K.node.label}: the KL penalty needs x > 0 (KL(z || x) is defined "
+                             f"for positive x); got {X[i, j]!r} at batch row {i}, coordinate {j}.")
+        T = np.log(X)
+        Q, _ = self.K.run("project_kl", T)
+        b = X.shape[0]
+        v = self.G * kl_divergence(T, Q)
+        g = self.G * (1.0 - Q / X) if want_grad else None
+        return v, np.zeros(b), g, (np.zeros_like(X) if want_grad else None)
+
     def _compute(self, X, want_grad):
         G, delta = self.G, self.width
         b, dim = X.shape
+        if self.geometry == "kl":
+            return self._kl(X, want_grad)
         if self.smoothing is None:
             d, R, tol = self._dist_proj(X)
             v = G * d
@@ -176,7 +222,16 @@ class DistancePenalty:
         g_se = pg.std(axis=1, ddof=1) / math.sqrt(h) if h > 1 else np.full((b, dim), np.nan)
         return v, v_se, g, g_se
 
+    def _lazy(self, op, x, details, out_kind):
+        """A dask array in: the penalty block by block, lazily (setkit.chunked); this penalty is shipped once."""
+        if details:
+            raise no_details(self.K, f"penalty.{op}")
+        return lazy_call(self.K, op, [(x, "x")], target=self, out_kind=out_kind)
+
     def _estimator(self, what):
+        if self.geometry == "kl":
+            return ("exact: G*KL(q(x) || x), q the KL projection" if what == "value"
+                    else "exact: G*(1 - q(x)/x), q the KL projection")
         if self.smoothing is None:
             return "exact: G*d(x)" if what == "value" else "exact: G*(x - proj(x))/d(x), 0 inside the set"
         if self.smoothing == "moreau":
@@ -225,6 +280,8 @@ class DistancePenalty:
         >>> round(float(est.estimate), 12), est.samples     # d is affine on that ball: the mean is exact
         (3.0, 64)
         """
+        if is_dask_array(x):
+            return self._lazy("value", x, details, "values")
         X, lead = self.K.flatten(x, "x", "penalty.value")
         v, se, _, _ = self._compute(X, False)
         out = self.K.unflatten_values(v, lead)
@@ -268,6 +325,8 @@ class DistancePenalty:
         >>> K.penalty(3.0, "moreau", width=2.0).grad([2.0, 0.5]).tolist()
         [1.5, 0.0]
         """
+        if is_dask_array(x):
+            return self._lazy("grad", x, details, "points")
         X, lead = self.K.flatten(x, "x", "penalty.grad")
         _, _, g, gse = self._compute(X, True)
         out = self.K.unflatten_points(g, lead)
@@ -303,6 +362,8 @@ class DistancePenalty:
         >>> float(v), g.tolist()
         (3.0, [3.0, 0.0])
         """
+        if is_dask_array(x):      # two lazy arrays (each block is projected once for each)
+            return self._lazy("value", x, False, "values"), self._lazy("grad", x, False, "points")
         X, lead = self.K.flatten(x, "x", "penalty.value_and_grad")
         v, _, g, _ = self._compute(X, True)
         return self.K.unflatten_values(v, lead), self.K.unflatten_points(g, lead)
@@ -446,7 +507,7 @@ class ExtendedLoss:
         >>> setkit.box(dim=2, lower=0, upper=1).penalty(3.0).extend(lambda x: 0.0).lipschitz(1.5)
         4.5
         """
-        return float(L_f) + self.penalty.G
+        return float(L_f) + self.penalty.lipschitz
 
 
 def make_penalty(K, G, smoothing=None, width=None, **kw) -> DistancePenalty:
@@ -465,7 +526,8 @@ def make_penalty(K, G, smoothing=None, width=None, **kw) -> DistancePenalty:
     width : float, optional
         The smoothing width δ > 0; required with a smoothing, not allowed without.
     **kw
-        Ball smoothing options: ``samples`` (even, default 64), ``rng`` (a
+        ``geometry`` ("euclidean" or "kl", see the module docstring). Ball smoothing
+        options: ``samples`` (even, default 64), ``rng`` (a
         Generator or an int seed, default 0) and ``resample`` (default False).
 
     Returns

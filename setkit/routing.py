@@ -28,7 +28,7 @@ from .backends import all_backends, get_backend
 from .errors import BackendUnavailableError, SolveError, UnboundedDirectionError, UnsupportedOperationError
 from .families import OPERATORS, memo
 from .parallel import split_rows
-from .strategies import all_strategies, strategies_for
+from .strategies import strategies_for, strategy
 
 
 # -- derived rules, declared as data and executed here --------------------------------------
@@ -264,7 +264,6 @@ def choose(node, overrides: dict | None = None) -> dict:
             raise UnsupportedOperationError(
                 f"with_backends: unknown operator {op!r}; the operators are {', '.join(OPERATORS)}.")
     accepted = _accepted_strategies(node)
-    strategies = all_strategies()
     routes = {}
     for op in OPERATORS:
         want = overrides.get(op)
@@ -280,8 +279,8 @@ def choose(node, overrides: dict | None = None) -> dict:
                                                   f"{', '.join(DERIVED_RULES)}.")
                 rule = DERIVED_RULES[op]
                 routes[op] = Route(op, "derived", "chosen by the caller; " + rule.text, rule.source, "derived")
-            elif want in strategies:
-                cls = strategies[want]
+            elif strategy(want) is not None:
+                cls = strategy(want)
                 if cls.kind != node.kind or op not in cls.operators:
                     raise BackendUnavailableError(
                         f"strategy {want!r} serves {', '.join(cls.operators)} of {cls.kind} sets; it cannot serve "
@@ -353,7 +352,7 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             calls[op] = (lambda f: (lambda *a: _as_pair(f(*a))))(split_rows(raw, op))   # large batches: all cores
         elif r.category == "strategy":
             if r.provider not in strategies:
-                strategies[r.provider] = all_strategies()[r.provider](node)
+                strategies[r.provider] = strategy(r.provider)(node)
                 strategies[r.provider].owner = context
             meth = getattr(strategies[r.provider], op)
             fallback = _generic(op, node) if op in strategies[r.provider].fallback_operators else None

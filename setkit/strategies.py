@@ -59,12 +59,32 @@ def register_strategy(name: str):
 
 
 def all_strategies() -> dict[str, type]:
-    """Every registered strategy by name (built-in combinator modules are imported first)."""
-    from .families import known_kinds
-    known_kinds()
+    """Every registered strategy by name (built-in modules are imported first)."""
+    from .families import load_all
+    load_all()
     return dict(_STRATEGIES)
 
 
 def strategies_for(kind: str) -> list[type]:
-    """The strategies declared for ``kind``, best (lowest priority) first."""
-    return sorted((c for c in all_strategies().values() if c.kind == kind), key=lambda c: (c.priority, c.name))
+    """The strategies declared for ``kind``, best (lowest priority) first.
+
+    Only the module declaring ``kind`` is imported (built-in strategies live beside their kind);
+    strategies registered by other modules count once those are imported.
+    """
+    from .families import builtin_index
+    module = builtin_index().get(kind)
+    if module is not None:                   # a node of an unregistered class has no module to import
+        import importlib
+        importlib.import_module(module)
+    return sorted((c for c in list(_STRATEGIES.values()) if c.kind == kind), key=lambda c: (c.priority, c.name))
+
+
+def strategy(name: str) -> type | None:
+    """The strategy registered under ``name``, or None (the built-in combinator modules, where the built-in
+    strategies live, are imported when the name is unknown so far)."""
+    cls = _STRATEGIES.get(name)
+    if cls is None:
+        from ._discovery import import_submodules
+        import_submodules("setkit.combinators")
+        cls = _STRATEGIES.get(name)
+    return cls

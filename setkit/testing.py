@@ -39,6 +39,7 @@ data, ``s = max(1, K.node.scale())``):
 """
 from __future__ import annotations
 
+import math
 import time
 from dataclasses import dataclass
 from typing import Callable
@@ -49,7 +50,7 @@ from .agreement import (DEFAULT_RTOL, REFERENCE_ROUTES, ReferenceComparison, dat
                         point_gaps, support_rows, value_gaps)
 from .errors import InputError, SetkitError, SolveError, UnboundedDirectionError, UnsupportedOperationError
 
-__all__ = ["check_set", "check_derivatives", "check_family", "checks", "family_checks", "parametrize", "points", "directions",
+__all__ = ["check_set", "check_derivatives", "check_kl_projection", "check_family", "checks", "family_checks", "parametrize", "points", "directions",
            "CheckOutcome", "REFERENCE_ROUTES"]
 
 
@@ -685,6 +686,214 @@ def check_derivatives(K, seed: int = 0, points: int = 6, rtol: float = 1e-6, adj
     return [CheckOutcome("derivatives/finite-differences", m, worst_fd, fd_tol, secs),
             CheckOutcome("derivatives/adjoint", m, worst_adj, adjoint_tol, 0.0),
             CheckOutcome("derivatives/batch", m, worst_batch, 1e-12, 0.0)]
+
+
+def _kl_inputs(K, rng, points):
+    """Seeded log-domain inputs t = log y: around the set, spread, uniform (all ties), and shifted by
+    log(1e-6) and log(1e6) (inputs from 1e-6 to 1e6 times the set's scale)."""
+    n = K.dim
+    shp = tuple(K.shape)
+    x0 = np.asarray(K.project(np.zeros(shp), geometry="kl", log_input=True), dtype=float).reshape(n)
+    base = np.log(np.maximum(x0, 1e-300))
+    rows, labels = [], []
+    for i in range(points):
+        rows.append(base + 0.5 * rng.standard_normal(n))
+        labels.append("near the set")
+        rows.append(2.0 * rng.standard_normal(n))
+        labels.append("spread, log y ~ N(0, 4)")
+    rows.append(np.zeros(n))
+    labels.append("y = 1 (all ties)")
+    for scale in (1e-6, 1e6):
+        rows.append(math.log(scale) + rng.standard_normal(n))
+        labels.append(f"y about {scale:g}")
+    return np.stack(rows), labels
+
+
+def check_kl_projection(K, seed: int = 0, points: int = 3, rtol: float = DEFAULT_RTOL, gap_rtol: float = 1e-8,
+                        reference_points: int = 4) -> list:
+    """Check the KL (Bregman) projection of ``K``: feasibility, the Bregman gap, the reference, batches.
+
+    The projection checked is ``K.project(t, geometry="kl", log_input=True)``, the
+    minimizer over K of ``KL(x || y) = sum x log(x/y) - x + y`` with ``y = exp(t)``. On seeded
+    log-domain inputs (near the set, spread, all ties, and y about 1e-6 and 1e6), with
+    ``s = max(1, data scale)`` and ``scale(x) = max(1, max_i abs(x_i))``:
+
+    * feasibility: ``K.violation(x)`` (or the Euclidean distance when the set has no
+      violation measure) at most ``gap_rtol * scale(x) * s`` for native routes, ``rtol * ...``
+      for solver routes;
+    * KL first-order optimality: the Bregman gap ``<g, x - lmo(g)>`` with ``g = log x - t`` (an
+      upper bound on ``KL(x || y) - min_K KL(. || y)``, computed with the set's LMO) at most
+      ``tol * (1 + sum_i abs(g_i) (x_i + abs(v_i)))``, v = lmo(g), tol = gap_rtol (native) or
+      rtol (solver routes);
+    * agreement with the exponential-cone reference (cvxpy + Clarabel) on the first
+      ``reference_points`` inputs: ``max_i abs(x_i - x_ref_i) <= rtol * scale(x_ref) * s``; a
+      larger difference is accepted only when ``KL(x || y) <= KL(x_ref || y)`` and x passed the
+      gap check (the reference's own accuracy floor near faces);
+    * fixed points: a positive answer x is its own projection (within the feasibility tolerance);
+    * batches and input forms: a batched call equals the one-by-one calls (1e-12 relative for
+      native kernels, ``rtol`` for solver routes and strategies, which may stop a batch at
+      another iterate), and ``K.project(exp(t), geometry="kl")`` equals the log-input call
+      where exp(t) is representable (within the feasibility tolerance: log(exp(t)) is t only
+      up to rounding, and an iterative kernel may then stop at another iterate).
+
+    Parameters
+    ----------
+    K : DecisionSet, mapping, str or os.PathLike
+        The set (inside the nonnegative orthant), a description or a description file.
+    seed : int, default 0
+        Seed of the random inputs.
+    points : int, default 3
+        Inputs near the set and spread inputs (each); three fixed inputs are added.
+    rtol : float, default 2e-5
+        Relative tolerance against the reference (and of solver-served answers).
+    gap_rtol : float, default 1e-8
+        Relative tolerance of the Bregman gap and of feasibility for native kernels.
+    reference_points : int, default 4
+        How many inputs are also solved by the reference (about 0.1-1 s each).
+
+    Returns
+    -------
+    list of CheckOutcome
+        "kl/feasibility", "kl/certificate", "kl/reference", "kl/fixed-points", "kl/batch".
+
+    Raises
+    ------
+    AssertionError
+        Listing every failed check with the input, the answer and the gap; a setkit error
+        raised by the projection (for example a set outside the orthant) is listed too.
+
+    Notes
+    -----
+    Cost: about ``2 points + 3`` projections, as many LMO calls, and ``reference_points``
+    exponential-cone solves.
+
+    Examples
+    --------
+    >>> import setkit, setkit.testing
+    >>> out = setkit.testing.check_kl_projection({"kind": "simplex", "dim": 4}, reference_points=1)
+    >>> [o.name for o in out][:2], all(o.worst <= 1 for o in out)
+    (['kl/feasibility', 'kl/certificate'], True)
+    """
+    from .kernels.bregman import kl_certificate, kl_divergence
+    K = _as_set(K)
+    t_start = time.perf_counter()
+    rng = np.random.default_rng([seed, 13])
+    n, shp = K.dim, tuple(K.shape)
+    s = data_scale(K)
+    label = K.node.label
+    native = K.routes()["project_kl"].category == "native"
+    tol = gap_rtol if native else rtol
+    failures, outcomes = [], []
+
+    def proj(T):
+        return np.asarray(K.project(T.reshape((-1,) + shp), geometry="kl", log_input=True),
+                          dtype=float).reshape(-1, n)
+
+    def show(v):
+        return _fmt(np.asarray(v, dtype=float).reshape(shp))
+
+    try:
+        T, labels = _kl_inputs(K, rng, points)
+        X = proj(T)
+    except SetkitError as exc:
+        raise AssertionError(f"check_kl_projection on {label}: the KL projection raised "
+                             f"{type(exc).__name__}: {exc}") from exc
+    m = T.shape[0]
+    xs = np.maximum(1.0, np.abs(X).max(axis=1))
+
+    # feasibility
+    viol = np.asarray(K.violation(X.reshape((-1,) + shp)), dtype=float).reshape(m)
+    if np.isnan(viol).any():
+        viol = np.asarray(K.distance(X.reshape((-1,) + shp)), dtype=float).reshape(m)
+    neg = np.maximum(0.0, -X.min(axis=1))
+    viol = np.maximum(viol, neg)
+    allowed = tol * xs * s
+    worst = float(np.max(viol / allowed))
+    for i in np.flatnonzero(~(viol <= allowed)):
+        failures.append(f"feasibility: input {i} ({labels[i]}), t = {show(T[i])}: the answer {show(X[i])} violates "
+                        f"the set by {viol[i]:.3e} (allowed {allowed[i]:.3e}).")
+    outcomes.append(CheckOutcome("kl/feasibility", m, worst, tol, 0.0))
+
+    # Bregman gap (KL first-order optimality)
+    def lmo(G):
+        return np.asarray(K.lmo(G.reshape((-1,) + shp)), dtype=float).reshape(-1, n)
+    Xp = np.maximum(X, np.finfo(float).tiny)
+    Gr = np.log(Xp) - T
+    V = lmo(Gr)
+    gap = kl_certificate(T, X, lambda G: V)
+    allowed_gap = tol * (1.0 + np.einsum("ij,ij->i", np.abs(Gr), Xp + np.abs(V)))
+    worst = float(np.max(np.maximum(gap, 0.0) / allowed_gap))
+    gap_ok = gap <= allowed_gap
+    for i in np.flatnonzero(~gap_ok):
+        failures.append(f"certificate: input {i} ({labels[i]}), t = {show(T[i])}: the answer {show(X[i])} has "
+                        f"Bregman gap <log x - t, x - lmo(log x - t)> = {gap[i]:.3e} (allowed {allowed_gap[i]:.3e}); "
+                        f"it is not the KL projection.")
+    outcomes.append(CheckOutcome("kl/certificate", m, worst, tol, 0.0))
+
+    # the exponential-cone reference
+    k = min(reference_points, m)
+    worst = 0.0
+    if k:
+        R = K.with_backends(project_kl="reference", loose=True)
+        Xr = np.asarray(R.project(T[:k].reshape((-1,) + shp), geometry="kl", log_input=True),
+                        dtype=float).reshape(-1, n)
+        diff = np.abs(X[:k] - Xr).max(axis=1)
+        allowed_ref = rtol * np.maximum(1.0, np.abs(Xr).max(axis=1)) * s
+        kl_ours, kl_ref = kl_divergence(T[:k], X[:k]), kl_divergence(T[:k], Xr)
+        slack = 1e-12 * np.maximum(1.0, np.abs(kl_ref))
+        for i in range(k):
+            if diff[i] <= allowed_ref[i]:
+                worst = max(worst, float(diff[i] / allowed_ref[i]))
+            elif gap_ok[i] and viol[i] <= allowed[i] and kl_ours[i] <= kl_ref[i] + slack[i]:
+                worst = max(worst, 1.0)      # certified, and at least as good as the reference
+            else:
+                worst = max(worst, float(diff[i] / allowed_ref[i]))
+                failures.append(f"reference: input {i} ({labels[i]}), t = {show(T[i])}: setkit {show(X[i])}, "
+                                f"reference {show(Xr[i])}; difference {diff[i]:.3e} (allowed {allowed_ref[i]:.3e}), "
+                                f"KL {kl_ours[i]:.12g} vs the reference's {kl_ref[i]:.12g}.")
+    outcomes.append(CheckOutcome("kl/reference", k, worst, rtol, 0.0))
+
+    # fixed points: positive points of K are their own KL projections
+    pos = np.flatnonzero((X > 1e-300).all(axis=1) & (viol <= allowed))
+    worst = 0.0
+    if pos.size:
+        F = proj(np.log(X[pos]))
+        d = np.abs(F - X[pos]).max(axis=1)
+        al = tol * xs[pos] * s
+        worst = float(np.max(d / al))
+        for r in np.flatnonzero(~(d <= al)):
+            i = int(pos[r])
+            failures.append(f"fixed points: the point {show(X[i])} of the set is projected to {show(F[r])} "
+                            f"(moved by {d[r]:.3e}, allowed {al[r]:.3e}).")
+    outcomes.append(CheckOutcome("kl/fixed-points", int(pos.size), worst, tol, 0.0))
+
+    # batches and the y-input form (solvers and strategies may stop a batch at another iterate)
+    btol = 1e-12 if native else tol
+    worst = 0.0
+    for i in range(m):
+        one = proj(T[i:i + 1])[0]
+        g = float(np.abs(one - X[i]).max()) / (btol * xs[i])
+        worst = max(worst, g)
+        if g > 1.0:
+            failures.append(f"batch: row {i} of a batched call differs from the single call by "
+                            f"{g * btol * xs[i]:.3e} (allowed {btol * xs[i]:.3e}).")
+    ok_rows = np.flatnonzero(np.abs(T).max(axis=1) < 700.0)
+    if ok_rows.size:
+        Xy = np.asarray(K.project(np.exp(T[ok_rows]).reshape((-1,) + shp), geometry="kl"),
+                        dtype=float).reshape(-1, n)
+        # log(exp(t)) differs from t by rounding, so an iterative kernel may stop at another iterate: its own
+        # accuracy (the feasibility tolerance) is the bar here
+        ftol = tol * s
+        gy = np.abs(Xy - X[ok_rows]).max(axis=1) / (ftol * xs[ok_rows])
+        worst = max(worst, float(gy.max()))
+        for r in np.flatnonzero(gy > 1.0):
+            failures.append(f"input forms: K.project(y, geometry='kl') differs from the log_input call at input "
+                            f"{int(ok_rows[r])} by {gy[r] * ftol * xs[ok_rows[r]]:.3e}.")
+    outcomes.append(CheckOutcome("kl/batch", m, worst, btol, time.perf_counter() - t_start))
+    if failures:
+        raise AssertionError(f"{len(failures)} KL projection check(s) failed on {label} (seed {seed}):\n"
+                             + "\n".join(failures))
+    return outcomes
 
 
 def _family_specs(family, seed: int, count: int) -> list:

@@ -66,3 +66,48 @@ def test_jitted_learner():
     out = run_example("jitted_learner.py")
     assert "identical iterates: True" in out
     assert "in the set: True" in out
+
+
+def test_train_scorer(tmp_path):
+    """Gradient descent through the torch layer: both losses fall, the learned ranking and slots hold up out of sample."""
+    pytest.importorskip("torch")
+    pytest.importorskip("matplotlib")
+    png = tmp_path / "loss.png"
+    out = run_example("train_scorer.py", "--plot", str(png))
+    m = re.search(r"ranking: training loss: ([0-9.]+) -> ([0-9.]+)", out)
+    assert m and float(m.group(2)) < 0.2 * float(m.group(1))
+    m = re.search(r"ranking: held-out loss: ([0-9.]+) -> ([0-9.]+)", out)
+    assert m and float(m.group(2)) < 0.2 * float(m.group(1))
+    # Spearman's rho of the learned order against the observed one (scipy.stats.spearmanr), out of sample
+    rho0, rho = number(out, "held-out Spearman rho before training:"), number(out, "held-out Spearman rho after training:")
+    assert rho >= 0.9 and rho > rho0 + 0.3
+    m = re.search(r"slots: held-out loss: ([0-9.]+) -> ([0-9.]+)", out)
+    assert m and float(m.group(2)) < 0.2 * float(m.group(1))
+    assert number(out, "slots: held-out accuracy:") >= 0.9
+    assert number(out, "mean number of nonzero probabilities:") < 2.5          # sparse: most slots get exactly 0
+    assert "soft ranks inside the permutahedron: yes" in out and "probabilities inside the simplex: yes" in out
+    assert png.is_file() and png.stat().st_size > 10_000
+
+
+def test_mirror_descent(tmp_path):
+    png = tmp_path / "regret.png"
+    out = run_example("mirror_descent.py", "--out", str(png))
+    blocks = out.split("assignment:")
+    assert len(blocks) == 2
+    for block in blocks:
+        rounds = number(block, "rounds:")
+        for learner in ("EG", "OGD"):
+            regret, bound = number(block, f"{learner} regret:"), number(block, f"{learner} bound:")
+            # the fixed-horizon regret bounds of online mirror descent (entropy regularizer, Pinsker) and of
+            # projected gradient descent (Zinkevich, 2003) hold on every loss sequence
+            assert regret <= bound
+            assert regret >= -bound / rounds
+        assert number(block, "largest violation of a decision:") <= 1e-8
+    assert "all decisions inside the sets: yes" in out
+    order = re.search(r"EG final airtime order: (.+)", out).group(1).split(", ")
+    assert len(order) == 8 and len(set(order)) == 8
+    try:
+        import matplotlib  # noqa: F401
+    except ImportError:
+        return
+    assert png.exists() and png.stat().st_size > 10_000

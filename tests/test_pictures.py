@@ -67,3 +67,42 @@ def test_draw_command_png_svg_and_bad_arguments(tmp_path, capsys):
         assert cli.main(["draw", "starter-simplex", "--quiet"] + bad) == 2, bad
         err = capsys.readouterr().err
         assert err.startswith("setkit: ") and err.count("\n") == 1, (bad, err)
+
+
+def test_slice_of_a_ball_is_the_disc_of_pythagoras():
+    # the unit l2 ball in R^3 cut by the plane x[2] = 0.6 is the disc of radius sqrt(1 - 0.36) = 0.8
+    # around (0, 0) (Pythagoras); projections onto the slice are radial (closed form)
+    K = setkit.ball(radius=1.0, dim=3)
+    fig = draw(K, at=[0.0, 0.0, 0.6], mode="slice", points=5, n_directions=32)
+    d = fig.setkit_drawing
+    assert d["mode"] == "slice" and not d["unbounded"]
+    B = np.array(d["boundary"])
+    assert np.allclose(np.hypot(B[:, 0], B[:, 1]), 0.8, atol=1e-6)
+    assert np.allclose(d["centroid"], [0.0, 0.0], atol=1e-6)
+    Y, P = np.array(d["samples"]), np.array(d["projections"])
+    assert np.allclose(Y[:, 2], 0.6) and np.allclose(P[:, 2], 0.6, atol=1e-6)
+    r = np.hypot(Y[:, 0], Y[:, 1])
+    expect = Y[:, :2] * np.minimum(1.0, 0.8 / r)[:, None]
+    assert np.allclose(P[:, :2], expect, atol=1e-5)
+
+
+def test_slice_of_a_cube_and_of_a_ranking_set(tmp_path):
+    # [0,1]^3 cut at x[2] = 0.3 is the unit square: the traced boundary reaches the square's edges
+    K = setkit.box(lower=[0, 0, 0], upper=[1, 1, 1])
+    d = draw(K, at=[0.5, 0.5, 0.3], mode="slice", points=3, n_directions=16).setkit_drawing
+    B = np.array(d["boundary"])
+    assert np.allclose(np.max(np.abs(B - 0.5), axis=1), 0.5, atol=1e-7)
+    assert d["lmo"] == [0.0, 0.0]          # argmin of <c, x> with c > 0: the lower corner
+    # a permutahedron slice through a point of the set: projections lie in the set and keep the cut
+    P4 = setkit.permutahedron(weights=[4, 3, 2, 1])
+    at = np.array([2.5, 2.5, 3.0, 2.0])
+    fig = draw(P4, at=at, mode="slice", axes=(0, 1), points=4, n_directions=24)
+    d = fig.setkit_drawing
+    proj = np.array(d["projections"])
+    assert np.all(P4.contains(proj)) and np.allclose(proj[:, 2:], at[2:], atol=1e-6)
+    # the slice is the segment x0 + x1 = 5 with 1 <= x0 <= 4: the traced points keep the sum
+    B = np.array(d["boundary"])
+    assert np.allclose(B.sum(axis=1), 5.0, atol=1e-6) and B[:, 0].min() >= 1 - 1e-6 and B[:, 0].max() <= 4 + 1e-6
+    out = tmp_path / "slice.png"
+    assert cli.main(["--quiet", "draw", "starter-simplex", "--mode", "slice", "--out", str(out)]) == 0
+    assert out.stat().st_size > 2000

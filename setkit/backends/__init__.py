@@ -10,6 +10,8 @@ module import, so ``import setkit`` stays fast.
 from __future__ import annotations
 
 import importlib
+import importlib.util
+import sys
 import threading
 from typing import ClassVar
 
@@ -54,13 +56,33 @@ class Backend:
 
     @classmethod
     def available(cls) -> bool:
+        """Whether the package it needs is installed (looked up, not imported: routing stays cheap).
+
+        Importing cvxpy to answer this cost seconds on every compile of a set routed to a generic
+        backend; the workspace imports the package when it is first built and raises
+        BackendUnavailableError if that fails.
+        """
         if not cls.package:
             return True
-        try:
-            importlib.import_module(cls.package)
-            return True
-        except ImportError:
-            return False
+        return _installed(cls.package)
+
+
+_INSTALLED: dict[str, bool] = {}
+
+
+def _installed(package: str) -> bool:
+    """Whether ``package`` can be found (imported already, or an import spec exists); cached."""
+    found = _INSTALLED.get(package)
+    if found is None:
+        if package in sys.modules:
+            found = sys.modules[package] is not None
+        else:
+            try:
+                found = importlib.util.find_spec(package) is not None
+            except (ImportError, ValueError):
+                found = False
+        _INSTALLED[package] = found
+    return found
 
 
 def register_backend(name: str):

@@ -60,6 +60,11 @@ class AffineImage(Family):
     matrix: np.ndarray | None = None     # m x part.dim, scale folded in
     accuracy: float = 1e-7
     max_iterations: int = 50_000
+    orthant_note: str = ""               # why the image leaves x >= 0, when the builder knows (centered sets)
+
+    def orthant_violation(self):
+        """The builder's reason when it knows the image leaves the orthant (centered sets), else unknown."""
+        return self.orthant_note or NotImplemented
 
     @classmethod
     def from_spec(cls, r):
@@ -353,6 +358,13 @@ def make_affine(part, scale=1.0, shift=None, matrix=None, accuracy=1e-7, max_ite
     return AffineImage(scale_factor=1.0, shift=s, matrix=M, **kw)
 
 
-def translated(node, shift, name=None):
-    """The node of {x + shift : x in K}: used by ``DecisionSet.centered``."""
-    return make_affine(node, scale=1.0, shift=shift, name=name)
+def translated(node, shift, name=None, orthant_note=""):
+    """The node of {x + shift : x in K}: used by ``DecisionSet.centered``.
+
+    ``orthant_note``: why the translate leaves the nonnegative orthant, when the caller knows
+    (the KL geometry then raises with that reason instead of searching by LPs).
+    """
+    out = make_affine(node, scale=1.0, shift=shift, name=name)
+    if orthant_note:
+        object.__setattr__(out, "orthant_note", str(orthant_note))
+    return out

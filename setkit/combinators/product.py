@@ -268,6 +268,18 @@ class Product(Family):
             out[:, flat] = np.asarray(res).reshape(b, k * d)
         return out
 
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V, parts):
+        """Block-wise KL Jacobian products in log coordinates (block diagonal), one batched call per distinct block."""
+        b = T.shape[0]
+        out = np.empty_like(T)
+        for g, cols in enumerate(self._block_columns()):
+            k, d = cols.shape
+            flat = cols.ravel()
+            res, _ = parts[g].run("project_kl_jvp", T[:, flat].reshape(b * k, d), V[:, flat].reshape(b * k, d))
+            out[:, flat] = np.asarray(res).reshape(b, k * d)
+        return out
+
     @kernel("lmo")
     def lmo(self, C, parts):
         """Block-wise LMO, one batched call per distinct block, O(sum of the block costs)."""

@@ -1,11 +1,14 @@
 """Set families: one module per family, registered by the ``@register`` decorator.
 
-Nothing outside this package lists the families: :func:`lookup` imports every
-module of ``setkit.families`` and ``setkit.combinators`` on first use, then the
-entry points of the group ``setkit.families`` that third-party packages declare.
+Nothing outside this package lists the families: :func:`lookup` reads the
+``@register("kind")`` declarations of the modules of ``setkit.families`` and
+``setkit.combinators`` (without importing them), imports the one module declaring the
+kind asked for, and otherwise the entry points of the group ``setkit.families`` that
+third-party packages declare.
 """
 from __future__ import annotations
 
+import re
 import threading
 import weakref
 from dataclasses import dataclass
@@ -174,6 +177,15 @@ class Family:
         """
         return NotImplemented
 
+    def factored(self, op: str, X):
+        """Low-rank answers of a matrix set in factored form, or None when the family offers none.
+
+        ``op`` is "project" or "lmo", ``X`` a flat (b, dim) batch; returns (U (b, m, q), s (b, q),
+        Vt (b, q, n)) with answer_i = U_i diag(s_i) Vt_i (read by DecisionSet.project_factors and
+        lmo_factors).
+        """
+        return None
+
     def new_workspace(self):
         """A fresh per-thread workspace for kernels marked ``@kernel(op, workspace=True)``, or None."""
         return None
@@ -239,16 +251,72 @@ def register(kind: str):
     return deco
 
 
-def _load_builtins():
+_BUILTIN_PACKAGES = ("setkit.families", "setkit.combinators")
+_REGISTER_CALL = re.compile(r"""^@register\(\s*["']([A-Za-z_][A-Za-z0-9_]*)["']\s*\)""", re.M)
+_index = None
+
+
+def builtin_index() -> dict[str, str]:
+    """Kind -> module of every built-in family and combinator, read from the sources without importing them.
+
+    The ``@register("kind")`` lines of the modules of ``setkit/families`` and ``setkit/combinators``
+    are the declarations: :func:`lookup` then imports only the module of the kind asked for (with
+    its numba kernels), and the names of the kinds (for listings and "did you mean" hints) cost
+    one read of the sources. ``tests/test_first_call.py`` checks that the index equals the
+    registry filled by importing every module.
+    """
+    global _index
+    if _index is None:
+        import importlib.util
+        import os
+        found = {}
+        for pkg_name in _BUILTIN_PACKAGES:
+            spec = importlib.util.find_spec(pkg_name)
+            if spec is None or not spec.submodule_search_locations:
+                continue
+            for folder in spec.submodule_search_locations:
+                for fname in sorted(os.listdir(folder)):
+                    if not fname.endswith(".py") or fname.startswith("_"):
+                        continue
+                    try:
+                        with open(os.path.join(folder, fname), encoding="utf-8") as fh:
+                            text = fh.read()
+                    except OSError:
+                        continue
+                    for kind in _REGISTER_CALL.findall(text):
+                        found.setdefault(kind, f"{pkg_name}.{fname[:-3]}")
+        _index = found
+    return _index
+
+
+def load_all() -> None:
+    """Import every module of ``setkit/families`` and ``setkit/combinators`` (registering all built-ins)."""
     global _loaded
     if _loaded:
         return
     with _lock:
         if _loaded:
             return
-        for pkg_name in ("setkit.families", "setkit.combinators"):
+        for pkg_name in _BUILTIN_PACKAGES:
             import_submodules(pkg_name)
         _loaded = True
+
+
+_load_builtins = load_all      # the former name
+
+
+def _load_builtin(kind: str):
+    """Import the built-in module declaring ``kind`` (if any); the registered class or None."""
+    module = builtin_index().get(kind)
+    if module is None:
+        return None
+    import importlib
+    importlib.import_module(module)
+    cls = _FAMILIES.get(kind)
+    if cls is None:          # the module registers it some other way: import everything once
+        load_all()
+        cls = _FAMILIES.get(kind)
+    return cls
 
 
 def _load_entry_point(kind: str):
@@ -263,18 +331,29 @@ def _load_entry_point(kind: str):
 
 
 def known_kinds() -> list[str]:
-    _load_builtins()
-    return sorted(_FAMILIES)
+    """The registered kinds: every built-in (by name, without importing its module) and every class
+    registered so far (by decorator, or through an entry point already looked up)."""
+    return sorted(set(builtin_index()) | set(_FAMILIES))
 
 
 def lookup(kind: str, location=None) -> type:
-    """The family class registered under ``kind`` (built-in or entry point)."""
-    _load_builtins()
-    cls = _FAMILIES.get(kind) or _load_entry_point(kind)
+    """The family class registered under ``kind`` (built-in or entry point).
+
+    Only the module declaring ``kind`` is imported (see :func:`builtin_index`); third-party kinds
+    come from the entry-point group ``setkit.families``.
+    """
+    cls = _FAMILIES.get(kind)
+    if cls is not None:
+        return cls
+    cls = _load_builtin(kind) or _load_entry_point(kind)
     if cls is None:
+        import difflib
         where = f" ({location})" if location is not None else ""
         loc = location.child("kind") if location is not None else None
         where = f" ({loc})" if loc is not None else where
+        names = known_kinds()
+        near = difflib.get_close_matches(str(kind), names, n=1, cutoff=0.6)
+        hint = f" Did you mean {near[0]!r}?" if near else ""
         raise DescriptionError(
-            f"set{where}: unknown kind {kind!r}; the known kinds are {', '.join(sorted(_FAMILIES))}.", loc)
+            f"set{where}: unknown kind {kind!r}; the known kinds are {', '.join(names)}.{hint}", loc)
     return cls

@@ -6,8 +6,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import SolveError
+from ..kernels.bregman import outside_orthant_error
 from ..kernels.norm_balls import elastic_level, elastic_lmo_rows, elastic_rows
 from ..kernels.spectral import pow2_scales, row_norms
+from ..kernels.structured_faces import elastic_face_rows
 from . import Family, kernel, register
 
 
@@ -24,6 +26,9 @@ class ElasticBall(Family):
     decreasing constraint value (a few O(n) steps, stopped when a step no longer moves lam).
     LMO: x_i = -sign(c_i) (eta |c_i| - a)_+ / (1 - a) with eta from one sort (closed form on
     the active set); the vertex -(radius / a) sign(c_j) e_j when a = 1. Support: <c, -lmo(-c)>.
+
+    Derivatives: native and exact (implicit differentiation of the active constraint on the support;
+    project_vjp derived). KL geometry: refused, the set is not inside x >= 0.
 
     >>> import setkit
     >>> K = setkit.compile({"kind": "elastic_ball", "dim": 2, "mix": 1.0, "radius": 1.0})
@@ -115,6 +120,24 @@ class ElasticBall(Family):
                              status="no_convergence")
         return np.copysign(U, Y)
 
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """Implicit differentiation of the active constraint on the support: (v_A - g <g, v>_A/<g, g>_A) / (1 + lam (1 - mix)), O(n).
+
+        x = sign(y) (|y| - lam a)_+ / (1 + lam b) with phi(x) = radius (a = mix, b = 1 - mix);
+        on the support A, d|x| = (d|y| - g dlam) / (1 + lam b) with g = a + b |x| the gradient of
+        phi, and d phi = 0 gives dlam = <g, d|y|>_A / <g, g>_A. J = I inside. At kinks the
+        smallest face: an exact zero of the answer is fixed (when mix > 0), a point on the
+        boundary keeps the constraint.
+        """
+        out = np.empty_like(Y)
+        if Y.shape[0] == 0:
+            return out
+        P = self.project(Y)
+        boundary = np.ascontiguousarray(~(self.value(Y) < self.radius))
+        elastic_face_rows(Y, P, self.mix, 1.0 - self.mix, boundary, np.ascontiguousarray(V, dtype=float), out)
+        return out
+
     @kernel("distance")
     def distance(self, Y):
         """||y - project(y)||, O(n) per Newton step."""
@@ -149,6 +172,21 @@ class ElasticBall(Family):
     def support(self, C):
         """<c, x> at the maximizer (the LMO of -c), O(n log n)."""
         return np.einsum("ij,ij->i", C, self.lmo(-C))
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """No KL projection: the set is not inside the nonnegative orthant (raises; radius 0: the origin)."""
+        why = self.orthant_violation()
+        if why:
+            raise outside_orthant_error(self.label, why)
+        return np.zeros_like(T)
+
+    def orthant_violation(self):
+        """Why the set is not inside the nonnegative orthant (None for radius 0: the set is {0})."""
+        if self.radius == 0.0:
+            return None
+        return (f"the set is centred at the origin, so it holds points with a negative coordinate "
+                f"(e.g. x = -{float(elastic_level(self.mix, 1.0 - self.mix, self.radius)):.6g} e_1)")
 
     def exact_centroid(self, measure):
         """The origin for every measure (the set is symmetric under x -> -x)."""

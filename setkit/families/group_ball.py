@@ -6,7 +6,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..kernels.simplex import project_capped
+from ..kernels.bregman import outside_orthant_error
 from ..kernels.spectral import pow2_scales, row_norms
+from ..kernels.structured_faces import group_face_rows
 from . import Family, kernel, register
 
 
@@ -21,6 +23,9 @@ class GroupBall(Family):
     t_g = (a_g - lam w_g)_+ (the continuous knapsack threshold), and each group is scaled by
     t_g / a_g; O(n). LMO: the whole radius on the group maximizing ||c_g|| / w_g, along -c_g;
     support: radius max_g ||c_g|| / w_g (the dual norm).
+
+    Derivatives: native and exact (group-wise radial scaling and the multiplier's implicit derivative;
+    project_vjp derived). KL geometry: refused, the ball is not inside x >= 0.
 
     >>> import setkit
     >>> K = setkit.compile({"kind": "group_ball", "groups": [[0, 1], [2]], "radius": 1.0})
@@ -167,6 +172,28 @@ class GroupBall(Family):
             out[i] = Y[i] * f[self._owner]
         return out
 
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """Group-wise radial scaling plus the multiplier's implicit derivative on the active groups, O(n).
+
+        On an active group (p_g != 0), x_g = y_g (1 - lam w_g / a_g), a_g = ||y_g||, with
+        sum_A w_g (a_g - lam w_g) = radius; so dx_g = (t_g/a_g) v_g + (lam w_g/a_g) e_g <e_g, v_g>
+        - w_g e_g dlam, e_g = y_g / a_g, dlam = sum_A w_g <e_g, v_g> / sum_A w_g^2; inactive groups
+        have derivative 0, and J = I inside. At kinks the smallest face: a group with p_g = 0 exactly
+        is inactive, a point on the boundary keeps the constraint.
+        """
+        out = np.empty_like(Y)
+        if Y.shape[0] == 0:
+            return out
+        P = self.project(Y)
+        t, a = self._norms(Y)
+        boundary = np.ascontiguousarray(a @ self._w >= self.radius / t)
+        sizes = np.array([len(g) for g in self.groups], dtype=np.int64)
+        group_face_rows(np.ascontiguousarray(Y / t[:, None]), np.ascontiguousarray(P / t[:, None]), self._perm,
+                        self._starts.astype(np.int64), sizes, self._w, self.radius / t, boundary,
+                        np.ascontiguousarray(V, dtype=float), out)
+        return out
+
     @kernel("distance")
     def distance(self, Y):
         """||y - project(y)||, O(n)."""
@@ -214,6 +241,21 @@ class GroupBall(Family):
             return np.zeros(0)
         t, a = self._norms(C)
         return self.radius * t * (a / self._w).max(axis=1)
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """No KL projection: the set is not inside the nonnegative orthant (raises; radius 0: the origin)."""
+        why = self.orthant_violation()
+        if why:
+            raise outside_orthant_error(self.label, why)
+        return np.zeros_like(T)
+
+    def orthant_violation(self):
+        """Why the set is not inside the nonnegative orthant (None for radius 0: the set is {0})."""
+        if self.radius == 0.0:
+            return None
+        return (f"the set is centred at the origin, so it holds points with a negative coordinate "
+                f"(e.g. x = -{self.radius / float(self._w[0]):.6g} e_1)")
 
     def exact_centroid(self, measure):
         """The origin for every measure (the set is symmetric under x -> -x)."""

@@ -10,9 +10,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import SolveError
+from ..kernels.bregman import outside_orthant_error
 from ..kernels.isotonic import decreasing_order
 from ..kernels.norm_balls import ksupport_norm_rows, ksupport_rows
 from ..kernels.spectral import pow2_scales, row_norms
+from ..kernels.structured_faces import ksupport_face_rows
 from . import Family, kernel, register
 
 
@@ -31,6 +33,9 @@ class KSupportBall(Family):
     bisection is the one iterative part; the answer is placed inside the ball (scaled if
     rounding left it a few ulps out) and its distance to the exact projection is at the level
     of the rounding of nu. The Frank-Wolfe certificate of ``project(y, details=True)`` bounds it.
+
+    Derivatives: native (implicit differentiation of the KKT system on the answer's smooth piece, exact
+    at the computed answer; project_vjp derived). KL geometry: refused, the ball is not inside x >= 0.
 
     >>> import setkit
     >>> K = setkit.compile({"kind": "ksupport_ball", "dim": 3, "k": 2, "radius": 1.0})
@@ -119,6 +124,27 @@ class KSupportBall(Family):
                              f"{int((~np.isfinite(out).all(axis=1)).sum())} point(s).", status="no_convergence")
         return np.copysign(out * t[:, None], Y)
 
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """Implicit differentiation of the KKT system on the answer's smooth piece (closed-form inverse), O(n log n).
+
+        Near the answer p the ball is {h(x) <= radius^2}, h = sum_S x_i^2 + (sum_M |x_i|)^2/(k - q)
+        (S: the q largest |p_i| kept squared by the norm's formula at p, M: the other nonzeros;
+        zeros fixed, unless p has fewer than k nonzeros: then h = ||x||^2 on every coordinate).
+        From x - y + mu grad h = 0 and h = radius^2: J v = H^-1 v - H^-1 g <g, H^-1 v>/<g, H^-1 g>,
+        g = grad h, H = I + mu grad^2 h. J = I inside; a point on the boundary keeps the constraint.
+        """
+        out = np.empty_like(Y)
+        if Y.shape[0] == 0:
+            return out
+        P = self.project(Y)
+        boundary = np.ascontiguousarray(~(self.norm(Y) < self.radius))
+        t = pow2_scales(Y)
+        order = np.ascontiguousarray(self._orders(np.abs(Y) / t[:, None]))
+        ksupport_face_rows(np.ascontiguousarray(Y / t[:, None]), np.ascontiguousarray(P / t[:, None]), order,
+                           self.k, boundary, np.ascontiguousarray(V, dtype=float), out)
+        return out
+
     @kernel("distance")
     def distance(self, Y):
         """||y - project(y)||, O(n log n)."""
@@ -173,6 +199,21 @@ class KSupportBall(Family):
             return np.zeros(0)
         t, _, _, nrm = self._top(C)
         return self.radius * t * nrm
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """No KL projection: the set is not inside the nonnegative orthant (raises; radius 0: the origin)."""
+        why = self.orthant_violation()
+        if why:
+            raise outside_orthant_error(self.label, why)
+        return np.zeros_like(T)
+
+    def orthant_violation(self):
+        """Why the set is not inside the nonnegative orthant (None for radius 0: the set is {0})."""
+        if self.radius == 0.0:
+            return None
+        return (f"the set is centred at the origin, so it holds points with a negative coordinate "
+                f"(e.g. x = -{self.radius:.6g} e_1)")
 
     def exact_centroid(self, measure):
         """The origin for every measure (the set is symmetric under x -> -x)."""

@@ -24,6 +24,10 @@ from ._graph import read_edges, resolve_node
 from ._network import Network, NetworkFamily
 
 
+# graphs with at most this many nodes solve the face system densely (least squares on the Laplacian)
+DENSE_LAPLACIAN_NODES = 64
+
+
 @njit(cache=True)
 def dag_shortest_path_rows(C, order, tail, head, n, s, t, out):
     """Shortest s-t path per row of C on a DAG: relax edges by topological order of their tail.
@@ -102,6 +106,9 @@ class Paths(NetworkFamily):
 
     Projection: dual Newton on node potentials (the flow kernel). LMO: shortest path by the
     recursion over a topological order, O(n + m) per direction (numba); with cycles, HiGHS simplex.
+
+    Derivatives: native and exact (the flow face: free edges, grounded Laplacian). KL geometry:
+    native, the flow family's dual Newton on node potentials (no KL Jacobian yet).
 
     >>> import setkit
     >>> K = setkit.compile({"kind": "paths", "edges": [["s", "a"], ["a", "t"], ["s", "t"]],
@@ -241,6 +248,56 @@ class Paths(NetworkFamily):
         if bad.any():
             P[bad] = project_rows(Y[bad], lambda c: vertices(c[None, :])[0], scale=1.0, label=self.label)[0]
         return P
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """KL projection onto the unit-flow polytope: the flow family's damped dual Newton on node potentials."""
+        from ..kernels.bregman import flow_kl
+        m = self.tail.size
+        return flow_kl(T, self.tail, self.head, np.zeros(m), np.ones(m), self.network().supply, self.label)
+
+    @kernel("project_jvp", workspace=True)
+    def project_jvp(self, Y, V, ws):
+        """Flow face of the answer: v_F - B_F^T z, z by a sparse solve with the free edges' Laplacian (grounded per component), per point.
+
+        The path polytope is the unit-flow polytope {B x = e_s - e_t, 0 <= x <= 1}, so its Jacobian
+        is the flow family's active-constraint rule: the projector onto {d_i = 0 on edges at a
+        bound, B_F d_F = 0 on the free edges F}, i.e. v_F - B_F^T z with (B_F B_F^T) z = B_F v_F.
+        The Laplacian B_F B_F^T is singular once per connected component of the free edges; one
+        node of each is grounded (z = 0 there) and the rest solved by a sparse LU. Edges within
+        1e-9 of a bound count as at the bound (the smallest face). Graphs of at most 64 nodes
+        use a dense least-squares solve of the same system instead (faster there).
+        """
+        from scipy.sparse.csgraph import connected_components
+        from scipy.sparse.linalg import splu
+        P = self.project(Y, ws)
+        V = np.asarray(V, dtype=float)
+        out = np.zeros_like(V)
+        B = self.network().incidence_matrix().tocsc()
+        n = B.shape[0]
+        dense = B.toarray() if n <= DENSE_LAPLACIAN_NODES else None
+        for r in range(Y.shape[0]):
+            free = np.flatnonzero((P[r] > 1e-9) & (P[r] < 1.0 - 1e-9))
+            if free.size == 0:
+                continue
+            if dense is not None:          # small graphs: a dense least-squares solve (z up to a constant per component)
+                BF = dense[:, free]
+                z = np.linalg.lstsq(BF @ BF.T, BF @ V[r, free], rcond=None)[0]
+                out[r, free] = V[r, free] - BF.T @ z
+                continue
+            BF = B[:, free]
+            L = (BF @ BF.T).tocsr()
+            rhs = BF @ V[r, free]
+            ncomp, lab = connected_components(L, directed=False)
+            ground = np.zeros(n, bool)
+            ground[np.unique(lab, return_index=True)[1]] = True
+            keep = np.flatnonzero(~ground)
+            z = np.zeros(n)
+            if keep.size:
+                Lk = L[keep][:, keep].tocsc()
+                z[keep] = splu(Lk).solve(rhs[keep])
+            out[r, free] = V[r, free] - BF.T @ z
+        return out
 
     def _form_violation(self, X):
         return memo(self, "linear_form", self.linear_form).violation_x(X)

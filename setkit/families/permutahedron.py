@@ -9,7 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..kernels.bregman import outside_orthant_error, permutahedron_kl
+from ..kernels.bregman import outside_orthant_error, permutahedron_kl, permutahedron_kl_jvp
 from ..kernels.face import permutahedron_face
 from ..kernels.isotonic import permutahedron_lmo, project_permutahedron
 from . import Family, kernel, register
@@ -154,6 +154,19 @@ class Permutahedron(Family):
         if why:
             raise outside_orthant_error(self.label, why)
         return permutahedron_kl(T, self._wdesc, self._log_wd)
+
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """Block-wise softmax Jacobian on the KL pooling blocks: x_B (v_B - <x_B, v_B> / sum_B w), O(n log n).
+
+        Inside a block B of the pooling x_B = (sum_B w) softmax(t_B), so the Jacobian in log
+        coordinates is diag(x_B) - x_B x_B^T / sum_B w per block (symmetric). At a kink (adjacent
+        blocks of equal value) the finer partition is used (the smallest face).
+        """
+        why = self.orthant_violation()
+        if why:
+            raise outside_orthant_error(self.label, why)
+        return permutahedron_kl_jvp(T, self._wdesc, V, None, self._log_wd)
 
     def _majorization_gap(self, X):
         ps_w = self._ps

@@ -18,10 +18,13 @@ from numba import njit
 
 from ..errors import EmptySetError
 from ..forms import LinearForm
+from ..kernels.base_kl import base_polytope_kl, partition_kl_jvp
 from ..kernels.minnorm import project_rows
+from ..kernels.structured_faces import ordered_partition_jvp
 from . import Family, kernel, register
 from ._graph import components, fail_at, read_edges
 from ._screen import screened_contains
+from .submodular_base import MNP_FACE_RTOL
 
 EXHAUSTIVE_MAX_NODES = 12      # membership by enumerating node subsets up to this many nodes
 
@@ -135,6 +138,10 @@ class SpanningTrees(Family):
     method on the graphic matroid's base polytope), stopped on the Frank-Wolfe gap; SolveError
     when it does not reach it. Membership and violation: the subset constraints are checked by
     enumerating node subsets for graphs of at most 12 nodes, by n minimum cuts otherwise.
+
+    Derivatives: native (the ordered-partition face: level sets of y - p). KL geometry: native
+    (weighted minimum-norm point on Kruskal or the decomposition algorithm, KL-certified), with
+    native KL Jacobians.
 
     >>> import setkit
     >>> K = setkit.compile({"kind": "spanning_trees", "nodes": 3, "edges": [[0, 1], [1, 2], [0, 2]]})
@@ -281,6 +288,43 @@ class SpanningTrees(Family):
     def project(self, Y):
         """Wolfe's minimum-norm point on the Kruskal LMO, stopped on the Frank-Wolfe gap; O(m k^2 + m log m) per cycle."""
         return project_rows(Y, self._lmo_one, scale=1.0, label=self.label)
+
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """The ordered-partition face of the answer: v minus its mean on each level set of y - p, O(m log m) after the projection.
+
+        The spanning-tree polytope is the base polytope of the graphic matroid; the face exposed
+        by u = y - p is {x : x(S) = r(S) for S = {u >= c}}, and where p is in its relative interior
+        (almost every y) J is the projector onto {d : d(A) = 0 on each level set A of u}. Values
+        of u within 1e-7 relative count as equal (the minimum-norm-point answer's accuracy; a near
+        tie is treated as a tie: the smaller face).
+        """
+        P = self.project(Y)[0]
+        return ordered_partition_jvp(Y, P, np.ascontiguousarray(V, dtype=float), MNP_FACE_RTOL)
+
+    def orthant_violation(self):
+        """None: every point of the spanning-tree polytope is >= 0."""
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Weighted minimum-norm point on the Kruskal LMO (lexicographically optimal base), polished on its ordered partition; KL-certified.
+
+        The KL projection onto a base polytope equals the minimizer of sum x_e^2 / y_e over it
+        (see setkit.kernels.base_kl), found by Wolfe's method on Kruskal with costs c / sqrt(y);
+        then x = (n - 1 split by the tight blocks) * softmax(t) per block. SolveError when the
+        KL certificate is above 1e-9 (n - 1).
+        """
+        if T.shape[0] == 0:
+            return T.copy()
+        return base_polytope_kl(T, self.lmo, total=float(self.n_nodes - 1), bound=1.0, label=self.label)
+
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """Softmax Jacobian on each block of the KL answer's ordered partition (log coordinates), O(m log m) after the projection."""
+        X = self.project_kl(T)
+        X = X[0] if isinstance(X, tuple) else X
+        return partition_kl_jvp(T, X, V)
 
     def _excess(self, X):
         n = self.n_nodes

@@ -5,9 +5,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..kernels.spectral import pow2_scales, svd_stack
+from ..kernels.spectral import pow2_scales, singular_map_jvp, svd_stack
 from . import Family, kernel, register
-from .nuclear_ball import read_matrix_ball
+from .nuclear_ball import read_matrix_ball, sphere_ball_draws
 
 
 @register("spectral_ball")
@@ -138,6 +138,87 @@ class SpectralBall(Family):
         t, M = self._scaled(C)
         return self.radius * (t * svd_stack(M, compute_uv=False).sum(axis=1))
 
+    # -- derivatives ------------------------------------------------------------------------------
+    def _jacobian_product(self, Y, D):
+        b = Y.shape[0]
+        out = np.zeros_like(Y)
+        if b == 0:
+            return out
+        t, M = self._scaled(Y)
+        rt = self.radius / t
+        U, s, Vt = svd_stack(M)
+        td = pow2_scales(D)
+        Dm = (D / td[:, None]).reshape(b, self.rows, self.cols)
+        for i in range(b):
+            if s[i, 0] < rt[i]:
+                out[i] = D[i]         # strictly inside: the identity
+                continue
+            free = s[i] < rt[i]
+            f = np.minimum(s[i], rt[i])
+            J = singular_map_jvp(U[i], s[i], Vt[i], f, free, lambda a, fr=free: np.where(fr, a, 0.0), Dm[i])
+            out[i] = td[i] * J.reshape(-1)
+        return out
+
+    @kernel("project_jvp")
+    def project_jvp(self, Y, D):
+        """SVD of y, clipped singular values frozen, divided differences off the diagonal, O(m n min(m, n)).
+
+        P(Y) = U diag(min(s, r)) V^T; :func:`setkit.kernels.spectral.singular_map_jvp` with
+        J_f = diag(s_i < r). Strictly inside, J = I. At kinks a singular value equal to the
+        radius counts as clipped (its constraint is tight, hence active).
+        """
+        return self._jacobian_product(Y, D)
+
+    @kernel("project_vjp")
+    def project_vjp(self, Y, U):
+        """The JVP formula applied to u (the Jacobian of a Euclidean projection is symmetric), O(m n min(m, n))."""
+        return self._jacobian_product(Y, U)
+
+    # -- factored answers -------------------------------------------------------------------------
+    def factored(self, op, X):
+        """project: (U, min(s, radius), Vt) from the thin SVD (full rank k = min(m, n): the answer is
+        not low-rank in general); lmo: (-U, radius 1, Vt), the polar factor. O(m n min(m, n))."""
+        b, m, n = X.shape[0], self.rows, self.cols
+        if op not in ("project", "lmo"):
+            return None
+        k = min(m, n)
+        if b == 0:
+            return np.zeros((0, m, k)), np.zeros((0, k)), np.zeros((0, k, n))
+        t, M = self._scaled(X)
+        U, s, Vt = svd_stack(M)
+        if op == "lmo":
+            return -U, np.full((b, k), self.radius), Vt
+        return U, np.minimum(t[:, None] * s, self.radius), Vt
+
+    def orthant_violation(self):
+        """Why the set is not inside the nonnegative orthant (radius > 0), None for the set {0}."""
+        if self.radius == 0.0:
+            return None
+        return (f"matrix entries of its points can be negative: -radius e1 e1^T (entry [0, 0] = {-self.radius:.6g}) "
+                f"is in the operator-norm ball")
+
     def exact_centroid(self, measure):
         """The zero matrix for every measure (the set and its extreme points are symmetric under X -> -X)."""
         return np.zeros(self.shape)
+
+    def exact_sample(self, k, measure, rng):
+        """vertices and directions: radius Q with Q uniform (Haar) among the m x n matrices whose
+        singular values are all 1, drawn as the Q factor of a Gaussian matrix with the signs of R's
+        diagonal moved into Q (Mezzadri, "How to generate random matrices from the classical compact
+        groups", 2007; from memory). Those matrices times the radius are the extreme points, and the
+        law of lmo(g) = -radius polar(g) is invariant under X -> P X Q^T, hence the same Haar law.
+        volume: exact only for a single row or column (an l2 ball); None otherwise (hit-and-run)."""
+        m, n, r = self.rows, self.cols, self.radius
+        if measure in ("vertices", "directions"):
+            tall = m >= n
+            G = rng.standard_normal((k, m, n) if tall else (k, n, m))
+            Q, R = np.linalg.qr(G)
+            d = np.sign(np.diagonal(R, axis1=1, axis2=2))
+            d[d == 0.0] = 1.0
+            Q = Q * d[:, None, :]
+            if not tall:
+                Q = np.swapaxes(Q, 1, 2)
+            return r * Q.reshape(k, m * n)
+        if measure == "volume" and min(m, n) == 1:
+            return sphere_ball_draws(k, m * n, r, rng)
+        return None

@@ -9,7 +9,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..kernels.spectral import DENSE_MAX_SIDE, eigh_stack, extreme_eigenpair, pow2_scales, row_norms, simplex_sorted
+from ..kernels.spectral import (DENSE_MAX_SIDE, eigen_map_jvp, eigh_stack, extreme_eigenpair, pow2_scales, row_norms,
+                                simplex_sorted, support_block_jvp)
 from . import Family, kernel, register
 
 
@@ -23,8 +24,8 @@ class Spectraplex(Family):
     one eigendecomposition sym(Y) = V diag(l) V^T and the simplex projection of
     l (total t; at_most: onto {l >= 0, sum l <= t}); O(n^3). LMO: t v v^T for
     a unit eigenvector of the smallest eigenvalue of sym(C) (at_most: the zero
-    matrix when that eigenvalue is >= 0); dense eigh up to n = 120, ARPACK above
-    with a measured residual. Support: t lambda_max(sym C) (at_most: its
+    matrix when that eigenvalue is >= 0); dense eigh up to n = 120, Lanczos above
+    (measured residual, value within 1e-9 of the spectral scale; setkit.kernels.spectral). Support: t lambda_max(sym C) (at_most: its
     positive part).
 
     >>> import setkit
@@ -157,12 +158,12 @@ class Spectraplex(Family):
         for i in range(b):
             lam, v, res, m = extreme_eigenpair(S[i], largest)
             lams[i], vs[i] = t[i] * lam, v
-            how.append(f"{m} extreme eigenpair, residual {res * t[i]:.2e}")
+            how.append(f"{m}; extreme eigenpair residual {res * t[i]:.2e}")
         return lams, vs, how
 
     @kernel("lmo")
     def lmo(self, C):
-        """t v v^T for the smallest eigenpair of sym(C) (at_most: 0 if it is >= 0): dense eigh up to n = 120, else ARPACK."""
+        """t v v^T for the smallest eigenpair of sym(C) (at_most: 0 if it is >= 0): dense eigh up to n = 120, else Lanczos."""
         b = C.shape[0]
         out = np.zeros_like(C)
         if b == 0:
@@ -175,11 +176,80 @@ class Spectraplex(Family):
 
     @kernel("support")
     def support(self, C):
-        """t lambda_max(sym C) (at_most: its positive part), O(n^3) dense or ARPACK above n = 120."""
+        """t lambda_max(sym C) (at_most: its positive part), O(n^3) dense or Lanczos above n = 120."""
         if C.shape[0] == 0:
             return np.zeros(0)
         lam, _, _ = self._extreme(C, largest=True)
         return self.trace * (lam if self.mode == "equal" else np.maximum(lam, 0.0))
+
+    # -- derivatives ------------------------------------------------------------------------------
+    def _jacobian_product(self, Y, D):
+        b = Y.shape[0]
+        out = np.zeros_like(Y)
+        if b == 0:
+            return out
+        t, S, _ = self._sym(Y)
+        tt = self.trace / t
+        lam, V = eigh_stack(S)
+        lp = self._project_eigenvalues(lam, tt)
+        td = pow2_scales(D)
+        Dm = (D / td[:, None]).reshape(b, self.n, self.n)
+        for i in range(b):
+            free = lp[i] > 0.0
+            active = self.mode == "equal" or np.maximum(lam[i], 0.0).sum() >= tt[i]
+            dS = 0.5 * (Dm[i] + Dm[i].T)
+            J = eigen_map_jvp(V[i], lam[i], lp[i], free, support_block_jvp(free, active), dS)
+            out[i] = td[i] * J.reshape(-1)
+        return out
+
+    @kernel("project_jvp")
+    def project_jvp(self, Y, D):
+        """Eigendecomposition of sym(y), the simplex projection's Jacobian on the eigenvalues, Daleckii-Krein off them, O(n^3).
+
+        P(Y) = V diag(f(l)) V^T with f the projection of the eigenvalues l of sym(Y) onto
+        {f >= 0, sum f = t} (at_most: sum <= t); J D = V (G o V^T sym(D) V) V^T with
+        G_ij = (f_i - f_j)/(l_i - l_j) and J_f on the diagonal (a - mean(a) on the kept
+        eigenvalues while the trace constraint is tight; a on them otherwise). At kinks tight
+        constraints count as active: an eigenvalue at the threshold is dropped, and at_most
+        keeps the trace constraint when the positive part sums exactly to t.
+        """
+        return self._jacobian_product(Y, D)
+
+    @kernel("project_vjp")
+    def project_vjp(self, Y, U):
+        """The JVP formula applied to u (the Jacobian of a Euclidean projection is symmetric), O(n^3)."""
+        return self._jacobian_product(Y, U)
+
+    # -- factored answers -------------------------------------------------------------------------
+    def factored(self, op, X):
+        """project: (V, l, V^T) with the kept eigenvalues only, largest first (padded with zero values to the
+        batch's largest rank); lmo: (v, [t], v^T) for the extreme eigenvector (a zero value when at_most
+        answers 0). O(n^3), or the Lanczos cost of the LMO."""
+        b, n = X.shape[0], self.n
+        if op == "lmo":
+            if b == 0:
+                return np.zeros((0, n, 1)), np.zeros((0, 1)), np.zeros((0, 1, n))
+            lam, V, _ = self._extreme(X, largest=False)
+            keep = (lam < 0.0) if self.mode == "at_most" else np.ones(b, dtype=bool)
+            return V[:, :, None], np.where(keep, self.trace, 0.0)[:, None], V[:, None, :]
+        if op != "project":
+            return None
+        if b == 0:
+            return np.zeros((0, n, 0)), np.zeros((0, 0)), np.zeros((0, 0, n))
+        t, S, _ = self._sym(X)
+        lam, V = eigh_stack(S)
+        lp = self._project_eigenvalues(lam, self.trace / t)
+        q = min(n, max(1, int(np.count_nonzero(lp > 0.0, axis=1).max(initial=0))))
+        Vq = V[:, :, ::-1][:, :, :q]
+        return Vq, t[:, None] * lp[:, ::-1][:, :q], np.swapaxes(Vq, 1, 2)
+
+    # -- the KL geometry --------------------------------------------------------------------------
+    def orthant_violation(self):
+        """Why the set is not inside the nonnegative orthant (n >= 2 and trace > 0), else None."""
+        if self.n == 1 or self.trace == 0.0:
+            return None
+        return (f"off-diagonal entries of its points can be negative: (t/2)(e1 - e2)(e1 - e2)^T is in the "
+                f"spectraplex with entry [0, 1] = {-self.trace / 2:.6g}")
 
     # -- exact knowledge for setkit.measures ------------------------------------------------------
     def exact_centroid(self, measure):
@@ -193,4 +263,24 @@ class Spectraplex(Family):
         if measure == "volume":
             D = n * (n + 1) / 2
             return np.eye(n) * (t * D / ((D + 1) * n))
+        return None
+
+    def exact_sample(self, k, measure, rng):
+        """mode equal, vertices and directions: t v v^T with v uniform on the unit sphere. The extreme
+        points are t v v^T; lmo(g) = t v v^T for the eigenvector v of the smallest eigenvalue of
+        sym(g), whose law is invariant under v -> Q v for a Gaussian g, hence uniform. n = 1: the set is
+        {t} (equal) or [0, t] (at_most, volume: uniform). None otherwise: at_most with vertices (the
+        extreme points mix the atom 0 with the sphere) or directions (the generic route draws lmo(g)
+        exactly), and volume for n >= 2 (no exact sampler is known to us: hit-and-run)."""
+        n, t = self.n, self.trace
+        if n == 1:
+            if self.mode == "equal":
+                return np.full((k, 1), t)
+            if measure == "volume":
+                return t * rng.random((k, 1))
+            return None
+        if self.mode == "equal" and measure in ("vertices", "directions"):
+            v = rng.standard_normal((k, n))
+            v /= np.linalg.norm(v, axis=1, keepdims=True)
+            return t * np.einsum("bi,bj->bij", v, v).reshape(k, n * n)
         return None

@@ -32,8 +32,12 @@ import scipy.sparse as sp
 
 from ..errors import DescriptionError, UnsupportedOperationError
 from ..forms import LinearForm
+from ..kernels.base_kl import base_polytope_kl, partition_kl_jvp
+from ..kernels.bregman import outside_orthant_error, permutahedron_kl
+from ..kernels.face import permutahedron_face
 from ..kernels.isotonic import project_permutahedron
 from ..kernels.minnorm import project_rows, uncertified_rows
+from ..kernels.structured_faces import ordered_partition_jvp
 from . import Family, kernel, memo, register
 from ._graph import fail_at, read_edges
 from ._screen import screened_contains
@@ -41,6 +45,9 @@ from ._screen import screened_contains
 EXHAUSTIVE_MAX = 16          # membership by enumerating subsets up to this many elements
 CHECK_EXHAUSTIVE_MAX = 12    # submodularity of a Python function checked on every pair up to this size
 CHECK_RANDOM = 300           # otherwise on this many random (S, i, j)
+# level sets of y - p closer than this (relative) count as one block of the face, for projections by
+# the minimum-norm-point method (its answers are certified to about this accuracy)
+MNP_FACE_RTOL = 1e-7
 
 
 def subset_masks(n):
@@ -360,6 +367,11 @@ class SubmodularBase(BasePolytopeMixin, Family):
     (exact); otherwise Wolfe's minimum-norm point on the greedy LMO with a gap certificate.
     Membership: exact by subset enumeration for n <= 16, else through the projection.
 
+    Derivatives: native (concave of cardinality: isotonic blocks, exact; otherwise the level sets of
+    y - p). KL geometry: native when B(F) lies in x >= 0 (else refused, e.g. a cut function): the
+    permutahedron's pooling for concave of cardinality, otherwise weighted minimum-norm point or the
+    decomposition algorithm, KL-certified; native KL Jacobians.
+
     >>> import setkit
     >>> K = setkit.compile({"kind": "submodular_base", "function": "concave_cardinality",
     ...                     "values": [0, 3, 5, 6]})
@@ -498,6 +510,63 @@ class SubmodularBase(BasePolytopeMixin, Family):
                 P[bad] = self._mnp_project(Y[bad])[0]
             return P
         return self._mnp_project(Y)
+
+    @kernel("project_jvp")
+    def project_jvp(self, Y, V):
+        """Ordered-partition face: v minus its mean on each level set of y - p (concave: isotonic blocks), O(n log n) after the projection.
+
+        The face of B(F) exposed by u = y - p is {x : x(S) = F(S) for S = {u >= c}}; where p is in
+        its relative interior (almost every y) the projection is locally the projection onto its
+        affine hull, with tangent space {d : d(A) = 0 on each level set A of u}. Concave of
+        cardinality: the blocks of pool-adjacent-violators (exact; at a tie of adjacent blocks the
+        finer partition: the smallest face). Otherwise the minimum-norm-point answer's level sets,
+        values within 1e-7 relative counting as equal (a near tie is treated as a tie).
+        """
+        V = np.ascontiguousarray(V, dtype=float)
+        if isinstance(self.fn, ConcaveCardinality):
+            return permutahedron_face(Y, self._wd, V, mode=0)
+        P = self._mnp_project(Y)[0]
+        return ordered_partition_jvp(Y, P, V, MNP_FACE_RTOL)
+
+    def orthant_violation(self):
+        """None when B(F) lies in x >= 0, else why not: min of x_i over B(F) is F(V) - F(V - i) (greedy with i last)."""
+        def build():
+            n = self.dim
+            M = np.ones((n + 1, n), bool)
+            M[np.arange(n), np.arange(n)] = False
+            v = self.fn.values(M)
+            low = v[n] - v[:n]
+            i = int(np.argmin(low))
+            if low[i] < -1e-12 * max(1.0, float(np.abs(v).max())):
+                return (f"x[{i}] can be F(V) - F(V - {{{i}}}) = {low[i]:.6g} < 0 (the base polytope has points with "
+                        f"negative coordinates)")
+            return None
+        return memo(self, "orthant", build)
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Concave of cardinality: the permutahedron's KL pooling (exact); else weighted min-norm point on the greedy LMO, polished, KL-certified.
+
+        Raises the orthant error when B(F) has points with negative coordinates (e.g. a cut
+        function, whose base polytope is symmetric about 0). Otherwise the KL projection equals
+        the minimizer of sum x_i^2 / y_i over B(F) (Fujishige's lexicographically optimal base;
+        setkit.kernels.base_kl), found by Wolfe's method and polished on its ordered partition.
+        """
+        why = self.orthant_violation()
+        if why:
+            raise outside_orthant_error(self.label, why)
+        if T.shape[0] == 0:
+            return T.copy()
+        if isinstance(self.fn, ConcaveCardinality):
+            return permutahedron_kl(T, self._wd)
+        return base_polytope_kl(T, self.fn.greedy, total=self._total(), bound=self.scale(), label=self.label)
+
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """Softmax Jacobian on each block of the KL answer's ordered partition (log coordinates), O(n log n) after the projection."""
+        X = self.project_kl(T)
+        X = X[0] if isinstance(X, tuple) else X
+        return partition_kl_jvp(T, X, V)
 
     def project_min_norm_point(self, Y):
         """Wolfe's minimum-norm point on the greedy LMO for every form (an independent route for tests)."""

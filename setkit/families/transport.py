@@ -7,7 +7,7 @@ import numpy as np
 
 from ..description import MAX_SIZE
 from ..errors import EmptySetError
-from ..kernels.bregman import sinkhorn_kl
+from ..kernels.bregman import sinkhorn_kl, transport_kl_jvp
 from . import kernel, memo, register
 from ._network import Network, NetworkFamily
 
@@ -111,3 +111,16 @@ class Transport(NetworkFamily):
     def project_kl(self, T):
         """Sinkhorn-Knopp scaling with log-domain absorption, to marginal residual 1e-10 x scale, O(mn) per iteration."""
         return sinkhorn_kl(T, self.rows, self.cols, self.kl_accuracy, self.kl_max_iterations, self.label)
+
+    @kernel("project_kl_jvp")
+    def project_kl_jvp(self, T, V):
+        """Implicit differentiation of the Sinkhorn fixed point: one Schur-complement solve on the smaller side, O(mn min(m, n) + min(m, n)^3).
+
+        X = exp(t + f 1^T + 1 g^T); the marginal equations give the potentials' derivatives
+        from a weighted-Laplacian system (null space: the constant shift of f against g).
+        The Jacobian is symmetric; its accuracy is that of the projection (marginal residual).
+        """
+        X = sinkhorn_kl(T, self.rows, self.cols, self.kl_accuracy, self.kl_max_iterations, self.label)
+        if isinstance(X, tuple):
+            X = X[0]
+        return transport_kl_jvp(X, V, self.shape)

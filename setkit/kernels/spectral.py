@@ -5,15 +5,29 @@ divided by a power of two per matrix (exact in floating point) so that entries
 as large as 1e300 or as small as 1e-300 neither overflow nor underflow inside
 LAPACK; callers scale their radii by the same factor.
 
-Extreme singular or eigen pairs of large matrices come from ARPACK (implicitly
-restarted Lanczos, ``scipy.sparse.linalg.svds`` / ``eigsh``) started from a
-fixed seeded vector, so answers are reproducible. Their accuracy is measured,
-not assumed: the residuals ``||C v - s u||`` and ``||C^T u - s v||`` (or
-``||S v - l v||``) must be at most ``RESIDUAL_RTOL`` times the matrix's
-Frobenius norm; otherwise the dense LAPACK routine answers instead. Lanczos
-from a random start finds the extreme pair unless the start is orthogonal to
-it, an event of probability zero; that is the one thing the residual cannot
-certify.
+Extreme singular or eigen pairs of large matrices come from a Lanczos method
+with full reorthogonalization (:func:`lanczos_top`), run first in single
+precision (half the memory traffic per pass over the matrix; the answer's value
+error is quadratic in its vector error, so a vector accurate to ~1e-6 already
+gives a value accurate to ~1e-10 and better), started from a fixed seeded
+vector so that answers are reproducible. Their accuracy is measured, not
+assumed, in double precision on the returned pair:
+
+* residual ``r = ||C^T u - s v||`` (with ``C v = s u`` by construction), or
+  ``r = ||S v - l v||`` for a symmetric S;
+* value error bound ``min(r, r^2 / (s - s2 - r2))``: the returned value s = u^T C v
+  is at most sigma_1 (unit u, v) and at least sigma_1 minus this bound by the
+  Kato-Temple inequality (Kato 1949, Temple 1928; from memory) applied to the
+  Jordan-Wielandt matrix [[0, C], [C^T, 0]], where s2 and r2 are the second Ritz
+  value and its residual, so that s2 + r2 bounds sigma_2 from above.
+
+An answer is accepted when that bound is at most ``VALUE_RTOL`` times the
+value scale (s, or the largest |Ritz value| for symmetric S); otherwise a
+double-precision Lanczos run continues from the single-precision vectors, and
+when that also fails the dense LAPACK routine answers. The one thing the
+residuals cannot certify is that the Krylov space caught the top two singular
+values (it does unless the start is orthogonal to them, an event of probability
+zero): the bound is stated under that condition.
 """
 from __future__ import annotations
 
@@ -23,9 +37,12 @@ from ..errors import SolveError
 
 # matrices with min(rows, cols) up to this size are decomposed densely (LAPACK is faster there)
 DENSE_MAX_SIDE = 120
-# accuracy asked of ARPACK, and the residual (relative to ||C||_F) an iterative answer must meet
-ARPACK_TOL = 1e-12
-RESIDUAL_RTOL = 1e-9
+# the bound on (sigma_1 - returned value) / value an iterative answer must meet (see the module notes)
+VALUE_RTOL = 1e-9
+# single-precision Lanczos stops at this residual relative to the value (about 10x float32's rounding)
+SINGLE_RTOL = 1e-6
+# largest Krylov basis before giving up (then double precision, then dense LAPACK)
+KRYLOV_MAX_DIM = 400
 _START_SEED = 20240607
 
 
@@ -70,13 +87,68 @@ def eigh_stack(S: np.ndarray, compute_v: bool = True):
                          status="no_convergence") from None
 
 
-def top_singular_triplet(C: np.ndarray):
-    """(u, s, v, residual, method) with s = ||C||_2 = u^T C v, for one matrix C (m, n).
+def lanczos_top(apply, n, start, rtol, max_dim=None):
+    """Two largest eigenpairs of a symmetric operator by block Lanczos with full reorthogonalization.
 
-    Dense LAPACK SVD when min(m, n) <= DENSE_MAX_SIDE; otherwise ARPACK on the
-    top triplet (``svds(k=1)``), accepted when its measured residual
-    max(||C v - s u||, ||C^T u - s v||) is at most RESIDUAL_RTOL ||C||_F, else
-    the dense SVD. C must be finite and scaled (entries at most 1 in size).
+    ``apply(Q)`` returns M Q for an (n, b) block Q in the dtype of ``start`` (n, b), which is
+    the first block. Each step orthogonalizes the new block twice against the whole basis
+    (classical Gram-Schmidt, twice), so the projected matrix T = Q^T M Q is exact to rounding; the
+    residual of a Ritz pair (l, Q g) is ||R g_last|| with R from the QR factor of the next block
+    (the block Lanczos relation M Q = Q T + W E^T). Stops when the top residual is at most
+    ``rtol`` times max|Ritz value| or the basis reaches ``max_dim`` (or n) columns.
+
+    Returns (ritz values (2,) descending, Ritz vectors (n, 2), residuals (2,), basis size).
+    O(dim passes of M + n dim^2).
+    """
+    dtype = start.dtype
+    max_dim = min(n, max_dim or KRYLOV_MAX_DIM)
+    Q, _ = np.linalg.qr(start)
+    b = Q.shape[1]
+    Qall = np.empty((n, 0), dtype=dtype)
+    T = np.zeros((0, 0))
+    while True:
+        Z = apply(Q)
+        Qall = np.hstack([Qall, Q])
+        k = Qall.shape[1]
+        col = Qall.T @ Z
+        W = Z - Qall @ col
+        W -= Qall @ (Qall.T @ W)
+        Tn = np.zeros((k, k))
+        Tn[:k - b, :k - b] = T
+        cf = col.astype(np.float64)
+        Tn[:, k - b:] = cf
+        Tn[k - b:, :] = cf.T
+        Tn[k - b:, k - b:] = 0.5 * (cf[k - b:] + cf[k - b:].T)
+        T = Tn
+        Qn, R = np.linalg.qr(W)
+        lam, G = np.linalg.eigh(T)
+        scale = float(max(abs(lam[0]), abs(lam[-1])))
+        top = min(2, k)
+        lam2, G2 = lam[::-1][:top], G[:, ::-1][:, :top]
+        r = np.linalg.norm(R.astype(np.float64) @ G2[k - b:], axis=0)
+        if (k >= 2 and r[0] <= rtol * scale) or k + b > max_dim:
+            if top < 2:
+                lam2, r = np.append(lam2, -np.inf), np.append(r, np.inf)
+                G2 = np.hstack([G2, G2])
+            return lam2, Qall @ G2.astype(dtype), r, k
+        Q = Qn
+
+
+def _value_bound(r, th, th2, r2):
+    """min(r, r^2 / gap) with gap = th - th2 - r2 (Kato-Temple; r alone when the gap is not resolved)."""
+    gap = th - th2 - r2
+    return min(r, r * r / gap) if gap > 0.0 else r
+
+
+def top_singular_triplet(C: np.ndarray):
+    """(u, s, v, residual, method) with s = u^T C v, sigma_1(C) - s <= VALUE_RTOL s, for one matrix C (m, n).
+
+    Dense LAPACK SVD when min(m, n) <= DENSE_MAX_SIDE (then s = sigma_1 to rounding); otherwise
+    Lanczos on C^T C (or C C^T, the smaller side) in single precision, then measured in double
+    precision: v unit, u = C v / ||C v||, s = ||C v||, residual ||C^T u - s v||, value error
+    bound as in the module notes; if the bound exceeds VALUE_RTOL s, a double-precision Lanczos
+    run from those vectors, then the dense SVD. ``method`` says which answered and the bound.
+    C must be finite and scaled (entries at most 1 in size). O(passes m n) iterative.
     """
     m, n = C.shape
     fro = float(np.linalg.norm(C))
@@ -86,20 +158,32 @@ def top_singular_triplet(C: np.ndarray):
         u[0], v[0] = 1.0, 1.0
         return u, 0.0, v, 0.0, "zero matrix"
     if min(m, n) > DENSE_MAX_SIDE:
-        from scipy.sparse.linalg import svds, ArpackError, ArpackNoConvergence
-        try:
-            U, s, Vt = svds(C, k=1, tol=ARPACK_TOL, v0=_start(min(m, n)), which="LM", solver="arpack")
-            u, v = U[:, 0], Vt[0]
-            u = u / np.linalg.norm(u)
-            v = v / np.linalg.norm(v)
-            sv = float(u @ (C @ v))
-            if sv < 0:
-                u, sv = -u, -sv
-            res = max(float(np.linalg.norm(C @ v - sv * u)), float(np.linalg.norm(C.T @ u - sv * v)))
-            if res <= RESIDUAL_RTOL * fro:
-                return u, sv, v, res, "arpack"
-        except (ArpackError, ArpackNoConvergence, np.linalg.LinAlgError, ValueError):
-            pass
+        A = C if n <= m else C.T            # Krylov vectors on the smaller side
+        side = A.shape[1]
+        x0 = np.random.default_rng(_START_SEED).standard_normal((side, 1))
+        A32 = A.astype(np.float32)
+        runs = (("single-precision Lanczos", lambda Q: A32.T @ (A32 @ Q), x0.astype(np.float32), SINGLE_RTOL),
+                ("double-precision Lanczos", lambda Q: A.T @ (A @ Q), None, VALUE_RTOL))
+        for how, apply, start, rtol in runs:
+            if start is None:
+                start = V.astype(np.float64)   # noqa: F821 - the vectors of the single-precision run
+            lam, V, r, dim = lanczos_top(apply, side, start, rtol)
+            v = V[:, 0].astype(np.float64)
+            v /= np.linalg.norm(v)
+            Av = A @ v
+            sv = float(np.linalg.norm(Av))
+            if sv == 0.0:
+                continue
+            u = Av / sv
+            res = float(np.linalg.norm(A.T @ u - sv * v))
+            th2 = float(np.sqrt(max(lam[1], 0.0))) if np.isfinite(lam[1]) else 0.0
+            # r2 is the eigen-residual of C^T C; /th2 turns it into the pair's; plus single-precision rounding
+            r2 = (float(r[1]) / th2 if th2 > 0.0 else 0.0) + 1e-6 * sv
+            bound = _value_bound(res, sv, th2, r2)
+            if bound <= VALUE_RTOL * sv:
+                if A is not C:
+                    u, v = v, u
+                return u, sv, v, res, f"{how} (basis {dim}), value error <= {bound / sv:.1e} relative"
     U, s, Vt = svd_stack(C[None])
     u, v = U[0, :, 0], Vt[0, 0]
     sv = float(s[0, 0])
@@ -110,8 +194,10 @@ def top_singular_triplet(C: np.ndarray):
 def extreme_eigenpair(S: np.ndarray, largest: bool):
     """(l, v, residual, method): the largest (or smallest) eigenvalue of the symmetric S and a unit eigenvector.
 
-    Dense LAPACK (eigh) when n <= DENSE_MAX_SIDE; otherwise ARPACK (``eigsh(k=1)``, which 'LA' or 'SA'),
-    accepted when ||S v - l v|| <= RESIDUAL_RTOL ||S||_F, else dense. S must be finite and scaled.
+    Dense LAPACK (eigh) when n <= DENSE_MAX_SIDE; otherwise Lanczos on S (or -S) in single
+    precision, measured in double precision: l = v^T S v, residual ||S v - l v||, accepted when
+    the Kato-Temple bound min(r, r^2 / (|l - l2| - r2)) is at most VALUE_RTOL max|Ritz value|;
+    else a double-precision Lanczos run, then dense. S must be finite and scaled. O(passes n^2).
     """
     n = S.shape[0]
     fro = float(np.linalg.norm(S))
@@ -120,16 +206,26 @@ def extreme_eigenpair(S: np.ndarray, largest: bool):
         v[0] = 1.0
         return 0.0, v, 0.0, "zero matrix"
     if n > DENSE_MAX_SIDE:
-        from scipy.sparse.linalg import eigsh, ArpackError, ArpackNoConvergence
-        try:
-            w, V = eigsh(S, k=1, which="LA" if largest else "SA", tol=ARPACK_TOL, v0=_start(n))
-            v = V[:, 0] / np.linalg.norm(V[:, 0])
-            lam = float(v @ (S @ v))
-            res = float(np.linalg.norm(S @ v - lam * v))
-            if res <= RESIDUAL_RTOL * fro:
-                return lam, v, res, "arpack"
-        except (ArpackError, ArpackNoConvergence, np.linalg.LinAlgError, ValueError):
-            pass
+        sign = 1.0 if largest else -1.0
+        M = sign * S
+        M32 = M.astype(np.float32)
+        x0 = np.random.default_rng(_START_SEED).standard_normal((n, 1))
+        runs = (("single-precision Lanczos", lambda Q: M32 @ Q, x0.astype(np.float32), SINGLE_RTOL),
+                ("double-precision Lanczos", lambda Q: M @ Q, None, VALUE_RTOL))
+        for how, apply, start, rtol in runs:
+            if start is None:
+                start = V.astype(np.float64)   # noqa: F821 - the vectors of the single-precision run
+            lam, V, r, dim = lanczos_top(apply, n, start, rtol)
+            v = V[:, 0].astype(np.float64)
+            v /= np.linalg.norm(v)
+            Mv = M @ v
+            th = float(v @ Mv)
+            res = float(np.linalg.norm(Mv - th * v))
+            scale = max(abs(th), abs(float(lam[1])) if np.isfinite(lam[1]) else 0.0, res)
+            th2 = float(lam[1]) if np.isfinite(lam[1]) else -np.inf
+            bound = _value_bound(res, th, th2, float(r[1]) + 1e-6 * scale)
+            if bound <= VALUE_RTOL * scale:
+                return sign * th, v, res, f"{how} (basis {dim}), value error <= {bound / scale:.1e} of the spectral scale"
     w, V = eigh_stack(S[None])
     j = -1 if largest else 0
     lam, v = float(w[0, j]), V[0, :, j]
@@ -168,3 +264,87 @@ def row_norms(V: np.ndarray) -> np.ndarray:
         return np.zeros(0)
     t = pow2_scales(V)
     return t * np.linalg.norm(V / t[:, None], axis=1)
+
+
+# -- derivatives of spectral maps -------------------------------------------------------------------
+def _divided_differences(s, f, free, plus):
+    """Matrix of (f_i - f_j)/(s_i - s_j) (plus=False) or (f_i + f_j)/(s_i + s_j) (plus=True), i != j.
+
+    ``free`` marks the entries where f has slope 1 (f_i = s_i - c on the free block, or f_i = s_i):
+    pairs of free entries get 1, pairs of fixed entries 0 (f constant there), so ties inside a
+    block never divide by zero; mixed pairs are separated by the block's threshold and divide
+    safely. For the plus form a zero denominator (two zero values) gets the mean slope.
+    """
+    d = free.astype(float)
+    both = np.add.outer(d, d) / 2.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if plus:
+            den = np.add.outer(s, s)
+            G = np.where(den > 0.0, np.add.outer(f, f) / np.where(den > 0.0, den, 1.0), both)
+        else:
+            den = np.subtract.outer(s, s)
+            mixed = free[:, None] != free[None, :]
+            G = np.where(mixed, np.subtract.outer(f, f) / np.where(mixed, den, 1.0), both)
+    return G
+
+
+def singular_map_jvp(U, s, Vt, f, free, diag_jvp, D):
+    """Directional derivative of F(Y) = U diag(f(s)) V^T (a unitarily invariant map) along D.
+
+    Y = U diag(s) V^T is a thin SVD (U m x k, Vt k x n, k = min(m, n)) and f acts on the
+    vector of singular values with Jacobian ``diag_jvp`` (a -> J_f(s) a). With A = U^T D V,
+    U^T dF V = Gm o sym(A) + Gp o skew(A) off the diagonal and J_f(s) diag(A) on it, where
+    Gm_ij = (f_i - f_j)/(s_i - s_j) and Gp_ij = (f_i + f_j)/(s_i + s_j); the parts of D outside
+    span(U) (m > n) or span(V) (m < n) are scaled by f_j / s_j. (The singular-value analogue of
+    the Daleckii-Krein formula: Lewis and Sendov, "Nonsmooth analysis of singular values", 2005,
+    and Candes, Sing-Long and Trzasko, "Unbiased risk estimates for singular value thresholding",
+    2013; from memory.) The map is self-adjoint, so it is also the VJP. O(m n k).
+    """
+    m, n = D.shape
+    V = Vt.T
+    DV = D @ V
+    A = U.T @ DV
+    Gm = _divided_differences(s, f, free, plus=False)
+    Gp = _divided_differences(s, f, free, plus=True)
+    B = Gm * (0.5 * (A + A.T)) + Gp * (0.5 * (A - A.T))
+    B[np.diag_indices_from(B)] = diag_jvp(np.diag(A).copy())
+    out = (U @ B) @ Vt
+    if m != n:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            g = np.where(s > 0.0, f / np.where(s > 0.0, s, 1.0), free.astype(float))
+        if m > n:
+            out += ((DV - U @ A) * g) @ Vt
+        else:
+            out += (U * g) @ (U.T @ D - A @ Vt)
+    return out
+
+
+def eigen_map_jvp(V, lam, f, free, diag_jvp, dS):
+    """Directional derivative of F(S) = V diag(f(lam)) V^T for symmetric S = V diag(lam) V^T along the symmetric dS.
+
+    Daleckii-Krein: V^T dF V = G o (V^T dS V) off the diagonal, G_ij = (f_i - f_j)/(lam_i - lam_j),
+    and J_f(lam) diag(V^T dS V) on it (Daleckii and Krein 1965; Lewis, "Derivatives of spectral
+    functions", 1996; from memory). Self-adjoint. O(n^3).
+    """
+    B = V.T @ dS @ V
+    G = _divided_differences(lam, f, free, plus=False)
+    C = G * (0.5 * (B + B.T))
+    C[np.diag_indices_from(C)] = diag_jvp(np.diag(B).copy())
+    out = V @ C @ V.T
+    return 0.5 * (out + out.T)
+
+
+def support_block_jvp(free, active):
+    """a -> J a for the projection onto {x >= 0, sum x = total} (or its l1-ball form) at its answer.
+
+    With ``active`` the sum constraint is tight: J a = a - mean(a over the free block) on the free
+    block and 0 elsewhere (the projector onto the face's tangent space); otherwise J a = a on the
+    free block. O(k).
+    """
+    def jvp(a):
+        out = np.where(free, a, 0.0)
+        q = int(np.count_nonzero(free))
+        if active and q:
+            out[free] -= out[free].sum() / q
+        return out
+    return jvp
