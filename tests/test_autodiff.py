@@ -177,12 +177,15 @@ def test_torch_refuses_other_devices_and_bad_input(torch, torch_project):
 
 
 def test_torch_set_without_jacobian_products(torch, torch_project):
-    """A set without project_vjp projects without gradients and refuses, by name, when one is needed."""
-    K = setkit.compile({"kind": "nuclear_ball", "rows": 2, "cols": 2, "radius": 1.0})
-    y = torch.tensor([[3.0, 0.0], [0.0, 1.0]], dtype=torch.float64)
-    np.testing.assert_allclose(torch_project(K, y).numpy(), K.project(y.numpy()))
-    with pytest.raises(UnsupportedOperationError, match="project_vjp"):
-        torch_project(K, y.clone().requires_grad_(True))
+    """A set without the needed product (here: the KL Jacobian of a flow) projects without gradients and
+    refuses, by name, when one is needed."""
+    from setkit.families import lookup
+    K = setkit.compile(lookup("flow").examples()[0])
+    assert K.routes()["project_kl_vjp"].provider == "none"
+    y = torch.ones((1,) + tuple(K.shape), dtype=torch.float64)
+    np.testing.assert_allclose(torch_project(K, y, geometry="kl").numpy(), K.project(y.numpy(), geometry="kl"))
+    with pytest.raises(UnsupportedOperationError, match="project_kl_vjp"):
+        torch_project(K, y.clone().requires_grad_(True), geometry="kl")
 
 
 def test_missing_framework_names_the_extra(monkeypatch):
