@@ -25,7 +25,8 @@ from typing import Any, Callable, Mapping
 import numpy as np
 
 from .backends import all_backends, get_backend
-from .errors import BackendUnavailableError, SolveError, UnboundedDirectionError, UnsupportedOperationError
+from .errors import (BackendUnavailableError, SolveError, TimeLimitError, UnboundedDirectionError,
+                     UnsupportedOperationError)
 from .families import OPERATORS, memo
 from .parallel import split_rows
 from .strategies import all_strategies, strategies_for
@@ -430,6 +431,8 @@ def _backend_chain(op, chain, context, node):
     def run(*a):
         try:
             return call(first, *a)
+        except TimeLimitError:          # a deadline is not a failed solve: no other backend is tried
+            raise
         except SolveError as exc:
             if a[0].shape[0] == 0:
                 raise
@@ -442,6 +445,8 @@ def _backend_chain(op, chain, context, node):
             for name in chain:
                 try:
                     out, info = call(name, *sub)
+                except TimeLimitError:
+                    raise
                 except SolveError as exc:
                     errors.append(f"{name}: {exc}")
                     continue
