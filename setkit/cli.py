@@ -474,7 +474,9 @@ def _cmd_verify(args) -> int:
                 row["ms_per_point"] = 1e3 * row["seconds"] / max(row["cases"], 1)
             entry = {"file": path, **d, "first_call_ms": first, "seconds": time.perf_counter() - t0}
             head = rep.text().splitlines()[0]
-            _say(args, prog, f"{path}: {head}\n{_verify_table(rep)}\n  first calls in this process, including "
+            ref_line = (f"\n  reference: {rep.reference.get('reason', '')}"
+                        if rep.reference.get("mode") not in (None, "full") else "")
+            _say(args, prog, f"{path}: {head}\n{_verify_table(rep)}{ref_line}\n  first calls in this process, including "
                              f"compilation (paid once): " + ", ".join(f"{op} {ms:.1f} ms" for op, ms in first.items())
                  + "\n  warm ms/pt: per point of a batch after the first call; ref ms/pt: the cvxpy reference")
             if K.dim > DIRECT_DIM and not args.no_timings:

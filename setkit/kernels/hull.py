@@ -72,7 +72,6 @@ def nearest_in_hull(V: np.ndarray, y: np.ndarray, tol_rel: float = 1e-14, max_cy
     top = float(np.abs(V).max(initial=0.0))
     e_data = int(np.frexp(top)[1]) if top > 0.0 else 0
     Vs = np.ldexp(V, -e_data)                       # exact (points are not subnormal at this scale)
-    ys = np.ldexp(y, -e_data)
     ytop = float(np.abs(y).max(initial=0.0))
     # |y| / |data| beyond 2^900: scale y further for the linear terms (their size only ranks points)
     e_extra = max(0, int(np.frexp(ytop)[1]) - e_data - 900) if ytop > 0.0 else 0
