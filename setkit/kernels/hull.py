@@ -44,6 +44,23 @@ def _exact_products(a, b):
     return p, e
 
 
+def exact_dot(a, b) -> float:
+    """<a, b> correctly rounded (error-free products, ``math.fsum``); entries up to about 2^996.
+
+    >>> exact_dot(np.array([1e20, 1.0, -1e20]), np.array([1.0, 1.0, 1.0]))
+    1.0
+    """
+    a = np.asarray(a, float)
+    b = np.asarray(b, float)
+    ea = int(np.frexp(float(np.abs(a).max(initial=0.0)))[1])
+    eb = int(np.frexp(float(np.abs(b).max(initial=0.0)))[1])
+    # scaled by powers of two to magnitude <= 1 (exact unless entries fall below 2^-1022 of the largest,
+    # which cannot change the correctly rounded sum beyond its last bits)
+    p, e = _exact_products(np.ldexp(a, -ea), np.ldexp(b, -eb))
+    with np.errstate(over="ignore"):
+        return float(np.ldexp(math.fsum(np.concatenate([p, e])), ea + eb))
+
+
 def _linear_terms(Vs, ys, m):
     """``<v_j - v_m, ys>`` for every row j of ``Vs``, each correctly rounded (exact products, fsum).
 
@@ -111,7 +128,7 @@ def nearest_in_hull(V: np.ndarray, y: np.ndarray, tol_rel: float = 1e-14, max_cy
         S.append(j)
         lam = np.append(lam, 0.0)
         for _minor in range(len(S) + 2):
-            alpha = _affine_minimizer(W[S], lin[S])
+            alpha = affine_minimizer(W[S], lin[S])
             if np.all(alpha > 1e-15):
                 lam = alpha
                 break
@@ -135,7 +152,7 @@ def nearest_in_hull(V: np.ndarray, y: np.ndarray, tol_rel: float = 1e-14, max_cy
     return x, w, gap_out, cycles, ok
 
 
-def _affine_minimizer(P, lin):
+def affine_minimizer(P, lin):
     """Weights alpha (sum 1) minimizing ||alpha @ P||^2 - 2 alpha @ lin over the affine hull.
 
     With D = (P[1:] - P[0])^T and alpha = (1 - sum beta, beta): D^T D beta = (lin[1:] - lin[0]) - D^T P[0],
