@@ -386,7 +386,22 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             def unsupported(*a, _op=op, _why=r.reason):
                 raise UnsupportedOperationError(f"{_op} on {node.label}: {_why}.")
             calls[op] = unsupported
+    _bind_contract(node, routes, calls, direct, run, context)
     return Plan(node, MappingProxyType(routes), MappingProxyType(calls), MappingProxyType(direct))
+
+
+def _bind_contract(node, routes, calls, direct, run, context):
+    """Wrap the projection routes that :func:`setkit.contract.needs_check` names with the always-on
+    residual check (retrying failing rows on the generic backends of the set, by priority)."""
+    from .contract import checked_projection, needs_check
+    r = routes.get("project")
+    if r is None or not needs_check(node, "project", r.category) or routes["violation"].provider == "none":
+        return
+    retries = [(name, (lambda nm: (lambda Z: context.workspace(nm).project(Z)))(name))
+               for name, _ in _chain("project", node)]
+    calls["project"] = checked_projection(calls["project"], node, lambda P: run("violation", P)[0], retries,
+                                          r.provider)
+    direct.pop("project", None)       # single points take the checked batch path
 
 
 def _with_fallback(call, op, fallback, context, node):

@@ -115,7 +115,7 @@ class Flow(NetworkFamily):
     lower: np.ndarray
     capacity: np.ndarray
     supply: np.ndarray
-    traits = frozenset({"polyhedral"})
+    traits = frozenset({"polyhedral", "iterative_projection"})
 
 
     @classmethod
