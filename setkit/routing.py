@@ -18,7 +18,7 @@ check (``Family.check_nonempty``), once per node.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import Any, Callable, Mapping
 
@@ -174,6 +174,8 @@ class Plan:
     routes: Mapping[str, Route]
     calls: Mapping[str, Callable]
     direct: Mapping[str, Callable]
+    unchecked: Mapping[str, Callable] = field(default_factory=lambda: MappingProxyType({}))
+    """the raw native kernels of routes whose ``direct`` entry runs the contract's check (K.unchecked)"""
 
     def run(self, op: str, X, tol=None):
         fn = self.calls[op]
@@ -386,8 +388,9 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             def unsupported(*a, _op=op, _why=r.reason):
                 raise UnsupportedOperationError(f"{_op} on {node.label}: {_why}.")
             calls[op] = unsupported
-    _bind_contract(node, routes, calls, direct, run, context)
-    return Plan(node, MappingProxyType(routes), MappingProxyType(calls), MappingProxyType(direct))
+    unchecked = _bind_contract(node, routes, calls, direct, run, context)
+    return Plan(node, MappingProxyType(routes), MappingProxyType(calls), MappingProxyType(direct),
+                MappingProxyType(unchecked))
 
 
 def _bind_contract(node, routes, calls, direct, run, context):
@@ -396,12 +399,16 @@ def _bind_contract(node, routes, calls, direct, run, context):
     from .contract import checked_projection, needs_check
     r = routes.get("project")
     if r is None or not needs_check(node, "project", r.category) or routes["violation"].provider == "none":
-        return
+        return {}
     retries = [(name, (lambda nm: (lambda Z: context.workspace(nm).project(Z)))(name))
                for name, _ in _chain("project", node)]
     calls["project"] = checked_projection(calls["project"], node, lambda P: run("violation", P)[0], retries,
                                           r.provider)
-    direct.pop("project", None)       # single points take the checked batch path
+    raw = direct.pop("project", None)
+    if raw is None:
+        return {}
+    direct["project"] = calls["project"]      # the single-point path and parts' callers get the checked call
+    return {"project": raw}                   # K.unchecked keeps the raw kernel (the documented opt-out)
 
 
 def _with_fallback(call, op, fallback, context, node):

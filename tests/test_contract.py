@@ -58,3 +58,12 @@ def test_correct_answers_pass_unchanged():
     d = K.project(Y, details=True)
     assert all(s == "solved" for s in np.ravel(d.status)) and np.max(d.residual) <= 1e-7 * 2
     assert not any("answered by" in str(s) for s in np.ravel(d.backend_status))
+
+
+def test_unchecked_stays_the_opt_out(monkeypatch):
+    monkeypatch.setattr(Birkhoff, "project", _off_the_set)
+    K = setkit.compile({"kind": "birkhoff", "n": 2})
+    y = np.array([[2.0, 0.0], [0.0, 1.0]])
+    # the documented opt-out runs the raw kernel: no residual check, no retry
+    np.testing.assert_array_equal(K.unchecked.project(y), np.full((2, 2), 0.9))
+    assert K.contains(K.project(y))
