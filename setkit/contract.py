@@ -11,10 +11,14 @@ meets the same bound; otherwise ``SolveError`` says what was asked, the magnitud
 the residual reached and the allowed one. ``status="solved"`` with a residual above the
 tolerance therefore cannot come out of a checked route.
 
-Which routes are checked (always on): combinator strategies (iterative splitting and dual
-methods) and the native kernels of families declaring the trait ``"iterative_projection"``
-(flow, transport, birkhoff: dual Newton; hull: Wolfe's algorithm). Their solves cost
-milliseconds, so the O(n) check is cheap beside them. The exact finite kernels (simplex,
+Which routes are checked (always on): the native kernels of families declaring the trait
+``"iterative_projection"`` (flow, transport, birkhoff: dual Newton, whose violation is a largest
+node-balance or bound error, a distance-like residual; hull declares it too, but its violation is
+not defined without the weights, so its answers, convex combinations of the points by
+construction, are certified by Wolfe's gap instead). Their solves cost milliseconds, so the O(n)
+check is cheap beside them. Combinator strategies are not wrapped: they measure their own
+residual (as a distance) and gap per row and send unsettled rows to the generic backends; the
+raw violation of their parts (unnormalized constraint rows) would misjudge correct answers. The exact finite kernels (simplex,
 budget, box, balls, permutahedron, ...) are not checked on every call: the check costs 50% to
 400% of their microsecond single-point calls (measured, see benchmarks/README.md); their range
 is stated in their docstrings and tested at every magnitude (tests/test_kernel_magnitudes.py),
@@ -36,7 +40,7 @@ def needs_check(node, op: str, category: str) -> bool:
     """True for the projection routes the contract checks on every call (see the module doc)."""
     if op != "project":
         return False
-    return category == "strategy" or (category == "native" and node.has_trait(CHECKED_TRAIT))
+    return category == "native" and node.has_trait(CHECKED_TRAIT)
 
 
 def _allowed(X, P, scale):
