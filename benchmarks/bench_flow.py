@@ -47,7 +47,7 @@ def make_instance(n_nodes, n_edges, rng):
     Returns (spec, (tail, head, lower, capacity, supply) arrays, x0) with x0 a feasible flow (the
     projection of the midpoints of the edge bounds).
     """
-    spec = lookup("flow").benchmark_example(n_edges, rng, nodes=n_nodes)
+    spec = lookup("flow").benchmark_example(n_edges, rng, nodes=n_nodes, any_size=True)
     edges = spec["edges"]
     tail = np.array([e["from"] for e in edges])
     head = np.array([e["to"] for e in edges])

@@ -20,8 +20,9 @@ import os as _os
 from .builders import (affine, ball, birkhoff, box, budget, build, flow, hull, intersection, permutahedron,
                        polyhedron, product, simplex, transport)
 from .errors import (AccuracyWarning, BackendUnavailableError, DescriptionError, EmptySetError,
-                     InputError, SetkitError, SetkitWarning, SolveError, UnboundedDirectionError,
+                     InputError, SetkitError, SetkitWarning, SolveError, TimeLimitError, UnboundedDirectionError,
                      UnsupportedOperationError)
+from .limits import time_limit
 
 # what the lazy names below resolve to, for type checkers and IDEs (mypy and pyright take any name
 # TYPE_CHECKING as true); the typing module is not imported at run time, to keep `import setkit` light
@@ -41,7 +42,7 @@ __version__ = "0.1.0"
 # user API only; the extension API (Family, register, kernel, backends, ...) is setkit.extend
 __all__ = [
     # compile and check sets
-    "compile", "load", "build", "from_cvxpy", "verify",
+    "compile", "load", "build", "from_cvxpy", "verify", "time_limit",
     # builders, one per built-in kind
     "simplex", "budget", "box", "ball", "permutahedron", "transport", "birkhoff", "flow", "polyhedron",
     "hull", "intersection", "product", "affine",
@@ -50,7 +51,8 @@ __all__ = [
     "Report", "CheckRow",
     # errors and warnings
     "SetkitError", "DescriptionError", "EmptySetError", "InputError", "UnboundedDirectionError",
-    "BackendUnavailableError", "UnsupportedOperationError", "SolveError", "SetkitWarning", "AccuracyWarning",
+    "BackendUnavailableError", "UnsupportedOperationError", "SolveError", "TimeLimitError", "SetkitWarning",
+    "AccuracyWarning",
 ]
 
 # user names served lazily (their modules import numpy and more): name -> (module, attribute)

@@ -25,7 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .agreement import compare_backends, verify
+from .agreement import DIRECT_DIM, compare_backends, verify
 from .errors import DescriptionError, InputError, SetkitError, UnboundedDirectionError
 
 EXIT_OK, EXIT_DISAGREE, EXIT_BAD_INPUT = 0, 1, 2
@@ -456,8 +456,10 @@ def _cmd_verify(args) -> int:
             path, K = _load(target, args.dir)   # description errors -> exit 2
             t0 = time.perf_counter()
             try:
+                prog.set_step(f"{target}: first calls")
                 first = first_call_ms(K)
-                rep = verify(K, n_points=args.points, seed=args.seed)
+                rep = verify(K, n_points=args.points, seed=args.seed,
+                             progress=lambda text, target=target: prog.set_step(f"{target}: {text}"))
             except (DescriptionError, InputError):
                 raise
             except SetkitError as exc:
@@ -472,10 +474,16 @@ def _cmd_verify(args) -> int:
                 row["ms_per_point"] = 1e3 * row["seconds"] / max(row["cases"], 1)
             entry = {"file": path, **d, "first_call_ms": first, "seconds": time.perf_counter() - t0}
             head = rep.text().splitlines()[0]
-            _say(args, prog, f"{path}: {head}\n{_verify_table(rep)}\n  first calls in this process, including "
+            ref_line = (f"\n  reference: {rep.reference.get('reason', '')}"
+                        if rep.reference.get("mode") not in (None, "full") else "")
+            _say(args, prog, f"{path}: {head}\n{_verify_table(rep)}{ref_line}\n  first calls in this process, including "
                              f"compilation (paid once): " + ", ".join(f"{op} {ms:.1f} ms" for op, ms in first.items())
                  + "\n  warm ms/pt: per point of a batch after the first call; ref ms/pt: the cvxpy reference")
-            if not args.no_timings:
+            if K.dim > DIRECT_DIM and not args.no_timings:
+                entry["backends"] = None
+                _say(args, prog, f"  backend timings skipped: {K.dim} coordinates is above {DIRECT_DIM}, where every "
+                                 f"generic backend would be timed (run `setkit compare` to force them)")
+            elif not args.no_timings:
                 timing = compare_backends(K, n_points=max(1, args.points // 2), seed=args.seed, repeat=1,
                                           progress=StepsOnly(prog))
                 entry["backends"] = timing

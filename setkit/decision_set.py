@@ -897,7 +897,7 @@ class UncheckedOperators:
         self._dim = K.dim
         self._direct = K.plan.direct
         for op in ("project", "lmo", "distance", "support", "violation"):
-            fn = self._direct.get(op)
+            fn = K.plan.unchecked.get(op) or self._direct.get(op)   # raw kernels: no contract check either
             if fn is not None:
                 setattr(self, op, self._bind(op, fn))
 

@@ -54,6 +54,23 @@ class SolveError(SetkitError, RuntimeError):
         self.status = status
 
 
+class TimeLimitError(SolveError):
+    """A call ran past the time limit set with :func:`setkit.time_limit` (or ``time_limit=``).
+
+    Attributes: ``asked`` (what was being computed), ``elapsed`` and ``limit`` (seconds) and
+    ``accuracy`` (the best accuracy reached, in the words of the method that stopped; None if
+    it had none yet).
+    """
+
+    def __init__(self, message: str, *, asked: str = "", elapsed: float = 0.0, limit: float = 0.0,
+                 accuracy: str | None = None):
+        super().__init__(message, status="time_limit")
+        self.asked = asked
+        self.elapsed = elapsed
+        self.limit = limit
+        self.accuracy = accuracy
+
+
 class SetkitWarning(UserWarning):
     """Base class of setkit's warnings."""
 

@@ -18,14 +18,15 @@ check (``Family.check_nonempty``), once per node.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import Any, Callable, Mapping
 
 import numpy as np
 
 from .backends import all_backends, get_backend
-from .errors import BackendUnavailableError, SolveError, UnboundedDirectionError, UnsupportedOperationError
+from .errors import (BackendUnavailableError, SolveError, TimeLimitError, UnboundedDirectionError,
+                     UnsupportedOperationError)
 from .families import OPERATORS, memo
 from .parallel import split_rows
 from .strategies import strategies_for, strategy
@@ -173,6 +174,8 @@ class Plan:
     routes: Mapping[str, Route]
     calls: Mapping[str, Callable]
     direct: Mapping[str, Callable]
+    unchecked: Mapping[str, Callable] = field(default_factory=lambda: MappingProxyType({}))
+    """the raw native kernels of routes whose ``direct`` entry runs the contract's check (K.unchecked)"""
 
     def run(self, op: str, X, tol=None):
         fn = self.calls[op]
@@ -384,7 +387,27 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             def unsupported(*a, _op=op, _why=r.reason):
                 raise UnsupportedOperationError(f"{_op} on {node.label}: {_why}.")
             calls[op] = unsupported
-    return Plan(node, MappingProxyType(routes), MappingProxyType(calls), MappingProxyType(direct))
+    unchecked = _bind_contract(node, routes, calls, direct, run, context)
+    return Plan(node, MappingProxyType(routes), MappingProxyType(calls), MappingProxyType(direct),
+                MappingProxyType(unchecked))
+
+
+def _bind_contract(node, routes, calls, direct, run, context):
+    """Wrap the projection routes that :func:`setkit.contract.needs_check` names with the always-on
+    residual check (retrying failing rows on the generic backends of the set, by priority)."""
+    from .contract import checked_projection, needs_check
+    r = routes.get("project")
+    if r is None or not needs_check(node, "project", r.category) or routes["violation"].provider == "none":
+        return {}
+    retries = [(name, (lambda nm: (lambda Z: context.workspace(nm).project(Z)))(name))
+               for name, _ in _chain("project", node)]
+    calls["project"] = checked_projection(calls["project"], node, lambda P: run("violation", P)[0], retries,
+                                          r.provider)
+    raw = direct.pop("project", None)
+    if raw is None:
+        return {}
+    direct["project"] = calls["project"]      # the single-point path and parts' callers get the checked call
+    return {"project": raw}                   # K.unchecked keeps the raw kernel (the documented opt-out)
 
 
 def _with_fallback(call, op, fallback, context, node):
@@ -429,6 +452,8 @@ def _backend_chain(op, chain, context, node):
     def run(*a):
         try:
             return call(first, *a)
+        except TimeLimitError:          # a deadline is not a failed solve: no other backend is tried
+            raise
         except SolveError as exc:
             if a[0].shape[0] == 0:
                 raise
@@ -441,6 +466,8 @@ def _backend_chain(op, chain, context, node):
             for name in chain:
                 try:
                     out, info = call(name, *sub)
+                except TimeLimitError:
+                    raise
                 except SolveError as exc:
                     errors.append(f"{name}: {exc}")
                     continue

@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import EmptySetError, UnboundedDirectionError
+from ..limits import check as _check_time
 from . import Backend, register_backend
 from ._lp import form_workspace, highspy_available, lp_workspace
 
@@ -37,6 +38,7 @@ class HighsBackend(Backend):
         out = np.empty_like(C)
         stat, iters, bstat = [], [], []
         for i, c in enumerate(C):
+            _check_time(f"highs LMO of a batch of {len(C)}", f"{i} of {len(C)} rows solved")
             cz = np.concatenate([c, np.zeros(f.n_aux)])
             ans = self.ws.minimize(cz)
             if ans.status == "unbounded":

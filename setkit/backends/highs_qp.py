@@ -15,6 +15,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..errors import AccuracyWarning, SolveError
+from ..limits import check as _check_time
 from . import Backend, register_backend
 
 RESIDUAL_TOL = 1e-9
@@ -82,6 +83,7 @@ class HighsQPBackend(Backend):
         stat, iters, bstat = [], [], []
         ok_status = self._hp.HighsModelStatus.kOptimal
         for i, y in enumerate(Y):
+            _check_time(f"highs_qp projection of a batch of {len(Y)}", f"{i} of {len(Y)} rows solved")
             cost = np.concatenate([-y, np.zeros(f.n_aux)])
             self.h.changeColsCost(f.n, self._idx, cost)
             self.h.run()

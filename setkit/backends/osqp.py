@@ -27,6 +27,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..errors import AccuracyWarning, BackendUnavailableError, SolveError
+from ..limits import check as _check_time
 from . import Backend, register_backend
 
 SETTINGS = dict(verbose=False, eps_abs=1e-8, eps_rel=1e-8, eps_prim_inf=1e-10, eps_dual_inf=1e-10,
@@ -110,6 +111,7 @@ class OsqpBackend(Backend):
         out = np.empty_like(Y)
         stat, iters, bstat = [], [], []
         for i, y in enumerate(Y):
+            _check_time(f"osqp projection of a batch of {len(Y)}", f"{i} of {len(Y)} rows solved")
             if f.n_aux == 0 and self._inside(y):
                 # y is in the set: it is its own projection (and OSQP, finding no active constraint to
                 # polish on, would print a note on stdout)

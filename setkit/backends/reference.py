@@ -12,6 +12,7 @@ import warnings
 import numpy as np
 
 from ..errors import AccuracyWarning, BackendUnavailableError, SolveError, UnboundedDirectionError
+from ..limits import check as _check_time
 from . import Backend, register_backend
 
 CLARABEL_SETTINGS = dict(tol_gap_abs=1e-10, tol_gap_rel=1e-10, tol_feas=1e-10, max_iter=400)
@@ -156,6 +157,7 @@ class ReferenceBackend(Backend):
         out = np.empty_like(V)
         stat, iters = [], []
         for i, v in enumerate(V):
+            _check_time(f"reference (cvxpy, Clarabel) {op} of a batch of {len(V)}", f"{i} of {len(V)} rows solved")
             out[i], s, it = self._solve(op, v)
             stat.append(s)
             iters.append(it)

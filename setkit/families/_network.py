@@ -282,15 +282,63 @@ class NetworkFamily(Family):
         X, info = pj.project(Y)
         bad = np.flatnonzero(info["status"] != 0)
         if bad.size:
+            bad = self._far_rows(Y, X, bad)
+        if bad.size:
             from ..kernels.network import STATUS_TEXT
             i = int(bad[0])
+            far = ""
+            mag = float(np.abs(Y[i]).max(initial=0.0))
+            data = max(1.0, float(self.scale()))
+            if mag > 1e12 * data:
+                # the node potentials of this point are as large as the point: float64 resolves them to
+                # about one ulp, which bounds the balance accuracy this method can reach
+                ulp = float(np.spacing(mag))
+                far = (f" The point has magnitude {mag:.3g}, {mag / data:.3g} times the data's scale {data:.3g}: "
+                       f"the method's node potentials are of that size, so the balances it can reach are about "
+                       f"{ulp:.3g} (one ulp of {mag:.3g}) against the {info['tol_r'][i]:.3g} the set allows; "
+                       f"projecting points within about 1e12 times the data's scale of the set keeps full accuracy.")
             raise SolveError(
                 f"{self.label}: projection did not converge for batch row {i}: "
                 f"{STATUS_TEXT.get(int(info['status'][i]), 'unknown')} (after {int(info['iterations'][i])} "
                 f"Newton steps: balance residual {info['residual'][i]:.3g}, allowed {info['tol_r'][i]:.3g}; "
-                f"duality gap {info['gap'][i]:.3g}, allowed {info['tol_gap'][i]:.3g}).",
+                f"duality gap {info['gap'][i]:.3g}, allowed {info['tol_gap'][i]:.3g}).{far}",
                 status="not_converged")
         return X
+
+    def _far_rows(self, Y, X, rows):
+        """Solve the rows far from a bounded network polytope (|y| > 1e12 times the data) that the dual
+        method left unfinished, by the far-point minimum-norm-point method on an LP vertex oracle
+        (scipy's HiGHS dual simplex; vertices snapped by ``vertex_cleanup``), writing them into X.
+        Returns the rows still unsolved."""
+        g = self.network()
+        data = max(1.0, float(self.scale()))
+        if not (np.all(np.isfinite(g.lo)) and np.all(np.isfinite(g.hi))):
+            return rows
+        far = [i for i in rows if float(np.abs(Y[i]).max(initial=0.0)) > 1e12 * data]
+        if not far:
+            return rows
+        from scipy.optimize import linprog
+
+        from ..kernels.minnorm import project_far_point
+        A, b, bounds = g.incidence(), g.supply, np.column_stack([g.lo, g.hi])
+
+        def vertex(c):
+            top = float(np.abs(c).max(initial=0.0))
+            res = linprog(c / top if top > 0 else c, A_eq=A, b_eq=b, bounds=bounds, method="highs-ds")
+            if res.status != 0:
+                raise SolveError(f"{self.label}: the vertex LP of the far-point projection failed "
+                                 f"({res.message})", status="failed")
+            return self.vertex_cleanup(np.asarray(res.x, float))
+        left = []
+        for i in rows:
+            if i not in far:
+                left.append(i)
+                continue
+            try:
+                X[i] = project_far_point(Y[i], vertex, scale=data, label=self.label)[0]
+            except SolveError:
+                left.append(i)
+        return np.asarray(left, dtype=int)
 
     def vertex_cleanup(self, x):
         """A vertex of a network polytope with integral data is integral (total unimodularity): round it."""

@@ -21,7 +21,7 @@ class Birkhoff(Transport):
     [[1.0, 0.0, 0.0], [0.0, 0.0, 1.0], [0.0, 1.0, 0.0]]
     """
 
-    traits = frozenset({"polyhedral", "bounded", "permutation_invariant"})
+    traits = frozenset({"polyhedral", "bounded", "permutation_invariant", "iterative_projection"})
 
     @classmethod
     def from_spec(cls, r):

@@ -115,7 +115,7 @@ class Flow(NetworkFamily):
     lower: np.ndarray
     capacity: np.ndarray
     supply: np.ndarray
-    traits = frozenset({"polyhedral"})
+    traits = frozenset({"polyhedral", "iterative_projection"})
 
 
     @classmethod
@@ -270,10 +270,11 @@ class Flow(NetworkFamily):
                  "supply": {0: 2, 3: -2}}]
 
     @classmethod
-    def benchmark_example(cls, n, rng, nodes=None):
+    def benchmark_example(cls, n, rng, nodes=None, any_size=False):
         """A random connected network with n edges on n/4 nodes (or ``nodes``), lower bounds, capacities
-        and the supplies of a random flow inside them; none above n = 1e5 (benchmarks/run.py)."""
-        if n > 100_000:
+        and the supplies of a random flow inside them; none above n = 1e5 (benchmarks/run.py) unless
+        ``any_size`` (benchmarks/flow_scaling.py)."""
+        if n > 100_000 and not any_size:
             return None
         n_nodes = max(3, n // 4) if nodes is None else int(nodes)
         # a random spanning tree keeps the graph connected; the rest are random edges

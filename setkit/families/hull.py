@@ -23,7 +23,7 @@ class Hull(Family):
     """
 
     points: np.ndarray
-    traits = frozenset({"polyhedral", "bounded"})
+    traits = frozenset({"polyhedral", "bounded", "iterative_projection"})
 
     @classmethod
     def from_spec(cls, r):

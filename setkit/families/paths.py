@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 
-from ..errors import EmptySetError, SolveError
+from ..errors import EmptySetError, SolveError, TimeLimitError
 from ..kernels.minnorm import project_rows, uncertified_rows
 from . import kernel, memo, register
 from ._graph import read_edges, resolve_node
@@ -231,11 +231,15 @@ class Paths(NetworkFamily):
         flow_kernel = NetworkFamily.project
         try:
             P = flow_kernel(self, Y, ws.projector)
+        except TimeLimitError:
+            raise
         except SolveError:
             P = np.full_like(Y, np.nan)
             for i, y in enumerate(Y):       # row by row: only the rows the kernel cannot finish go on
                 try:
                     P[i] = flow_kernel(self, y[None, :], ws.projector)[0]
+                except TimeLimitError:
+                    raise
                 except SolveError:
                     pass
         # every answer is checked (finite, in K, Frank-Wolfe gap); the dual Newton kernel fails on some

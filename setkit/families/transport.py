@@ -55,7 +55,7 @@ class Transport(NetworkFamily):
 
     rows: np.ndarray
     cols: np.ndarray
-    traits = frozenset({"polyhedral", "bounded"})
+    traits = frozenset({"polyhedral", "bounded", "iterative_projection"})
     # KL projection: Sinkhorn scaling stops at a largest marginal residual of kl_accuracy * scale
     kl_accuracy = 1e-10
     kl_max_iterations = 20_000

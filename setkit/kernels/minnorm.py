@@ -154,6 +154,91 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     return p, info
 
 
+def project_far_point(y, lmo, *, scale=1.0, max_iter=None, label="set", tol_rel=1e-14, accept_rel=1e-10):
+    """Projection of a point far from a polytope known by its LMO, accurate at the data's scale.
+
+    Wolfe's algorithm as in :func:`project_by_min_norm_point`, but on the weights of the corral
+    with the quadratic part from the vertices' differences (data scale) and the linear part
+    ``l_j = <v_j - v_0, y>`` summed exactly (:func:`setkit.kernels.hull.exact_dot`), so that y never
+    meets the vertices in a rounded difference. The gap is computed the same way, and tolerances
+    are relative to ``d * scale^2`` (the data), not to |y|^2. The LMO still receives the rounded
+    direction p - y: when vertices tie within about one ulp of |y| times the data, the corral may
+    stall; the run then raises SolveError stating the gap reached. O(major cycles * (LMO + d k)).
+
+    >>> import numpy as np
+    >>> simplex_lmo = lambda c: np.eye(3)[np.argmin(c)]
+    >>> p, info = project_far_point(np.array([1e30, 1e30 + 2 ** 50, -1e30]), simplex_lmo)
+    >>> p.tolist()
+    [0.0, 1.0, 0.0]
+    """
+    from .hull import affine_minimizer, exact_dot
+    y = np.asarray(y, dtype=float)
+    d = y.size
+    s2 = max(1.0, float(scale)) ** 2
+    tol, accept = tol_rel * d * s2, accept_rel * d * s2
+    cap = (50 * d + 500) if max_iter is None else int(max_iter)
+    v0 = np.asarray(lmo(-y), dtype=float)
+    v0y = exact_dot(v0, y)
+
+    def linear_term(v):           # <v - v0, y - v0>, the y part exactly
+        w = v - v0
+        return (exact_dot(v, y) - v0y) - float(w @ v0)
+
+    V = [v0]
+    lin = [0.0]
+    S = [0]
+    lam = np.array([1.0])
+    p = v0.copy()
+    gap, status, it = np.inf, "max_iter", 0
+    for it in range(1, cap + 1):
+        W = np.array([v - v0 for v in V])
+        xc = lam @ W[S]
+        q = np.asarray(lmo(p - y), dtype=float)
+        wq = q - v0
+        lq = linear_term(q)
+        g_S = W[S] @ xc - np.asarray(lin)[S]
+        gap = float(lam @ g_S) - (float(wq @ xc) - lq)     # max_v <y - p, v - p> over the corral and q
+        if gap <= tol:
+            status = "solved"
+            break
+        if any(np.array_equal(q, V[j]) for j in S):
+            status = "stalled"
+            break
+        V.append(q)
+        lin.append(lq)
+        S.append(len(V) - 1)
+        lam = np.append(lam, 0.0)
+        W = np.array([v - v0 for v in V])
+        L = np.asarray(lin)
+        for _minor in range(len(S) + 2):
+            alpha = affine_minimizer(W[S], L[S])
+            if np.all(alpha > 1e-15):
+                lam = alpha
+                break
+            neg = alpha <= 1e-15
+            with np.errstate(divide="ignore", invalid="ignore"):
+                ratios = np.where(neg, lam / (lam - alpha), np.inf)
+            theta = float(min(1.0, ratios.min()))
+            lam = lam + theta * (alpha - lam)
+            drop = lam <= 1e-15
+            if not drop.any():
+                drop[int(np.argmin(lam))] = True
+            S = [j for j, dr in zip(S, drop) if not dr]
+            lam = lam[~drop]
+            lam = lam / lam.sum()
+        p = lam @ np.array([V[j] for j in S])
+    if status != "solved" and gap <= accept:
+        status = "solved"
+    info = {"iterations": it, "gap": gap, "corral": len(S), "status": status, "tolerance": tol}
+    if status != "solved":
+        raise SolveError(
+            f"{label}: the far-point projection (|y| = {float(np.abs(y).max()):.3g}) stopped ({status}) after {it} "
+            f"major cycles with Frank-Wolfe gap {gap:.3g}, above the accepted {accept:.3g} (data scale "
+            f"{max(1.0, float(scale)):.3g}); the LMO sees the direction p - y rounded to one ulp of |y|, which "
+            f"cannot separate vertices that tie that closely. The answer is not returned.", status="not_converged")
+    return p, info
+
+
 def project_rows(Y, lmo, *, scale=1.0, max_iter=None, label="set"):
     """Row-wise :func:`project_by_min_norm_point`; returns ``(P, info)`` with per-row lists."""
     P = np.empty_like(Y)

@@ -28,6 +28,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..limits import check as _check_time
+
 __all__ = ["dykstra", "fast_dual_projections", "project_with_cuts", "project_linear_image", "lmo_with_cuts"]
 
 # gaps are sums of products of O(scale) numbers: below ~ a few ulps of scale^2 they are rounding noise,
@@ -89,6 +91,9 @@ def dykstra(projections, Y, scale, accuracy=1e-7, max_iterations=20_000, diverge
         diff = Xi - X[None]
         res = np.sqrt(np.einsum("mbd,mbd->mb", diff, diff)).max(axis=0)
         gap = np.einsum("mbd,mbd->b", Q, diff)
+        _check_time(f"projection of {b} point(s) onto an intersection of {m} sets (Dykstra's method)",
+                    lambda: f"feasibility residual {res.max():.3g}, duality gap {np.abs(gap).max():.3g} "
+                            f"(wanted {tol_r.max():.3g} and {tol_g.max():.3g}) after {it} sweeps")
         done = (res <= tol_r[rows]) & (np.abs(gap) <= tol_g[rows])
         qmax = np.sqrt(np.einsum("mbd,mbd->mb", Q, Q)).max(axis=0)
         empty = ~done & (qmax > big[rows])
@@ -169,6 +174,9 @@ def fast_dual_projections(projections, Y, scale, accuracy=1e-7, max_iterations=2
         diff = Z - Xc[None]
         res = np.sqrt(np.einsum("mbd,mbd->mb", diff, diff)).max(axis=0)
         gap = np.einsum("mbd,mbd->b", W, diff)
+        _check_time(f"projection of {b} point(s) onto an intersection of {m} sets (fast dual projections)",
+                    lambda: f"feasibility residual {res.max():.3g}, duality gap {np.abs(gap).max():.3g} "
+                            f"(wanted {tol_r.max():.3g} and {tol_g.max():.3g}) after {it} iterations")
         done = (res <= tol_r[rows]) & (np.abs(gap) <= tol_g[rows])
         wmax = np.sqrt(np.einsum("mbd,mbd->mb", W, W)).max(axis=0)
         empty = ~done & (wmax > big[rows])
@@ -225,12 +233,17 @@ def project_with_cuts(project_base, Y, A, rhs, n_eq, scale, accuracy=1e-7, max_i
         big = divergence * (scale[row] + np.abs(y).max())
         evals = [0]
 
+        best_seen = [np.inf]
+
         def state(lam):
+            _check_time(f"projection of row {row} of {b} onto a set with {k} cuts (dual method)",
+                        lambda: f"cut violation {best_seen[0]:.3g} (wanted {tol_r:.3g}) after {evals[0]} evaluations")
             evals[0] += 1
             x = project_base((y - A.T @ lam)[None, :])[0]
             r = A @ x - rhs
             g = 0.5 * float(np.dot(x - y, x - y)) + float(lam @ r)
             v = max(float(np.abs(r[~ineq]).max(initial=0.0)), float(np.maximum(r[ineq], 0.0).max(initial=0.0)))
+            best_seen[0] = min(best_seen[0], v)
             return x, r, g, v
 
         def newton_phase(lam, x, r, g, v, budget):
@@ -382,7 +395,11 @@ def project_linear_image(project_part, support_part, M, shift, Y, scale, accurac
     Z = X.copy()
     t = np.ones(b)
     Ya = Y.copy()
+    last_gap = [None]
     for it in range(1, max_iterations + 1):
+        _check_time(f"projection of {b} point(s) onto a linear image of a set (accelerated projected gradient)",
+                    lambda: ("no gap measured yet" if last_gap[0] is None else
+                             f"Frank-Wolfe gap {last_gap[0]:.3g} (wanted {tol_g.max():.3g}) after {it - 1} iterations"))
         G = (Z @ M.T + shift - Ya) @ M
         Xn = project_part(Z - G / L)
         tn = 0.5 * (1.0 + np.sqrt(1.0 + 4.0 * t * t))
@@ -396,6 +413,7 @@ def project_linear_image(project_part, support_part, M, shift, Y, scale, accurac
             continue
         Gx = (X @ M.T + shift - Ya) @ M
         gap = np.einsum("ij,ij->i", Gx, X) + support_part(-Gx)
+        last_gap[0] = float(np.max(gap))
         done = gap <= tol_g[rows]
         last = it == max_iterations
         finish = done | last
@@ -442,6 +460,8 @@ def lmo_with_cuts(lmo_base, C, A, rhs, n_eq, scale, max_columns=400, tol=1e-9):
         V = [lmo_base(c[None, :])[0]]
         status, x = "not_converged", V[0]
         for it in range(1, max_columns + 1):
+            _check_time(f"LMO of row {row} of {b} over a set with {k} cuts (column generation)",
+                        f"{len(V)} columns generated, not yet optimal")
             Vm = np.array(V)                      # (p, d)
             AV = A @ Vm.T                         # (k, p)
             p = Vm.shape[0]

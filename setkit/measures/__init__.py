@@ -111,11 +111,26 @@ def _check_measure(K, measure, op):
                          f"got {measure!r}{hint}.")
 
 
+def _limited(run, seconds, progress, asked):
+    """run() under a time limit; a TimeLimitError from inside is re-raised naming ``asked``."""
+    from ..errors import TimeLimitError
+    from ..limits import time_limit as _time_limit
+    with _time_limit(seconds, progress):
+        try:
+            return run()
+        except TimeLimitError as exc:
+            if exc.asked.startswith(asked):
+                raise
+            raise TimeLimitError(f"{asked}: {exc}", asked=f"{asked}: {exc.asked}", elapsed=exc.elapsed,
+                                 limit=exc.limit, accuracy=exc.accuracy) from None
+
+
 # ---------------------------------------------------------------------------------------------
 # public functions
 # ---------------------------------------------------------------------------------------------
 def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, samples: int | None = None,
-             exact: bool | None = None, exact_max_dim: int = EXACT_MAX_DIM, chains=None, burn_in=None, thin=None):
+             exact: bool | None = None, exact_max_dim: int = EXACT_MAX_DIM, chains=None, burn_in=None, thin=None,
+             time_limit: float | None = None, progress=None):
     """Centroid of K under ``measure``: exact where known, else estimated.
 
     The mean of the measure, ``E[X]`` for X uniform on K (volume), uniform on its extreme points
@@ -132,6 +147,9 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
     exact : True to refuse estimates (raise instead), False to force an estimate, None for the best available
     exact_max_dim : largest affine-hull dimension for vertex enumeration / triangulation
     chains, burn_in, thin : hit-and-run settings (see :mod:`setkit.measures.chains`)
+    time_limit : seconds; past it a ``TimeLimitError`` says what was computed, the time spent and the
+        accuracy reached (see :func:`setkit.time_limit`)
+    progress : called about once a second as ``progress(asked, elapsed, accuracy)``
 
     Complexity: O(1) closed forms; O(#facets m^3) triangulation; estimates
     O(samples * thin * rows * m) for polytopes.
@@ -147,7 +165,7 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
     t0 = time.perf_counter()
     req = Request(K, measure, "centroid", rng, default_seed=0, exact=exact, exact_max_dim=exact_max_dim,
                   samples=samples, chains=chains, burn_in=burn_in, thin=thin)
-    method, out = choose(req)
+    method, out = _limited(lambda: choose(req), time_limit, progress, f"centroid(measure={measure!r}) of {K.node.label}")
     if out.warning:
         warnings.warn(AccuracyWarning(f"{req.asked}: {out.warning}"), stacklevel=3)
     if not details:
@@ -161,7 +179,7 @@ def centroid(K, measure: str = "volume", *, details: bool = False, rng=None, sam
 
 
 def sample(K, k: int, measure: str = "volume", rng=None, *, details: bool = False, chains=None, burn_in=None,
-           thin=None, exact_max_dim: int = EXACT_MAX_DIM):
+           thin=None, exact_max_dim: int = EXACT_MAX_DIM, time_limit: float | None = None, progress=None):
     """k points of K drawn from ``measure``; shape (k, *K.shape).
 
     Exact samplers come from the family (``exact_sample``) or, for
@@ -170,7 +188,8 @@ def sample(K, k: int, measure: str = "volume", rng=None, *, details: bool = Fals
     definition); ``volume`` otherwise runs hit-and-run (approximate: states of a
     Markov chain after ``burn_in`` steps, one kept every ``thin`` steps, chains
     interleaved so that consecutive rows come from different chains).
-    ``details=True`` returns a :class:`SampleResult` naming the method.
+    ``details=True`` returns a :class:`SampleResult` naming the method. ``time_limit`` (seconds)
+    and ``progress`` bound and report long draws as in :func:`centroid`.
 
     Complexity: O(k dim) for closed-form samplers; O(k #vertices dim) for a vertex scan; one LMO
     call per draw for directions; O(k thin rows m) plus the burn-in for hit-and-run on polytopes.
@@ -191,7 +210,8 @@ def sample(K, k: int, measure: str = "volume", rng=None, *, details: bool = Fals
     if k == 0:
         points, name, exact_draws, note = np.zeros(out_shape), "none", True, "k = 0: nothing drawn"
     else:
-        method, out = choose(req)
+        method, out = _limited(lambda: choose(req), time_limit, progress,
+                               f"sample({k}, measure={measure!r}) of {K.node.label}")
         points, name, exact_draws, note = out.value.reshape(out_shape), method.name, method.exact_draws, out.note
     if not details:
         return points

@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import InputError, UnboundedDirectionError, UnsupportedOperationError
+from ..limits import check as _check_time
 from .geometry import reduced, solve_lp
 
 
@@ -48,10 +49,14 @@ def _run_chains(step, T0, n_keep, burn_in, thin, rng, L):
     """
     C, m = T0.shape
     T = T0.copy()
-    for _ in range(burn_in):
+    asked = f"hit-and-run ({C} chains, {burn_in} burn-in steps, {n_keep} kept states each thinned by {thin})"
+    for i in range(burn_in):
+        _check_time(asked, lambda: f"burn-in step {i} of {burn_in}: no state kept yet")
         T = step(T, L, rng)
     out = np.empty((C, n_keep, m))
     for j in range(n_keep):
+        _check_time(asked, lambda: f"{j * C} of {n_keep * C} states kept (an estimate from them would have a "
+                                   f"standard error of roughly 1/sqrt({max(j * C, 1)}) of the spread)")
         for _ in range(thin):
             T = step(T, L, rng)
         out[:, j] = T
@@ -191,6 +196,7 @@ def _volume_chain_setup(K, rng):
             # half-way from the Chebyshev center to vertices of random directions (one LP each)
             out = np.repeat(P.center[None, :], C, axis=0)
             for i in range(C):
+                _check_time(f"hit-and-run starts ({C} LPs)", f"{i} of {C} starts found")
                 res = solve_lp(g.standard_normal(P.m), A_ub=P.M, b_ub=P.q, bounds=[(None, None)] * P.m)
                 if res.status == 0:
                     out[i] = 0.5 * (P.center + res.x)

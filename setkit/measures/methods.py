@@ -33,7 +33,8 @@ from typing import Any, Callable, Optional
 
 import numpy as np
 
-from ..errors import InputError, SetkitError, SolveError, UnboundedDirectionError, UnsupportedOperationError
+from ..errors import (InputError, SetkitError, SolveError, TimeLimitError, UnboundedDirectionError,
+                      UnsupportedOperationError)
 from .chains import hit_and_run, unbounded_volume_error
 from .diagnostics import chain_summary, mixing_warning
 from .geometry import (EXACT_MAX_DIM, enumerable, normal_cone_weights, reduced, simplex_volume_centroid,
@@ -173,6 +174,8 @@ def _on_vertices(answer, *, fall_back_on_failure=False):
     def run(req):
         try:
             found = enumerable(req.K, req.exact_max_dim)
+        except TimeLimitError:
+            raise
         except SolveError:
             if not fall_back_on_failure:
                 raise
@@ -201,6 +204,8 @@ def _vertex_choice(req, P, V):
 def _normal_cone_centroid(req):
     try:
         P = reduced(req.K)
+    except TimeLimitError:
+        raise
     except SolveError:          # a failed reduction: the estimates over the LMO need none
         return None
     if P is None or not P.bounded or P.m > 2:
@@ -215,6 +220,8 @@ def _normal_cone_centroid(req):
 def _refuse_vertices(req):
     try:
         P = reduced(req.K)
+    except TimeLimitError:
+        raise
     except SetkitError:
         P = None
     if P is None:
