@@ -138,6 +138,8 @@ FORM_RULES = {
     "violation": "largest violated constraint of the linear form",
     "project_jvp": "projection of v onto the tangent subspace of the face at project(y): of the linear form, "
                    "or the intersection of the parts' faces (setkit.derivatives.form_jvp)",
+    "project_kl_jvp": "KL face route: diag(x) v minus its diag(x)-weighted projection onto the tight rows of the "
+                      "linear form at x = project_kl(t), in log coordinates (setkit.derivatives.form_kl_jvp)",
 }
 TAKES_TOL = frozenset({"contains", "project_jvp", "project_vjp", "project_kl_jvp", "project_kl_vjp"})
 # (operators whose kernels take a second flat array: the tolerance, or the tangent / cotangent)
@@ -373,6 +375,9 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
         elif r.category == "form" and op == "project_jvp":
             from .derivatives import form_jvp
             calls[op] = form_jvp(run, context)
+        elif r.category == "form" and op == "project_kl_jvp":
+            from .derivatives import form_kl_jvp
+            calls[op] = form_kl_jvp(run, context)
         elif r.category == "form":
             calls[op] = lambda X: (context.linear_form().violation_x(X), {})
         elif r.category == "backend":

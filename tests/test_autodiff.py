@@ -177,10 +177,10 @@ def test_torch_refuses_other_devices_and_bad_input(torch, torch_project):
 
 
 def test_torch_set_without_jacobian_products(torch, torch_project):
-    """A set without the needed product (here: the KL Jacobian of a flow) projects without gradients and
+    """A set without the needed product (here: the KL Jacobian of a hull) projects without gradients and
     refuses, by name, when one is needed."""
     from setkit.families import lookup
-    K = setkit.compile(lookup("flow").examples()[0])
+    K = setkit.compile(lookup("hull").examples()[0])
     assert K.routes()["project_kl_vjp"].provider == "none"
     y = torch.ones((1,) + tuple(K.shape), dtype=torch.float64)
     np.testing.assert_allclose(torch_project(K, y, geometry="kl").numpy(), K.project(y.numpy(), geometry="kl"))
@@ -293,7 +293,7 @@ def test_jax_errors(jx):
     with pytest.raises(Exception, match="must be finite"):  # under jit: JAX's runtime error carries the message
         jax.jit(lambda y: jax_project(K, y))(jnp.asarray([np.nan, 0.0, 0.0]))
     from setkit.families import lookup
-    N = setkit.compile(lookup("flow").examples()[0])        # no KL Jacobian products
+    N = setkit.compile(lookup("hull").examples()[0])        # no KL Jacobian products
     y = jnp.ones(N.shape)
     np.testing.assert_allclose(np.asarray(jax_project(N, y, "kl")), N.project(np.ones(N.shape), geometry="kl"))
     with pytest.raises(UnsupportedOperationError, match="project_kl_vjp"):
