@@ -94,6 +94,8 @@ def _scaled_specs():
 
 def _combinators(specs, rng, count):
     """Random intersections, products and affine images of small vector specs."""
+    if count <= 0:
+        return []
     by_dim = collections.defaultdict(list)
     for s in specs:
         try:
@@ -449,11 +451,15 @@ class SetFuzzer:
 
     def _defect(self, op, band, args, what, tb=""):
         arg = args[0] if args else None
+        if isinstance(arg, np.ndarray) and arg.size <= 400:
+            full = repr(arg.tolist())
+        else:
+            full = None
         if isinstance(arg, np.ndarray) and arg.size > 40:
             arg = f"array shape {arg.shape}, max |.| {np.abs(arg).max(initial=0):.3g}"
         elif isinstance(arg, np.ndarray):
             arg = np.array2string(arg, precision=17, separator=", ")
-        return {"set": self.label, "kind": self.kind, "op": op, "band": band, "input": arg, "what": what, "trace": tb}
+        return {"set": self.label, "kind": self.kind, "op": op, "band": band, "input": arg, "what": what, "trace": tb, "full": full}
 
     def verdict(self, op, band, failures, args, loose=False):
         if failures:
@@ -523,8 +529,10 @@ class SetFuzzer:
             gap = self.fw_gap(y, p)
             if gap is not None:
                 g, gtol = gap
-                if g > SLACK * 10 * max(gtol, tau):
-                    fails.append(f"row {i}: first-order gap {g:.3g} above {SLACK * 10 * max(gtol, tau):.3g}")
+                if g > SLACK * max(gtol, tau):
+                    fails.append(f"row {i}: first-order gap {g:.3g} above {SLACK * max(gtol, tau):.3g}")
+                elif g > SLACK * gtol:
+                    loose = True
         if fails:
             self.verdict("project", band, fails[:3], (Y,))
             return P
@@ -567,7 +575,10 @@ class SetFuzzer:
             return None
         L = np.asarray(L, dtype=float).reshape(-1)
         g = float(rn @ L - rn @ p)
-        tol = RTOL * max(self.scale, float(np.abs(L).max()), float(np.abs(p).max())) * max(1.0, math.sqrt(len(p)))
+        # an error e of p along the normal moves the normalized gap by about |e|; a residual y - p that is
+        # itself rounding (m ~ ulp(S)) makes rn noise and the gap up to ulp(S) * S / m: allow both
+        S = max(self.scale, float(np.abs(L).max()), float(np.abs(p).max()))
+        tol = RTOL * S * max(1.0, math.sqrt(len(p))) * (1.0 + S / m)
         return g, tol
 
     def fuzz_lmo(self, band, C):
@@ -713,7 +724,9 @@ class SetFuzzer:
             if np.any(x < -tau):
                 fails.append(f"row {i}: KL projection has a negative entry {x.min():.3g}")
                 continue
-            if not self.has_lmo:
+            if not self.has_lmo or np.any(x <= 0.0):
+                # a zero entry (legitimate where bounds leave no room, e.g. caps that use up the total)
+                # has an infinite KL gradient: the first-order check is only rigorous on positive answers
                 continue
             with np.errstate(divide="ignore"):
                 g = np.where(x > 0, np.log(np.where(x > 0, x, 1.0)), -745.0) - T[i]
@@ -824,7 +837,7 @@ def run(calls=100_000, seed=0, time_limit=20.0, randoms_per_kind=3, combos=30, v
                     break
                 # sets whose rounds are slow (generic solvers, timeouts) run less often, so that
                 # the calls spread over the kinds instead of piling up behind one slow set
-                if fz.cost > 1.0 and r % min(25, math.ceil(fz.cost)) != 0:
+                if fz.cost > 1.0 and r % min(60, math.ceil(2 * fz.cost)) != 0:
                     continue
                 t1 = time.perf_counter()
                 fz.round(bands, heavy=(r % 3 == 0))
