@@ -67,6 +67,16 @@ class CallTimeout(Exception):
     """A fuzzed call ran past the per-call limit (not a setkit error: recorded as a timeout)."""
 
 
+def _caused_by_timeout(e):
+    seen = 0
+    while e is not None and seen < 10:
+        if isinstance(e, CallTimeout):
+            return True
+        e = e.__cause__ or e.__context__
+        seen += 1
+    return False
+
+
 def _on_alarm(signum, frame):
     raise CallTimeout()
 
@@ -442,6 +452,10 @@ class SetFuzzer:
             self.tally.record(self.kind, op, band, "setkit error", _message_kind(e))
             return False, None
         except Exception as e:                                   # noqa: BLE001 - the point of the fuzzer
+            if _caused_by_timeout(e):      # the alarm fired inside a compiled function (numba re-raises it as
+                self.tally.record(self.kind, op, band, "timeout")      # SystemError with the timeout as context)
+                self.tally.errors[f"timeout after {self.time_limit:g} s"] += 1
+                return False, None
             self.tally.record(self.kind, op, band, "foreign", self._defect(op, band, args, f"{type(e).__name__}: {e}",
                                                                          traceback.format_exc(limit=4)))
             return False, None

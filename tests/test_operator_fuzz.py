@@ -10,19 +10,18 @@ CATALOG = fz.CATALOG
 
 
 # -- the CI slice -------------------------------------------------------------------------------------
-FAST = ("simplex.examples", "box.examples[0]", "ball.examples", "budget.examples", "permutahedron.examples",
+FAST = ("simplex.examples", "box.examples[0]", "ball.examples", "budget.examples[0]", "permutahedron.examples",
         "birkhoff.examples[0]", "transport.examples[0]", "group_ball.examples[0]", "owl_ball.examples[0]",
         "ksupport_ball.examples[0]", "elastic_ball.examples", "nuclear_ball.examples[0]", "spectraplex.examples[0]",
-        "spectral_ball.examples[0]", "product.examples[0]", "affine.examples[0]", "intersection.examples[0]",
-        "centered:box", "catalog/synth-patch-edits", "catalog/garden-bed-valves", "catalog/per-learner-minutes",
-        "catalog/two-depots", "matroid_bases.examples[0]", "submodular_base.examples[0]", ".scaled[0]", ".scaled[9]",
-        ".scaled[27]")
+        "spectral_ball.examples[0]", "product.examples[0]", "affine.examples[0]", "intersection.examples[3]",
+        "centered:box", "catalog/synth-patch-edits", "catalog/garden-bed-valves", "matroid_bases.examples[0]",
+        "submodular_base.examples[0]", ".scaled[0]", ".scaled[9]", ".scaled[27]")
 
 
 def test_fuzz_slice_finds_no_foreign_exception_and_no_silent_wrong_answer():
-    t = fz.run(calls=3000, seed=0, time_limit=10.0, randoms_per_kind=0, combos=0, only=FAST)
+    t = fz.run(calls=2000, seed=0, time_limit=10.0, randoms_per_kind=0, combos=0, only=FAST)
     report = fz.summary(t)
-    assert t.total >= 3000, report                       # the slice did real work
+    assert t.total >= 2000, report                       # the slice did real work
     assert len(t.kinds) >= 15, report                    # over most kinds
     assert t.count("correct") >= 0.9 * t.total, report
     assert t.count("foreign") == 0, report
