@@ -928,12 +928,13 @@ def main(argv=None):
     ap.add_argument("--randoms", type=int, default=3, help="random examples per family")
     ap.add_argument("--combos", type=int, default=30, help="random combinator sets")
     ap.add_argument("--only", nargs="*", help="only sets whose label contains one of these")
+    ap.add_argument("--max-seconds", type=float, default=None, help="stop after this many seconds (wall clock)")
     ap.add_argument("--out", default=str(Path(__file__).with_name("fuzz_operators_last_run.txt")))
     ap.add_argument("-v", "--verbose", action="store_true")
     a = ap.parse_args(argv)
     if a.calls < 1:
         ap.error(f"--calls must be a positive integer; got {a.calls}.")
-    t = run(a.calls, a.seed, a.time_limit, a.randoms, a.combos, a.verbose, only=a.only)
+    t = run(a.calls, a.seed, a.time_limit, a.randoms, a.combos, a.verbose, only=a.only, max_seconds=a.max_seconds)
     text = summary(t, "python3 -m benchmarks.fuzz_operators " + " ".join(argv if argv is not None else sys.argv[1:]))
     print(text)
     if a.out:

@@ -173,3 +173,24 @@ def test_partition_matroid_with_a_far_element_index_is_refused_fast():
         with pytest.raises(setkit.errors.DescriptionError, match=r"groups.*element \d is in no group"):
             setkit.compile({"kind": "matroid_bases", "form": "partition", "groups": groups, "quotas": [1, 1, 0]})
         assert time.process_time() - t0 < 5.0
+
+
+def test_lmo_on_solver_routes_is_scale_free_and_support_does_not_turn_nan():
+    """fuzz_operators seed 1 (100,047 calls): intersection.examples[2] (LMO by the Clarabel reference) returned
+    a vertex up to 1.1 worse than the minimizer at |c| <= 1e-12; permutahedron.scaled[25], ball.scaled[21],
+    budget.scaled[24] returned support NaN at |c| ~ 1e306 (inf - inf in the sum)."""
+    from setkit.families import lookup
+    K = setkit.compile(lookup("intersection").examples()[2])
+    rng = np.random.default_rng(1)
+    for _ in range(3):
+        c = rng.normal(size=K.shape)
+        best = float(c @ K.lmo(c))
+        for s in (1e-300, 1e-12, 1e300):
+            assert float(c @ K.lmo(c * s)) <= best + 1e-9, s
+    P = setkit.compile({"kind": "permutahedron", "weights": [3e6, 2e6, 1e6, 0.0]})
+    c = np.array([[1e307, -1e307, 5e306, 0.0], [1e307, 1e307, 1e307, 1e307], [-1e307, -1e307, -1e307, -1e307]])
+    v = P.support(c)
+    # sorted c against sorted weights (rearrangement inequality, Hardy-Littlewood-Polya 1934, from memory):
+    # row 0: 3e6 * 1e307 + 2e6 * 5e306 + ... overflows to +inf; rows 1-2: 6e6 * (+-1e307) = +-inf
+    assert np.array_equal(v, [np.inf, np.inf, -np.inf])
+    assert P.support(c[0] * 1e-10) == pytest.approx(3e6 * 1e297 + 2e6 * 5e296, rel=1e-12)
