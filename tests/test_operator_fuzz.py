@@ -194,3 +194,15 @@ def test_lmo_on_solver_routes_is_scale_free_and_support_does_not_turn_nan():
     # row 0: 3e6 * 1e307 + 2e6 * 5e306 + ... overflows to +inf; rows 1-2: 6e6 * (+-1e307) = +-inf
     assert np.array_equal(v, [np.inf, np.inf, -np.inf])
     assert P.support(c[0] * 1e-10) == pytest.approx(3e6 * 1e297 + 2e6 * 5e296, rel=1e-12)
+
+
+def test_affine_image_lmo_at_1e300_is_a_finite_vertex():
+    """fuzz_operators seed 1, affine.combined[1:21] (a group ball scaled by 1e4): lmo(c) at |c| ~ 1e300 gave
+    non-finite vertices (c times the scale overflowed inside the change of variables)."""
+    K = setkit.compile({"kind": "affine", "set": {"kind": "group_ball", "dim": 6, "group_size": 3, "radius": 2.5,
+                                                  "weights": [1.0, 0.5]},
+                        "scale": 1e4, "shift": [0.25, 0.589, 0.883, -1.868, 1.194, 1.443]})
+    rng = np.random.default_rng(0)
+    C = rng.normal(size=(3, 6))
+    assert np.isfinite(K.lmo(C * 1e300)).all()
+    assert np.allclose(K.lmo(C * 1e300), K.lmo(C), rtol=1e-12)
