@@ -634,7 +634,9 @@ class SetFuzzer:
             f = []
             for i in range(b):
                 with np.errstate(all="ignore"):
-                    want = -float(np.sum(C[i] * L[i]))
+                    cm = float(np.abs(C[i]).max(initial=0.0))
+                    cm = cm if cm > 0 else 1.0
+                    want = -float((C[i] / cm) @ L[i]) * cm      # inf (not NaN) where the value overflows
                     scale_term = float(np.abs(C[i]).max()) * max(self.scale, float(np.abs(L[i]).max()))
                 tol = SLACK * RTOL * scale_term * max(1.0, math.sqrt(K.dim))
                 if np.isinf(want) and np.isinf(S1[i]) and np.sign(want) == np.sign(S1[i]):
