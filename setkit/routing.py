@@ -392,6 +392,17 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             def unsupported(*a, _op=op, _why=r.reason):
                 raise UnsupportedOperationError(f"{_op} on {node.label}: {_why}.")
             calls[op] = unsupported
+    # scale guards (found by benchmarks/fuzz_operators.py): the LMO is unchanged when a row of c is multiplied by
+    # a positive number, so solver routes get rows with largest |entry| in [1, 2) (tiny costs read as zero by LP
+    # and conic tolerances otherwise); a support value that came out NaN/inf is recomputed as 2^e support(c / 2^e)
+    if routes["lmo"].category in ("strategy", "backend"):
+        calls["lmo"] = _unit_cost_rows(calls["lmo"])
+        if "lmo" in direct:
+            direct["lmo"] = _unit_cost_rows(direct["lmo"])
+    if routes["support"].category not in ("none",):
+        calls["support"] = _overflow_safe_support(calls["support"], pair=True)
+        if "support" in direct:
+            direct["support"] = _overflow_safe_support(direct["support"], pair=False)
     unchecked = _bind_contract(node, routes, calls, direct, run, context)
     return Plan(node, MappingProxyType(routes), MappingProxyType(calls), MappingProxyType(direct),
                 MappingProxyType(unchecked))
@@ -413,6 +424,48 @@ def _bind_contract(node, routes, calls, direct, run, context):
         return {}
     direct["project"] = calls["project"]      # the single-point path and parts' callers get the checked call
     return {"project": raw}                   # K.unchecked keeps the raw kernel (the documented opt-out)
+
+
+def _pow2_exponents(C):
+    """Per row, the e with 2^-e max|c| in [1, 2) (0 for zero or non-finite rows)."""
+    m = np.abs(C).max(axis=1, initial=0.0)
+    e = np.zeros(C.shape[0], dtype=np.int64)
+    ok = (m > 0.0) & np.isfinite(m)
+    e[ok] = np.floor(np.log2(m[ok])).astype(np.int64)
+    return e
+
+
+def _unit_cost_rows(call):
+    """Rows of c far from unit size (largest entry outside 2^-20..2^20) scaled by a power of two first.
+
+    Rows of ordinary size are passed unchanged (solvers are tuned for them: Clarabel reports
+    inaccurate solves on some conic LMOs when their costs are rescaled)."""
+    def run(C, *rest):
+        e = _pow2_exponents(C)
+        e[np.abs(e) <= 20] = 0
+        return call(np.ldexp(C, -e[:, None]) if e.any() else C, *rest)
+    return run
+
+
+def _overflow_safe_support(call, pair):
+    def run(C, *rest):
+        with np.errstate(over="ignore", invalid="ignore"):     # overflowing rows are recomputed below
+            res = call(C, *rest)
+        out, info = (res if pair else (res, None)) if not (not pair and isinstance(res, tuple)) else res
+        v = np.asarray(out, dtype=float)
+        bad = ~np.isfinite(v) if v.ndim == 1 and v.shape[0] == C.shape[0] else None
+        if bad is not None and bad.any():
+            e = _pow2_exponents(C[bad])
+            sub = call(np.ldexp(C[bad], -e[:, None]), *rest)
+            sub = sub[0] if isinstance(sub, tuple) else sub
+            v = v.copy()
+            with np.errstate(over="ignore"):
+                v[bad] = np.ldexp(np.asarray(sub, dtype=float), e)    # inf only where the value exceeds the float range
+            out = v
+        if pair or isinstance(res, tuple):
+            return out, info
+        return out
+    return run
 
 
 def _with_fallback(call, op, fallback, context, node):

@@ -339,6 +339,10 @@ class CutDual(Strategy):
         """Column generation (Dantzig-Wolfe): a small master LP over vertices from the base's own LMO, O(columns * (base LMO + small LP))."""
         base = parts[self.base]
         node = self.node
+        # the LMO does not change when a row of C is multiplied by a positive number: bring every row to
+        # a largest entry in [1, 2) (a power of two, exact) so that the master LP's optimality tolerance
+        # (absolute) means the same at |c| ~ 1e-300 as at |c| ~ 1 (tiny costs read as all-zero otherwise)
+        C = _unit_rows(C)
         X, info = lmo_with_cuts(lambda Q: base.run("lmo", Q)[0], C, self.matrix, self.rhs, self.n_eq,
                                 max(1.0, node.scale()))
         status = info["status"]
@@ -351,6 +355,17 @@ class CutDual(Strategy):
         # route that setkit.routing chose for this operator (the merged LP or the reference)
         return X, {"status": list(status), "iterations": info["iterations"], "backend_status": bstat,
                    "unsettled": bad}
+
+
+def _unit_rows(C):
+    """Rows of C times powers of two so that each nonzero row's largest |entry| lies in [1, 2) (exact)."""
+    m = np.abs(C).max(axis=1, initial=0.0)
+    ok = (m > 0.0) & np.isfinite(m)
+    if not ok.any():
+        return C
+    e = np.zeros(C.shape[0])
+    e[ok] = -np.floor(np.log2(m[ok]))
+    return np.ldexp(C, e.astype(np.int64)[:, None])
 
 
 @register_strategy("dual_splitting")

@@ -289,7 +289,11 @@ class Product(Family):
     def distance(self, Y, parts):
         """Root of the sum of squared block distances, one batched call per distinct block."""
         d = self._values("distance", Y, parts)
-        return np.sqrt(np.einsum("ij,ij->i", d, d))
+        # scaled by the largest block distance: the squares of distances above ~1e154 would overflow
+        m = d.max(axis=1, initial=0.0) if d.shape[1] else np.zeros(d.shape[0])
+        s = np.where((m > 0.0) & np.isfinite(m), m, 1.0)
+        q = d / s[:, None]
+        return np.sqrt(np.einsum("ij,ij->i", q, q)) * s
 
     @kernel("support")
     def support(self, C, parts):

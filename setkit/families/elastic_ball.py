@@ -105,7 +105,10 @@ class ElasticBall(Family):
     def value(self, X):
         """mix ||x||_1 + (1 - mix)/2 ||x||_2^2 per row (inf where the square overflows)."""
         with np.errstate(over="ignore"):
-            return self.mix * np.abs(X).sum(axis=1) + 0.5 * (1.0 - self.mix) * np.einsum("ij,ij->i", X, X)
+            v = self.mix * np.abs(X).sum(axis=1) if self.mix > 0.0 else np.zeros(X.shape[0])
+            if self.mix < 1.0:      # a zero weight times an overflowed square would be 0 * inf = NaN
+                v = v + 0.5 * (1.0 - self.mix) * np.einsum("ij,ij->i", X, X)
+            return v
 
     # -- native kernels ---------------------------------------------------------------------------
     @kernel("project")

@@ -167,7 +167,11 @@ class GroupBall(Family):
             if rt[i] == 0.0:
                 out[i] = 0.0
                 continue
-            tg = project_capped(a[i:i + 1], 0.0, np.inf, self._w, float(rt[i]), mode="at_most")[0]
+            # data_scale = the radius at this row's scale: the kernel then solves rows with group norms far
+            # above the radius (|y| ~ 1e16 radius and beyond) exactly instead of leaving the answer a few
+            # ulps of |y| off (which at that ratio is outside the ball)
+            tg = project_capped(a[i:i + 1], 0.0, np.inf, self._w, float(rt[i]), mode="at_most",
+                                data_scale=float(rt[i]))[0]
             f = np.divide(tg, a[i], out=np.zeros_like(tg), where=a[i] > 0)
             out[i] = Y[i] * f[self._owner]
         return out

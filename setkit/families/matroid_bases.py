@@ -97,9 +97,13 @@ class MatroidBases(BasePolytopeMixin, Family):
                     seen[int(i)] = j
                 groups.append(np.array(sorted(int(i) for i in gr), np.int64))
             n = max(seen) + 1
-            missing = sorted(set(range(n)) - set(seen))
-            if missing:
-                r.fail("groups", f"the groups must cover the elements 0..{n - 1}; element {missing[0]} is in no "
+            if len(seen) != n:
+                # the elements are distinct (disjoint groups): the first gap in their sorted list is the
+                # first missing one (never a set of range(n): an index like 2**31 would take gigabytes)
+                have = np.sort(np.fromiter(seen, np.int64, len(seen)))
+                gaps = np.flatnonzero(have != np.arange(have.size))
+                first = int(gaps[0]) if gaps.size else have.size
+                r.fail("groups", f"the groups must cover the elements 0..{n - 1}; element {first} is in no "
                                  f"group (put it in a group of its own with quota 0 or 1).")
             if r.has("dim"):
                 d = r.integer("dim", min=1)

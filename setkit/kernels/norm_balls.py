@@ -228,9 +228,11 @@ def _ks_point(z, p, k, nu, x):
         x[i] = 0.0
     for i in range(p):
         if z[i] > tau:
-            th = (z[i] - tau) / (nu * tau)
-            if th > 1.0:
-                th = 1.0
+            # theta = min(1, (z_i - tau) / (nu tau)), written so that nu tau underflowing to 0 (a tiny
+            # radius against entries that span hundreds of decades) reads as theta = 1, not 0/0
+            d = z[i] - tau
+            den = nu * tau
+            th = 1.0 if d >= den else d / den
             v = z[i] / (1.0 + nu * th)
             x[i] = v * nu * th
             R += th * v * v
