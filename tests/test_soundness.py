@@ -114,3 +114,17 @@ def test_a_record_never_says_solved_above_tolerance(monkeypatch):
     with pytest.warns(setkit.AccuracyWarning):
         d = loose.project([1.0, 0.0, 0.0], details=True)
     assert d.status == "inaccurate"
+
+
+@pytest.mark.parametrize("total", [1e-300, 1e-16, 1e-6])
+def test_budget_of_a_tiny_total_is_exact_on_ordinary_inputs(total):
+    # found by benchmarks/fuzz_operators.py: with the far-point scale floored at 1, an input of size 1
+    # against a total of 1e-16 came back 11% over the total (ulps of the input); the answers below are
+    # hand-derived: at_most with weights (1, 2, 1) puts everything on the largest y/w, and with caps
+    # 0.6 t the two largest inputs share (0.6 t, 0.4 t)
+    K = setkit.compile({"kind": "budget", "dim": 3, "total": total, "weights": [1, 2, 1], "mode": "at_most"})
+    x = K.project([1.0, 0.5, 0.3])
+    assert x.tolist() == pytest.approx([total, 0.0, 0.0], rel=1e-12, abs=0.0) and K.contains(x)
+    K = setkit.compile({"kind": "budget", "dim": 3, "total": total, "upper": 0.6 * total})
+    x = K.project([1.0, 0.5, 0.3])
+    assert (x / total).tolist() == pytest.approx([0.6, 0.4, 0.0], rel=1e-12, abs=1e-12) and K.contains(x)

@@ -129,7 +129,10 @@ class Budget(Family):
         object.__setattr__(self, "_room", room)
         object.__setattr__(self, "_caps", np.minimum(self.upper, self.lower + room / self.weights))
         object.__setattr__(self, "_lip", float(max(1.0, np.linalg.norm(self.weights))))
-        object.__setattr__(self, "_data_scale", self.scale())    # the magnitude that marks far points
+        # the magnitude that marks far points: the data's own size, not floored at 1, so that a set of
+        # tiny totals treats an input of ordinary size as far (else its answer is off by ulps of the input)
+        v = np.abs(np.concatenate([self.lower, self.upper[np.isfinite(self.upper)], [self.total]]))
+        object.__setattr__(self, "_data_scale", float(max(v.max(), 1e-300)))
         with np.errstate(divide="ignore", invalid="ignore"):   # the KL projection's breakpoints use the logs of the bounds
             object.__setattr__(self, "_log_bounds", (np.log(self.lower), np.log(self.upper)))
         object.__setattr__(self, "_kl_structure", budget_structure(self.lower, self.upper, self.weights))
