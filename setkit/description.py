@@ -453,9 +453,9 @@ def failer_for(node):
 
 def parse(description, source: str = "<dict>", base_dir: str | None = None):
     """Parse a description: either a set mapping, or a document with a top-level 'set' key."""
-    from .decision_set import DecisionSet
     from .families import Family
-    if not isinstance(description, (DecisionSet, Family)):
+    compiled = isinstance(description, Family) or isinstance(getattr(description, "node", None), Family)
+    if not compiled:                     # a compiled DecisionSet (it carries its node) or a node: no data to check
         check_shape_of_data(description, Location(source, (), base_dir))
     if isinstance(description, Mapping) and "set" in description and "kind" not in description:
         extra = [k for k in description if k not in ("set", "about", "name")]
