@@ -818,7 +818,6 @@ def run(calls=100_000, seed=0, time_limit=20.0, randoms_per_kind=3, combos=30, v
     pool = build_pool(seed, randoms_per_kind, combos)
     if only:
         pool = [(l, e) for l, e in pool if any(o in l for o in only)]
-    rng = np.random.default_rng([seed, 7])
     fuzzers = []
     old = signal.signal(signal.SIGALRM, _on_alarm) if hasattr(signal, "SIGALRM") else None
     t0 = time.perf_counter()
