@@ -80,8 +80,16 @@ def face_projector_rows(form, P, V, tol=None):
     >>> face_projector_rows(form, np.array([[0.5, 0.5, 0.0]]), np.array([[1.0, 0.0, 5.0]])).round(12).tolist()
     [[0.5, -0.5, 0.0]]
     """
+    return _face_rows(form, P, V, tol, weighted=False)
+
+
+def _face_rows(form, P, V, tol, weighted):
+    """The face loop shared by :func:`face_projector_rows` (metric I) and :func:`kl_face_rows`
+    (metric diag(p): the free coordinates scaled by sqrt(p) before and after the least-squares step,
+    and coordinates at 0 fixed)."""
     if form.n_aux:
-        raise UnsupportedOperationError("the face projector needs a linear form without auxiliary variables; "
+        what = "the KL face route" if weighted else "the face projector"
+        raise UnsupportedOperationError(f"{what} needs a linear form without auxiliary variables; "
                                         f"this one has {form.n_aux}.")
     P = np.asarray(P, dtype=float)
     V = np.asarray(V, dtype=float)
@@ -93,6 +101,8 @@ def face_projector_rows(form, P, V, tol=None):
     for r in range(P.shape[0]):
         p, t = P[r], tol[r]
         fixed = (p <= form.lo + t) | (p >= form.hi - t)
+        if weighted:
+            fixed |= p <= 0.0
         free = np.flatnonzero(~fixed)
         if free.size == 0:
             continue
@@ -101,11 +111,13 @@ def face_projector_rows(form, P, V, tol=None):
             rows.append(A_ub[A_ub @ p >= form.b_ub - t])
         M = np.vstack(rows)[:, free]
         M = M[np.abs(M).max(axis=1, initial=0.0) > 0] if M.size else M
-        v = V[r, free]
+        sq = np.sqrt(p[free]) if weighted else 1.0
+        v = sq * V[r, free]
         if M.shape[0]:
-            z = np.linalg.lstsq(M.T, v, rcond=None)[0]
-            v = v - M.T @ z
-        out[r, free] = v
+            B = (M * sq).T                      # S M^T (S = I in the Euclidean metric)
+            z = np.linalg.lstsq(B, v, rcond=None)[0]
+            v = v - B @ z
+        out[r, free] = sq * v
     return out
 
 
@@ -252,35 +264,7 @@ def kl_face_rows(form, X, V, tol=None):
     >>> kl_face_rows(form, np.array([[0.25, 0.75]]), np.array([[1.0, 0.0]])).round(12).tolist()
     [[0.1875, -0.1875]]
     """
-    if form.n_aux:
-        raise UnsupportedOperationError("the KL face route needs a linear form without auxiliary variables; "
-                                        f"this one has {form.n_aux}.")
-    X = np.asarray(X, dtype=float)
-    V = np.asarray(V, dtype=float)
-    if tol is None:
-        tol = _activity_tol(form, X)
-    A_eq = form.A_eq.toarray() if form.A_eq.shape[0] else np.zeros((0, form.n_x))
-    A_ub = form.A_ub.toarray() if form.A_ub.shape[0] else np.zeros((0, form.n_x))
-    out = np.zeros_like(V)
-    for r in range(X.shape[0]):
-        x, t = X[r], tol[r]
-        fixed = (x <= form.lo + t) | (x >= form.hi - t) | (x <= 0.0)
-        free = np.flatnonzero(~fixed)
-        if free.size == 0:
-            continue
-        rows = [A_eq]
-        if A_ub.shape[0]:
-            rows.append(A_ub[A_ub @ x >= form.b_ub - t])
-        M = np.vstack(rows)[:, free]
-        M = M[np.abs(M).max(axis=1, initial=0.0) > 0] if M.size else M
-        sq = np.sqrt(x[free])
-        w = sq * V[r, free]
-        if M.shape[0]:
-            B = (M * sq).T                      # S M^T
-            z = np.linalg.lstsq(B, w, rcond=None)[0]
-            w = w - B @ z
-        out[r, free] = sq * w
-    return out
+    return _face_rows(form, X, V, tol, weighted=True)
 
 
 def form_kl_jvp(run, context):
