@@ -276,6 +276,25 @@ class NetworkFamily(Family):
         g = self.network()
         return NetworkProjector(g.tail, g.head, g.lo, g.hi, g.supply)
 
+    def orthant_violation(self):
+        """None when every lower bound is >= 0 (flows are then nonnegative), else the first edge below 0."""
+        lo = self.network().lo
+        neg = np.flatnonzero(~(lo >= 0.0))
+        if neg.size:
+            e = int(neg[0])
+            return f"edge {e} has lower bound {lo[e]:.6g} < 0 (every lower bound must be >= 0)"
+        return None
+
+    @kernel("project_kl")
+    def project_kl(self, T):
+        """Dual Newton on node potentials (damped, backtracking), to conservation residual 1e-10 x scale; a sparse solve per step."""
+        from ..kernels.bregman import flow_kl, outside_orthant_error
+        why = self.orthant_violation()
+        if why:
+            raise outside_orthant_error(self.label, why)
+        g = self.network()
+        return flow_kl(T, g.tail, g.head, g.lo, g.hi, g.supply, self.label)
+
     @kernel("project", workspace=True)
     def project(self, Y, pj):
         """Dual Newton on node potentials with exact component shifts (numba, matrix-free CG); O(E) per CG step."""

@@ -18,7 +18,7 @@ import numpy as np
 
 from ..description import MAX_SIZE, decode_text
 from ..errors import DescriptionError, EmptySetError
-from . import kernel, memo, register
+from . import memo, register
 from ._network import Network, NetworkFamily, check_feasible
 
 EDGE_KEYS = ("from", "to", "capacity", "lower")
@@ -331,23 +331,6 @@ class Flow(NetworkFamily):
 
     def network(self):
         return memo(self, "network", lambda: Network(self.tail, self.head, self.lower, self.capacity, self.supply))
-
-    def orthant_violation(self):
-        """None when every lower bound is >= 0 (flows are then nonnegative), else the first edge below 0."""
-        neg = np.flatnonzero(~(self.lower >= 0.0))
-        if neg.size:
-            e = int(neg[0])
-            return f"edge {e} has lower bound {self.lower[e]:.6g} < 0 (every lower bound must be >= 0)"
-        return None
-
-    @kernel("project_kl")
-    def project_kl(self, T):
-        """Dual Newton on node potentials (damped, backtracking), to conservation residual 1e-10 x scale; a sparse solve per step."""
-        from ..kernels.bregman import flow_kl, outside_orthant_error
-        why = self.orthant_violation()
-        if why:
-            raise outside_orthant_error(self.label, why)
-        return flow_kl(T, self.tail, self.head, self.lower, self.capacity, self.supply, self.label)
 
     def cvxpy_constraints(self, x):
         g = self.network()

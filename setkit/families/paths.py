@@ -253,13 +253,6 @@ class Paths(NetworkFamily):
             P[bad] = project_rows(Y[bad], lambda c: vertices(c[None, :])[0], scale=1.0, label=self.label)[0]
         return P
 
-    @kernel("project_kl")
-    def project_kl(self, T):
-        """KL projection onto the unit-flow polytope: the flow family's damped dual Newton on node potentials."""
-        from ..kernels.bregman import flow_kl
-        m = self.tail.size
-        return flow_kl(T, self.tail, self.head, np.zeros(m), np.ones(m), self.network().supply, self.label)
-
     @kernel("project_jvp", workspace=True)
     def project_jvp(self, Y, V, ws):
         """Flow face of the answer: v_F - B_F^T z, z by a sparse solve with the free edges' Laplacian (grounded per component), per point.
