@@ -42,6 +42,7 @@ from __future__ import annotations
 import argparse
 import collections
 import math
+import pickle
 import re
 import signal
 import sys
@@ -58,6 +59,7 @@ from setkit.errors import SetkitError
 CATALOG = Path(__file__).resolve().parent.parent / "catalog"
 RTOL = 1e-7          # the stated tolerance factor (DecisionSet._default_tol, the Details guard)
 SLACK = 10.0         # rounding slack of the checks themselves
+TRACE = None        # --trace FILE: each call's set, operator and arguments, written before the call
 BANDS = ("1e-300", "1e-150", "1e-12", "1e-3", "1", "1e3", "1e8", "1e16", "1e100", "1e300", "mixed", "degenerate")
 OPERATORS = ("project", "distance", "lmo", "support", "contains", "violation", "project_kl",
              "project_jvp", "project_vjp", "batch", "empty")
@@ -438,6 +440,11 @@ class SetFuzzer:
     def call(self, op, band, fn, *args, **kw):
         """(ok, value): ok False when the call raised (recorded here)."""
         use_alarm = hasattr(signal, "SIGALRM")
+        if TRACE is not None:
+            # a hard crash inside compiled code (a signal) leaves this file naming the call
+            with open(TRACE, "wb") as f:
+                pickle.dump({"set": self.label, "op": op, "band": band, "fn": getattr(fn, "__name__", repr(fn)),
+                             "args": args, "kw": kw}, f)
         if use_alarm:
             signal.setitimer(signal.ITIMER_REAL, self.time_limit)
         try:
@@ -931,8 +938,11 @@ def main(argv=None):
     ap.add_argument("--only", nargs="*", help="only sets whose label contains one of these")
     ap.add_argument("--max-seconds", type=float, default=None, help="stop after this many seconds (wall clock)")
     ap.add_argument("--out", default=str(Path(__file__).with_name("fuzz_operators_last_run.txt")))
+    ap.add_argument("--trace", default=None, help="write each call (set, operator, arguments) to this file first")
     ap.add_argument("-v", "--verbose", action="store_true")
     a = ap.parse_args(argv)
+    global TRACE
+    TRACE = a.trace
     if a.calls < 1:
         ap.error(f"--calls must be a positive integer; got {a.calls}.")
     t = run(a.calls, a.seed, a.time_limit, a.randoms, a.combos, a.verbose, only=a.only, max_seconds=a.max_seconds)
