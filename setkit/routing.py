@@ -256,6 +256,15 @@ def _has_form_without_aux(node):
     return form is not None and form.n_aux == 0
 
 
+def _outside_orthant(node):
+    """The family's own sentence saying why the set leaves x >= 0, or "" (inside, or not known without LPs)."""
+    try:
+        why = node.orthant_violation()
+    except Exception:                                   # noqa: BLE001 - a hook that fails leaves the route as it was
+        return ""
+    return why if isinstance(why, str) else ""
+
+
 def _faces_of_parts(node):
     from .derivatives import faces_of_parts_apply
     return faces_of_parts_apply(node)
@@ -314,6 +323,11 @@ def choose(node, overrides: dict | None = None) -> dict:
                                    category="none")
         else:
             r = _generic(op, node)
+            why = _outside_orthant(node) if op == "project_kl" and r is not None else ""
+            if why:
+                # the family knows its set leaves x >= 0: the generic solver would only refuse at call time
+                r = Route(op, "none", "the KL (relative entropy) projection needs a set inside the nonnegative "
+                          f"orthant x >= 0, but {why}", category="none")
             routes[op] = r if r is not None else Route(op, "none", "no implementation can serve it", category="none")
     # a derived route whose source has no implementation has none either (in dependency order)
     changed = True
