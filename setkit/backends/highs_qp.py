@@ -16,6 +16,7 @@ import scipy.sparse as sp
 
 from ..errors import AccuracyWarning, SolveError
 from ..limits import check as _check_time
+from ..limits import remaining as _remaining
 from . import Backend, register_backend
 
 RESIDUAL_TOL = 1e-9
@@ -67,8 +68,12 @@ class HighsQPBackend(Backend):
         model.lp_ = lp
         model.hessian_ = hess
         h = _new_highs()
+        # an active-set method needs about one iteration per face change: a bound keeps it from cycling
+        # on badly scaled costs (found by benchmarks/fuzz_operators.py: costs mixing 1e167 and 1e-275 ran
+        # for minutes inside the solver with no way to interrupt it)
+        self._iteration_limit = int(max(1000, 50 * (n + A.shape[0])))
         for key, val in (("primal_feasibility_tolerance", 1e-10), ("dual_feasibility_tolerance", 1e-10),
-                         ("threads", 1)):
+                         ("threads", 1), ("qp_iteration_limit", self._iteration_limit), ("time_limit", 60.0)):
             h.setOptionValue(key, val)
         h.passModel(model)
         self.h, self._hp = h, highspy
@@ -86,6 +91,8 @@ class HighsQPBackend(Backend):
             _check_time(f"highs_qp projection of a batch of {len(Y)}", f"{i} of {len(Y)} rows solved")
             cost = np.concatenate([-y, np.zeros(f.n_aux)])
             self.h.changeColsCost(f.n, self._idx, cost)
+            left = _remaining()       # inside setkit.time_limit: the solver stops by itself at the deadline
+            self.h.setOptionValue("time_limit", 60.0 if left is None else max(1e-3, min(60.0, left)))
             self.h.run()
             status = self.h.getModelStatus()
             z = np.array(self.h.getSolution().col_value, dtype=float)
