@@ -73,7 +73,7 @@ class HighsQPBackend(Backend):
         # for minutes inside the solver with no way to interrupt it)
         self._iteration_limit = int(max(1000, 50 * (n + A.shape[0])))
         for key, val in (("primal_feasibility_tolerance", 1e-10), ("dual_feasibility_tolerance", 1e-10),
-                         ("threads", 1), ("qp_iteration_limit", self._iteration_limit), ("time_limit", 60.0)):
+                         ("threads", 1), ("qp_iteration_limit", self._iteration_limit)):
             h.setOptionValue(key, val)
         h.passModel(model)
         self.h, self._hp = h, highspy
@@ -92,7 +92,7 @@ class HighsQPBackend(Backend):
             cost = np.concatenate([-y, np.zeros(f.n_aux)])
             self.h.changeColsCost(f.n, self._idx, cost)
             left = _remaining()       # inside setkit.time_limit: the solver stops by itself at the deadline
-            self.h.setOptionValue("time_limit", 60.0 if left is None else max(1e-3, min(60.0, left)))
+            self.h.setOptionValue("time_limit", float("inf") if left is None else max(1e-3, left))
             self.h.run()
             status = self.h.getModelStatus()
             z = np.array(self.h.getSolution().col_value, dtype=float)
