@@ -306,6 +306,11 @@ def choose(node, overrides: dict | None = None) -> dict:
             else:
                 routes[op] = _backend_route(op, node, want, True)
             continue
+        if op == "project_kl" and _outside_orthant(node):
+            # the family knows its set leaves x >= 0: no route can serve it (a native kernel would only refuse)
+            routes[op] = Route(op, "none", "the KL (relative entropy) projection needs a set inside the nonnegative "
+                               f"orthant x >= 0, but {_outside_orthant(node)}", category="none")
+            continue
         if op in node.kernels:
             routes[op] = _native_route(node, op, False)
             continue
@@ -323,11 +328,6 @@ def choose(node, overrides: dict | None = None) -> dict:
                                    category="none")
         else:
             r = _generic(op, node)
-            why = _outside_orthant(node) if op == "project_kl" and r is not None else ""
-            if why:
-                # the family knows its set leaves x >= 0: the generic solver would only refuse at call time
-                r = Route(op, "none", "the KL (relative entropy) projection needs a set inside the nonnegative "
-                          f"orthant x >= 0, but {why}", category="none")
             routes[op] = r if r is not None else Route(op, "none", "no implementation can serve it", category="none")
     # a derived route whose source has no implementation has none either (in dependency order)
     changed = True
@@ -404,6 +404,9 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             calls[op] = _backend_chain(op, chain, context, node)
         else:
             def unsupported(*a, _op=op, _why=r.reason):
+                if _op == "project_kl" and _outside_orthant(node):
+                    from .kernels.bregman import outside_orthant_error
+                    raise outside_orthant_error(node.label, _outside_orthant(node))
                 raise UnsupportedOperationError(f"{_op} on {node.label}: {_why}.")
             calls[op] = unsupported
     # scale guards (found by benchmarks/fuzz_operators.py): the LMO is unchanged when a row of c is multiplied by

@@ -171,3 +171,37 @@ def test_far_mixed_scale_point_of_the_sector_portfolio_gets_its_distance():
     except SolveError:
         return                                    # allowed: an error saying why (never a wrong number)
     assert d == pytest.approx(expected, rel=1e-12)
+
+
+def _example_sets():
+    from setkit.families import known_kinds, lookup
+    for kind in known_kinds():
+        if not lookup(kind).__module__.startswith("setkit."):
+            continue
+        for i, spec in enumerate(lookup(kind).examples()):
+            yield pytest.param(spec, id=f"{kind}[{i}]")
+
+
+@pytest.mark.parametrize("spec", list(_example_sets()))
+def test_every_operator_takes_an_empty_batch(spec):
+    """Found by the operator fuzzer (seed 3): an empty batch reached a reduction inside the linear-image
+    projection (ValueError). Every served operator of every built-in example answers an empty batch with
+    an empty answer of the right shape, or refuses with setkit's own error."""
+    K = setkit.compile(spec)
+    Z = np.zeros((0,) + K.shape)
+    routes = K.routes()
+    calls = {"project": (Z,), "distance": (Z,), "lmo": (Z,), "support": (Z,), "contains": (Z,), "violation": (Z,),
+             "project_jvp": (Z, Z), "project_vjp": (Z, Z)}
+    for op, args in calls.items():
+        if routes[op].provider == "none":
+            continue
+        out = getattr(K, op)(*args)
+        want = (0,) + K.shape if op in ("project", "lmo", "project_jvp", "project_vjp") else (0,)
+        assert np.shape(out) == want, (op, np.shape(out))
+    if routes["project_kl"].provider != "none":
+        try:
+            out = K.project(np.ones((0,) + K.shape), geometry="kl")
+        except setkit.errors.UnsupportedOperationError as e:      # the orthant check by LPs (sets that leave it)
+            assert "nonnegative orthant" in str(e)
+        else:
+            assert out.shape == (0,) + K.shape

@@ -197,6 +197,14 @@ class Intersection(Family):
     def scale(self):
         return max(p.scale() for p in self.parts)
 
+    def orthant_violation(self):
+        """Inside x >= 0 when one part is (the intersection lies in it); otherwise unknown (LPs decide)."""
+        for p in self.parts:
+            why = p.orthant_violation()
+            if why is None or why == "":
+                return None
+        return NotImplemented
+
     def cvxpy_constraints(self, x):
         cons = []
         for p in self.parts:
