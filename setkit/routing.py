@@ -420,6 +420,14 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
         calls["support"] = _overflow_safe_support(calls["support"], pair=True)
         if "support" in direct:
             direct["support"] = _overflow_safe_support(direct["support"], pair=False)
+    if routes["project_kl"].category == "backend" and routes["lmo"].provider != "none":
+        from .contract import checked_kl_projection
+        r = routes["project_kl"]
+        calls["project_kl"] = checked_kl_projection(calls["project_kl"], node, lambda G: run("lmo", G)[0],
+                                                    r.provider, loose=bool(getattr(context, "_loose", False)))
+        routes["project_kl"] = Route("project_kl", r.provider, r.reason + "; every answer's Bregman gap is checked "
+                                     "(one LMO per row; SolveError above 1e-6 x scale x sqrt(n))", r.source,
+                                     r.category, r.forced)
     unchecked = _bind_contract(node, routes, calls, direct, run, context)
     return Plan(node, MappingProxyType(routes), MappingProxyType(calls), MappingProxyType(direct),
                 MappingProxyType(unchecked))
