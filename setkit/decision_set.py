@@ -13,8 +13,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import AccuracyWarning, InputError, SetkitError, SolveError
-from .routing import build_plan, check_nonempty
+from .errors import AccuracyWarning, InputError, SetkitError, SolveError, TakeGeneralPath
+from .routing import bind_point, build_plan, check_nonempty
 
 
 @dataclass(frozen=True)
@@ -115,6 +115,19 @@ class DecisionSet:
         self._routes = self._plan.routes
         # bound native kernels, called directly by the single-point fast path
         self._direct = self._plan.direct
+        # compiled single-point entries of project / lmo (bound on first use: loading them costs milliseconds)
+        point = self._plan.point
+        self._pt_project = self._point_binder("project", 0) if "project" in point else None
+        self._pt_lmo = self._point_binder("lmo", 0) if "lmo" in point else None
+
+    def _point_binder(self, op, which):
+        """A stand-in for the single-point entry of ``op`` (0: checked, 1: trusted) that binds it on first call."""
+        def first_call(y):
+            f = bind_point(self._plan.point[op][which])
+            if which == 0:
+                setattr(self, "_pt_" + op, f)
+            return f(y)
+        return first_call
 
     # -- performance: trusted-input calls and jitted consumers (issue 12) ---------------------------
     @property
@@ -440,6 +453,13 @@ class DecisionSet:
             if _is_dask(y):
                 return self._lazy("project", [(y, "y")], details, geometry="kl", log_input=log_input)
             return self._kl_project(y, details, log_input)[0]
+        f = self._pt_project
+        if (f is not None and type(y) is np.ndarray and y.dtype is _F64 and y.shape == self._shape
+                and details is False and y.flags.c_contiguous):
+            try:
+                return f(y)           # one compiled call: finiteness check and the native kernel
+            except TakeGeneralPath:
+                pass
         if not details:
             P = self._fast("project", y)
             if P is not None:
@@ -589,6 +609,13 @@ class DecisionSet:
         >>> setkit.compile({"kind": "permutahedron", "weights": [3, 2, 1]}).lmo([0.5, -1.0, 2.0]).tolist()
         [2.0, 3.0, 1.0]
         """
+        f = self._pt_lmo
+        if (f is not None and type(c) is np.ndarray and c.dtype is _F64 and c.shape == self._shape
+                and details is False and c.flags.c_contiguous):
+            try:
+                return f(c)
+            except TakeGeneralPath:
+                pass
         if not details:
             L = self._fast("lmo", c)
             if L is not None:
@@ -905,17 +932,38 @@ class UncheckedOperators:
         shape, dim = self._shape, self._dim
         label = self._set.node.label
         points = op in ("project", "lmo")
+        entry = self._set.plan.point.get(op)
 
-        def call(a):
-            if type(a) is not np.ndarray or a.dtype != _F64 or a.shape != shape or not a.flags.c_contiguous:
-                raise InputError(f"unchecked {op} on {label}: expects one float64 C-contiguous numpy array of "
-                                 f"shape {shape}; got {type(a).__name__} {getattr(a, 'dtype', '')} "
-                                 f"{getattr(a, 'shape', '')}. Use numpy.ascontiguousarray(a, dtype=float) or "
-                                 f"the checked K.{op}.")
+        def refuse(a):
+            raise InputError(f"unchecked {op} on {label}: expects one float64 C-contiguous numpy array of "
+                             f"shape {shape}; got {type(a).__name__} {getattr(a, 'dtype', '')} "
+                             f"{getattr(a, 'shape', '')}. Use numpy.ascontiguousarray(a, dtype=float) or "
+                             f"the checked K.{op}.")
+
+        def kernel_call(a):
             out = fn(a.reshape(1, dim))
             if type(out) is tuple:
                 out = out[0]
             return out.reshape(shape) if points else out[0]
+
+        if entry is None:
+            def call(a):
+                if type(a) is not np.ndarray or a.dtype != _F64 or a.shape != shape or not a.flags.c_contiguous:
+                    refuse(a)
+                return kernel_call(a)
+        else:
+            f = None
+
+            def call(a):
+                nonlocal f
+                if type(a) is not np.ndarray or a.dtype != _F64 or a.shape != shape or not a.flags.c_contiguous:
+                    refuse(a)
+                if f is None:
+                    f = bind_point(entry[1])      # the compiled single-point entry without the finiteness check
+                try:
+                    return f(a)
+                except TakeGeneralPath:           # a point the entry leaves to the batch kernel (e.g. far budget points)
+                    return kernel_call(a)
         call.__name__ = op
         call.__doc__ = f"{op} of one trusted point (no finiteness check)."
         return call

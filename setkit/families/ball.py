@@ -143,6 +143,13 @@ class Ball(Family):
         from ..kernels.bound import ball_kernels
         return ball_kernels(self.center, self.radius, self._p, self._lo, self._hi)
 
+    def point_kernels(self, check=True):
+        """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels."""
+        from ..kernels import point
+        D = np.ascontiguousarray(np.stack([self.center, self._lo, self._hi]))
+        s = np.array([float(self.radius), float(self._p), float(check), float(self._l1_center.size == 0)])
+        return {"project": (point.ball_project_point, (D, s)), "lmo": (point.ball_lmo_point, (D, s))}
+
     @kernel("project")
     def project(self, Y):
         """Radial scaling (p=2), clipping (p=inf), or the simplex projection of |y - c| with signs restored (p=1), O(n).

@@ -114,6 +114,13 @@ class Box(Family):
         from ..kernels.bound import box_kernels
         return box_kernels(self.lower, self.upper, self._tie, self._all_finite)
 
+    def point_kernels(self, check=True):
+        """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels."""
+        from ..kernels import point
+        D = np.ascontiguousarray(np.stack([self.lower, self.upper, self._tie]))
+        s = np.array([float(check), float(self._all_finite)])
+        return {"project": (point.box_project_point, (D, s)), "lmo": (point.box_lmo_point, (D, s))}
+
     @kernel("project")
     def project(self, Y):
         """Clipping to the bounds, O(n).

@@ -114,6 +114,17 @@ class Permutahedron(Family):
         from ..kernels.bound import permutahedron_kernels
         return permutahedron_kernels(self._wdesc)
 
+    def point_kernels(self, check=True):
+        """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels.
+
+        Not for 50,000 coordinates and more (the projection sorts those another way)."""
+        from ..kernels import point
+        if self.dim >= 50_000:
+            return {}
+        D = np.ascontiguousarray(self._wdesc, dtype=float).reshape(1, -1)
+        s = np.array([float(check)])
+        return {"project": (point.permutahedron_project_point, (D, s)), "lmo": (point.permutahedron_lmo_point, (D, s))}
+
     @kernel("project")
     def project(self, Y):
         """Sort, then pool-adjacent-violators on y_sorted - w_sorted, O(n log n)."""

@@ -83,6 +83,12 @@ class Simplex(Family):
         from ..kernels.bound import simplex_kernels
         return simplex_kernels(self.total, self.mode == "at_most")
 
+    def point_kernels(self, check=True):
+        """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels."""
+        from ..kernels import point
+        s = np.array([self.total, float(self.mode == "at_most"), float(check)])
+        return {"project": (point.simplex_project_point, (s,)), "lmo": (point.simplex_lmo_point, (s,))}
+
     @kernel("project")
     def project(self, Y):
         """Sorted-threshold projection (pivot search for long single vectors), O(n log n)."""

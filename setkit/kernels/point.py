@@ -1,0 +1,190 @@
+"""Compiled single-point entries of the native project / lmo kernels (the per-call fast path).
+
+One call of ``K.project(y)`` / ``K.lmo(c)`` on one float64 point should cost little more than
+the arithmetic. These functions take the point and the set's data as arguments (so they are
+compiled once and cached on disk, for every set of a family), check that every entry of the
+point is finite (when ``check`` is true) and run the same compiled row kernel as the family's
+batch kernel on the point viewed as a (1, n) batch, so answers are bit-identical to the
+batch path.
+
+A point the fast path does not settle raises :class:`setkit.errors.TakeGeneralPath` (from compiled code):
+a non-finite entry, a budget point far above the data (the batch path re-solves those after a
+shift), a simplex row that needs the sorted fallback, an unbounded box LMO, an at_most sum
+within rounding of the total (the batch path sums in another order). The caller then takes
+the general path, which validates, reports and answers exactly as before.
+
+``routing.build_plan`` binds them (``Plan.point``) from the family hook ``point_kernels()``;
+``DecisionSet`` checks type, dtype, shape and layout in Python before calling (the compiled
+entry point trusts its argument types).
+
+These entries serve simplex, budget, box, l1/l2/l-inf balls and permutahedra (their
+``point_kernels`` hook), not rows of LONG_ROW coordinates and more (budget) or 50,000 and more
+(permutahedron): those take their long-vector routes on the general path.
+"""
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+from ..errors import TakeGeneralPath
+from .isotonic import permutahedron_lmo_packed, permutahedron_rows_packed
+from .simplex import _capped_rows_nb, _simplex_rows_nb, knapsack_lmo_rows
+from .vector_ops import ball_lmo, box_lmo_bounded, box_ops, l1_ball_project, l2_ball_project, simplex_lmo_rows
+
+EPS = 2.220446049250313e-16
+
+
+@njit(cache=True, nogil=True)
+def _finite(y):
+    acc = 0.0
+    for i in range(y.size):
+        acc += y[i] * 0.0          # NaN for NaN and +-inf, 0 otherwise
+    return acc == 0.0
+
+
+# -- simplex: s = (total, at_most, check) ------------------------------------------------------
+@njit(cache=True, nogil=True)
+def simplex_project_point(s, y):
+    """project_simplex_rows (mode equal) / Simplex.project (at_most) of one point."""
+    if s[2] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    total = s[0]
+    n = y.size
+    if s[1] != 0.0:
+        # at_most: max(y, 0) when its sum is below the total (np.maximum returns 0.0 at y == 0)
+        x = np.empty(n)
+        t = 0.0
+        for i in range(n):
+            v = y[i]
+            x[i] = v if v > 0.0 else 0.0
+            t += x[i]
+        # NumPy sums pairwise, this loop sequentially: within rounding of the total, let it decide
+        if abs(t - total) <= 2.0 * n * EPS * t + 1e-300:
+            raise TakeGeneralPath()
+        if t <= total:
+            return x
+    if total == 0.0:
+        return np.zeros(n)
+    out = np.empty((1, n))
+    if _simplex_rows_nb(y.reshape(1, n), total, out):
+        raise TakeGeneralPath()        # the sorted-prefix fallback runs in NumPy on the general path
+    return out[0]
+
+
+@njit(cache=True, nogil=True)
+def simplex_lmo_point(s, y):
+    if s[2] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    return simplex_lmo_rows(y.reshape(1, y.size), s[0], s[1] != 0.0)[0]
+
+
+# -- box: D = (lower, upper, tie), s = (check,) ------------------------------------------------
+@njit(cache=True, nogil=True)
+def box_project_point(D, s, y):
+    if s[0] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    return box_ops(y.reshape(1, y.size), D[0], D[1], D[2], 0)[0][0]
+
+
+@njit(cache=True, nogil=True)
+def box_lmo_point(D, s, y):
+    """box_lmo_bounded for finite bounds (s[1] = 1), else box_ops with its unboundedness check."""
+    if s[0] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    Y = y.reshape(1, y.size)
+    if s[1] != 0.0:
+        return box_lmo_bounded(Y, D[0], D[1], D[2])[0]
+    X, bad = box_ops(Y, D[0], D[1], D[2], 1)
+    if bad >= 0:
+        raise TakeGeneralPath()        # the general path names the unbounded coordinate
+    return X[0]
+
+
+# -- ball: D = (center, center - radius, center + radius); s = (radius, p, check, center is 0) ---
+@njit(cache=True, nogil=True)
+def ball_project_point(D, s, y):
+    if s[2] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    p = int(s[1])
+    Y = y.reshape(1, y.size)
+    if p == 2:
+        return l2_ball_project(Y, D[0], s[0])[0]
+    if p == 1:
+        # Ball.project passes an empty center for a ball at the origin (s[3] = 1)
+        if s[3] != 0.0:
+            return l1_ball_project(Y, np.empty(0), s[0])[0]
+        return l1_ball_project(Y, D[0], s[0])[0]
+    # p = inf: np.clip(y, lo, hi) (returns y at equality with a bound, like this min/max)
+    lo = D[1]
+    hi = D[2]
+    x = np.empty(y.size)
+    for i in range(y.size):
+        x[i] = min(max(y[i], lo[i]), hi[i])
+    return x
+
+
+@njit(cache=True, nogil=True)
+def ball_lmo_point(D, s, y):
+    if s[2] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    return ball_lmo(y.reshape(1, y.size), D[0], s[0], int(s[1]))[0]
+
+
+# -- budget: D = (lower, upper, weights, caps); s = (total, at_most, check, far, room) ----------
+@njit(cache=True, nogil=True)
+def budget_project_point(D, s, y):
+    """project_capped of one point (rows shorter than LONG_ROW; far points go to the general path)."""
+    if s[2] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    n = y.size
+    m = 0.0
+    for v in y:
+        a = abs(v)
+        if a > m:
+            m = a
+    if m > s[3]:
+        raise TakeGeneralPath()        # re-solved after shifts by project_capped
+    lo, hi, w = D[0], D[1], D[2]
+    total = s[0]
+    Y = y.reshape(1, n)
+    X = np.empty((1, n))
+    if s[1] != 0.0:
+        t = 0.0
+        a = 0.0
+        for i in range(n):
+            v = y[i]
+            v = lo[i] if lo[i] > v else v      # np.clip: y at equality with a bound
+            v = hi[i] if hi[i] < v else v
+            X[0, i] = v
+            t += v * w[i]
+            a += abs(v * w[i])
+        if abs(t - total) <= 2.0 * n * EPS * a + 1e-300:
+            raise TakeGeneralPath()    # X @ w sums in another order: let the general path decide
+        if t <= total:
+            return X[0]
+    _capped_rows_nb(Y, lo, hi, w, total, np.zeros(1, np.int64), X, np.zeros(1))
+    return X[0]
+
+
+@njit(cache=True, nogil=True)
+def budget_lmo_point(D, s, y):
+    if s[2] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    X = np.empty((1, y.size))
+    knapsack_lmo_rows(y.reshape(1, y.size), D[0], D[3], D[2], s[4], s[1] != 0.0, X)
+    return X[0]
+
+
+# -- permutahedron: D = (w sorted decreasingly,); s = (check,) ----------------------------------
+@njit(cache=True, nogil=True)
+def permutahedron_project_point(D, s, y):
+    if s[0] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    return permutahedron_rows_packed(y.reshape(1, y.size), D[0])[0]
+
+
+@njit(cache=True, nogil=True)
+def permutahedron_lmo_point(D, s, y):
+    if s[0] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    return permutahedron_lmo_packed(y.reshape(1, y.size), D[0])[0]
