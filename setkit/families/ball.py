@@ -146,9 +146,9 @@ class Ball(Family):
     def point_kernels(self, check=True):
         """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels."""
         from ..kernels import point
-        D = np.ascontiguousarray(np.stack([self.center, self._lo, self._hi]))
-        s = np.array([float(self.radius), float(self._p), float(check), float(self._l1_center.size == 0)])
-        return {"project": (point.ball_project_point, (D, s)), "lmo": (point.ball_lmo_point, (D, s))}
+        D = point.pack([self.center, self._lo, self._hi],
+                       [float(self.radius), float(self._p), float(check), float(self._l1_center.size == 0)])
+        return {"project": (point.ball_project_point, (D,)), "lmo": (point.ball_lmo_point, (D,))}
 
     @kernel("project")
     def project(self, Y):

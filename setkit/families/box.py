@@ -117,9 +117,8 @@ class Box(Family):
     def point_kernels(self, check=True):
         """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels."""
         from ..kernels import point
-        D = np.ascontiguousarray(np.stack([self.lower, self.upper, self._tie]))
-        s = np.array([float(check), float(self._all_finite)])
-        return {"project": (point.box_project_point, (D, s)), "lmo": (point.box_lmo_point, (D, s))}
+        D = point.pack([self.lower, self.upper, self._tie], [float(check), float(self._all_finite)])
+        return {"project": (point.box_project_point, (D,)), "lmo": (point.box_lmo_point, (D,))}
 
     @kernel("project")
     def project(self, Y):

@@ -170,9 +170,9 @@ class Budget(Family):
         from ..kernels.simplex import LONG_ROW
         if self.dim >= LONG_ROW:
             return {}
-        D = np.ascontiguousarray(np.stack([self.lower, self.upper, self.weights, self._caps]))
-        s = np.array([self.total, float(self.mode == "at_most"), float(check), 1e4 * self._data_scale, self._room])
-        return {"project": (point.budget_project_point, (D, s)), "lmo": (point.budget_lmo_point, (D, s))}
+        D = point.pack([self.lower, self.upper, self.weights, self._caps],
+                       [self.total, float(self.mode == "at_most"), float(check), 1e4 * self._data_scale, self._room])
+        return {"project": (point.budget_project_point, (D,)), "lmo": (point.budget_lmo_point, (D,))}
 
     @kernel("project")
     def project(self, Y):

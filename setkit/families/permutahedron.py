@@ -121,9 +121,8 @@ class Permutahedron(Family):
         from ..kernels import point
         if self.dim >= 50_000:
             return {}
-        D = np.ascontiguousarray(self._wdesc, dtype=float).reshape(1, -1)
-        s = np.array([float(check)])
-        return {"project": (point.permutahedron_project_point, (D, s)), "lmo": (point.permutahedron_lmo_point, (D, s))}
+        D = point.pack([self._wdesc], [float(check)])
+        return {"project": (point.permutahedron_project_point, (D,)), "lmo": (point.permutahedron_lmo_point, (D,))}
 
     @kernel("project")
     def project(self, Y):

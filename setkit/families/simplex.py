@@ -86,8 +86,8 @@ class Simplex(Family):
     def point_kernels(self, check=True):
         """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels."""
         from ..kernels import point
-        s = np.array([self.total, float(self.mode == "at_most"), float(check)])
-        return {"project": (point.simplex_project_point, (s,)), "lmo": (point.simplex_lmo_point, (s,))}
+        D = point.pack([], [self.total, float(self.mode == "at_most"), float(check)])
+        return {"project": (point.simplex_project_point, (D,)), "lmo": (point.simplex_lmo_point, (D,))}
 
     @kernel("project")
     def project(self, Y):

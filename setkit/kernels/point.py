@@ -1,8 +1,10 @@
 """Compiled single-point entries of the native project / lmo kernels (the per-call fast path).
 
 One call of ``K.project(y)`` / ``K.lmo(c)`` on one float64 point should cost little more than
-the arithmetic. These functions take the point and the set's data as arguments (so they are
-compiled once and cached on disk, for every set of a family), check that every entry of the
+the arithmetic. These functions ``f(D, y)`` take the set's data packed in one 2-d array ``D``
+(rows: the data vectors in their first n entries; last row: the scalar parameters; width
+max(n, number of parameters)) and the point ``y``, so they are compiled once and cached on
+disk for every set of a family, and one call unboxes two arrays. They check that every entry of the
 point is finite (when ``check`` is true) and run the same compiled row kernel as the family's
 batch kernel on the point viewed as a (1, n) batch, so answers are bit-identical to the
 batch path.
@@ -34,18 +36,30 @@ from .vector_ops import ball_lmo, box_lmo_bounded, box_ops, l1_ball_project, l2_
 EPS = 2.220446049250313e-16
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, fastmath={"reassoc"})
 def _finite(y):
     acc = 0.0
     for i in range(y.size):
-        acc += y[i] * 0.0          # NaN for NaN and +-inf, 0 otherwise
+        acc += y[i] * 0.0          # NaN for NaN and +-inf, 0 otherwise; reassociation lets it vectorize
     return acc == 0.0
 
 
-# -- simplex: s = (total, at_most, check) ------------------------------------------------------
+def pack(rows, params):
+    """The ``D`` argument: the data rows (each of length n) and a last row holding ``params``."""
+    rows = [np.asarray(r, dtype=float).reshape(-1) for r in rows]
+    n = rows[0].size if rows else 0
+    D = np.zeros((len(rows) + 1, max(n, len(params), 1)))
+    for i, r in enumerate(rows):
+        D[i, :n] = r
+    D[-1, :len(params)] = params
+    return D
+
+
+# -- simplex: params (total, at_most, check) ---------------------------------------------------
 @njit(cache=True, nogil=True)
-def simplex_project_point(s, y):
+def simplex_project_point(D, y):
     """project_simplex_rows (mode equal) / Simplex.project (at_most) of one point."""
+    s = D[-1]
     if s[2] != 0.0 and not _finite(y):
         raise TakeGeneralPath()
     total = s[0]
@@ -72,81 +86,90 @@ def simplex_project_point(s, y):
 
 
 @njit(cache=True, nogil=True)
-def simplex_lmo_point(s, y):
+def simplex_lmo_point(D, y):
+    """simplex_lmo_rows of one point."""
+    s = D[-1]
     if s[2] != 0.0 and not _finite(y):
         raise TakeGeneralPath()
     return simplex_lmo_rows(y.reshape(1, y.size), s[0], s[1] != 0.0)[0]
 
 
-# -- box: D = (lower, upper, tie), s = (check,) ------------------------------------------------
+# -- box: rows (lower, upper, tie); params (check, all bounds finite) --------------------------
 @njit(cache=True, nogil=True)
-def box_project_point(D, s, y):
-    if s[0] != 0.0 and not _finite(y):
+def box_project_point(D, y):
+    """box_ops (clip) of one point."""
+    n = y.size
+    if D[-1, 0] != 0.0 and not _finite(y):
         raise TakeGeneralPath()
-    return box_ops(y.reshape(1, y.size), D[0], D[1], D[2], 0)[0][0]
+    return box_ops(y.reshape(1, n), D[0, :n], D[1, :n], D[2, :n], 0)[0][0]
 
 
 @njit(cache=True, nogil=True)
-def box_lmo_point(D, s, y):
-    """box_lmo_bounded for finite bounds (s[1] = 1), else box_ops with its unboundedness check."""
+def box_lmo_point(D, y):
+    """box_lmo_bounded for finite bounds, else box_ops with its unboundedness check."""
+    n = y.size
+    s = D[-1]
     if s[0] != 0.0 and not _finite(y):
         raise TakeGeneralPath()
-    Y = y.reshape(1, y.size)
+    Y = y.reshape(1, n)
     if s[1] != 0.0:
-        return box_lmo_bounded(Y, D[0], D[1], D[2])[0]
-    X, bad = box_ops(Y, D[0], D[1], D[2], 1)
+        return box_lmo_bounded(Y, D[0, :n], D[1, :n], D[2, :n])[0]
+    X, bad = box_ops(Y, D[0, :n], D[1, :n], D[2, :n], 1)
     if bad >= 0:
         raise TakeGeneralPath()        # the general path names the unbounded coordinate
     return X[0]
 
 
-# -- ball: D = (center, center - radius, center + radius); s = (radius, p, check, center is 0) ---
+# -- ball: rows (center, center - radius, center + radius); params (radius, p, check, center is 0)
 @njit(cache=True, nogil=True)
-def ball_project_point(D, s, y):
+def ball_project_point(D, y):
+    """l2_ball_project, l1_ball_project or np.clip (p = inf) of one point, as Ball.project."""
+    n = y.size
+    s = D[-1]
     if s[2] != 0.0 and not _finite(y):
         raise TakeGeneralPath()
     p = int(s[1])
-    Y = y.reshape(1, y.size)
+    Y = y.reshape(1, n)
     if p == 2:
-        return l2_ball_project(Y, D[0], s[0])[0]
+        return l2_ball_project(Y, D[0, :n], s[0])[0]
     if p == 1:
-        # Ball.project passes an empty center for a ball at the origin (s[3] = 1)
-        if s[3] != 0.0:
+        if s[3] != 0.0:                # Ball.project passes an empty center for a ball at the origin
             return l1_ball_project(Y, np.empty(0), s[0])[0]
-        return l1_ball_project(Y, D[0], s[0])[0]
-    # p = inf: np.clip(y, lo, hi) (returns y at equality with a bound, like this min/max)
-    lo = D[1]
-    hi = D[2]
-    x = np.empty(y.size)
-    for i in range(y.size):
-        x[i] = min(max(y[i], lo[i]), hi[i])
+        return l1_ball_project(Y, D[0, :n], s[0])[0]
+    # p = inf: np.clip(y, lo, hi), which returns y at equality with a bound, like this min/max
+    x = np.empty(n)
+    for i in range(n):
+        x[i] = min(max(y[i], D[1, i]), D[2, i])
     return x
 
 
 @njit(cache=True, nogil=True)
-def ball_lmo_point(D, s, y):
-    if s[2] != 0.0 and not _finite(y):
-        raise TakeGeneralPath()
-    return ball_lmo(y.reshape(1, y.size), D[0], s[0], int(s[1]))[0]
-
-
-# -- budget: D = (lower, upper, weights, caps); s = (total, at_most, check, far, room) ----------
-@njit(cache=True, nogil=True)
-def budget_project_point(D, s, y):
-    """project_capped of one point (rows shorter than LONG_ROW; far points go to the general path)."""
-    if s[2] != 0.0 and not _finite(y):
-        raise TakeGeneralPath()
+def ball_lmo_point(D, y):
+    """ball_lmo of one point."""
     n = y.size
+    s = D[-1]
+    if s[2] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    return ball_lmo(y.reshape(1, n), D[0, :n], s[0], int(s[1]))[0]
+
+
+# -- budget: rows (lower, upper, weights, caps); params (total, at_most, check, far, room) --------
+@njit(cache=True, nogil=True)
+def budget_project_point(D, y):
+    """project_capped of one point (rows shorter than LONG_ROW; far points go to the general path)."""
+    n = y.size
+    s = D[-1]
+    if s[2] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
     m = 0.0
     for v in y:
         a = abs(v)
         if a > m:
             m = a
     if m > s[3]:
-        raise TakeGeneralPath()        # re-solved after shifts by project_capped
-    lo, hi, w = D[0], D[1], D[2]
+        raise TakeGeneralPath()        # project_capped re-solves such points after shifts
+    lo, hi, w = D[0, :n], D[1, :n], D[2, :n]
     total = s[0]
-    Y = y.reshape(1, n)
     X = np.empty((1, n))
     if s[1] != 0.0:
         t = 0.0
@@ -162,29 +185,36 @@ def budget_project_point(D, s, y):
             raise TakeGeneralPath()    # X @ w sums in another order: let the general path decide
         if t <= total:
             return X[0]
-    _capped_rows_nb(Y, lo, hi, w, total, np.zeros(1, np.int64), X, np.zeros(1))
+    _capped_rows_nb(y.reshape(1, n), lo, hi, w, total, np.zeros(1, np.int64), X, np.zeros(1))
     return X[0]
 
 
 @njit(cache=True, nogil=True)
-def budget_lmo_point(D, s, y):
+def budget_lmo_point(D, y):
+    """knapsack_lmo_rows of one point."""
+    n = y.size
+    s = D[-1]
     if s[2] != 0.0 and not _finite(y):
         raise TakeGeneralPath()
-    X = np.empty((1, y.size))
-    knapsack_lmo_rows(y.reshape(1, y.size), D[0], D[3], D[2], s[4], s[1] != 0.0, X)
+    X = np.empty((1, n))
+    knapsack_lmo_rows(y.reshape(1, n), D[0, :n], D[3, :n], D[2, :n], s[4], s[1] != 0.0, X)
     return X[0]
 
 
-# -- permutahedron: D = (w sorted decreasingly,); s = (check,) ----------------------------------
+# -- permutahedron: rows (w sorted decreasingly,); params (check,) -----------------------------
 @njit(cache=True, nogil=True)
-def permutahedron_project_point(D, s, y):
-    if s[0] != 0.0 and not _finite(y):
+def permutahedron_project_point(D, y):
+    """permutahedron_rows_packed of one point (rows shorter than 50,000)."""
+    n = y.size
+    if D[-1, 0] != 0.0 and not _finite(y):
         raise TakeGeneralPath()
-    return permutahedron_rows_packed(y.reshape(1, y.size), D[0])[0]
+    return permutahedron_rows_packed(y.reshape(1, n), D[0, :n])[0]
 
 
 @njit(cache=True, nogil=True)
-def permutahedron_lmo_point(D, s, y):
-    if s[0] != 0.0 and not _finite(y):
+def permutahedron_lmo_point(D, y):
+    """permutahedron_lmo_packed of one point."""
+    n = y.size
+    if D[-1, 0] != 0.0 and not _finite(y):
         raise TakeGeneralPath()
-    return permutahedron_lmo_packed(y.reshape(1, y.size), D[0])[0]
+    return permutahedron_lmo_packed(y.reshape(1, n), D[0, :n])[0]
