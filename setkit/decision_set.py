@@ -70,6 +70,7 @@ def _finite_max_abs(a):
 
 
 _F64 = np.dtype(np.float64)
+_ND = np.ndarray
 GEOMETRIES = ("euclidean", "kl")
 
 
@@ -449,17 +450,17 @@ class DecisionSet:
         >>> setkit.compile({"kind": "simplex", "dim": 2}).project([[2.0, 0.0], [0.5, 0.5]]).tolist()
         [[1.0, 0.0], [0.5, 0.5]]
         """
+        f = self._pt_project
+        if (f is not None and type(y) is _ND and y.dtype is _F64 and y.shape == self._shape and details is False
+                and geometry == "euclidean" and y.flags.c_contiguous):
+            try:
+                return f(y)           # one compiled call: the finiteness check and the native kernel
+            except TakeGeneralPath:
+                pass
         if geometry != "euclidean" and self._geometry(geometry, "project") == "kl":
             if _is_dask(y):
                 return self._lazy("project", [(y, "y")], details, geometry="kl", log_input=log_input)
             return self._kl_project(y, details, log_input)[0]
-        f = self._pt_project
-        if (f is not None and type(y) is np.ndarray and y.dtype is _F64 and y.shape == self._shape
-                and details is False and y.flags.c_contiguous):
-            try:
-                return f(y)           # one compiled call: finiteness check and the native kernel
-            except TakeGeneralPath:
-                pass
         if not details:
             P = self._fast("project", y)
             if P is not None:
@@ -610,8 +611,8 @@ class DecisionSet:
         [2.0, 3.0, 1.0]
         """
         f = self._pt_lmo
-        if (f is not None and type(c) is np.ndarray and c.dtype is _F64 and c.shape == self._shape
-                and details is False and c.flags.c_contiguous):
+        if (f is not None and type(c) is _ND and c.dtype is _F64 and c.shape == self._shape and details is False
+                and c.flags.c_contiguous):
             try:
                 return f(c)
             except TakeGeneralPath:

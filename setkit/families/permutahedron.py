@@ -119,8 +119,14 @@ class Permutahedron(Family):
 
         Not for 50,000 coordinates and more (the projection sorts those another way)."""
         from ..kernels import point
-        if self.dim >= 50_000:
+        from ..kernels.isotonic import order_bits
+        n = self.dim
+        if n >= 50_000:
             return {}
+        if n > point.SORT_IN_NUMPY:
+            wd = np.ascontiguousarray(self._wdesc, dtype=float)
+            f = point.permutahedron_point_sorted
+            return {"project": (f, (wd, order_bits(n), check, True)), "lmo": (f, (wd, order_bits(n), check, False))}
         D = point.pack([self._wdesc], [float(check)])
         return {"project": (point.permutahedron_project_point, (D,)), "lmo": (point.permutahedron_lmo_point, (D,))}
 
