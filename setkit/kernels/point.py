@@ -89,11 +89,25 @@ def simplex_project_point(D, y):
 @njit(cache=True, nogil=True, fastmath={"nnan", "ninf", "nsz", "reassoc"})
 def _min_finite(y):
     # the minimum of finite values is exact in any order (only the sign of a zero may differ); these
-    # flags let the reduction vectorize, so callers check finiteness first
-    m = y[0]
-    for i in range(1, y.size):
-        m = min(m, y[i])
-    return m
+    # flags and eight running minima let the reduction vectorize, so callers check finiteness first
+    n = y.size
+    m0 = m1 = m2 = m3 = m4 = m5 = m6 = m7 = y[0]
+    i = 0
+    while i + 8 <= n:
+        m0 = min(m0, y[i])
+        m1 = min(m1, y[i + 1])
+        m2 = min(m2, y[i + 2])
+        m3 = min(m3, y[i + 3])
+        m4 = min(m4, y[i + 4])
+        m5 = min(m5, y[i + 5])
+        m6 = min(m6, y[i + 6])
+        m7 = min(m7, y[i + 7])
+        i += 8
+    m0 = min(min(min(m0, m1), min(m2, m3)), min(min(m4, m5), min(m6, m7)))
+    while i < n:
+        m0 = min(m0, y[i])
+        i += 1
+    return m0
 
 
 @njit(cache=True, nogil=True)
@@ -119,11 +133,18 @@ def simplex_lmo_point(D, y):
 # -- box: rows (lower, upper, tie); params (check, all bounds finite) --------------------------
 @njit(cache=True, nogil=True)
 def box_project_point(D, y):
-    """box_ops (clip) of one point."""
+    """box_ops (clip) of one point: min(max(y_i, lower_i), upper_i), the same expression, with the
+    finiteness check in the same pass."""
     n = y.size
-    if D[-1, 0] != 0.0 and not _finite(y):
+    x = np.empty(n)
+    acc = 0.0
+    for i in range(n):
+        v = y[i]
+        acc += v * 0.0
+        x[i] = min(max(v, D[0, i]), D[1, i])
+    if D[-1, 0] != 0.0 and acc != 0.0:
         raise TakeGeneralPath()
-    return box_ops(y.reshape(1, n), D[0, :n], D[1, :n], D[2, :n], 0)[0][0]
+    return x
 
 
 @njit(cache=True, nogil=True)
