@@ -452,7 +452,7 @@ class DecisionSet:
         """
         f = self._pt_project
         if (f is not None and type(y) is _ND and y.dtype is _F64 and y.shape == self._shape and details is False
-                and geometry == "euclidean" and y.flags.c_contiguous):
+                and geometry == "euclidean" and y.flags.carray):     # carray: C-contiguous, aligned, writeable
             try:
                 return f(y)           # one compiled call: the finiteness check and the native kernel
             except TakeGeneralPath:
@@ -612,7 +612,7 @@ class DecisionSet:
         """
         f = self._pt_lmo
         if (f is not None and type(c) is _ND and c.dtype is _F64 and c.shape == self._shape and details is False
-                and c.flags.c_contiguous):
+                and c.flags.carray):
             try:
                 return f(c)
             except TakeGeneralPath:
@@ -959,6 +959,8 @@ class UncheckedOperators:
                 nonlocal f
                 if type(a) is not np.ndarray or a.dtype != _F64 or a.shape != shape or not a.flags.c_contiguous:
                     refuse(a)
+                if a.dtype is not _F64 or not a.flags.carray:   # read-only or unaligned: the kernel's own typing
+                    return kernel_call(a)
                 if f is None:
                     f = bind_point(entry[1])      # the compiled single-point entry without the finiteness check
                 try:

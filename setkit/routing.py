@@ -441,7 +441,8 @@ def bind_point(entry):
     """``f(y)`` for a single-point entry ``(function, leading arguments)``: a numba dispatcher is
     called through the compiled entry point of the signature (leading arguments, float64 1-d C
     array), which skips the dispatcher's type resolution. The caller checks the point's type,
-    dtype, shape and layout first: the entry point trusts them."""
+    dtype (float64 in native byte order), shape and flags (``carray``: C-contiguous, aligned,
+    writeable) first: the entry point trusts them."""
     from functools import partial
     fn, args = entry
     if hasattr(fn, "overloads") and hasattr(fn, "compile"):

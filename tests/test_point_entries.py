@@ -223,3 +223,36 @@ def test_other_arrays_take_the_general_path_with_equal_answers():
         K.unchecked.project(strided)
     with pytest.raises(InputError):
         K.unchecked.project(big_endian)
+
+
+def test_unaligned_and_read_only_points_give_the_same_answers():
+    # the compiled entry trusts its argument's layout: only aligned, writeable, C-contiguous points reach it
+    n = 50
+    buf = bytearray(8 * n + 1)
+    y = np.ndarray((n,), np.float64, buffer=buf, offset=1)
+    y[:] = np.random.default_rng(6).standard_normal(n)
+    assert not y.flags.aligned
+    ro = np.array(y)
+    ro.flags.writeable = False
+    for spec in (SPECS["budget"], SPECS["permutahedron"], SPECS["simplex"]):
+        spec = dict(spec)
+        if spec["kind"] == "permutahedron":
+            spec["weights"] = np.linspace(0.0, 1.0, n).tolist()
+        else:
+            spec["dim"] = n
+            spec.pop("weights", None)
+        K = setkit.compile(spec)
+        for op in ("project", "lmo"):
+            ref = getattr(K, op)(np.array(y))
+            assert _same(getattr(K, op)(y), ref) and _same(getattr(K, op)(ro), ref), (spec["kind"], op)
+            assert _same(getattr(K.unchecked, op)(y), ref) and _same(getattr(K.unchecked, op)(ro), ref)
+
+
+def test_other_routes_do_not_get_the_entry():
+    K = setkit.compile(SPECS["simplex"])
+    H = K.with_backends(project="osqp", lmo="highs")
+    assert H.plan.point == {} and H.routes()["project"].provider == "osqp"
+    y = np.random.default_rng(9).standard_normal(K.dim)
+    assert np.abs(H.project(y) - K.project(y)).max() < 1e-5      # the QP answer, within its tolerance
+    P = setkit.compile({"kind": "product", "of": [SPECS["box"]], "copies": 2})
+    assert P.plan.point == {}
