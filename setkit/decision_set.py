@@ -118,8 +118,8 @@ class DecisionSet:
         self._direct = self._plan.direct
         # compiled single-point entries of project / lmo (bound on first use: loading them costs milliseconds)
         point = self._plan.point
-        self._pt_project = self._point_binder("project", 0) if "project" in point else None
-        self._pt_lmo = self._point_binder("lmo", 0) if "lmo" in point else None
+        for op in ("project", "lmo", "distance", "support"):
+            setattr(self, "_pt_" + op, self._point_binder(op, 0) if op in point else None)
 
     def _point_binder(self, op, which):
         """A stand-in for the single-point entry of ``op`` (0: checked, 1: trusted) that binds it on first call."""
@@ -494,6 +494,13 @@ class DecisionSet:
                 return self._lazy("distance", [(y, "y")], out_kind="values", geometry="kl", log_input=log_input)
             _, T, X, lead = self._kl_project(y, False, log_input, "distance")
             return self._out_values(kl_divergence(X, T), lead)
+        f = self._pt_distance
+        if (f is not None and type(y) is _ND and y.dtype is _F64 and y.shape == self._shape
+                and geometry == "euclidean" and y.flags.carray):
+            try:
+                return f(y)[0]
+            except TakeGeneralPath:
+                pass
         d = self._fast("distance", y)
         if d is not None:
             return d[0] if type(d) is np.ndarray and d.shape == (1,) else self._out_values(d, ())
@@ -645,6 +652,12 @@ class DecisionSet:
         >>> float(setkit.compile({"kind": "ball", "dim": 2, "norm": 1, "radius": 2}).support([3.0, -4.0]))
         8.0
         """
+        f = self._pt_support
+        if f is not None and type(c) is _ND and c.dtype is _F64 and c.shape == self._shape and c.flags.carray:
+            try:
+                return f(c)[0]
+            except TakeGeneralPath:
+                pass
         v = self._fast("support", c)
         if v is not None:
             return v[0] if type(v) is np.ndarray and v.shape == (1,) else self._out_values(v, ())
@@ -964,7 +977,7 @@ class UncheckedOperators:
                 if f is None:
                     f = bind_point(entry[1])      # the compiled single-point entry without the finiteness check
                 try:
-                    return f(a)
+                    return f(a) if points else f(a)[0]
                 except TakeGeneralPath:           # a point the entry leaves to the batch kernel (e.g. far budget points)
                     return kernel_call(a)
         call.__name__ = op

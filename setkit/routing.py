@@ -419,8 +419,12 @@ def _declaring_class(cls, attr):
     return None
 
 
+POINT_OPERATORS = ("project", "lmo", "distance", "support")
+"""the operators a family's ``point_kernels`` may serve (points for the first two, (1,) values for the others)"""
+
+
 def _point_entries(node, routes, contract_checked):
-    """The family's single-point entries of its native project / lmo routes (see Family.point_kernels).
+    """The family's single-point entries of its native routes of POINT_OPERATORS (see Family.point_kernels).
 
     Only for a native route without the contract's check whose kernel method is declared by the
     class that declares the hook (a subclass that overrides a kernel does not inherit the entry)."""
@@ -429,7 +433,7 @@ def _point_entries(node, routes, contract_checked):
     owner = _declaring_class(cls, "point_kernels")
     if owner is None or owner is Family:
         return {}
-    ops = [op for op in ("project", "lmo") if routes[op].category == "native" and op not in contract_checked
+    ops = [op for op in POINT_OPERATORS if routes[op].category == "native" and op not in contract_checked
            and _declaring_class(cls, node.kernels[op]) is owner]
     if not ops:
         return {}

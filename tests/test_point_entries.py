@@ -77,10 +77,12 @@ def _same(a, b):
 @pytest.mark.parametrize("name", sorted(SPECS))
 def test_entries_are_bit_identical_to_the_batch_kernels(name):
     K = setkit.compile(SPECS[name])
-    assert set(K.plan.point) == {"project", "lmo"}, name
+    want = {"project", "lmo"} | ({"distance"} if K.kind in ("simplex", "box", "ball") else set()) | \
+        ({"support"} if K.kind == "simplex" or (K.kind == "box" and name != "box unbounded") else set())
+    assert set(K.plan.point) == want, name
     rng = np.random.default_rng(17)
     for y in _points(K, rng):
-        for op in ("project", "lmo"):
+        for op in sorted(want):
             try:
                 batch = getattr(K, op)(y[None, :])[0]
             except setkit.UnboundedDirectionError:
@@ -88,7 +90,7 @@ def test_entries_are_bit_identical_to_the_batch_kernels(name):
                     getattr(K, op)(y)
                 continue
             one = getattr(K, op)(y)
-            assert _same(one, batch), (name, op, y[:4])
+            assert type(one) is type(batch) and _same(one, batch), (name, op, y[:4])
             assert _same(getattr(K.unchecked, op)(y), batch), (name, op, "unchecked")
 
 
@@ -98,13 +100,15 @@ def test_entries_answer_without_the_general_path_on_ordinary_points(name):
     K = setkit.compile(SPECS[name])
     y = np.random.default_rng(3).standard_normal(K.dim)
     from setkit.routing import bind_point
-    for op in ("project", "lmo"):
+    for op in K.plan.point:
         f = bind_point(K.plan.point[op][0])
         try:
             out = f(y)
         except TakeGeneralPath:
             assert name == "box unbounded" and op == "lmo", (name, op)   # an unbounded direction is left over
             continue
+        if op in ("distance", "support"):
+            out = out[0]
         assert _same(out, getattr(K, op)(y[None, :])[0]), (name, op)
 
 
@@ -112,11 +116,11 @@ def test_entries_answer_without_the_general_path_on_ordinary_points(name):
 @pytest.mark.parametrize("name", sorted(SPECS))
 def test_non_finite_points_still_raise_the_located_input_error(name, bad):
     K = setkit.compile(SPECS[name])
-    arg = {"project": "y", "lmo": "c"}
+    arg = {"project": "y", "lmo": "c", "distance": "y", "support": "c"}
     for i in (0, K.dim - 1):
         y = np.full(K.dim, 0.1)
         y[i] = bad
-        for op in ("project", "lmo"):
+        for op in arg:
             with pytest.raises(InputError) as exc:
                 getattr(K, op)(y)
             assert str(exc.value) == (f"{op} on {K.node.label}: argument {arg[op]} must be finite; got {bad} at "
@@ -251,8 +255,21 @@ def test_unaligned_and_read_only_points_give_the_same_answers():
 def test_other_routes_do_not_get_the_entry():
     K = setkit.compile(SPECS["simplex"])
     H = K.with_backends(project="osqp", lmo="highs")
-    assert H.plan.point == {} and H.routes()["project"].provider == "osqp"
+    assert "project" not in H.plan.point and "lmo" not in H.plan.point and H.routes()["project"].provider == "osqp"
+    assert set(H.plan.point) == {"distance", "support"}           # still native
     y = np.random.default_rng(9).standard_normal(K.dim)
     assert np.abs(H.project(y) - K.project(y)).max() < 1e-5      # the QP answer, within its tolerance
     P = setkit.compile({"kind": "product", "of": [SPECS["box"]], "copies": 2})
     assert P.plan.point == {}
+
+
+def test_support_overflow_is_rescaled_on_the_general_path():
+    # sigma(c) = total * max(c) for the simplex; 1e308 * 4 overflows in the kernel, and the general
+    # path's power-of-two rescaling answers inf only where the value exceeds the float range
+    K = setkit.compile({"kind": "simplex", "dim": 3, "total": 4.0})
+    assert K.support(np.array([1e308, 0.0, -1.0])) == np.inf
+    B = setkit.compile({"kind": "box", "dim": 2, "lower": 0.0, "upper": 1e300})
+    assert np.isinf(B.support(np.array([1e10, 1e10])))               # 2e310: above the float range
+    v = B.support(np.array([1.0, 2.0]))                                # 1 * 1e300 + 2 * 1e300
+    assert abs(v - 3e300) <= 1e-15 * 3e300 and v == B.support(np.array([[1.0, 2.0]]))[0]
+    assert K.support(np.array([1e300, 0.0, -1.0])) == 4e300          # total * max(c), below the range

@@ -172,6 +172,7 @@ class Family:
     def point_kernels(self, check: bool = True) -> dict:
         """Operator -> (compiled function, leading arguments) serving one point on the single-point fast path.
 
+        Operators: project, lmo (answer: a point), distance, support (answer: a (1,) array).
         ``f(*args, y)`` takes one float64 C-contiguous 1-d point and returns the answer the
         family's batch kernel gives for it, bit for bit, or raises
         :class:`setkit.errors.TakeGeneralPath` to leave the point to the general path (always

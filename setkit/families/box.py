@@ -115,10 +115,14 @@ class Box(Family):
         return box_kernels(self.lower, self.upper, self._tie, self._all_finite)
 
     def point_kernels(self, check=True):
-        """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels."""
+        """Compiled single-point entries (setkit.kernels.point), bit-identical to the batch kernels."""
         from ..kernels import point
         D = point.pack([self.lower, self.upper, self._tie], [float(check), float(self._all_finite)])
-        return {"project": (point.box_project_point, (D,)), "lmo": (point.box_lmo_point, (D,))}
+        out = {"project": (point.box_project_point, (D,)), "lmo": (point.box_lmo_point, (D,)),
+               "distance": (point.box_distance_point, (D,))}
+        if self._all_finite:
+            out["support"] = (point.box_support_point, (D,))
+        return out
 
     @kernel("project")
     def project(self, Y):

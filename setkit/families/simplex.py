@@ -84,10 +84,11 @@ class Simplex(Family):
         return simplex_kernels(self.total, self.mode == "at_most")
 
     def point_kernels(self, check=True):
-        """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels."""
+        """Compiled single-point entries (setkit.kernels.point), bit-identical to the batch kernels."""
         from ..kernels import point
         D = point.pack([], [self.total, float(self.mode == "at_most"), float(check)])
-        return {"project": (point.simplex_project_point, (D,)), "lmo": (point.simplex_lmo_point, (D,))}
+        return {"project": (point.simplex_project_point, (D,)), "lmo": (point.simplex_lmo_point, (D,)),
+                "distance": (point.simplex_distance_point, (D,)), "support": (point.simplex_support_point, (D,))}
 
     @kernel("project")
     def project(self, Y):

@@ -31,8 +31,9 @@ from numba import njit
 from ..errors import TakeGeneralPath
 from .isotonic import (pack_rows, permutahedron_lmo_keys, permutahedron_lmo_packed, permutahedron_rows_keys,
                        permutahedron_rows_packed)
-from .simplex import _capped_rows_nb, _simplex_rows_nb, knapsack_lmo_rows
-from .vector_ops import ball_lmo, box_lmo_bounded, box_ops, l1_ball_project, l2_ball_project, simplex_lmo_rows
+from .simplex import _capped_rows_nb, _simplex_rows_nb, knapsack_lmo_rows, simplex_distance_rows
+from .vector_ops import (ball_lmo, box_lmo_bounded, box_ops, box_values, l1_ball_project, l2_ball_project,
+                         l2_dist_rows, norm_rows, simplex_lmo_rows, simplex_support_rows)
 
 EPS = 2.220446049250313e-16
 
@@ -130,6 +131,27 @@ def simplex_lmo_point(D, y):
     return out
 
 
+@njit(cache=True, nogil=True)
+def simplex_distance_point(D, y):
+    """simplex_distance_rows of one point, as a (1,) array."""
+    s = D[-1]
+    if s[2] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    return simplex_distance_rows(y.reshape(1, y.size), s[0], s[1] != 0.0)
+
+
+@njit(cache=True, nogil=True)
+def simplex_support_point(D, y):
+    """simplex_support_rows of one point, as a (1,) array (an overflow goes to the general path's rescaling)."""
+    s = D[-1]
+    if s[2] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    v = simplex_support_rows(y.reshape(1, y.size), s[0], s[1] != 0.0)
+    if not np.isfinite(v[0]):
+        raise TakeGeneralPath()
+    return v
+
+
 # -- box: rows (lower, upper, tie); params (check, all bounds finite) --------------------------
 @njit(cache=True, nogil=True, fastmath={"reassoc"})
 def box_project_point(D, y):
@@ -164,6 +186,27 @@ def box_lmo_point(D, y):
     return X[0]
 
 
+@njit(cache=True, nogil=True)
+def box_distance_point(D, y):
+    """box_values (distance) of one point, as a (1,) array."""
+    n = y.size
+    if D[-1, 0] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    return box_values(y.reshape(1, n), D[0, :n], D[1, :n], 0)
+
+
+@njit(cache=True, nogil=True)
+def box_support_point(D, y):
+    """box_values (support, finite bounds) of one point, as a (1,) array (overflow: the general path)."""
+    n = y.size
+    if D[-1, 0] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    v = box_values(y.reshape(1, n), D[0, :n], D[1, :n], 1)
+    if not np.isfinite(v[0]):
+        raise TakeGeneralPath()
+    return v
+
+
 # -- ball: rows (center, center - radius, center + radius); params (radius, p, check, center is 0)
 @njit(cache=True, nogil=True)
 def ball_project_point(D, y):
@@ -195,6 +238,36 @@ def ball_lmo_point(D, y):
     if s[2] != 0.0 and not _finite(y):
         raise TakeGeneralPath()
     return ball_lmo(y.reshape(1, n), D[0, :n], s[0], int(s[1]))[0]
+
+
+@njit(cache=True, nogil=True)
+def ball_distance_point(D, y):
+    """Ball.distance of one point, as a (1,) array: max(||y - c||_2 - r, 0) (np.maximum's rule) for p = 2,
+    the norm of y - np.minimum(np.maximum(y, lo), hi) for p = inf, of y - l1 projection for p = 1."""
+    n = y.size
+    s = D[-1]
+    if s[2] != 0.0 and not _finite(y):
+        raise TakeGeneralPath()
+    p = int(s[1])
+    Y = y.reshape(1, n)
+    if p == 2:
+        d = l2_dist_rows(Y, D[0, :n])
+        v = d[0] - s[0]
+        d[0] = v if v > 0.0 else 0.0
+        return d
+    if p == 0:
+        Z = np.empty((1, n))
+        for i in range(n):
+            a = y[i]
+            m = a if a > D[1, i] else D[1, i]     # np.maximum(y, lo)
+            m = m if m < D[2, i] else D[2, i]     # np.minimum(., hi)
+            Z[0, i] = a - m
+        return norm_rows(Z)
+    if s[3] != 0.0:
+        P = l1_ball_project(Y, np.empty(0), s[0])
+    else:
+        P = l1_ball_project(Y, D[0, :n], s[0])
+    return norm_rows(Y - P)
 
 
 # -- budget: rows (lower, upper, weights, caps); params (total, at_most, check, far, room) --------
