@@ -116,17 +116,16 @@ class DecisionSet:
         self._routes = self._plan.routes
         # bound native kernels, called directly by the single-point fast path
         self._direct = self._plan.direct
-        # compiled single-point entries of project / lmo (bound on first use: loading them costs milliseconds)
+        # compiled single-point entries (setkit.kernels.point), bound on first use (loading one costs milliseconds)
         point = self._plan.point
         for op in ("project", "lmo", "distance", "support"):
-            setattr(self, "_pt_" + op, self._point_binder(op, 0) if op in point else None)
+            setattr(self, "_pt_" + op, self._point_binder(op) if op in point else None)
 
-    def _point_binder(self, op, which):
-        """A stand-in for the single-point entry of ``op`` (0: checked, 1: trusted) that binds it on first call."""
+    def _point_binder(self, op):
+        """A stand-in for the checked single-point entry of ``op`` that binds it on its first call."""
         def first_call(y):
-            f = bind_point(self._plan.point[op][which])
-            if which == 0:
-                setattr(self, "_pt_" + op, f)
+            f = bind_point(self._plan.point[op][0])
+            setattr(self, "_pt_" + op, f)
             return f(y)
         return first_call
 
