@@ -273,3 +273,26 @@ def test_support_overflow_is_rescaled_on_the_general_path():
     v = B.support(np.array([1.0, 2.0]))                                # 1 * 1e300 + 2 * 1e300
     assert abs(v - 3e300) <= 1e-15 * 3e300 and v == B.support(np.array([[1.0, 2.0]]))[0]
     assert K.support(np.array([1e300, 0.0, -1.0])) == 4e300          # total * max(c), below the range
+
+
+@pytest.mark.parametrize("n", [1, 7, 8, 9, 16, 1003])
+def test_simplex_lmo_minimum_in_every_lane_and_tail(n):
+    # the entry's minimum runs on eight running minima and a tail: put the smallest value (once, or
+    # tied, or as -0.0 against 0.0) at every position and compare with the row kernel
+    K = setkit.compile({"kind": "simplex", "dim": n, "total": 3.0, "mode": "at_most"})
+    E = setkit.compile({"kind": "simplex", "dim": n, "total": 3.0})
+    rng = np.random.default_rng(n)
+    base = rng.uniform(1.0, 2.0, n)
+    for j in sorted({0, n - 1, n // 2, min(7, n - 1), min(8, n - 1)}):
+        for low in (-1.0, 0.0, -0.0):
+            c = base.copy()
+            c[j] = low
+            c[(j + 5) % n] = min(c[(j + 5) % n], low if low != 0.0 else 0.0)   # a tie after j (or j itself)
+            for S in (K, E):
+                one, batch = S.lmo(c), S.lmo(c[None, :])[0]
+                assert _same(one, batch), (n, j, low)
+                k = int(np.flatnonzero(c == c.min())[0])
+                if S is E or c.min() < 0.0:
+                    assert one[k] == 3.0 and np.count_nonzero(one) == 1, (n, j, low)
+                else:
+                    assert not one.any()
