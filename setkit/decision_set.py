@@ -965,20 +965,20 @@ class UncheckedOperators:
                     refuse(a)
                 return kernel_call(a)
         else:
-            f = None
+            def f(a):                             # binds the compiled entry without the finiteness check on first use
+                nonlocal f
+                f = bind_point(entry[1])
+                return f(a)
 
             def call(a):
-                nonlocal f
+                if type(a) is _ND and a.dtype is _F64 and a.shape == shape and a.flags.carray:
+                    try:
+                        return f(a) if points else f(a)[0]
+                    except TakeGeneralPath:       # a point the entry leaves to the batch kernel (e.g. far budget points)
+                        return kernel_call(a)
                 if type(a) is not np.ndarray or a.dtype != _F64 or a.shape != shape or not a.flags.c_contiguous:
                     refuse(a)
-                if a.dtype is not _F64 or not a.flags.carray:   # read-only or unaligned: the kernel's own typing
-                    return kernel_call(a)
-                if f is None:
-                    f = bind_point(entry[1])      # the compiled single-point entry without the finiteness check
-                try:
-                    return f(a) if points else f(a)[0]
-                except TakeGeneralPath:           # a point the entry leaves to the batch kernel (e.g. far budget points)
-                    return kernel_call(a)
+                return kernel_call(a)             # read-only or unaligned: the kernel's own typing
         call.__name__ = op
         call.__doc__ = f"{op} of one trusted point (no finiteness check)."
         return call

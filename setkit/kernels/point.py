@@ -32,7 +32,7 @@ from ..errors import TakeGeneralPath
 from .isotonic import (pack_rows, permutahedron_lmo_keys, permutahedron_lmo_packed, permutahedron_rows_keys,
                        permutahedron_rows_packed)
 from .simplex import _capped_rows_nb, _simplex_rows_nb, knapsack_lmo_rows, simplex_distance_rows
-from .vector_ops import (ball_lmo, box_lmo_bounded, box_ops, box_values, l1_ball_project, l2_ball_project,
+from .vector_ops import (ball_lmo, box_ops, box_values, l1_ball_project, l2_ball_project,
                          l2_dist_rows, norm_rows, simplex_lmo_rows, simplex_support_rows)
 
 EPS = 2.220446049250313e-16
@@ -170,17 +170,25 @@ def box_project_point(D, y):
     return x
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, fastmath={"reassoc"})
 def box_lmo_point(D, y):
-    """box_lmo_bounded for finite bounds, else box_ops with its unboundedness check."""
+    """box_lmo_bounded for finite bounds (the same selection, with the finiteness check in the same pass;
+    only its sum of y_i * 0 reassociates), else box_ops with its unboundedness check."""
     n = y.size
     s = D[-1]
+    if s[1] != 0.0:
+        x = np.empty(n)
+        acc = 0.0
+        for i in range(n):
+            v = y[i]
+            acc += v * 0.0
+            x[i] = D[0, i] if v > 0.0 else (D[1, i] if v < 0.0 else D[2, i])
+        if s[0] != 0.0 and acc != 0.0:
+            raise TakeGeneralPath()
+        return x
     if s[0] != 0.0 and not _finite(y):
         raise TakeGeneralPath()
-    Y = y.reshape(1, n)
-    if s[1] != 0.0:
-        return box_lmo_bounded(Y, D[0, :n], D[1, :n], D[2, :n])[0]
-    X, bad = box_ops(Y, D[0, :n], D[1, :n], D[2, :n], 1)
+    X, bad = box_ops(y.reshape(1, n), D[0, :n], D[1, :n], D[2, :n], 1)
     if bad >= 0:
         raise TakeGeneralPath()        # the general path names the unbounded coordinate
     return X[0]
