@@ -1,16 +1,17 @@
 """Compiled single-point entries of native kernels (the per-call fast path).
 
 One call of ``K.project(y)`` / ``K.lmo(c)`` (and ``distance`` / ``support``, which return a (1,)
-array here) on one float64 point should cost little more than the arithmetic. These functions ``f(D, y)`` take the set's data packed in one 2-d array ``D``
-(rows: the data vectors in their first n entries; last row: the scalar parameters; width
-max(n, number of parameters)) and the point ``y``, so they are compiled once and cached on
-disk for every set of a family, and one call unboxes two arrays. They check that every entry of the
-point is finite (when ``check`` is true) and run the same compiled row kernel as the family's
-batch kernel on the point viewed as a (1, n) batch, or the same expression in one loop, so
-answers are bit-identical to the batch path (tests/test_point_entries.py).
+array here) on one float64 point should cost little more than the arithmetic. These functions
+``f(D, y)`` take the set's data packed in one 2-d array ``D`` (rows: the data vectors in their
+first n entries; last row: the scalar parameters; width max(n, number of parameters)) and the
+point ``y``, so they are compiled once and cached on disk for every set of a family, and one
+call unboxes two arrays. They check that every entry of the point is finite (when ``check`` is
+true) and run the same compiled row kernel as the family's batch kernel on the point viewed as a
+(1, n) batch, or the same expression in one loop, so answers are bit-identical to the batch path
+(tests/test_point_entries.py).
 
-A point the fast path does not settle raises :class:`setkit.errors.TakeGeneralPath` (from compiled code):
-a non-finite entry, a budget point far above the data (the batch path re-solves those after a
+A point the fast path does not settle raises :class:`setkit.errors.TakeGeneralPath` (from
+compiled code): a non-finite entry, a budget point far above the data (the batch path re-solves those after a
 shift), a simplex row that needs the sorted fallback, an unbounded box LMO, an at_most sum
 within rounding of the total (the batch path sums in another order), a support value that
 overflowed (the batch path rescales). The caller then takes
