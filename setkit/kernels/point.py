@@ -11,11 +11,11 @@ true) and run the same compiled row kernel as the family's batch kernel on the p
 (tests/test_point_entries.py).
 
 A point the fast path does not settle raises :class:`setkit.errors.TakeGeneralPath` (from
-compiled code): a non-finite entry, a budget point far above the data (the batch path re-solves those after a
-shift), a simplex row that needs the sorted fallback, an unbounded box LMO, an at_most sum
-within rounding of the total (the batch path sums in another order), a support value that
-overflowed (the batch path rescales). The caller then takes
-the general path, which validates, reports and answers exactly as before.
+compiled code): a non-finite entry, a budget point far above the data (the batch path re-solves
+those after a shift), a simplex row that needs the sorted fallback, an unbounded box LMO, an
+at_most sum within rounding of the total (the batch path sums in another order), a support value
+that overflowed (the batch path rescales). The caller then takes the general path, which
+validates, reports and answers exactly as before.
 
 ``routing.build_plan`` binds them (``Plan.point``) from the family hook ``point_kernels()``;
 ``DecisionSet`` checks type, dtype, shape and layout in Python before calling (the compiled
