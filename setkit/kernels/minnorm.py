@@ -19,6 +19,7 @@ affine minimization (normal equations on the Gram matrix), for k corral vertices
 from __future__ import annotations
 
 import numpy as np
+from numba import njit
 
 from ..errors import SolveError
 
@@ -51,6 +52,176 @@ def _affine_minimizer(G, Vy):
     except np.linalg.LinAlgError:          # affinely dependent corral (rounding): least squares
         beta = np.linalg.lstsq(M, r, rcond=None)[0]
     return np.concatenate([[1.0 - beta.sum()], beta])
+
+
+@njit(cache=True)
+def _chol_append(L, k, m, mkk):
+    """Extend the lower Cholesky factor L[:k, :k] of M by a row/column (m, mkk); False when the new
+    pivot is not positive beyond rounding (an affinely dependent vertex). O(k^2), one thread."""
+    for i in range(k):
+        s = m[i]
+        for j in range(i):
+            s -= L[i, j] * L[k, j]
+        L[k, i] = s / L[i, i]
+    d = mkk
+    for j in range(k):
+        d -= L[k, j] * L[k, j]
+    if not d > 1e-13 * abs(mkk):
+        for j in range(k):
+            L[k, j] = 0.0
+        return False
+    L[k, k] = np.sqrt(d)
+    return True
+
+
+@njit(cache=True)
+def _chol_delete(L, k, i):
+    """Remove row/column i from the factor L[:k, :k] (rows shifted up, Givens rotations on the
+    columns to restore the triangle). O((k - i) k), one thread."""
+    for r in range(i, k - 1):
+        for c in range(r + 2):
+            L[r, c] = L[r + 1, c]
+    for r in range(i, k - 1):
+        a = L[r, r]
+        b = L[r, r + 1]
+        h = np.hypot(a, b)
+        if h == 0.0:
+            continue
+        c = a / h
+        s = b / h
+        for rr in range(r, k - 1):
+            x = L[rr, r]
+            z = L[rr, r + 1]
+            L[rr, r] = c * x + s * z
+            L[rr, r + 1] = -s * x + c * z
+        L[r, r + 1] = 0.0
+    for c in range(k):
+        L[k - 1, c] = 0.0
+        L[c, k - 1] = 0.0
+
+
+@njit(cache=True)
+def _chol_solve(L, k, r):
+    """M^{-1} r with M = L L^T (k x k): two triangular solves, O(k^2)."""
+    w = np.empty(k)
+    for i in range(k):
+        s = r[i]
+        for j in range(i):
+            s -= L[i, j] * w[j]
+        w[i] = s / L[i, i]
+    for i in range(k - 1, -1, -1):
+        s = w[i]
+        for j in range(i + 1, k):
+            s -= L[j, i] * w[j]
+        w[i] = s / L[i, i]
+    return w
+
+
+@njit(cache=True)
+def _chol_build(L, G):
+    """Factor M = D D^T (D = corral differences from vertex 0, formed from the Gram matrix G) into L
+    row by row; the number of rows factored (k - 1 when every pivot is positive). O(k^3), one thread."""
+    k = G.shape[0]
+    m = np.empty(k)
+    for a in range(1, k):
+        for b in range(1, a):
+            m[b - 1] = G[a, b] - G[a, 0] - G[b, 0] + G[0, 0]
+        if not _chol_append(L, a - 1, m, G[a, a] - 2.0 * G[a, 0] + G[0, 0]):
+            return a - 1
+    return k - 1
+
+
+@njit(cache=True, fastmath=True)
+def _rows_dot(B, rows, q):
+    """B[rows] @ q on one thread (a multithreaded BLAS gemv stalls on a loaded machine; memory-bound anyway)."""
+    d = B.shape[1]
+    out = np.empty(rows.size)
+    for i in range(rows.size):
+        r = rows[i]
+        acc = 0.0
+        for j in range(d):
+            acc += B[r, j] * q[j]
+        out[i] = acc
+    return out
+
+
+@njit(cache=True, fastmath=True)
+def _combine(lam, B, rows):
+    """lam @ B[rows] on one thread."""
+    d = B.shape[1]
+    out = np.zeros(d)
+    for i in range(rows.size):
+        li = lam[i]
+        r = rows[i]
+        if li != 0.0:
+            for j in range(d):
+                out[j] += li * B[r, j]
+    return out
+
+
+class _CorralFactor:
+    """The Cholesky factor of the affine minimizer's normal matrix M = D D^T (see
+    :func:`_affine_minimizer`), kept across major and minor cycles: a new vertex appends a row
+    (O(k^2)), a dropped vertex other than the reference vertex 0 deletes one (Givens, O(k^2)); a
+    dropped reference vertex or a nearly dependent new vertex marks it stale, and the next solve
+    refactors it (O(k^3), compiled) or, failing that, uses the dense least-squares route. This
+    replaces one dense O(k^3) LAPACK solve per minor cycle, the cost of long runs (corrals of
+    hundreds of vertices) and a stall point on a loaded machine (multithreaded BLAS hand-offs)."""
+
+    def __init__(self):
+        self.L = np.zeros((16, 16))
+        self.k = 0              # rows of M factored (corral size - 1) when valid
+        self.valid = True
+
+    def _room(self, k):
+        if k + 1 > self.L.shape[0]:
+            big = np.zeros((2 * (k + 1), 2 * (k + 1)))
+            big[:self.L.shape[0], :self.L.shape[0]] = self.L
+            self.L = big
+
+    def append(self, G):
+        """G is the corral's Gram matrix with the new vertex last."""
+        if not self.valid:
+            return
+        k = G.shape[0] - 1          # index of the new vertex; M grows to k rows
+        if k == 0:
+            self.k = 0
+            return
+        self._room(k)
+        m = G[k, 1:k] - G[k, 0] - G[1:k, 0] + G[0, 0]
+        ok = _chol_append(self.L, k - 1, np.ascontiguousarray(m), G[k, k] - 2.0 * G[k, 0] + G[0, 0])
+        self.k = k
+        self.valid = bool(ok)
+
+    def drop(self, drop_mask):
+        if not self.valid:
+            return
+        if drop_mask[0]:
+            self.valid = False
+            return
+        for j in np.flatnonzero(drop_mask)[::-1]:
+            _chol_delete(self.L, self.k, int(j) - 1)
+            self.k -= 1
+
+    def minimizer(self, G, Vy):
+        k = G.shape[0]
+        if k == 1:
+            self.k, self.valid = 0, True
+            return np.ones(1)
+        if not self.valid:
+            self._room(k)
+            self.L[:k, :k] = 0.0
+            done = _chol_build(self.L, G)
+            self.k, self.valid = done, done == k - 1
+            if not self.valid:
+                return _affine_minimizer(G, Vy)
+        g0 = G[0, 0]
+        c = G[1:, 0]
+        r = (Vy[1:] - Vy[0]) - (c - g0)
+        beta = _chol_solve(self.L, k - 1, np.ascontiguousarray(r))
+        if not np.all(np.isfinite(beta)):
+            return _affine_minimizer(G, Vy)
+        return np.concatenate([[1.0 - beta.sum()], beta])
 
 
 def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
@@ -86,16 +257,22 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     tol = GAP_RTOL * d
     accept = ACCEPT_RTOL * d
     cap = (50 * d + 500) if max_iter is None else int(max_iter)
-    V = np.asarray(lmo(-y), dtype=float)[None, :]
-    G = V @ V.T                      # Gram matrix of the corral
-    Vy = V @ y
+    # the corral's vertices: rows `rows` of a buffer (a dropped vertex leaves its row unused until the
+    # buffer is full and compacted: no O(k d) copy per minor cycle)
+    Vbuf = np.empty((min(d + 2, 16), d))
+    Vbuf[0] = np.asarray(lmo(-y), dtype=float)
+    rows = np.zeros(1, dtype=np.int64)
+    top = 1
+    G = Vbuf[:1] @ Vbuf[:1].T        # Gram matrix of the corral
+    Vy = Vbuf[:1] @ y
     lam = np.ones(1)
-    p = V[0].copy()
+    p = Vbuf[0].copy()
     gap = np.inf
     status = "max_iter"
     it = 0
     best = (np.inf, p)
     best_it = 0
+    fac = _CorralFactor()
     for it in range(1, cap + 1):
         z = p - y
         q = np.asarray(lmo(z), dtype=float)
@@ -109,16 +286,30 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
         if it - best_it > 2 * d + STALL_CYCLES:
             status = "stalled"       # no smaller gap for many cycles: rounding stops the progress
             break
-        if np.any(np.all(V == q, axis=1)):
-            status = "stalled"       # q already in the corral: rounding stops the progress
+        Vq = _rows_dot(Vbuf, rows, q)
+        qq = float(q @ q)
+        # q already in the corral (rounding stops the progress): ||v - q||^2 = 0 screened from the
+        # Gram entries, confirmed on the coordinates of the few candidates
+        near = np.flatnonzero(np.abs(np.diagonal(G) - 2.0 * Vq + qq) <= 1e-9 * (qq + np.diagonal(G)))
+        if any(np.array_equal(Vbuf[rows[j]], q) for j in near):
+            status = "stalled"
             break
-        Vq = V @ q
-        G = np.block([[G, Vq[:, None]], [Vq[None, :], np.array([[q @ q]])]])
+        G = np.block([[G, Vq[:, None]], [Vq[None, :], np.array([[qq]])]])
         Vy = np.append(Vy, q @ y)
-        V = np.vstack([V, q])
+        if top == Vbuf.shape[0]:
+            if rows.size < top // 2:                 # compact: the live rows to the front
+                Vbuf[:rows.size] = Vbuf[rows]
+                rows = np.arange(rows.size, dtype=np.int64)
+                top = rows.size
+            else:
+                Vbuf = np.concatenate([Vbuf, np.empty((Vbuf.shape[0], d))])
+        Vbuf[top] = q
+        rows = np.append(rows, top)
+        top += 1
         lam = np.append(lam, 0.0)
-        for _minor in range(V.shape[0] + 1):
-            a = _affine_minimizer(G, Vy)
+        fac.append(G)
+        for _minor in range(rows.size + 1):
+            a = fac.minimizer(G, Vy)
             if a.min() > 0.0:
                 lam = a
                 break
@@ -133,10 +324,11 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
             keep = ~drop
             if not keep.any():
                 keep[int(np.argmax(lam))] = True
-            V, lam, G, Vy = V[keep], lam[keep], G[np.ix_(keep, keep)], Vy[keep]
+            fac.drop(~keep)
+            rows, lam, G, Vy = rows[keep], lam[keep], G[np.ix_(keep, keep)], Vy[keep]
             lam = np.maximum(lam, 0.0)
             lam /= lam.sum()
-        p = lam @ V
+        p = _combine(lam, Vbuf, rows)
     else:
         it = cap
     if status != "solved":
@@ -144,7 +336,7 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
         if gap <= accept:
             status = "solved"
     gap *= Rm * Rm
-    info = {"iterations": it, "gap": gap, "corral": int(V.shape[0]), "status": status,
+    info = {"iterations": it, "gap": gap, "corral": int(rows.size), "status": status,
             "tolerance": tol * Rm * Rm}
     if status != "solved":
         raise SolveError(
