@@ -231,3 +231,60 @@ def test_located_errors():
         setkit.compile({"kind": "spanning_trees", "edges": nx.DiGraph([(0, 1)])})
     with pytest.raises(DescriptionError, match="unknown parameter 'weights'"):
         setkit.compile({"kind": "spanning_trees", "edges": [[0, 1]], "weights": [1]})
+
+
+def test_corral_factor_matches_dense_solves():
+    # the incremental Cholesky of the min-norm point's normal matrix against numpy.linalg.solve on
+    # the same corral after appends, deletions (Givens) and a dropped reference vertex (refactor)
+    from setkit.kernels import minnorm
+    rng = np.random.default_rng(5)
+    pts = rng.standard_normal((9, 12))
+    y = rng.standard_normal(12)
+    fac = minnorm._CorralFactor()
+    live = []
+    for i in range(9):
+        live.append(i)
+        V = pts[live]
+        fac.append(V @ V.T)
+        if i in (4, 6):                     # drop an inner vertex, then (at 6) the reference vertex
+            drop = np.zeros(len(live), bool)
+            drop[0 if i == 6 else 2] = True
+            fac.drop(drop)
+            live = [j for j, dr in zip(live, drop) if not dr]
+        V = pts[live]
+        G, Vy = V @ V.T, V @ y
+        a = fac.minimizer(G, Vy)
+        want = minnorm._affine_minimizer(G, Vy)
+        np.testing.assert_allclose(a, want, rtol=1e-9, atol=1e-10)
+        # the affine minimizer's optimality: p - y is orthogonal to the differences v_j - v_0
+        p = a @ V
+        np.testing.assert_allclose((V[1:] - V[0]) @ (p - y), 0.0, atol=1e-9)
+
+
+@pytest.mark.parametrize("m", [60, 200])
+def test_kl_projection_larger_graph_against_its_certificate_and_networkx(m):
+    # a larger random graph: the KL answer is a point of the polytope (sum n - 1, subset constraints
+    # by minimum cuts), its certificate is the stated one, and every networkx minimum spanning tree
+    # (networkx.minimum_spanning_tree) of the Kruskal direction is an LMO answer of the same value
+    rng = np.random.default_rng(m)
+    nodes = m // 4
+    order = rng.permutation(nodes)
+    edges = [[int(order[k]), int(order[int(rng.integers(0, k))])] for k in range(1, nodes)]
+    while len(edges) < m:
+        a, b = (int(v) for v in rng.integers(0, nodes, 2))
+        if a != b:
+            edges.append([a, b])
+    K = setkit.compile({"kind": "spanning_trees", "nodes": nodes, "edges": edges})
+    t = rng.uniform(-3, 3, m)
+    d = K.project(t, geometry="kl", log_input=True, details=True)
+    x = d.point
+    assert abs(x.sum() - (nodes - 1)) <= 1e-9 * nodes and x.min() >= 0.0
+    assert float(K.violation(x)) <= 1e-9
+    assert float(d.certificate) <= 1e-9 * (nodes - 1) + 1e-12
+    c = np.log(np.maximum(x, 1e-300)) - t
+    G = nx.MultiGraph()
+    for e, (a, b) in enumerate(edges):
+        G.add_edge(a, b, key=e, weight=float(c[e]))
+    T = nx.minimum_spanning_tree(G, algorithm="kruskal")
+    val_nx = sum(w for _, _, w in T.edges(data="weight"))
+    np.testing.assert_allclose(float(c @ K.lmo(c)), val_nx, rtol=1e-12, atol=1e-12)
