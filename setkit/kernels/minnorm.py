@@ -211,7 +211,7 @@ class _CorralFactor:
         if not self.valid:
             self._room(k)
             self.L[:k, :k] = 0.0
-            done = _chol_build(self.L, G)
+            done = _chol_build(self.L, np.ascontiguousarray(G))
             self.k, self.valid = done, done == k - 1
             if not self.valid:
                 return _affine_minimizer(G, Vy)
@@ -263,7 +263,9 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     Vbuf[0] = np.asarray(lmo(-y), dtype=float)
     rows = np.zeros(1, dtype=np.int64)
     top = 1
-    G = Vbuf[:1] @ Vbuf[:1].T        # Gram matrix of the corral
+    Gbuf = np.empty((16, 16))        # Gram matrix of the corral: G = Gbuf[:k, :k]
+    Gbuf[0, 0] = float(Vbuf[0] @ Vbuf[0])
+    G = Gbuf[:1, :1]
     Vy = Vbuf[:1] @ y
     lam = np.ones(1)
     p = Vbuf[0].copy()
@@ -294,7 +296,15 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
         if any(np.array_equal(Vbuf[rows[j]], q) for j in near):
             status = "stalled"
             break
-        G = np.block([[G, Vq[:, None]], [Vq[None, :], np.array([[qq]])]])
+        k = rows.size
+        if k + 1 > Gbuf.shape[0]:
+            big = np.empty((2 * (k + 1), 2 * (k + 1)))
+            big[:k, :k] = G
+            Gbuf = big
+        Gbuf[k, :k] = Vq
+        Gbuf[:k, k] = Vq
+        Gbuf[k, k] = qq
+        G = Gbuf[:k + 1, :k + 1]
         Vy = np.append(Vy, q @ y)
         if top == Vbuf.shape[0]:
             if rows.size < top // 2:                 # compact: the live rows to the front
@@ -325,7 +335,9 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
             if not keep.any():
                 keep[int(np.argmax(lam))] = True
             fac.drop(~keep)
-            rows, lam, G, Vy = rows[keep], lam[keep], G[np.ix_(keep, keep)], Vy[keep]
+            kk = int(keep.sum())
+            Gbuf[:kk, :kk] = G[np.ix_(keep, keep)]
+            rows, lam, G, Vy = rows[keep], lam[keep], Gbuf[:kk, :kk], Vy[keep]
             lam = np.maximum(lam, 0.0)
             lam /= lam.sum()
         p = _combine(lam, Vbuf, rows)
