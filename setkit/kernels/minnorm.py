@@ -131,97 +131,180 @@ def _chol_build(L, G):
     return k - 1
 
 
-@njit(cache=True, fastmath=True)
-def _rows_dot(B, rows, q):
-    """B[rows] @ q on one thread (a multithreaded BLAS gemv stalls on a loaded machine; memory-bound anyway)."""
-    d = B.shape[1]
-    out = np.empty(rows.size)
-    for i in range(rows.size):
+@njit(cache=True)
+def _mnp_cycle(q, y, Vbuf, rows, Gbuf, Vy, lam, L, st, p):
+    """One major cycle of Wolfe's method after the LMO answered q, compiled (no array temporaries
+    per minor cycle, no multithreaded BLAS call).
+
+    State: the corral is rows[:k] of Vbuf (k = st[0]; st[1] the next free buffer row), its Gram
+    matrix Gbuf[:k, :k], Vy[:k] = V y, weights lam[:k]; L[:k-1, :k-1] the Cholesky factor of the
+    affine minimizer's normal matrix M = D D^T (D = the differences from vertex 0, see
+    :func:`_affine_minimizer`) when st[2] == 1. A new vertex appends a row to L (O(k^2)); a dropped
+    vertex other than vertex 0 deletes one (Givens rotations, O(k^2)); a dropped vertex 0 or a
+    nearly dependent new vertex marks L stale and the next solve refactors it (O(k^3)) or, when a
+    pivot still vanishes, solves by least squares. The caller guarantees room for one more vertex.
+    Writes the new iterate into p; returns 1 when q is already in the corral (a stall), else 0.
+    """
+    k = st[0]
+    d = y.size
+    qq = 0.0
+    for t in range(d):
+        qq += q[t] * q[t]
+    Vq = np.empty(k)
+    for i in range(k):
         r = rows[i]
         acc = 0.0
-        for j in range(d):
-            acc += B[r, j] * q[j]
-        out[i] = acc
-    return out
-
-
-@njit(cache=True, fastmath=True)
-def _combine(lam, B, rows):
-    """lam @ B[rows] on one thread."""
-    d = B.shape[1]
-    out = np.zeros(d)
-    for i in range(rows.size):
-        li = lam[i]
-        r = rows[i]
-        if li != 0.0:
-            for j in range(d):
-                out[j] += li * B[r, j]
-    return out
-
-
-class _CorralFactor:
-    """The Cholesky factor of the affine minimizer's normal matrix M = D D^T (see
-    :func:`_affine_minimizer`), kept across major and minor cycles: a new vertex appends a row
-    (O(k^2)), a dropped vertex other than the reference vertex 0 deletes one (Givens, O(k^2)); a
-    dropped reference vertex or a nearly dependent new vertex marks it stale, and the next solve
-    refactors it (O(k^3), compiled) or, failing that, uses the dense least-squares route. This
-    replaces one dense O(k^3) LAPACK solve per minor cycle, the cost of long runs (corrals of
-    hundreds of vertices) and a stall point on a loaded machine (multithreaded BLAS hand-offs)."""
-
-    def __init__(self):
-        self.L = np.zeros((16, 16))
-        self.k = 0              # rows of M factored (corral size - 1) when valid
-        self.valid = True
-
-    def _room(self, k):
-        if k + 1 > self.L.shape[0]:
-            big = np.zeros((2 * (k + 1), 2 * (k + 1)))
-            big[:self.L.shape[0], :self.L.shape[0]] = self.L
-            self.L = big
-
-    def append(self, G):
-        """G is the corral's Gram matrix with the new vertex last."""
-        if not self.valid:
-            return
-        k = G.shape[0] - 1          # index of the new vertex; M grows to k rows
-        if k == 0:
-            self.k = 0
-            return
-        self._room(k)
-        m = G[k, 1:k] - G[k, 0] - G[1:k, 0] + G[0, 0]
-        ok = _chol_append(self.L, k - 1, np.ascontiguousarray(m), G[k, k] - 2.0 * G[k, 0] + G[0, 0])
-        self.k = k
-        self.valid = bool(ok)
-
-    def drop(self, drop_mask):
-        if not self.valid:
-            return
-        if drop_mask[0]:
-            self.valid = False
-            return
-        for j in np.flatnonzero(drop_mask)[::-1]:
-            _chol_delete(self.L, self.k, int(j) - 1)
-            self.k -= 1
-
-    def minimizer(self, G, Vy):
-        k = G.shape[0]
+        for t in range(d):
+            acc += Vbuf[r, t] * q[t]
+        Vq[i] = acc
+    for i in range(k):
+        if abs(Gbuf[i, i] - 2.0 * Vq[i] + qq) <= 1e-9 * (qq + Gbuf[i, i]):
+            same = True
+            r = rows[i]
+            for t in range(d):
+                if Vbuf[r, t] != q[t]:
+                    same = False
+                    break
+            if same:
+                return 1
+    # append q
+    for i in range(k):
+        Gbuf[k, i] = Vq[i]
+        Gbuf[i, k] = Vq[i]
+    Gbuf[k, k] = qq
+    qy = 0.0
+    for t in range(d):
+        qy += q[t] * y[t]
+    Vy[k] = qy
+    top = st[1]
+    for t in range(d):
+        Vbuf[top, t] = q[t]
+    rows[k] = top
+    st[1] = top + 1
+    lam[k] = 0.0
+    k += 1
+    if st[2] == 1 and k >= 2:
+        m = np.empty(k - 2)
+        kk = k - 1
+        for j in range(1, kk):
+            m[j - 1] = Gbuf[kk, j] - Gbuf[kk, 0] - Gbuf[j, 0] + Gbuf[0, 0]
+        if not _chol_append(L, kk - 1, m, Gbuf[kk, kk] - 2.0 * Gbuf[kk, 0] + Gbuf[0, 0]):
+            st[2] = 0
+    a = np.empty(k + 1)
+    ratio = np.empty(k + 1)
+    for _minor in range(k + 1):
+        # the affine minimizer of the corral (weights a summing to 1)
         if k == 1:
-            self.k, self.valid = 0, True
-            return np.ones(1)
-        if not self.valid:
-            self._room(k)
-            self.L[:k, :k] = 0.0
-            done = _chol_build(self.L, np.ascontiguousarray(G))
-            self.k, self.valid = done, done == k - 1
-            if not self.valid:
-                return _affine_minimizer(G, Vy)
-        g0 = G[0, 0]
-        c = G[1:, 0]
-        r = (Vy[1:] - Vy[0]) - (c - g0)
-        beta = _chol_solve(self.L, k - 1, np.ascontiguousarray(r))
-        if not np.all(np.isfinite(beta)):
-            return _affine_minimizer(G, Vy)
-        return np.concatenate([[1.0 - beta.sum()], beta])
+            a[0] = 1.0
+        else:
+            g0 = Gbuf[0, 0]
+            rhs = np.empty(k - 1)
+            for j in range(1, k):
+                rhs[j - 1] = (Vy[j] - Vy[0]) - (Gbuf[j, 0] - g0)
+            if st[2] == 0:
+                for i in range(k):
+                    for j in range(k):
+                        L[i, j] = 0.0
+                G = np.ascontiguousarray(Gbuf[:k, :k])
+                st[2] = 1 if _chol_build(L, G) == k - 1 else 0
+            ok = st[2] == 1
+            if ok:
+                beta = _chol_solve(L, k - 1, rhs)
+                for j in range(k - 1):
+                    if not np.isfinite(beta[j]):
+                        ok = False
+            if not ok:
+                M = np.empty((k - 1, k - 1))
+                for i in range(1, k):
+                    for j in range(1, k):
+                        M[i - 1, j - 1] = Gbuf[i, j] - Gbuf[i, 0] - Gbuf[j, 0] + g0
+                beta = np.linalg.lstsq(M, rhs)[0]
+            s = 0.0
+            for j in range(k - 1):
+                a[j + 1] = beta[j]
+                s += beta[j]
+            a[0] = 1.0 - s
+        amin = a[0]
+        for j in range(k):
+            amin = min(amin, a[j])
+        if amin > 0.0:
+            for j in range(k):
+                lam[j] = a[j]
+            break
+        # line search toward a; drop the vertices whose weight reaches 0
+        theta = 1.0
+        jmin = 0
+        for j in range(k):
+            if a[j] <= 0.0:
+                den = lam[j] - a[j]
+                ratio[j] = lam[j] / den if den > 0.0 else 0.0
+            else:
+                ratio[j] = np.inf
+            if ratio[j] < ratio[jmin]:
+                jmin = j
+        theta = min(max(ratio[jmin], 0.0), 1.0)
+        lmax = 0.0
+        for j in range(k):
+            lam[j] = lam[j] + theta * (a[j] - lam[j])
+            lmax = max(lmax, lam[j])
+        keep = np.empty(k, np.bool_)
+        nkeep = 0
+        for j in range(k):
+            keep[j] = not (lam[j] <= 1e-15 * lmax)
+            nkeep += keep[j]
+        if nkeep == k:
+            keep[jmin] = False
+            nkeep -= 1
+        if nkeep == 0:
+            jbest = 0
+            for j in range(k):
+                if lam[j] > lam[jbest]:
+                    jbest = j
+            keep[jbest] = True
+            nkeep = 1
+        # the factor: a dropped vertex 0 makes it stale, others are deleted (from the last)
+        if st[2] == 1:
+            if not keep[0]:
+                st[2] = 0
+            else:
+                kf = k - 1
+                for j in range(k - 1, 0, -1):
+                    if not keep[j]:
+                        _chol_delete(L, kf, j - 1)
+                        kf -= 1
+        # compact the corral in place (order kept)
+        w = 0
+        for j in range(k):
+            if keep[j]:
+                rows[w] = rows[j]
+                lam[w] = max(lam[j], 0.0)
+                Vy[w] = Vy[j]
+                w += 1
+        w = 0
+        for i in range(k):
+            if keep[i]:
+                c = 0
+                for j in range(k):
+                    if keep[j]:
+                        Gbuf[w, c] = Gbuf[i, j]
+                        c += 1
+                w += 1
+        k = nkeep
+        s = 0.0
+        for j in range(k):
+            s += lam[j]
+        for j in range(k):
+            lam[j] /= s
+    st[0] = k
+    for t in range(d):
+        p[t] = 0.0
+    for i in range(k):
+        r = rows[i]
+        li = lam[i]
+        if li != 0.0:
+            for t in range(d):
+                p[t] += li * Vbuf[r, t]
+    return 0
 
 
 def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
@@ -258,26 +341,28 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     accept = ACCEPT_RTOL * d
     cap = (50 * d + 500) if max_iter is None else int(max_iter)
     # the corral's vertices: rows `rows` of a buffer (a dropped vertex leaves its row unused until the
-    # buffer is full and compacted: no O(k d) copy per minor cycle)
-    Vbuf = np.empty((min(d + 2, 16), d))
+    # buffer is full and compacted: no O(k d) copy per minor cycle); see _mnp_cycle for the state
+    c0 = min(d + 2, 16)
+    Vbuf = np.empty((c0, d))
     Vbuf[0] = np.asarray(lmo(-y), dtype=float)
-    rows = np.zeros(1, dtype=np.int64)
-    top = 1
-    Gbuf = np.empty((16, 16))        # Gram matrix of the corral: G = Gbuf[:k, :k]
+    rows = np.zeros(c0, dtype=np.int64)
+    Gbuf = np.zeros((c0, c0))
     Gbuf[0, 0] = float(Vbuf[0] @ Vbuf[0])
-    G = Gbuf[:1, :1]
-    Vy = Vbuf[:1] @ y
-    lam = np.ones(1)
+    Vy = np.zeros(c0)
+    Vy[0] = float(Vbuf[0] @ y)
+    lam = np.zeros(c0)
+    lam[0] = 1.0
+    L = np.zeros((c0, c0))
+    st = np.array([1, 1, 1], dtype=np.int64)         # corral size, next free buffer row, factor valid
     p = Vbuf[0].copy()
     gap = np.inf
     status = "max_iter"
     it = 0
     best = (np.inf, p)
     best_it = 0
-    fac = _CorralFactor()
     for it in range(1, cap + 1):
         z = p - y
-        q = np.asarray(lmo(z), dtype=float)
+        q = np.ascontiguousarray(lmo(z), dtype=float)
         gap = float((z / Rm) @ ((p - q) / Rm))          # g / Rm^2
         if gap < best[0]:
             best = (gap, p)
@@ -288,59 +373,25 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
         if it - best_it > 2 * d + STALL_CYCLES:
             status = "stalled"       # no smaller gap for many cycles: rounding stops the progress
             break
-        Vq = _rows_dot(Vbuf, rows, q)
-        qq = float(q @ q)
-        # q already in the corral (rounding stops the progress): ||v - q||^2 = 0 screened from the
-        # Gram entries, confirmed on the coordinates of the few candidates
-        near = np.flatnonzero(np.abs(np.diagonal(G) - 2.0 * Vq + qq) <= 1e-9 * (qq + np.diagonal(G)))
-        if any(np.array_equal(Vbuf[rows[j]], q) for j in near):
-            status = "stalled"
-            break
-        k = rows.size
-        if k + 1 > Gbuf.shape[0]:
-            big = np.empty((2 * (k + 1), 2 * (k + 1)))
-            big[:k, :k] = G
-            Gbuf = big
-        Gbuf[k, :k] = Vq
-        Gbuf[:k, k] = Vq
-        Gbuf[k, k] = qq
-        G = Gbuf[:k + 1, :k + 1]
-        Vy = np.append(Vy, q @ y)
-        if top == Vbuf.shape[0]:
-            if rows.size < top // 2:                 # compact: the live rows to the front
-                Vbuf[:rows.size] = Vbuf[rows]
-                rows = np.arange(rows.size, dtype=np.int64)
-                top = rows.size
+        k = int(st[0])
+        if st[1] == Vbuf.shape[0]:                   # no free buffer row: compact or grow
+            if k < Vbuf.shape[0] // 2:
+                Vbuf[:k] = Vbuf[rows[:k]]
+                rows[:k] = np.arange(k)
+                st[1] = k
             else:
                 Vbuf = np.concatenate([Vbuf, np.empty((Vbuf.shape[0], d))])
-        Vbuf[top] = q
-        rows = np.append(rows, top)
-        top += 1
-        lam = np.append(lam, 0.0)
-        fac.append(G)
-        for _minor in range(rows.size + 1):
-            a = fac.minimizer(G, Vy)
-            if a.min() > 0.0:
-                lam = a
-                break
-            neg = a <= 0.0
-            with np.errstate(divide="ignore", invalid="ignore"):
-                ratio = np.where(neg, lam / (lam - a), np.inf)
-            theta = float(np.clip(ratio.min(), 0.0, 1.0))
-            lam = lam + theta * (a - lam)
-            drop = lam <= 1e-15 * lam.max()
-            if not drop.any():
-                drop[int(np.argmin(ratio))] = True
-            keep = ~drop
-            if not keep.any():
-                keep[int(np.argmax(lam))] = True
-            fac.drop(~keep)
-            kk = int(keep.sum())
-            Gbuf[:kk, :kk] = G[np.ix_(keep, keep)]
-            rows, lam, G, Vy = rows[keep], lam[keep], Gbuf[:kk, :kk], Vy[keep]
-            lam = np.maximum(lam, 0.0)
-            lam /= lam.sum()
-        p = _combine(lam, Vbuf, rows)
+        if k + 2 > rows.size:                        # room for one more vertex in the small arrays
+            c = 2 * (k + 2)
+            rows, Vy, lam = (np.concatenate([a, np.zeros(c - a.size, a.dtype)]) for a in (rows, Vy, lam))
+            G2, L2 = np.zeros((c, c)), np.zeros((c, c))
+            G2[:k, :k], L2[:k, :k] = Gbuf[:k, :k], L[:k, :k]
+            Gbuf, L = G2, L2
+        p = np.empty(d)
+        if _mnp_cycle(q, y, Vbuf, rows, Gbuf, Vy, lam, L, st, p):
+            status = "stalled"       # q already in the corral: rounding stops the progress
+            p = best[1]
+            break
     else:
         it = cap
     if status != "solved":
@@ -348,7 +399,7 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
         if gap <= accept:
             status = "solved"
     gap *= Rm * Rm
-    info = {"iterations": it, "gap": gap, "corral": int(rows.size), "status": status,
+    info = {"iterations": it, "gap": gap, "corral": int(st[0]), "status": status,
             "tolerance": tol * Rm * Rm}
     if status != "solved":
         raise SolveError(

@@ -233,32 +233,39 @@ def test_located_errors():
         setkit.compile({"kind": "spanning_trees", "edges": [[0, 1]], "weights": [1]})
 
 
-def test_corral_factor_matches_dense_solves():
-    # the incremental Cholesky of the min-norm point's normal matrix against numpy.linalg.solve on
-    # the same corral after appends, deletions (Givens) and a dropped reference vertex (refactor)
+def test_corral_factor_updates_match_dense_algebra():
+    # the incremental Cholesky pieces of the min-norm point against numpy.linalg.cholesky / solve:
+    # appends, Givens deletions of inner rows, and a rebuild from a Gram matrix
     from setkit.kernels import minnorm
     rng = np.random.default_rng(5)
-    pts = rng.standard_normal((9, 12))
-    y = rng.standard_normal(12)
-    fac = minnorm._CorralFactor()
-    live = []
-    for i in range(9):
-        live.append(i)
-        V = pts[live]
-        fac.append(V @ V.T)
-        if i in (4, 6):                     # drop an inner vertex, then (at 6) the reference vertex
-            drop = np.zeros(len(live), bool)
-            drop[0 if i == 6 else 2] = True
-            fac.drop(drop)
-            live = [j for j, dr in zip(live, drop) if not dr]
-        V = pts[live]
-        G, Vy = V @ V.T, V @ y
-        a = fac.minimizer(G, Vy)
-        want = minnorm._affine_minimizer(G, Vy)
-        np.testing.assert_allclose(a, want, rtol=1e-9, atol=1e-10)
-        # the affine minimizer's optimality: p - y is orthogonal to the differences v_j - v_0
-        p = a @ V
-        np.testing.assert_allclose((V[1:] - V[0]) @ (p - y), 0.0, atol=1e-9)
+    A = rng.standard_normal((9, 12))
+    M = A @ A.T
+    L = np.zeros((10, 10))
+    for k in range(9):
+        assert minnorm._chol_append(L, k, np.ascontiguousarray(M[k, :k]), M[k, k])
+    np.testing.assert_allclose(L[:9, :9], np.linalg.cholesky(M), atol=1e-12)
+    live = list(range(9))
+    for i in (3, 0, 5):
+        minnorm._chol_delete(L, len(live), i)
+        del live[i]
+        Ms = M[np.ix_(live, live)]
+        k = len(live)
+        np.testing.assert_allclose(L[:k, :k] @ L[:k, :k].T, Ms, atol=1e-10)
+        assert np.allclose(np.triu(L[:k, :k], 1), 0.0) and (np.diag(L[:k, :k]) > 0).all()
+        r = rng.standard_normal(k)
+        np.testing.assert_allclose(minnorm._chol_solve(L, k, r), np.linalg.solve(Ms, r), rtol=1e-9, atol=1e-10)
+    # a dependent row is refused (its pivot vanishes) and leaves the factor as it was
+    L2 = np.zeros((4, 4))
+    B = np.vstack([A[:2], A[0] + A[1]])
+    Mb = B @ B.T
+    assert minnorm._chol_append(L2, 0, np.zeros(0), Mb[0, 0]) and minnorm._chol_append(L2, 1, Mb[1, :1].copy(), Mb[1, 1])
+    assert not minnorm._chol_append(L2, 2, Mb[2, :2].copy(), Mb[2, 2])
+    # rebuild from a corral's Gram matrix: M = D D^T with D the differences from vertex 0
+    G = A[:6] @ A[:6].T
+    L3 = np.zeros((6, 6))
+    assert minnorm._chol_build(L3, G) == 5
+    D = A[1:6] - A[0]
+    np.testing.assert_allclose(L3[:5, :5] @ L3[:5, :5].T, D @ D.T, atol=1e-10)
 
 
 @pytest.mark.parametrize("m", [60, 200])
