@@ -68,16 +68,25 @@ def main(argv=None):
     ap.add_argument("--repeats", type=int, default=5)
     ap.add_argument("--seed", type=int, default=0)
     ap.add_argument("--kinds", nargs="+", default=None, help="only these families")
+    ap.add_argument("--log", default=None, help="also write the table (header with the load average) to this file")
     a = ap.parse_args(argv)
     warnings.simplefilter("ignore")
-    print(f"{'family':16s} {'n':>6s} {'op':4s} {'native ms':>10s} {'project ms':>10s} {'form ms':>9s} "
+    lines = [f"# python -m benchmarks.bench_structured {' '.join(argv if argv is not None else sys.argv[1:])}, "
+             f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}; load average at the start "
+             f"{os.getloadavg()[0]:.1f} (2 cores shared with other jobs; medians of interleaved repeats)"]
+
+    def emit(*args):
+        """Print a line and keep it for --log."""
+        print(*args)
+        lines.append(" ".join(str(x) for x in args))
+    emit(f"{'family':16s} {'n':>6s} {'op':4s} {'native ms':>10s} {'project ms':>10s} {'form ms':>9s} "
           f"{'reference ms':>12s} {'ref/native':>10s} note")
     for n in a.sizes:
         for kind in [k for k in JVP_KINDS if a.kinds is None or k in a.kinds]:
             rng = np.random.default_rng(a.seed)
             K = instance(kind, n, rng)
             if K is None:
-                print(f"{kind:16s} {n:6d} jvp  (no benchmark instance at this size)")
+                emit(f"{kind:16s} {n:6d} jvp  (no benchmark instance at this size)")
                 continue
             y = rng.standard_normal(K.dim)
             if kind in ("matroid_bases", "paths", "spanning_trees", "submodular_base"):
@@ -102,7 +111,7 @@ def main(argv=None):
                 tr = float("nan")
                 note += f" reference: {type(exc).__name__}"
             t = median_times(fns, a.repeats)
-            print(f"{kind:16s} {K.dim:6d} jvp  {1e3 * t['jvp']:10.3f} {1e3 * t['project']:10.3f} "
+            emit(f"{kind:16s} {K.dim:6d} jvp  {1e3 * t['jvp']:10.3f} {1e3 * t['project']:10.3f} "
                   f"{1e3 * t.get('form', float('nan')):9.3f} {1e3 * tr:12.1f} {tr / t['jvp']:10.0f} "
                   f"jvp/project {t['jvp'] / t['project']:.2f}; {note}")
         for kind in [k for k in KL_KINDS if a.kinds is None or k in a.kinds]:
@@ -120,11 +129,15 @@ def main(argv=None):
                 tr = median_times({"r": lambda: R.project(t, geometry="kl", log_input=True)}, ref_reps)["r"]
             except setkit.errors.SetkitError as exc:
                 err, tr = float("nan"), float("nan")
-                print(f"  reference failed: {exc}")
+                emit(f"  reference failed: {exc}")
             tn = median_times({"n": lambda: K.project(t, geometry="kl", log_input=True)}, a.repeats)["n"]
             d = K.project(t, geometry="kl", log_input=True, details=True)
-            print(f"{kind:16s} {K.dim:6d} kl   {1e3 * tn:10.3f} {'':>10s} {'':>9s} {1e3 * tr:12.1f} {tr / tn:10.0f} "
+            emit(f"{kind:16s} {K.dim:6d} kl   {1e3 * tn:10.3f} {'':>10s} {'':>9s} {1e3 * tr:12.1f} {tr / tn:10.0f} "
                   f"|native - reference| = {err:.1e}; certificate {float(d.certificate):.1e}; {d.backend_status}")
+    if a.log:
+        lines.append(f"# load average at the end {os.getloadavg()[0]:.1f}")
+        with open(a.log, "w") as f:
+            f.write("\n".join(lines) + "\n")
 
 
 if __name__ == "__main__":
