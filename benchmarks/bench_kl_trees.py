@@ -20,7 +20,8 @@ import time
 
 import numpy as np
 
-sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
+# the setkit to time: the tree named by SETKIT_BENCH_TREE (the --before run), else this checkout
+sys.path.insert(0, os.environ.get("SETKIT_BENCH_TREE") or os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
 
 def graph(m, rng):
@@ -49,7 +50,7 @@ def run(sizes, repeats, budget):
             times.append(time.perf_counter() - t0)
             if sum(times) > budget:
                 break
-        out.append({"m": m, "seconds": float(np.median(times)), "calls": len(times),
+        out.append({"m": m, "seconds": float(np.median(times)), "calls": len(times), "setkit": setkit.__file__,
                     "route": str(d.backend_status), "certificate": float(d.certificate),
                     "x_sum": float(d.point.sum()), "nodes": nodes, "load": os.getloadavg()[0]})
     return out
@@ -74,7 +75,7 @@ def main(argv=None):
     before = {}
     if a.before:
         for m in a.sizes:
-            env = dict(os.environ, PYTHONPATH=os.path.abspath(a.before))
+            env = dict(os.environ, PYTHONPATH=os.path.abspath(a.before), SETKIT_BENCH_TREE=os.path.abspath(a.before))
             cmd = [sys.executable, "-c", "import sys; sys.argv[1:] = " + repr(["--json", "--sizes", str(m), "--repeats",
                    str(a.repeats), "--budget", str(a.budget)]) + "; sys.path.insert(0, " + repr(os.path.dirname(
                    os.path.abspath(__file__))) + "); import bench_kl_trees; bench_kl_trees.main()"]
@@ -85,6 +86,7 @@ def main(argv=None):
                 before[m] = {"seconds": float("inf"), "route": f"did not finish within {a.timeout:.0f} s",
                              "certificate": float("nan"), "load": os.getloadavg()[0]}
     now = run(a.sizes, a.repeats, a.budget)
+    lines.append(f"# after: setkit from {now[0]['setkit']}; before: the tree given by --before ({a.before})")
     lines.append(f"{'m':>6} {'before s':>10} {'after s':>10} {'speedup':>8} {'load':>5}  after: route; certificate")
     for r in now:
         b = before.get(r["m"])
@@ -92,7 +94,8 @@ def main(argv=None):
         lines.append(f"{r['m']:>6} {bs:>10.3f} {r['seconds']:>10.3f} {bs / r['seconds']:>7.1f}x {r['load']:>5.1f}  "
                      f"{r['route']}; certificate {r['certificate']:.2g}")
         if b:
-            lines.append(f"{'':>6} before: {b['route']}; certificate {b['certificate']:.2g}; load {b['load']:.1f}")
+            lines.append(f"{'':>6} before ({b.get('setkit', '?')}): {b['route']}; certificate {b['certificate']:.2g}; "
+                         f"load {b['load']:.1f}")
     text = "\n".join(lines)
     print(text)
     if a.log:
