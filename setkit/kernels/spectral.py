@@ -5,8 +5,9 @@ divided by a power of two per matrix (exact in floating point) so that entries
 as large as 1e300 or as small as 1e-300 neither overflow nor underflow inside
 LAPACK; callers scale their radii by the same factor.
 
-Extreme singular or eigen pairs of large matrices come from a Lanczos method
-with full reorthogonalization (:func:`lanczos_top`), run first in single
+Extreme singular or eigen pairs of large matrices come from a block Lanczos method
+(block 2, compiled, one thread: one fused pass over the matrix per step, Ritz pairs
+from LAPACK's banded eigensolver) with full reorthogonalization (:func:`lanczos_top`), run first in single
 precision (half the memory traffic per pass over the matrix; the answer's value
 error is quadratic in its vector error, so a vector accurate to ~1e-6 already
 gives a value accurate to ~1e-10 and better), started from a fixed seeded
@@ -203,8 +204,9 @@ def _band_top(T, b):
 
     Block Lanczos makes T = Q^T M Q banded (half-bandwidth b) up to rounding; LAPACK's banded
     solver (dsbevx via scipy.linalg.eig_banded) needs no multithreaded BLAS call, so a loaded
-    machine does not stall it, unlike the dense eigh. The entries outside the band are added to
-    the residuals by the caller (Weyl: eigenvalues move by at most their norm). O(k^2 b)."""
+    machine does not stall it, unlike the dense eigh. The caller's residuals include the entries
+    outside the band exactly: for a Ritz pair (l, g) of the band, ||M Q g - l Q g||^2 =
+    ||(T - band(T)) g||^2 + ||R g_last||^2. O(k^2 b)."""
     import scipy.linalg as sl
     k = T.shape[0]
     top = min(2, k)
