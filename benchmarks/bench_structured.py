@@ -62,6 +62,29 @@ def median_times(fns, repeats):
     return {k: float(np.median(v)) for k, v in times.items()}
 
 
+def coverage_head_to_head(emit, repeats, sizes=(50, 100)):
+    """The coverage base polytope (issue 15: slower than the reference at n = 100): native and the
+    cvxpy reference timed alternately in one loop (medians), Euclidean and KL projections."""
+    emit(f"# coverage submodular base, native vs reference interleaved ({max(repeats, 5)} rounds), "
+         f"load average {os.getloadavg()[0]:.1f}")
+    for n in sizes:
+        rng = np.random.default_rng(0)
+        spec = {k: v for k, v in lookup("submodular_base").benchmark_example(n, rng).items() if k != "about"}
+        K = setkit.compile(spec)
+        y = 0.5 + 0.5 * rng.standard_normal(K.dim)
+        t = rng.uniform(-3, 3, K.dim)
+        R = K.with_backends(project="reference", project_kl="reference", loose=True)
+        pairs = {"project": (lambda: K.project(y), lambda: R.project(y)),
+                 "kl": (lambda: K.project(t, geometry="kl", log_input=True),
+                        lambda: R.project(t, geometry="kl", log_input=True))}
+        for op, (f, g) in pairs.items():
+            err = float(np.abs(f() - g()).max())
+            tm = median_times({"native": f, "reference": g}, max(repeats, 5))
+            emit(f"submodular_base  {n:6d} {op:7s} native {1e3 * tm['native']:9.3f} ms  reference "
+                 f"{1e3 * tm['reference']:9.3f} ms  reference/native {tm['reference'] / tm['native']:6.2f}x  "
+                 f"|native - reference| = {err:.1e}  (load {os.getloadavg()[0]:.1f})")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[100, 1000])
@@ -134,6 +157,8 @@ def main(argv=None):
             d = K.project(t, geometry="kl", log_input=True, details=True)
             emit(f"{kind:16s} {K.dim:6d} kl   {1e3 * tn:10.3f} {'':>10s} {'':>9s} {1e3 * tr:12.1f} {tr / tn:10.0f} "
                   f"|native - reference| = {err:.1e}; certificate {float(d.certificate):.1e}; {d.backend_status}")
+    if a.kinds is None or "submodular_base" in a.kinds:
+        coverage_head_to_head(emit, a.repeats)
     if a.log:
         lines.append(f"# load average at the end {os.getloadavg()[0]:.1f}")
         with open(a.log, "w") as f:

@@ -37,7 +37,7 @@ from ..kernels.base_kl import base_polytope_kl, partition_kl_jvp
 from ..kernels.bregman import outside_orthant_error, permutahedron_kl
 from ..kernels.face import permutahedron_face
 from ..kernels.isotonic import project_permutahedron
-from ..kernels.minnorm import project_rows, uncertified_rows
+from ..kernels.minnorm import coverage_greedy, project_rows, uncertified_rows
 from ..kernels.structured_faces import ordered_partition_jvp
 from . import Family, kernel, memo, register
 from ._graph import fail_at, read_edges
@@ -97,22 +97,11 @@ class CutFunction:
 
 @njit(cache=True)
 def coverage_greedy_rows(C, indptr, items, iw, out):
-    """Edmonds' greedy for a coverage function, compiled: elements in increasing c (stable), each
-    gaining the weights of the items it is the first to cover. O(n log n + nnz) per row."""
-    b, n = C.shape
+    """Edmonds' greedy for a coverage function on each row of C, compiled
+    (:func:`setkit.kernels.minnorm.coverage_greedy`). O(n log n + nnz) per row."""
     covered = np.zeros(iw.size, np.bool_)
-    for r in range(b):
-        covered[:] = False
-        order = np.argsort(C[r], kind="mergesort")
-        for j in range(n):
-            i = order[j]
-            acc = 0.0
-            for p in range(indptr[i], indptr[i + 1]):
-                u = items[p]
-                if not covered[u]:
-                    covered[u] = True
-                    acc += iw[u]
-            out[r, i] = acc
+    for r in range(C.shape[0]):
+        coverage_greedy(C[r], indptr, items, iw, covered, out[r])
 
 
 class CoverageFunction:
@@ -263,7 +252,9 @@ class BasePolytopeMixin:
         return self.fn.greedy(c[None, :])[0]
 
     def _mnp_project(self, Y):
-        return project_rows(Y, self._greedy_one, scale=self.scale(), label=self.label)
+        fn = self.fn
+        cov = (fn.indptr, fn.items_by_elem, fn.iw_c) if isinstance(fn, CoverageFunction) and fn.se.size else None
+        return project_rows(Y, self._greedy_one, scale=self.scale(), label=self.label, coverage=cov)
 
     def _base_violation(self, X):
         eq = np.abs(X.sum(axis=1) - self._total())

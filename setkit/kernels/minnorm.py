@@ -28,6 +28,7 @@ from ..errors import SolveError
 GAP_RTOL = 1e-15         # stop when g <= GAP_RTOL * R^2 (||p - p*|| <= 4.5e-8 R)
 ACCEPT_RTOL = 1e-12      # a stalled run is accepted when g <= ACCEPT_RTOL * R^2 (||p - p*|| <= 1.5e-6 R)
 STALL_CYCLES = 20        # stop after 2 d + STALL_CYCLES major cycles without a smaller gap
+COMPILED_MAX_DIM = 1000  # the compiled coverage loop keeps O(d^2) buffers (16 MB at d = 1000): up to this dimension
 
 
 def _affine_minimizer(G, Vy):
@@ -307,7 +308,96 @@ def _mnp_cycle(q, y, Vbuf, rows, Gbuf, Vy, lam, L, st, p):
     return 0
 
 
-def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
+@njit(cache=True)
+def coverage_greedy(c, indptr, items, iw, covered, out):
+    """Edmonds' greedy for a coverage function F(S) = sum of w_u over the items u covered by S: the
+    elements in increasing c (stable order), each gaining the weights of the items it is the first
+    to cover. ``indptr``/``items``: element -> items (CSR); ``covered``: a scratch flag per item.
+    O(n log n + nnz)."""
+    covered[:] = False
+    order = np.argsort(c, kind="mergesort")
+    for j in range(c.size):
+        i = order[j]
+        acc = 0.0
+        for t in range(indptr[i], indptr[i + 1]):
+            u = items[t]
+            if not covered[u]:
+                covered[u] = True
+                acc += iw[u]
+        out[i] = acc
+
+
+@njit(cache=True)
+def _mnp_coverage_loop(y, Rm, tol, cap, stall, indptr, items, iw):
+    """Wolfe's method with the coverage greedy as its LMO, every cycle compiled (the loop of
+    :func:`project_by_min_norm_point`, same stopping rules: gap <= tol, no smaller gap for ``stall``
+    cycles, or q already in the corral). Returns (status 0 solved / 1 stalled / 2 cap, cycles,
+    last gap, best gap, best point, corral size); gaps in units of Rm^2."""
+    d = y.size
+    covered = np.zeros(iw.size, np.bool_)
+    nb = 2 * (d + 2)
+    nk = d + 3
+    Vbuf = np.empty((nb, d))
+    rows = np.zeros(nk, np.int64)
+    Gbuf = np.zeros((nk, nk))
+    Vy = np.zeros(nk)
+    lam = np.zeros(nk)
+    L = np.zeros((nk, nk))
+    st = np.array([1, 1, 1], np.int64)
+    q = np.empty(d)
+    z = -y
+    coverage_greedy(z, indptr, items, iw, covered, q)
+    Vbuf[0] = q
+    g00 = 0.0
+    vy0 = 0.0
+    for t in range(d):
+        g00 += q[t] * q[t]
+        vy0 += q[t] * y[t]
+    Gbuf[0, 0] = g00
+    Vy[0] = vy0
+    lam[0] = 1.0
+    p = q.copy()
+    pn = np.empty(d)
+    best_gap = np.inf
+    best_p = p.copy()
+    best_it = 0
+    gap = np.inf
+    status = 2
+    it = 0
+    for it in range(1, cap + 1):
+        for t in range(d):
+            z[t] = p[t] - y[t]
+        coverage_greedy(z, indptr, items, iw, covered, q)
+        gap = 0.0
+        for t in range(d):
+            gap += (z[t] / Rm) * ((p[t] - q[t]) / Rm)
+        if gap < best_gap:
+            best_gap = gap
+            best_p[:] = p
+            best_it = it
+        if gap <= tol:
+            status = 0
+            break
+        if it - best_it > stall:
+            status = 1
+            break
+        k = st[0]
+        if st[1] == nb:                      # no free buffer row: the live rows to the front
+            for i in range(k):
+                Vbuf[i] = Vbuf[rows[i]]
+                rows[i] = i
+            st[1] = k
+        if k + 2 > nk or st[1] == nb:        # no room (a numerically dependent corral): stop
+            status = 1
+            break
+        if _mnp_cycle(q, y, Vbuf, rows, Gbuf, Vy, lam, L, st, pn):
+            status = 1
+            break
+        p, pn = pn, p
+    return status, it, gap, best_gap, best_p, st[0]
+
+
+def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set", coverage=None):
     """Project ``y`` onto conv(vertices) with Wolfe's minimum-norm-point algorithm.
 
     Parameters
@@ -316,6 +406,9 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     lmo : callable, (d,) direction -> (d,) vertex minimizing <c, v>
     scale : a magnitude of the vertices (R^2 = d max(1, scale, |y|_inf)^2 sets the relative tolerances)
     max_iter : cap on major cycles (default 50 d + 500)
+    coverage : optional (indptr, items, item_weights) when ``lmo`` is the greedy of a coverage
+        function (element -> items in CSR form) and d <= COMPILED_MAX_DIM: the whole loop then runs
+        compiled (:func:`_mnp_coverage_loop`), with the same stopping rules and the same answer
 
     Returns
     -------
@@ -340,6 +433,15 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     tol = GAP_RTOL * d
     accept = ACCEPT_RTOL * d
     cap = (50 * d + 500) if max_iter is None else int(max_iter)
+    if coverage is not None and 0 < d <= COMPILED_MAX_DIM:
+        code, it, gap, best_gap, best_p, corral = _mnp_coverage_loop(y, Rm, tol, cap, 2 * d + STALL_CYCLES, *coverage)
+        status = ("solved", "stalled", "max_iter")[code]
+        p = best_p
+        if status != "solved":
+            gap = best_gap
+            if gap <= accept:
+                status = "solved"
+        return _finish(p, gap, it, corral, status, tol, accept, Rm, label)
     # the corral's vertices: rows `rows` of a buffer (a dropped vertex leaves its row unused until the
     # buffer is full and compacted: no O(k d) copy per minor cycle); see _mnp_cycle for the state
     c0 = min(d + 2, 16)
@@ -398,8 +500,13 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
         gap, p = best
         if gap <= accept:
             status = "solved"
+    return _finish(p, gap, it, int(st[0]), status, tol, accept, Rm, label)
+
+
+def _finish(p, gap, it, corral, status, tol, accept, Rm, label):
+    """The answer and its record, or SolveError when the gap is above the accepted one."""
     gap *= Rm * Rm
-    info = {"iterations": it, "gap": gap, "corral": int(st[0]), "status": status,
+    info = {"iterations": it, "gap": gap, "corral": int(corral), "status": status,
             "tolerance": tol * Rm * Rm}
     if status != "solved":
         raise SolveError(
@@ -494,12 +601,12 @@ def project_far_point(y, lmo, *, scale=1.0, max_iter=None, label="set", tol_rel=
     return p, info
 
 
-def project_rows(Y, lmo, *, scale=1.0, max_iter=None, label="set"):
+def project_rows(Y, lmo, *, scale=1.0, max_iter=None, label="set", coverage=None):
     """Row-wise :func:`project_by_min_norm_point`; returns ``(P, info)`` with per-row lists."""
     P = np.empty_like(Y)
     iters, texts = [], []
     for i, y in enumerate(Y):
-        P[i], inf = project_by_min_norm_point(y, lmo, scale=scale, max_iter=max_iter, label=label)
+        P[i], inf = project_by_min_norm_point(y, lmo, scale=scale, max_iter=max_iter, label=label, coverage=coverage)
         iters.append(inf["iterations"])
         texts.append(f"min-norm-point: gap {inf['gap']:.3g} after {inf['iterations']} major cycles")
     return P, {"status": ["solved"] * len(iters), "iterations": iters, "backend_status": texts}
