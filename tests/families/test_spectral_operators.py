@@ -377,3 +377,21 @@ def test_block_lanczos_on_noise_against_lapack(m, n):
     for largest, want in ((True, w[-1]), (False, w[0])):
         lam, x, r, how = spectral.extreme_eigenpair(S, largest)
         assert abs(lam - want) <= spectral.VALUE_RTOL * np.abs(w).max()
+
+
+def test_block_lanczos_on_invariant_subspaces_and_negative_spectra():
+    # few distinct eigenvalues: the Krylov space becomes invariant after a step or two (the breakdown
+    # path replaces vanished basis rows by fresh orthogonal ones); a negative definite matrix checks
+    # that no spurious zero Ritz value is reported as the largest. Yardstick: numpy.linalg.eigvalsh
+    rng = np.random.default_rng(8)
+    B, _ = np.linalg.qr(rng.standard_normal((200, 3)))
+    P = B @ B.T                                       # eigenvalues 1 (x3) and 0 (x197)
+    for S in (0.5 * P, -0.25 * np.eye(200) - 0.5 * P, 0.5 * P - 0.75 * (np.eye(200) - P)):
+        w = np.linalg.eigvalsh(S)
+        for largest, want in ((True, w[-1]), (False, w[0])):
+            lam, x, r, how = spectral.extreme_eigenpair(S, largest)
+            assert abs(lam - want) <= spectral.VALUE_RTOL * np.abs(w).max() + 1e-15
+            np.testing.assert_allclose(np.linalg.norm(x), 1.0, rtol=1e-12)
+            assert np.linalg.norm(S @ x - lam * x) <= 1e-6 * np.abs(w).max()
+    u, sv, v, res, how = spectral.top_singular_triplet(0.5 * P[:, :150])
+    np.testing.assert_allclose(sv, np.linalg.norm(0.5 * P[:, :150], 2), rtol=1e-9)
