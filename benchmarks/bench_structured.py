@@ -96,7 +96,8 @@ def main(argv=None):
     warnings.simplefilter("ignore")
     lines = [f"# python -m benchmarks.bench_structured {' '.join(argv if argv is not None else sys.argv[1:])}, "
              f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}; load average at the start "
-             f"{os.getloadavg()[0]:.1f} (2 cores shared with other jobs; medians of interleaved repeats)"]
+             f"{os.getloadavg()[0]:.1f} (2 cores shared with other jobs; medians: the native ops interleaved with each other, the reference "
+             f"timed apart in 1-3 calls; the coverage head-to-head at the end interleaves native and reference)"]
 
     def emit(*args):
         """Print a line and keep it for --log."""
