@@ -458,8 +458,10 @@ def _point_entries(node, routes, contract_checked):
     owner = _declaring_class(cls, "point_kernels")
     if owner is None or owner is Family:
         return {}
+    declared = getattr(cls, "_declared_kernels", {})
     ops = [op for op in POINT_OPERATORS if routes[op].category == "native" and op not in contract_checked
-           and _declaring_class(cls, node.kernels[op]) is owner]
+           and _declaring_class(cls, node.kernels[op]) is owner
+           and declared.get(op) is vars(owner).get(node.kernels[op])]
     if not ops:
         return {}
     checked, trusted = node.point_kernels(True), node.point_kernels(False)

@@ -100,6 +100,10 @@ class Family:
                 if op is not None:
                     found[op] = attr
         cls.kernels = found
+        # the kernel functions as declared (routing gives single-point entries only while they are still the
+        # methods in place: a kernel replaced on the class later, e.g. monkeypatched, is served as replaced)
+        cls._declared_kernels = {op: next(vars(k)[attr] for k in cls.__mro__ if attr in vars(k))
+                                 for op, attr in found.items()}
 
     # -- description ---------------------------------------------------------
     @classmethod
