@@ -91,11 +91,29 @@ def _balance(x, tail, head, s, r):
 
 
 @njit(cache=True)
-def _dir_deriv(y, p, d, t, tail, head, lo, hi, s):
-    """phi'(t) for phi(t) = g(p + t d): sum_v d_v (B x(p + t d) - s)_v."""
+def _down(a, n):
+    """A power of two 2^-k (k >= 0) with 2^-k max|a[:n]| <= 1 when max|a| > 1, else 1.0.
+
+    Products and sums of squares of balances and potentials overflow once they pass ~1e154; the
+    kernel forms them on vectors multiplied by such factors (exact: powers of two), so points up
+    to ~1e300 keep finite arithmetic.
+    """
+    amax = 0.0
+    for v in range(n):
+        if abs(a[v]) > amax:
+            amax = abs(a[v])
+    if not amax > 1.0 or not amax < np.inf:
+        return 1.0
+    return np.ldexp(1.0, -int(np.ceil(np.log2(amax))))
+
+
+@njit(cache=True)
+def _dir_deriv(y, p, d, t, tail, head, lo, hi, s, fr, fd):
+    """phi'(t) * fr * fd for phi(t) = g(p + t d): sum_v d_v (B x(p + t d) - s)_v, each term multiplied
+    by the powers of two fr (balances) and fd (direction) so that nothing overflows."""
     acc = 0.0
     for v in range(s.size):
-        acc -= s[v] * d[v]
+        acc -= (s[v] * fr) * (d[v] * fd)
     for e in range(y.size):
         a, b = tail[e], head[e]
         v = y[e] - ((p[a] + t * d[a]) - (p[b] + t * d[b]))
@@ -103,7 +121,7 @@ def _dir_deriv(y, p, d, t, tail, head, lo, hi, s):
             v = lo[e]
         elif v > hi[e]:
             v = hi[e]
-        acc += v * (d[a] - d[b])
+        acc += (v * fr) * ((d[a] - d[b]) * fd)
     return acc
 
 
@@ -120,8 +138,21 @@ def _matvec(d, ft, fh, nf, mu, out):
 
 @njit(cache=True)
 def _cg(r, free, tail, head, mu, rel, max_it, d, res, z, q, w, diag, ft, fh):
-    """Solve (B D B^T + mu I) d = r by Jacobi-preconditioned CG to ||res|| <= rel ||r||."""
+    """Solve (B D B^T + mu I) d = r by Jacobi-preconditioned CG to ||res|| <= rel ||r||.
+
+    The right side is first multiplied by a power of two bringing max|r| to [0.5, 1] (and d by its
+    inverse at the end: exact), so that the inner products neither overflow nor underflow.
+    """
     n = r.size
+    rmax = 0.0
+    for v in range(n):
+        if abs(r[v]) > rmax:
+            rmax = abs(r[v])
+    sc = 1.0
+    if rmax > 0.0 and rmax < np.inf:
+        sc = np.ldexp(1.0, int(np.ceil(np.log2(rmax))))
+        for v in range(n):
+            r[v] = r[v] / sc
     for v in range(n):
         diag[v] = mu
     nf = 0
@@ -168,6 +199,10 @@ def _cg(r, free, tail, head, mu, rel, max_it, d, res, z, q, w, diag, ft, fh):
         rz = rz_new
         for v in range(n):
             q[v] = z[v] + beta * q[v]
+    if sc != 1.0:
+        for v in range(n):
+            d[v] *= sc
+            r[v] *= sc
     return it
 
 
@@ -407,14 +442,16 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
             _balance(x, tail, head, s, r)
             r_warm = 0.0
             for v in range(nn):
-                r_warm += r[v] * r[v]
+                if abs(r[v]) > r_warm:
+                    r_warm = abs(r[v])
             for v in range(nn):
                 d[v] = 0.0
             _primal(y, d, tail, head, lo, hi, x, free)
             _balance(x, tail, head, s, r)
             r_zero = 0.0
             for v in range(nn):
-                r_zero += r[v] * r[v]
+                if abs(r[v]) > r_zero:
+                    r_zero = abs(r[v])
             if r_zero < r_warm:
                 for v in range(nn):
                     p[v] = 0.0
@@ -434,18 +471,23 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
             for c in range(gcount.size):
                 csum[c] = 0.0
             for v in range(nn):
-                csum[gcomp[v]] += p[v]
+                csum[gcomp[v]] += p[v] / gcount[gcomp[v]]      # the mean, without overflow near 1e308
             for v in range(nn):
-                p[v] -= csum[gcomp[v]] / gcount[gcomp[v]]
+                p[v] -= csum[gcomp[v]]
             _primal(y, p, tail, head, lo, hi, x, free)
             _balance(x, tail, head, s, r)
             rn = 0.0
-            gap = 0.0
             for v in range(nn):
                 if abs(r[v]) > rn:
                     rn = abs(r[v])
-                gap += p[v] * r[v]
-            gap = abs(gap)
+            # the gap p^T r formed on power-of-two multiples of p and r (finite up to |p|, |r| ~ 1e300)
+            fp = _down(p, nn)
+            fr = _down(r, nn)
+            gap_s = 0.0
+            for v in range(nn):
+                gap_s += (p[v] * fp) * (r[v] * fr)
+            gap_s = abs(gap_s)
+            gap = gap_s / fp / fr
             # rounding floor of the balances: each sums up to maxdeg terms of size ~ |p| + |y|
             pmax = 0.0
             for v in range(nn):
@@ -460,7 +502,8 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
                 stall = 0
             else:
                 stall += 1
-            if (rn <= tol_r or (rn <= floor and stall >= 3)) and gap <= max(tol_gap, floor * pmax * nn):
+            if (rn <= tol_r or (rn <= floor and stall >= 3)) and \
+                    gap_s <= max(tol_gap * fp * fr, floor * (pmax * fp) * nn * fr):
                 st = 0
                 # primal repair: the balances of x(p) cannot go below the granularity of the
                 # potentials (one ulp of |p| moves a flow by that much), so Newton steps solved to
@@ -503,12 +546,15 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
                     if not rn2 < rn:
                         break
                     rn = rn2
-                    gap = 0.0
                     for v in range(nn):
                         p[v] += d[v]
                         r[v] = r2[v]
-                        gap += p[v] * r2[v]
-                    gap = abs(gap)
+                    fp = _down(p, nn)
+                    fr = _down(r, nn)
+                    gap_s = 0.0
+                    for v in range(nn):
+                        gap_s += (p[v] * fp) * (r[v] * fr)
+                    gap = abs(gap_s) / fp / fr
                     for e in range(m):
                         x[e] = x2[e]
                 break
@@ -542,29 +588,34 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
                     csum[comp[v]] += r[v]
                     ccount[comp[v]] += 1.0
             # (3) Newton step on the component-centred balances
-            rr = 0.0
             for v in range(nn):
                 w[v] = r[v] - csum[comp[v]] / ccount[comp[v]]
-                rr += w[v] * w[v]
-            rnorm = np.sqrt(rr)
+            fw = _down(w, nn)
+            rr = 0.0
+            for v in range(nn):
+                rr += (w[v] * fw) * (w[v] * fw)
+            rnorm = np.sqrt(rr) / fw
             if rnorm <= 0.1 * tol_r:
                 continue
             for v in range(nn):
                 rhs[v] = w[v]
             eta = min(0.1, rnorm / scale)
             cgit[i] += _cg(rhs, free, tail, head, 1e-12, max(eta, 1e-13), 4 * nn + 50, d, res, z, q, w, diag, ft, fh)
+            # phi'(0) = d^T r and phi'(t) below are formed times fr * fd (powers of two): finite at 1e300
+            fr = _down(r, nn)
+            fd = _down(d, nn)
             d0 = 0.0
             for v in range(nn):
-                d0 += d[v] * r[v]
+                d0 += (d[v] * fd) * (r[v] * fr)
             if not d0 > 0.0:
                 continue
             t = 1.0
-            dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s)
+            dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s, fr, fd)
             lo_t, lo_v = 0.0, d0
             while dt > 0.5 * d0 and t < 1e8:
                 lo_t, lo_v = t, dt
                 t *= 4.0
-                dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s)
+                dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s, fr, fd)
             if dt > 0.5 * d0:
                 t = lo_t
             elif dt < -0.5 * d0:
@@ -575,7 +626,7 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
                     t = lo_t + (hi_t - lo_t) * lo_v / (lo_v - hi_v)
                     if not (t > lo_t and t < hi_t):
                         t = 0.5 * (lo_t + hi_t)
-                    dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s)
+                    dt = _dir_deriv(y, p, d, t, tail, head, lo, hi, s, fr, fd)
                     if dt >= -0.5 * d0 and dt <= 0.5 * d0:
                         break
                     if dt > 0.0:
