@@ -727,6 +727,25 @@ class NetworkProjector:
         """
         Y = np.ascontiguousarray(Y, dtype=float)
         p0 = self.potentials if warm else np.zeros_like(self.potentials)
+        X, P, it, rn, gap, st, cg, tol_r, tol_gap = self._project_rows(Y, p0, warm)
+        if warm:
+            # a warm start from another point can lead the far-point rounds astray: such rows get one
+            # cold attempt (from zero potentials) before they are reported as not converged
+            for i in np.flatnonzero(st != 0):
+                X1, P1, it1, rn1, gap1, st1, cg1, _, _ = self._project_rows(Y[i:i + 1], np.zeros_like(p0), False)
+                it[i] += it1[0]
+                cg[i] += cg1[0]
+                if st1[0] == 0:
+                    X[i], P[i], rn[i], gap[i], st[i] = X1[0], P1[0], rn1[0], gap1[0], 0
+        ok = st == 0
+        if ok.any():
+            self.potentials = P[np.flatnonzero(ok)[-1]].copy()
+        else:
+            self.potentials = np.zeros_like(self.potentials)
+        return X, dict(iterations=it, cg_iterations=cg, residual=rn, gap=gap, status=st, tol_r=tol_r, tol_gap=tol_gap)
+
+    def _project_rows(self, Y, p0, warm):
+        """One pass of :meth:`project` without the cold retry: the dual solve, then far-point rounds."""
         (X, P, it, rn, gap, st, cg), tol_r, tol_gap = self._solve(Y, p0, warm)
         X, P = X.copy(), P.copy()
         target = np.maximum(tol_r, 64 * 2.220446049250313e-16 * max(1.0, self.data_scale)
@@ -748,9 +767,4 @@ class NetworkProjector:
                 if rn2[0] <= target[i]:
                     break
             st[i] = 0 if rn[i] <= target[i] else 1
-        ok = st == 0
-        if ok.any():
-            self.potentials = P[np.flatnonzero(ok)[-1]].copy()
-        else:
-            self.potentials = np.zeros_like(self.potentials)
-        return X, dict(iterations=it, cg_iterations=cg, residual=rn, gap=gap, status=st, tol_r=tol_r, tol_gap=tol_gap)
+        return X, P, it, rn, gap, st, cg, tol_r, tol_gap
