@@ -52,18 +52,26 @@ STATUS_TEXT = {0: "converged", 1: "iteration limit reached before the residual a
 
 @njit(cache=True)
 def _reduced(ye, pa, pb):
-    """y_e - (p_a - p_b) with compensated (TwoSum) arithmetic: error ~ eps |result| + eps^2 |y|.
+    """y_e - (p_a - p_b), faithfully rounded: error about one ulp of the result, whatever |y|, |p|.
 
-    Potentials reach the magnitude of y (1e12 and more) while the flow on a free edge is at
-    the scale of the data; plain arithmetic would lose all of it to cancellation.
+    Potentials reach the magnitude of y (1e300 and more) while the flow on a free edge is at the
+    scale of the data; plain arithmetic would lose all of it to cancellation, and a compensated
+    sum still loses everything below eps^2 |p| (1e268 at 1e300: points whose entries span more
+    than 30 orders of magnitude). The three terms are summed exactly into a non-overlapping
+    expansion h0 + h1 + h2 (Knuth's TwoSum, Shewchuk's Grow-Expansion; Shewchuk, "Adaptive
+    precision floating-point arithmetic and fast robust geometric predicates", 1997), rounded
+    from the smallest component up.
     """
-    d = pa - pb
-    bb = d - pa
-    dl = (pa - (d - bb)) + (-pb - bb)            # d + dl = pa - pb exactly (Knuth's TwoSum)
-    s = ye - d
-    bb = s - ye
-    sl = (ye - (s - bb)) + (-d - bb)             # s + sl = ye - d exactly
-    return s + (sl - dl)
+    a1 = ye - pa
+    bb = a1 - ye
+    a0 = (ye - (a1 - bb)) + (-pa - bb)           # a1 + a0 = ye - pa exactly
+    q = pb + a0
+    bb = q - pb
+    h0 = (pb - (q - bb)) + (a0 - bb)             # q + h0 = pb + a0 exactly
+    h2 = q + a1
+    bb = h2 - q
+    h1 = (q - (h2 - bb)) + (a1 - bb)             # h2 + h1 = q + a1 exactly
+    return h2 + (h1 + h0)
 
 
 @njit(cache=True)
@@ -652,6 +660,16 @@ def project_network(Y, P0, tail, head, lo, hi, s, indptr, adj_edge, adj_out,
     return X, P, iters, resid, gaps, status, cgit
 
 
+def _round_expansion(comps):
+    """The value of a non-overlapping expansion (smallest component first), summed from the smallest
+    up: within about one ulp of the exact sum; clipped to +-1e300 (the kernel's range)."""
+    z = np.zeros_like(comps[0])
+    with np.errstate(over="ignore", invalid="ignore"):
+        for c in comps:
+            z = z + c
+    return np.clip(np.nan_to_num(z, nan=0.0), -1e300, 1e300)
+
+
 class NetworkProjector:
     """The arrays of one flow polytope, arranged for :func:`project_network`, plus warm-start potentials.
 
@@ -697,21 +715,48 @@ class NetworkProjector:
         return out, tol_r, tol_gap
 
     def reduce(self, y, p):
-        """y - B^T p (y_e - (p_tail - p_head)) with compensated sums: the same projection problem.
+        """y - B^T p (y_e - (p_tail - p_head)), faithfully rounded (as :func:`_reduced`): the same projection problem.
 
         The set lies in {B x = s}, so ||x - y + B^T p||^2 = ||x - y||^2 + const on it and the
         projection does not change; the free edges of the answer are then small numbers.
         """
         pa, pb = p[self.tail], p[self.head]
-        with np.errstate(over="ignore", invalid="ignore"):
-            d = pa - pb
-            bb = d - pa
-            dl = (pa - (d - bb)) + (-pb - bb)
-            t = y - d
-            bb = t - y
-            tl = (y - (t - bb)) + (-d - bb)
-            z = t + (tl - dl)
+        with np.errstate(over="ignore", invalid="ignore"):      # the exact expansion of _reduced
+            a1 = y - pa
+            bb = a1 - y
+            a0 = (y - (a1 - bb)) + (-pa - bb)
+            q = pb + a0
+            bb = q - pb
+            h0 = (pb - (q - bb)) + (a0 - bb)
+            h2 = q + a1
+            bb = h2 - q
+            h1 = (q - (h2 - bb)) + (a1 - bb)
+            z = h2 + (h1 + h0)
         return np.clip(np.nan_to_num(z, nan=0.0), -1e300, 1e300)
+
+    def _subtract_exact(self, comps, p):
+        """The expansion of (sum of comps) - B^T p, exactly: -p_tail and +p_head are added to the
+        non-overlapping expansion comps (smallest component first) by Shewchuk's Grow-Expansion,
+        vectorized over the edges; components that are zero on every edge are dropped.
+
+        A far point's reduction y - B^T (p_1 + ... + p_k) over several rounds must not round in
+        between: a reduced value as large as 1e284 keeps only its top 53 bits, and the rounding
+        (1e268) would erase the differences of y's smaller entries (a cycle of y summing to 1e189
+        would be taken as balanced); the expansion keeps every bit of y.
+        """
+        for term in (-p[self.tail], p[self.head]):
+            q = term
+            out = []
+            with np.errstate(over="ignore", invalid="ignore"):
+                for h in comps:
+                    s = q + h
+                    bb = s - q
+                    err = (q - (s - bb)) + (h - bb)
+                    out.append(err)
+                    q = s
+            out.append(q)
+            comps = [c for c in out if np.any(c != 0)] or [np.zeros_like(term)]
+        return comps
 
     def project(self, Y, warm=True):
         """Project the rows of Y; returns X and a dict with iterations, residual, gap, status per row.
@@ -753,8 +798,10 @@ class NetworkProjector:
         for i in np.flatnonzero((st == 0) & (rn > target)):
             y = Y[i]
             p = P[i]
+            comps = [y.copy()]          # y - B^T (p_1 + ... + p_k), kept exact as an expansion
             for _round in range(40):
-                z = self.reduce(y, p)
+                comps = self._subtract_exact(comps, p)
+                z = _round_expansion(comps)
                 (x2, p2, it2, rn2, gap2, st2, cg2), _, _ = self._solve(z[None, :], np.zeros_like(p), False)
                 it[i] += it2[0]
                 cg[i] += cg2[0]
