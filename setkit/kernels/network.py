@@ -46,6 +46,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from .. import limits
+
 STATUS_TEXT = {0: "converged", 1: "iteration limit reached before the residual and gap tolerances",
                2: "a component's balance cannot be met (the set looks empty)"}
 
@@ -704,15 +706,45 @@ class NetworkProjector:
         self.gcount = np.bincount(self.gcomp).astype(float)
         self.max_newton = 500
 
+    # networks with at least this many edges run their Newton steps in chunks, between which the
+    # thread's time limit (setkit.time_limit) is checked; smaller ones run in one compiled call
+    chunk_edges = 20_000
+    chunk_steps = 10
+
     def _solve(self, Y, p0, warm):
         scale = np.maximum(max(1.0, self.data_scale), np.abs(Y).max(axis=1, initial=0.0))
         # balances are at the data's scale whatever |y| is (flows are compensated, see _reduced)
         tol_r = np.full(Y.shape[0], self.tol * max(1.0, self.data_scale))
         with np.errstate(over="ignore"):
             tol_gap = self.tol * scale * scale * max(1.0, np.sqrt(self.s.size))
-        out = project_network(Y, p0, self.tail, self.head, self.lo, self.hi, self.s, self.indptr, self.adj_edge,
-                              self.adj_out, tol_r, tol_gap, self.max_newton, warm, scale, self.gcomp, self.gcount)
-        return out, tol_r, tol_gap
+        args = (self.tail, self.head, self.lo, self.hi, self.s, self.indptr, self.adj_edge, self.adj_out)
+        if self.tail.size < self.chunk_edges or not limits.active():
+            out = project_network(Y, p0, *args, tol_r, tol_gap, self.max_newton, warm, scale, self.gcomp, self.gcount)
+            return out, tol_r, tol_gap
+        # row by row, chunk_steps Newton steps at a time, resumed from the potentials reached
+        b, m = Y.shape
+        X, P = np.empty((b, m)), np.empty((b, self.s.size))
+        it, cg, st = np.zeros(b, np.int64), np.zeros(b, np.int64), np.zeros(b, np.int64)
+        rn, gap = np.zeros(b), np.zeros(b)
+        p = p0
+        for i in range(b):
+            w = warm            # warm: row i starts from row i-1's potentials (as the kernel's batches)
+            if not warm:
+                p = p0
+            while True:
+                limits.check(f"projection onto a flow polytope of {m:,} edges (batch row {i})",
+                             lambda: f"balance residual {rn[i]:.3g} after {int(it[i])} Newton steps" if it[i] else None)
+                o = project_network(Y[i:i + 1], p, *args, tol_r[i:i + 1], tol_gap[i:i + 1],
+                                    min(self.chunk_steps, self.max_newton - int(it[i])), w, scale[i:i + 1],
+                                    self.gcomp, self.gcount)
+                w = False
+                X[i], P[i], rn[i], gap[i], st[i] = o[0][0], o[1][0], o[3][0], o[4][0], o[5][0]
+                it[i] += o[2][0]
+                cg[i] += o[6][0]
+                p = P[i]
+                if st[i] != 1 or it[i] >= self.max_newton:
+                    break
+        return (X, P, it, rn, gap, st, cg), tol_r, tol_gap
 
     def reduce(self, y, p):
         """y - B^T p (y_e - (p_tail - p_head)), faithfully rounded (as :func:`_reduced`): the same projection problem.
@@ -800,6 +832,8 @@ class NetworkProjector:
             p = P[i]
             comps = [y.copy()]          # y - B^T (p_1 + ... + p_k), kept exact as an expansion
             for _round in range(40):
+                limits.check(f"projection of a far point onto a flow polytope (batch row {i}, reduction round "
+                             f"{_round + 1})", lambda: f"balance residual {rn[i]:.3g}")
                 comps = self._subtract_exact(comps, p)
                 z = _round_expansion(comps)
                 (x2, p2, it2, rn2, gap2, st2, cg2), _, _ = self._solve(z[None, :], np.zeros_like(p), False)
