@@ -707,7 +707,9 @@ class NetworkProjector:
         self.max_newton = 500
 
     # networks with at least this many edges run their Newton steps in chunks, between which the
-    # thread's time limit (setkit.time_limit) is checked; smaller ones run in one compiled call
+    # thread's time limit (setkit.time_limit) is checked; smaller ones run in one compiled call.
+    # chunk_steps must be at least 4: the kernel accepts a far point's rounding floor after 3 steps
+    # without progress, counted within one call (measured: with chunks of 2, far rows never finish)
     chunk_edges = 20_000
     chunk_steps = 10
 
