@@ -713,12 +713,17 @@ class NetworkProjector:
     chunk_edges = 20_000
     chunk_steps = 10
 
-    def _solve(self, Y, p0, warm):
+    def _tolerances(self, Y):
+        """Per row: (scale, balance tolerance, gap tolerance)."""
         scale = np.maximum(max(1.0, self.data_scale), np.abs(Y).max(axis=1, initial=0.0))
-        # balances are at the data's scale whatever |y| is (flows are compensated, see _reduced)
+        # balances are at the data's scale whatever |y| is (flows are faithfully rounded, see _reduced)
         tol_r = np.full(Y.shape[0], self.tol * max(1.0, self.data_scale))
         with np.errstate(over="ignore"):
             tol_gap = self.tol * scale * scale * max(1.0, np.sqrt(self.s.size))
+        return scale, tol_r, tol_gap
+
+    def _solve(self, Y, p0, warm):
+        scale, tol_r, tol_gap = self._tolerances(Y)
         args = (self.tail, self.head, self.lo, self.hi, self.s, self.indptr, self.adj_edge, self.adj_out)
         if self.tail.size < self.chunk_edges or not limits.active():
             out = project_network(Y, p0, *args, tol_r, tol_gap, self.max_newton, warm, scale, self.gcomp, self.gcount)
@@ -806,7 +811,7 @@ class NetworkProjector:
         """
         Y = np.ascontiguousarray(Y, dtype=float)
         p0 = self.potentials if warm else np.zeros_like(self.potentials)
-        X, P, it, rn, gap, st, cg, tol_r, tol_gap = self._project_rows(Y, p0, warm)
+        X, P, it, rn, gap, st, cg, tol_r, tol_gap = self._project_rows(Y, p0, warm, lp_start=True)
         if warm:
             # a warm start from another point can lead the far-point rounds astray: such rows get one
             # cold attempt (from zero potentials) before they are reported as not converged
@@ -823,8 +828,69 @@ class NetworkProjector:
             self.potentials = np.zeros_like(self.potentials)
         return X, dict(iterations=it, cg_iterations=cg, residual=rn, gap=gap, status=st, tol_r=tol_r, tol_gap=tol_gap)
 
-    def _project_rows(self, Y, p0, warm):
-        """One pass of :meth:`project` without the cold retry: the dual solve, then far-point rounds."""
+    # far rows (|y| > lp_far x the data's scale) of networks with at least lp_edges edges start from
+    # the potentials of the LP max <y, x> over the set (HiGHS duals, scaled back): for a far point the
+    # projection's potentials are those plus a correction at the data's scale. Measured on the
+    # 20,000-edge flow of benchmarks/flow_scaling: Newton steps 44 -> 4 at |y| = 1e16 (4.1 s -> 1.5 s
+    # with the far-point rounds), 45 -> 13 at 1e6. Only the start changes: the stopping rule is the same.
+    lp_far = 1e4
+    lp_edges = 5_000
+
+    def _lp_potentials(self, y):
+        """Node potentials p with y_e - (p_tail - p_head) ~ 0 on the edges of the face maximizing <y, x>
+        (minus the LP duals of the balance rows, times the power of two that scaled y), or None when
+        the LP does not solve (unbounded along a cycle of uncapacitated edges, or a solver failure)."""
+        from scipy.optimize import linprog
+        top = float(np.abs(y).max(initial=0.0))
+        if not (top > 0.0 and np.isfinite(top)):
+            return None
+        sig = float(np.ldexp(1.0, int(np.ceil(np.log2(top)))))
+        opts = {}
+        left = limits.remaining()
+        if left is not None:
+            opts["time_limit"] = max(left, 1e-3)
+        try:
+            res = linprog(-y / sig, A_eq=self._incidence(), b_eq=self.s, bounds=np.column_stack([self.lo, self.hi]),
+                          method="highs", options=opts)
+            if res.status != 0:
+                return None
+            lam = np.asarray(res.eqlin.marginals, dtype=float)
+        except (ValueError, AttributeError, TypeError):
+            return None
+        with np.errstate(over="ignore", invalid="ignore"):
+            p = -sig * lam
+        return p if np.all(np.isfinite(p)) else None
+
+    def _incidence(self):
+        import scipy.sparse as sp
+        if getattr(self, "_B", None) is None:
+            m, n = self.tail.size, self.s.size
+            cols = np.arange(m)
+            self._B = sp.csr_matrix((np.concatenate([np.ones(m), -np.ones(m)]),
+                                     (np.concatenate([self.tail, self.head]), np.concatenate([cols, cols]))),
+                                    shape=(n, m))
+        return self._B
+
+    def _project_rows(self, Y, p0, warm, lp_start=False):
+        """One pass of :meth:`project` without the cold retry: the dual solve (far rows of large networks
+        from LP potentials when ``lp_start``), then far-point rounds."""
+        far = np.zeros(Y.shape[0], bool)
+        if lp_start and self.tail.size >= self.lp_edges:
+            far = np.abs(Y).max(axis=1, initial=0.0) > self.lp_far * max(1.0, self.data_scale)
+        if far.any():
+            out = [None] * Y.shape[0]
+            near = np.flatnonzero(~far)
+            if near.size:
+                res = self._project_rows(Y[near], p0, warm)
+                for k, i in enumerate(near):
+                    out[i] = tuple(a[k:k + 1] for a in res[:7])
+            for i in np.flatnonzero(far):
+                start = self._lp_potentials(Y[i])
+                res = self._project_rows(Y[i:i + 1], p0 if start is None else start, warm and start is None)
+                out[i] = res[:7]
+            X, P, it, rn, gap, st, cg = (np.concatenate([o[j] for o in out]) for j in range(7))
+            _, tol_r, tol_gap = self._tolerances(Y)
+            return X, P, it, rn, gap, st, cg, tol_r, tol_gap
         (X, P, it, rn, gap, st, cg), tol_r, tol_gap = self._solve(Y, p0, warm)
         X, P = X.copy(), P.copy()
         target = np.maximum(tol_r, 64 * 2.220446049250313e-16 * max(1.0, self.data_scale)
