@@ -432,6 +432,8 @@ class SetFuzzer:
     def _in_orthant(self):
         try:
             v = self.K.node.orthant_violation()
+            if v is NotImplemented and self.K.routes()["project_kl"].provider == "reference":
+                v = self.K.workspace("reference").orthant_violation()       # one LP per coordinate
         except Exception:
             return False
         return v is None or v == ""

@@ -267,6 +267,18 @@ def kl_face_rows(form, X, V, tol=None):
     return _face_rows(form, X, V, tol, weighted=True)
 
 
+def _tight_rel(context, op):
+    """How close (relative) a constraint must be to count as tight at the answer of ``op``.
+
+    1e-9; the accuracy a combinator states for its projection (splitting methods) when larger;
+    at least 1e-7 when a generic solver served ``op`` (tight within its stopping tolerance).
+    """
+    rel = max(1e-9, float(getattr(context.node, "accuracy", 0.0) or 0.0))
+    if context.routes()[op].category in ("backend", "reference"):
+        rel = max(rel, 1e-7)
+    return rel
+
+
 def form_kl_jvp(run, context):
     """The generic face route of ``project_kl_jvp`` on flat batches of log inputs (built by routing).
 
@@ -278,9 +290,7 @@ def form_kl_jvp(run, context):
     def jvp(T, V):
         X, info = run("project_kl", T)
         form = context.linear_form()
-        rel = max(1e-9, float(getattr(context.node, "accuracy", 0.0) or 0.0))
-        if context.routes()["project_kl"].category in ("backend", "reference"):
-            rel = max(rel, 1e-7)
+        rel = _tight_rel(context, "project_kl")
         return kl_face_rows(form, X, V, _activity_tol(form, X) * (rel / 1e-9)), info
     return jvp
 
@@ -298,10 +308,7 @@ def form_jvp(run, context):
     def jvp(Y, V):
         P, info = run("project", Y)
         form = context.linear_form()
-        # the accuracy a combinator states for its projection (splitting methods) sets what counts as tight
-        rel = max(1e-9, float(getattr(context.node, "accuracy", 0.0) or 0.0))
-        if context.routes()["project"].category == "backend":
-            rel = max(rel, 1e-7)     # a QP solver's answer: tight within its stopping tolerance
+        rel = _tight_rel(context, "project")
         if form is not None and form.n_aux == 0:
             return face_projector_rows(form, P, V, _activity_tol(form, P) * (rel / 1e-9)), info
         return intersect_tangents_rows(context.parts, P, np.asarray(V, dtype=float), rel, Y=Y), info

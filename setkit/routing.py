@@ -256,6 +256,15 @@ def _has_form_without_aux(node):
     return form is not None and form.n_aux == 0
 
 
+def _outside_orthant(node):
+    """The family's own sentence saying why the set leaves x >= 0, or "" (inside, or not known without LPs)."""
+    try:
+        why = node.orthant_violation()
+    except Exception:                                   # noqa: BLE001 - a hook that fails leaves the route as it was
+        return ""
+    return why if isinstance(why, str) else ""
+
+
 def _faces_of_parts(node):
     from .derivatives import faces_of_parts_apply
     return faces_of_parts_apply(node)
@@ -296,6 +305,11 @@ def choose(node, overrides: dict | None = None) -> dict:
                 routes[op] = _strategy_route(cls, op, True, why)
             else:
                 routes[op] = _backend_route(op, node, want, True)
+            continue
+        if op == "project_kl" and _outside_orthant(node):
+            # the family knows its set leaves x >= 0: no route can serve it (a native kernel would only refuse)
+            routes[op] = Route(op, "none", "the KL (relative entropy) projection needs a set inside the nonnegative "
+                               f"orthant x >= 0, but {_outside_orthant(node)}", category="none")
             continue
         if op in node.kernels:
             routes[op] = _native_route(node, op, False)
@@ -390,6 +404,9 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             calls[op] = _backend_chain(op, chain, context, node)
         else:
             def unsupported(*a, _op=op, _why=r.reason):
+                if _op == "project_kl" and _outside_orthant(node):
+                    from .kernels.bregman import outside_orthant_error
+                    raise outside_orthant_error(node.label, _outside_orthant(node))
                 raise UnsupportedOperationError(f"{_op} on {node.label}: {_why}.")
             calls[op] = unsupported
     # scale guards (found by benchmarks/fuzz_operators.py): the LMO is unchanged when a row of c is multiplied by
@@ -403,6 +420,14 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
         calls["support"] = _overflow_safe_support(calls["support"], pair=True)
         if "support" in direct:
             direct["support"] = _overflow_safe_support(direct["support"], pair=False)
+    if routes["project_kl"].category == "backend" and routes["lmo"].provider != "none":
+        from .contract import checked_kl_projection
+        r = routes["project_kl"]
+        calls["project_kl"] = checked_kl_projection(calls["project_kl"], node, lambda G: run("lmo", G)[0],
+                                                    r.provider, loose=bool(getattr(context, "_loose", False)))
+        routes["project_kl"] = Route("project_kl", r.provider, r.reason + "; every answer's Bregman gap is checked "
+                                     "(one LMO per row; SolveError above 1e-6 x scale x sqrt(n))", r.source,
+                                     r.category, r.forced)
     unchecked = _bind_contract(node, routes, calls, direct, run, context)
     return Plan(node, MappingProxyType(routes), MappingProxyType(calls), MappingProxyType(direct),
                 MappingProxyType(unchecked))

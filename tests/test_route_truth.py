@@ -130,3 +130,19 @@ def test_reported_route_is_the_code_that_ran(path, monkeypatch):
         assert not served_op, f"{path}: {op} reports {want[0]} but {served_op} also served it"
         checked += 1
     assert checked >= 4
+
+
+@pytest.mark.parametrize("description", [
+    {"kind": "spectraplex", "n": 3},
+    {"kind": "nuclear_ball", "rows": 2, "cols": 3, "radius": 1.0},
+    {"kind": "spectral_ball", "rows": 2, "cols": 2, "radius": 1.0},
+])
+def test_kl_route_of_a_set_outside_the_orthant_says_none_and_why(description):
+    """A set that leaves x >= 0 has no KL projection: explain() says "none" with the family's reason
+    (it used to name the conic reference, which then refused at call time)."""
+    K = setkit.compile(description)
+    route = K.routes()["project_kl"]
+    assert route.provider == "none"
+    assert "nonnegative orthant" in route.reason
+    with pytest.raises(setkit.errors.UnsupportedOperationError, match="nonnegative orthant"):
+        K.project(np.ones(K.shape), geometry="kl")

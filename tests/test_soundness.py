@@ -128,3 +128,80 @@ def test_budget_of_a_tiny_total_is_exact_on_ordinary_inputs(total):
     K = setkit.compile({"kind": "budget", "dim": 3, "total": total, "upper": 0.6 * total})
     x = K.project([1.0, 0.5, 0.3])
     assert (x / total).tolist() == pytest.approx([0.6, 0.4, 0.0], rel=1e-12, abs=1e-12) and K.contains(x)
+
+
+# found by benchmarks/fuzz_operators.py (seed 3, band "mixed"): a point mixing 1e167 with 1e-275 made
+# the HiGHS active-set QP cycle inside the solver for minutes; it now stops at its iteration bound
+SECTOR_Y = np.array([-2.36512987e-058, 4.13240394e-087, -8.33110642e-184, 1.73117166e-275, -1.16761012e+000,
+                     -7.35530377e-119, -1.09957158e+167, 6.47607500e+017, -1.01919244e-019, 1.66779966e-219])
+SECTOR = {"kind": "intersection", "of": [
+    {"kind": "simplex", "dim": 10}, {"kind": "box", "dim": 10, "lower": 0, "upper": 0.2},
+    {"kind": "polyhedron", "A": [[1, 1, 1, 1, 0, 0, 0, 0, 0, 0], [0, 0, 0, 0, 1, 1, 1, 0, 0, 0],
+                                 [0, 0, 0, 0, 0, 0, 0, 1, 1, 1]], "b": [0.4, 0.3, 0.35]}]}
+
+
+def test_highs_qp_stops_at_its_iteration_bound_on_badly_scaled_costs():
+    K = setkit.compile(SECTOR).with_backends(project="highs_qp")
+    try:
+        rec = K.project(SECTOR_Y, details=True)
+    except SolveError as e:                       # the honest outcome: the bound was hit, and said so
+        assert "Iteration limit" in str(e) or "not solved" in str(e)
+    else:                                         # (far coordinates pulled in first: setkit.backends._far)
+        assert rec.status == "solved" and K.contains(rec.point)
+
+
+def test_far_mixed_scale_point_of_the_sector_portfolio_gets_its_distance():
+    """The answer's reference: cvxpy on the same point with the two huge coordinates replaced by +-1e3,
+    which pins them at the same bounds (x6 = 0, x7 = 0.2: their pull dominates every multiplier), so the
+    projection is the same point; the distance is then dominated by |y6| = 1.0995...e167."""
+    import cvxpy as cp
+    K = setkit.compile(SECTOR)
+    y = SECTOR_Y.copy()
+    y[6], y[7] = -1e3, 1e3
+    x = cp.Variable(10)
+    A = np.array(SECTOR["of"][2]["A"], dtype=float)
+    cp.Problem(cp.Minimize(cp.sum_squares(x - y)), [cp.sum(x) == 1, x >= 0, x <= 0.2, A @ x <= [0.4, 0.3, 0.35]]
+               ).solve(solver=cp.CLARABEL)
+    p_ref = np.array(x.value)
+    assert abs(p_ref[6]) < 1e-7 and abs(p_ref[7] - 0.2) < 1e-7
+    r = p_ref - SECTOR_Y
+    expected = float(np.abs(r).max() * np.linalg.norm(r / np.abs(r).max()))      # no overflow of the squares
+    try:
+        d = K.distance(SECTOR_Y)
+    except SolveError:
+        return                                    # allowed: an error saying why (never a wrong number)
+    assert d == pytest.approx(expected, rel=1e-12)
+
+
+def _example_sets():
+    from setkit.families import known_kinds, lookup
+    for kind in known_kinds():
+        if not lookup(kind).__module__.startswith("setkit."):
+            continue
+        for i, spec in enumerate(lookup(kind).examples()):
+            yield pytest.param(spec, id=f"{kind}[{i}]")
+
+
+@pytest.mark.parametrize("spec", list(_example_sets()))
+def test_every_operator_takes_an_empty_batch(spec):
+    """Found by the operator fuzzer (seed 3): an empty batch reached a reduction inside the linear-image
+    projection (ValueError). Every served operator of every built-in example answers an empty batch with
+    an empty answer of the right shape, or refuses with setkit's own error."""
+    K = setkit.compile(spec)
+    Z = np.zeros((0,) + K.shape)
+    routes = K.routes()
+    calls = {"project": (Z,), "distance": (Z,), "lmo": (Z,), "support": (Z,), "contains": (Z,), "violation": (Z,),
+             "project_jvp": (Z, Z), "project_vjp": (Z, Z)}
+    for op, args in calls.items():
+        if routes[op].provider == "none":
+            continue
+        out = getattr(K, op)(*args)
+        want = (0,) + K.shape if op in ("project", "lmo", "project_jvp", "project_vjp") else (0,)
+        assert np.shape(out) == want, (op, np.shape(out))
+    if routes["project_kl"].provider != "none":
+        try:
+            out = K.project(np.ones((0,) + K.shape), geometry="kl")
+        except setkit.errors.UnsupportedOperationError as e:      # the orthant check by LPs (sets that leave it)
+            assert "nonnegative orthant" in str(e)
+        else:
+            assert out.shape == (0,) + K.shape

@@ -44,6 +44,8 @@ import numpy as np
 import scipy.sparse as sp
 
 from ..errors import SolveError
+from ..limits import check as _check_time
+from ..limits import remaining as _remaining
 
 FEASIBILITY_TOL = 1e-10      # HiGHS primal and dual feasibility tolerances
 WARM_MIN_ITER = 25           # iteration limit of a warm attempt: max(this, last cold pivots // WARM_SHARE)
@@ -212,6 +214,8 @@ class HighsWorkspace(_Arrays):
             h.clearSolver()
         h.setOptionValue("simplex_strategy", 4 if warm else 1)     # primal from a basis, else dual
         h.setOptionValue("simplex_iteration_limit", int(limit) if limit is not None else 2**31 - 1)
+        left = _remaining()           # inside setkit.time_limit: HiGHS stops by itself at the deadline
+        h.setOptionValue("time_limit", float("inf") if left is None else max(1e-3, left))
         h.run()
         return h.getModelStatus(), int(h.getInfo().simplex_iteration_count)
 
@@ -267,6 +271,8 @@ class HighsWorkspace(_Arrays):
             self._feasible = False
             return LpAnswer("infeasible", None, iters, f"infeasible; {how}")
         text = self.h.modelStatusToString(status)
+        if status == MS.kTimeLimit:
+            _check_time(f"highs LP ({self.label})")       # the caller's deadline passed: TimeLimitError
         raise SolveError(f"highs ({self.label}): the LP did not solve (HiGHS model status {text!r} after "
                          f"{iters} pivots).", status=text)
 
@@ -275,8 +281,13 @@ class HighsWorkspace(_Arrays):
         if self._feasible is None:
             self.h.changeColsCost(self.n, self._idx, np.zeros(self.n))
             status, _ = self._run(False, None)
-            self._feasible = status == self._MS.kOptimal
             self._has_basis = False
+            if status not in (self._MS.kOptimal, self._MS.kInfeasible):
+                # stopped before deciding (the caller's time limit): decide again next time
+                _check_time(f"highs LP feasibility check ({self.label})")
+                raise SolveError(f"highs ({self.label}): the feasibility check did not finish (HiGHS model status "
+                                 f"{self.h.modelStatusToString(status)!r}).", status="undecided")
+            self._feasible = status == self._MS.kOptimal
         return self._feasible
 
 

@@ -195,7 +195,19 @@ class Intersection(Family):
         return tuple(self.parts)
 
     def scale(self):
-        return max(p.scale() for p in self.parts)
+        # the intersection lies inside every bounded part, whose data magnitude bounds its points: the
+        # smallest of those (the largest part's made a simplex of total 1e-6 inside an l1 ball of radius
+        # 1e6 accept answers 0.1 outside the simplex); an unbounded part's data says nothing of the extent
+        bounded = [p.scale() for p in self.parts if p.has_trait("bounded")]
+        return min(bounded) if bounded else max(p.scale() for p in self.parts)
+
+    def orthant_violation(self):
+        """Inside x >= 0 when one part is (the intersection lies in it); otherwise unknown (LPs decide)."""
+        for p in self.parts:
+            why = p.orthant_violation()
+            if why is None or why == "":
+                return None
+        return NotImplemented
 
     def cvxpy_constraints(self, x):
         cons = []

@@ -89,6 +89,14 @@ class Product(Family):
     def scale(self):
         return max(b.scale() for b in self.blocks)
 
+    def orthant_violation(self):
+        """Outside x >= 0 when a block is (its reason); inside when every block says so; else unknown."""
+        verdicts = [b.orthant_violation() for b in self.blocks]
+        for b, why in zip(self.blocks, verdicts):
+            if isinstance(why, str) and why:
+                return f"its block {b.label} leaves it: {why}"
+        return None if all(why is None or why == "" for why in verdicts) else NotImplemented
+
     def _groups(self):
         """How the positions are served, one entry per batched call.
 

@@ -103,6 +103,13 @@ class Ball(Family):
     def scale(self):
         return float(max(1.0, self.radius, np.abs(self.center).max()))
 
+    def orthant_violation(self):
+        """Why the ball leaves x >= 0 (min of x_i over it is c_i - r in every p-norm), else None."""
+        i = int(np.argmin(self._lo))
+        if self._lo[i] >= 0.0:
+            return None
+        return f"the set holds points with x[{i}] = {self._lo[i]:.6g} < 0 (center[{i}] - radius)"
+
     def cvxpy_constraints(self, x):
         import cvxpy as cp
         p = np.inf if self.norm == "inf" else self.norm

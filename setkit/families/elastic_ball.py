@@ -6,16 +6,16 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import SolveError
-from ..kernels.bregman import outside_orthant_error
 from ..kernels.norm_balls import elastic_level, elastic_lmo_rows, elastic_rows
-from ..kernels.spectral import pow2_scales, row_norms
+from ..kernels.spectral import pow2_scales
 from ..kernels.structured_faces import elastic_face_rows
 from . import Family, kernel, register
+from ._centered_ball import CenteredBall
 
 
 @register("elastic_ball")
 @dataclass(frozen=True, eq=False, kw_only=True)
-class ElasticBall(Family):
+class ElasticBall(CenteredBall, Family):
     """K = {x in R^n : a ||x||_1 + (1 - a)/2 ||x||_2^2 <= radius}, a = mix in [0, 1].
 
     The definition used here: a sublevel set of the elastic-net penalty (a = 1: the l1 ball of
@@ -111,6 +111,10 @@ class ElasticBall(Family):
             return v
 
     # -- native kernels ---------------------------------------------------------------------------
+    def axis_reach(self):
+        """The largest t with t e_1 in the set."""
+        return elastic_level(self.mix, 1.0 - self.mix, self.radius)
+
     @kernel("project")
     def project(self, Y):
         """Soft threshold then scale, Newton on the multiplier from a lower bound (few O(n) steps), O(n) per step."""
@@ -141,25 +145,10 @@ class ElasticBall(Family):
         elastic_face_rows(Y, P, self.mix, 1.0 - self.mix, boundary, np.ascontiguousarray(V, dtype=float), out)
         return out
 
-    @kernel("distance")
-    def distance(self, Y):
-        """||y - project(y)||, O(n) per Newton step."""
-        return row_norms(Y - self.project(Y))
-
     @kernel("violation")
     def violation(self, X):
         """max(mix ||x||_1 + (1 - mix)/2 ||x||^2 - radius, 0), O(n)."""
         return np.maximum(self.value(X) - self.radius, 0.0)
-
-    @kernel("contains")
-    def contains(self, X, tol):
-        """violation 0, or distance <= tol, O(n)."""
-        v = self.violation(X)
-        res = v == 0.0
-        if not res.all():
-            rest = ~res
-            res[rest] = self.distance(X[rest]) <= tol[rest]
-        return res
 
     @kernel("lmo")
     def lmo(self, C):
@@ -175,22 +164,3 @@ class ElasticBall(Family):
     def support(self, C):
         """<c, x> at the maximizer (the LMO of -c), O(n log n)."""
         return np.einsum("ij,ij->i", C, self.lmo(-C))
-
-    @kernel("project_kl")
-    def project_kl(self, T):
-        """No KL projection: the set is not inside the nonnegative orthant (raises; radius 0: the origin)."""
-        why = self.orthant_violation()
-        if why:
-            raise outside_orthant_error(self.label, why)
-        return np.zeros_like(T)
-
-    def orthant_violation(self):
-        """Why the set is not inside the nonnegative orthant (None for radius 0: the set is {0})."""
-        if self.radius == 0.0:
-            return None
-        return (f"the set is centred at the origin, so it holds points with a negative coordinate "
-                f"(e.g. x = -{float(elastic_level(self.mix, 1.0 - self.mix, self.radius)):.6g} e_1)")
-
-    def exact_centroid(self, measure):
-        """The origin for every measure (the set is symmetric under x -> -x)."""
-        return np.zeros(self.shape)

@@ -6,15 +6,15 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..kernels.simplex import project_capped
-from ..kernels.bregman import outside_orthant_error
-from ..kernels.spectral import pow2_scales, row_norms
+from ..kernels.spectral import pow2_scales
 from ..kernels.structured_faces import group_face_rows
 from . import Family, kernel, register
+from ._centered_ball import CenteredBall
 
 
 @register("group_ball")
 @dataclass(frozen=True, eq=False, kw_only=True)
-class GroupBall(Family):
+class GroupBall(CenteredBall, Family):
     """K = {x in R^n : sum_g w_g ||x_g||_2 <= radius}, the groups g partitioning the coordinates.
 
     Groups are given as ``groups`` (lists of 0-based indices covering 0..n-1 once) or as ``dim``
@@ -154,6 +154,10 @@ class GroupBall(Family):
         return t, np.sqrt(sq)
 
     # -- native kernels ---------------------------------------------------------------------------
+    def axis_reach(self):
+        """The largest t with t e_1 in the set."""
+        return self.radius / float(self._w[0])
+
     @kernel("project")
     def project(self, Y):
         """Weighted l1-ball projection of the group norms (knapsack threshold), groups rescaled, O(n)."""
@@ -198,11 +202,6 @@ class GroupBall(Family):
                         np.ascontiguousarray(V, dtype=float), out)
         return out
 
-    @kernel("distance")
-    def distance(self, Y):
-        """||y - project(y)||, O(n)."""
-        return row_norms(Y - self.project(Y))
-
     @kernel("violation")
     def violation(self, X):
         """max(sum_g w_g ||x_g|| - radius, 0), O(n)."""
@@ -210,16 +209,6 @@ class GroupBall(Family):
             return np.zeros(0)
         t, a = self._norms(X)
         return np.maximum(t * (a @ self._w) - self.radius, 0.0)
-
-    @kernel("contains")
-    def contains(self, X, tol):
-        """violation 0, or distance <= tol, O(n)."""
-        v = self.violation(X)
-        res = v == 0.0
-        if not res.all():
-            rest = ~res
-            res[rest] = self.distance(X[rest]) <= tol[rest]
-        return res
 
     @kernel("lmo")
     def lmo(self, C):
@@ -245,22 +234,3 @@ class GroupBall(Family):
             return np.zeros(0)
         t, a = self._norms(C)
         return self.radius * t * (a / self._w).max(axis=1)
-
-    @kernel("project_kl")
-    def project_kl(self, T):
-        """No KL projection: the set is not inside the nonnegative orthant (raises; radius 0: the origin)."""
-        why = self.orthant_violation()
-        if why:
-            raise outside_orthant_error(self.label, why)
-        return np.zeros_like(T)
-
-    def orthant_violation(self):
-        """Why the set is not inside the nonnegative orthant (None for radius 0: the set is {0})."""
-        if self.radius == 0.0:
-            return None
-        return (f"the set is centred at the origin, so it holds points with a negative coordinate "
-                f"(e.g. x = -{self.radius / float(self._w[0]):.6g} e_1)")
-
-    def exact_centroid(self, measure):
-        """The origin for every measure (the set is symmetric under x -> -x)."""
-        return np.zeros(self.shape)

@@ -10,17 +10,17 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import SolveError
-from ..kernels.bregman import outside_orthant_error
 from ..kernels.isotonic import decreasing_order
 from ..kernels.norm_balls import ksupport_norm_rows, ksupport_rows
-from ..kernels.spectral import pow2_scales, row_norms
+from ..kernels.spectral import pow2_scales
 from ..kernels.structured_faces import ksupport_face_rows
 from . import Family, kernel, register
+from ._centered_ball import CenteredBall
 
 
 @register("ksupport_ball")
 @dataclass(frozen=True, eq=False, kw_only=True)
-class KSupportBall(Family):
+class KSupportBall(CenteredBall, Family):
     """K = {x in R^n : ||x||_sp(k) <= radius}, the gauge of conv{x : ||x||_0 <= k, ||x||_2 <= 1}.
 
     The norm: ||x||_sp^2 = min over 0 < theta <= 1, sum theta <= k of sum x_i^2 / theta_i, which
@@ -110,6 +110,10 @@ class KSupportBall(Family):
         return t * ksupport_norm_rows(A, np.ascontiguousarray(self._orders(A)), self.k)
 
     # -- native kernels ---------------------------------------------------------------------------
+    def axis_reach(self):
+        """The largest t with t e_1 in the set."""
+        return self.radius
+
     @kernel("project")
     def project(self, Y):
         """Sort |y|, bisection on the multiplier of the squared norm's prox (O(n) per step), O(n log n)."""
@@ -145,27 +149,12 @@ class KSupportBall(Family):
                            self.k, boundary, np.ascontiguousarray(V, dtype=float), out)
         return out
 
-    @kernel("distance")
-    def distance(self, Y):
-        """||y - project(y)||, O(n log n)."""
-        return row_norms(Y - self.project(Y))
-
     @kernel("violation")
     def violation(self, X):
         """max(||x||_sp - radius, 0), O(n log n)."""
         if X.shape[0] == 0:
             return np.zeros(0)
         return np.maximum(self.norm(X) - self.radius, 0.0)
-
-    @kernel("contains")
-    def contains(self, X, tol):
-        """violation 0, or distance <= tol, O(n log n)."""
-        v = self.violation(X)
-        res = v == 0.0
-        if not res.all():
-            rest = ~res
-            res[rest] = self.distance(X[rest]) <= tol[rest]
-        return res
 
     def _top(self, C):
         t = pow2_scales(C)
@@ -199,22 +188,3 @@ class KSupportBall(Family):
             return np.zeros(0)
         t, _, _, nrm = self._top(C)
         return self.radius * t * nrm
-
-    @kernel("project_kl")
-    def project_kl(self, T):
-        """No KL projection: the set is not inside the nonnegative orthant (raises; radius 0: the origin)."""
-        why = self.orthant_violation()
-        if why:
-            raise outside_orthant_error(self.label, why)
-        return np.zeros_like(T)
-
-    def orthant_violation(self):
-        """Why the set is not inside the nonnegative orthant (None for radius 0: the set is {0})."""
-        if self.radius == 0.0:
-            return None
-        return (f"the set is centred at the origin, so it holds points with a negative coordinate "
-                f"(e.g. x = -{self.radius:.6g} e_1)")
-
-    def exact_centroid(self, measure):
-        """The origin for every measure (the set is symmetric under x -> -x)."""
-        return np.zeros(self.shape)

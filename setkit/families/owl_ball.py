@@ -11,12 +11,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import SolveError
-from ..kernels.bregman import outside_orthant_error
 from ..kernels.isotonic import decreasing_order
 from ..kernels.norm_balls import owl_project_sorted, owl_rows
-from ..kernels.spectral import pow2_scales, row_norms
+from ..kernels.spectral import pow2_scales
 from ..kernels.structured_faces import owl_face_rows
 from . import Family, kernel, register
+from ._centered_ball import CenteredBall
 
 # single vectors at least this long take the sort-then-place route
 LONG = 20_000
@@ -24,7 +24,7 @@ LONG = 20_000
 
 @register("owl_ball")
 @dataclass(frozen=True, eq=False, kw_only=True)
-class OwlBall(Family):
+class OwlBall(CenteredBall, Family):
     """K = {x in R^n : Omega(x) = sum_i w_i |x|_(i) <= radius}, w nonincreasing, w >= 0, w_1 > 0.
 
     Projection (exact): the answer keeps the signs of y and the order of |y|; on z = |y| sorted
@@ -123,6 +123,10 @@ class OwlBall(Family):
         return t * (z @ self.weights)
 
     # -- native kernels ---------------------------------------------------------------------------
+    def axis_reach(self):
+        """The largest t with t e_1 in the set."""
+        return self.radius / float(self.weights[0])
+
     @kernel("project")
     def project(self, Y):
         """Sort |y|, Newton on the multiplier with one PAV per step (exact, finite), O(n log n)."""
@@ -190,27 +194,12 @@ class OwlBall(Family):
         owl_face_rows(P, order, self.weights, np.ascontiguousarray(V, dtype=float), boundary, out)
         return out
 
-    @kernel("distance")
-    def distance(self, Y):
-        """||y - project(y)||, O(n log n)."""
-        return row_norms(Y - self.project(Y))
-
     @kernel("violation")
     def violation(self, X):
         """max(Omega(x) - radius, 0) (one sort), O(n log n)."""
         if X.shape[0] == 0:
             return np.zeros(0)
         return np.maximum(self._omega(X) - self.radius, 0.0)
-
-    @kernel("contains")
-    def contains(self, X, tol):
-        """violation 0, or distance <= tol, O(n log n)."""
-        v = self.violation(X)
-        res = v == 0.0
-        if not res.all():
-            rest = ~res
-            res[rest] = self.distance(X[rest]) <= tol[rest]
-        return res
 
     def _dual(self, C):
         """(t, best k per row, order) with the dual norm's maximizing prefix of |c| sorted."""
@@ -243,22 +232,3 @@ class OwlBall(Family):
             return np.zeros(0)
         t, _, _, best = self._dual(C)
         return self.radius * t * best
-
-    def orthant_violation(self):
-        """Why the ball is not inside the nonnegative orthant (None for radius 0: the set is {0})."""
-        if self.radius == 0.0:
-            return None
-        return (f"the ball is centred at the origin, so it holds points with a negative coordinate "
-                f"(e.g. x = -{self.radius / float(self.weights[0]):.6g} e_1)")
-
-    @kernel("project_kl")
-    def project_kl(self, T):
-        """No KL projection: the ball is not inside the nonnegative orthant (raises; radius 0: the origin)."""
-        why = self.orthant_violation()
-        if why:
-            raise outside_orthant_error(self.label, why)
-        return np.zeros_like(T)
-
-    def exact_centroid(self, measure):
-        """The origin for every measure (the set is symmetric under x -> -x)."""
-        return np.zeros(self.shape)

@@ -380,7 +380,7 @@ def project_linear_image(project_part, support_part, M, shift, Y, scale, accurac
     L = float(np.linalg.norm(M, 2)) ** 2
     out = np.empty_like(Y)
     info = _new_info(b)
-    if L == 0.0:
+    if L == 0.0 or b == 0:
         out[:] = shift
         info["status"] = ["solved"] * b
         info["gap"][:] = 0.0
