@@ -19,7 +19,8 @@ One side-by-side run (medians of interleaved repeats) reporting the ratios of pr
 Usage: ``python benchmarks/bench_overhead.py [--quick] [--skip-single] [--skip-batch] [--skip-large]
 [--skip-first]``; the last full
 run is kept in ``benchmarks/bench_overhead_last_run.txt`` (the run before the issue-12 kernels in
-``benchmarks/bench_overhead_before.txt``).
+``benchmarks/bench_overhead_before.txt``); the last single-point section alone (``--skip-batch
+--skip-large --skip-first``) in ``benchmarks/bench_single_point_last_run.txt``.
 Every row says met or missed with its ratio; the load average is printed with the table.
 """
 from __future__ import annotations

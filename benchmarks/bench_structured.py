@@ -62,22 +62,55 @@ def median_times(fns, repeats):
     return {k: float(np.median(v)) for k, v in times.items()}
 
 
+def coverage_head_to_head(emit, repeats, sizes=(50, 100)):
+    """The coverage base polytope (issue 15: slower than the reference at n = 100): native and the
+    cvxpy reference timed alternately in one loop (medians), Euclidean and KL projections."""
+    emit(f"# coverage submodular base, native vs reference interleaved ({max(repeats, 5)} rounds), "
+         f"load average {os.getloadavg()[0]:.1f}")
+    for n in sizes:
+        rng = np.random.default_rng(0)
+        spec = {k: v for k, v in lookup("submodular_base").benchmark_example(n, rng).items() if k != "about"}
+        K = setkit.compile(spec)
+        y = 0.5 + 0.5 * rng.standard_normal(K.dim)
+        t = rng.uniform(-3, 3, K.dim)
+        R = K.with_backends(project="reference", project_kl="reference", loose=True)
+        pairs = {"project": (lambda: K.project(y), lambda: R.project(y)),
+                 "kl": (lambda: K.project(t, geometry="kl", log_input=True),
+                        lambda: R.project(t, geometry="kl", log_input=True))}
+        for op, (f, g) in pairs.items():
+            err = float(np.abs(f() - g()).max())
+            tm = median_times({"native": f, "reference": g}, max(repeats, 5))
+            emit(f"submodular_base  {n:6d} {op:7s} native {1e3 * tm['native']:9.3f} ms  reference "
+                 f"{1e3 * tm['reference']:9.3f} ms  reference/native {tm['reference'] / tm['native']:6.2f}x  "
+                 f"|native - reference| = {err:.1e}  (load {os.getloadavg()[0]:.1f})")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[100, 1000])
     ap.add_argument("--repeats", type=int, default=5)
     ap.add_argument("--seed", type=int, default=0)
     ap.add_argument("--kinds", nargs="+", default=None, help="only these families")
+    ap.add_argument("--log", default=None, help="also write the table (header with the load average) to this file")
     a = ap.parse_args(argv)
     warnings.simplefilter("ignore")
-    print(f"{'family':16s} {'n':>6s} {'op':4s} {'native ms':>10s} {'project ms':>10s} {'form ms':>9s} "
+    lines = [f"# python -m benchmarks.bench_structured {' '.join(argv if argv is not None else sys.argv[1:])}, "
+             f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}; load average at the start "
+             f"{os.getloadavg()[0]:.1f} (2 cores shared with other jobs; medians: the native ops interleaved with each other, the reference "
+             f"timed apart in 1-3 calls; the coverage head-to-head at the end interleaves native and reference)"]
+
+    def emit(*args):
+        """Print a line and keep it for --log."""
+        print(*args)
+        lines.append(" ".join(str(x) for x in args))
+    emit(f"{'family':16s} {'n':>6s} {'op':4s} {'native ms':>10s} {'project ms':>10s} {'form ms':>9s} "
           f"{'reference ms':>12s} {'ref/native':>10s} note")
     for n in a.sizes:
         for kind in [k for k in JVP_KINDS if a.kinds is None or k in a.kinds]:
             rng = np.random.default_rng(a.seed)
             K = instance(kind, n, rng)
             if K is None:
-                print(f"{kind:16s} {n:6d} jvp  (no benchmark instance at this size)")
+                emit(f"{kind:16s} {n:6d} jvp  (no benchmark instance at this size)")
                 continue
             y = rng.standard_normal(K.dim)
             if kind in ("matroid_bases", "paths", "spanning_trees", "submodular_base"):
@@ -102,7 +135,7 @@ def main(argv=None):
                 tr = float("nan")
                 note += f" reference: {type(exc).__name__}"
             t = median_times(fns, a.repeats)
-            print(f"{kind:16s} {K.dim:6d} jvp  {1e3 * t['jvp']:10.3f} {1e3 * t['project']:10.3f} "
+            emit(f"{kind:16s} {K.dim:6d} jvp  {1e3 * t['jvp']:10.3f} {1e3 * t['project']:10.3f} "
                   f"{1e3 * t.get('form', float('nan')):9.3f} {1e3 * tr:12.1f} {tr / t['jvp']:10.0f} "
                   f"jvp/project {t['jvp'] / t['project']:.2f}; {note}")
         for kind in [k for k in KL_KINDS if a.kinds is None or k in a.kinds]:
@@ -120,11 +153,17 @@ def main(argv=None):
                 tr = median_times({"r": lambda: R.project(t, geometry="kl", log_input=True)}, ref_reps)["r"]
             except setkit.errors.SetkitError as exc:
                 err, tr = float("nan"), float("nan")
-                print(f"  reference failed: {exc}")
+                emit(f"  reference failed: {exc}")
             tn = median_times({"n": lambda: K.project(t, geometry="kl", log_input=True)}, a.repeats)["n"]
             d = K.project(t, geometry="kl", log_input=True, details=True)
-            print(f"{kind:16s} {K.dim:6d} kl   {1e3 * tn:10.3f} {'':>10s} {'':>9s} {1e3 * tr:12.1f} {tr / tn:10.0f} "
+            emit(f"{kind:16s} {K.dim:6d} kl   {1e3 * tn:10.3f} {'':>10s} {'':>9s} {1e3 * tr:12.1f} {tr / tn:10.0f} "
                   f"|native - reference| = {err:.1e}; certificate {float(d.certificate):.1e}; {d.backend_status}")
+    if a.kinds is None or "submodular_base" in a.kinds:
+        coverage_head_to_head(emit, a.repeats)
+    if a.log:
+        lines.append(f"# load average at the end {os.getloadavg()[0]:.1f}")
+        with open(a.log, "w") as f:
+            f.write("\n".join(lines) + "\n")
 
 
 if __name__ == "__main__":

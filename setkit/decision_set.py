@@ -13,8 +13,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import AccuracyWarning, InputError, SetkitError, SolveError
-from .routing import build_plan, check_nonempty
+from .errors import AccuracyWarning, InputError, SetkitError, SolveError, TakeGeneralPath
+from .routing import bind_point, build_plan, check_nonempty
 
 
 @dataclass(frozen=True)
@@ -70,6 +70,7 @@ def _finite_max_abs(a):
 
 
 _F64 = np.dtype(np.float64)
+_ND = np.ndarray
 GEOMETRIES = ("euclidean", "kl")
 
 
@@ -115,6 +116,18 @@ class DecisionSet:
         self._routes = self._plan.routes
         # bound native kernels, called directly by the single-point fast path
         self._direct = self._plan.direct
+        # compiled single-point entries (setkit.kernels.point), bound on first use (loading one costs milliseconds)
+        point = self._plan.point
+        for op in ("project", "lmo", "distance", "support"):
+            setattr(self, "_pt_" + op, self._point_binder(op) if op in point else None)
+
+    def _point_binder(self, op):
+        """A stand-in for the checked single-point entry of ``op`` that binds it on its first call."""
+        def first_call(y):
+            f = bind_point(self._plan.point[op][0])
+            setattr(self, "_pt_" + op, f)
+            return f(y)
+        return first_call
 
     # -- performance: trusted-input calls and jitted consumers (issue 12) ---------------------------
     @property
@@ -436,6 +449,13 @@ class DecisionSet:
         >>> setkit.compile({"kind": "simplex", "dim": 2}).project([[2.0, 0.0], [0.5, 0.5]]).tolist()
         [[1.0, 0.0], [0.5, 0.5]]
         """
+        f = self._pt_project
+        if (f is not None and type(y) is _ND and y.dtype is _F64 and y.shape == self._shape and details is False
+                and geometry == "euclidean" and y.flags.carray):     # carray: C-contiguous, aligned, writeable
+            try:
+                return f(y)           # one compiled call: the finiteness check and the native kernel
+            except TakeGeneralPath:
+                pass
         if geometry != "euclidean" and self._geometry(geometry, "project") == "kl":
             if _is_dask(y):
                 return self._lazy("project", [(y, "y")], details, geometry="kl", log_input=log_input)
@@ -473,6 +493,13 @@ class DecisionSet:
                 return self._lazy("distance", [(y, "y")], out_kind="values", geometry="kl", log_input=log_input)
             _, T, X, lead = self._kl_project(y, False, log_input, "distance")
             return self._out_values(kl_divergence(X, T), lead)
+        f = self._pt_distance
+        if (f is not None and type(y) is _ND and y.dtype is _F64 and y.shape == self._shape
+                and geometry == "euclidean" and y.flags.carray):
+            try:
+                return f(y)[0]
+            except TakeGeneralPath:
+                pass
         d = self._fast("distance", y)
         if d is not None:
             return d[0] if type(d) is np.ndarray and d.shape == (1,) else self._out_values(d, ())
@@ -589,6 +616,13 @@ class DecisionSet:
         >>> setkit.compile({"kind": "permutahedron", "weights": [3, 2, 1]}).lmo([0.5, -1.0, 2.0]).tolist()
         [2.0, 3.0, 1.0]
         """
+        f = self._pt_lmo
+        if (f is not None and type(c) is _ND and c.dtype is _F64 and c.shape == self._shape and details is False
+                and c.flags.carray):
+            try:
+                return f(c)
+            except TakeGeneralPath:
+                pass
         if not details:
             L = self._fast("lmo", c)
             if L is not None:
@@ -617,6 +651,12 @@ class DecisionSet:
         >>> float(setkit.compile({"kind": "ball", "dim": 2, "norm": 1, "radius": 2}).support([3.0, -4.0]))
         8.0
         """
+        f = self._pt_support
+        if f is not None and type(c) is _ND and c.dtype is _F64 and c.shape == self._shape and c.flags.carray:
+            try:
+                return f(c)[0]
+            except TakeGeneralPath:
+                pass
         v = self._fast("support", c)
         if v is not None:
             return v[0] if type(v) is np.ndarray and v.shape == (1,) else self._out_values(v, ())
@@ -905,17 +945,40 @@ class UncheckedOperators:
         shape, dim = self._shape, self._dim
         label = self._set.node.label
         points = op in ("project", "lmo")
+        entry = self._set.plan.point.get(op)
 
-        def call(a):
-            if type(a) is not np.ndarray or a.dtype != _F64 or a.shape != shape or not a.flags.c_contiguous:
-                raise InputError(f"unchecked {op} on {label}: expects one float64 C-contiguous numpy array of "
-                                 f"shape {shape}; got {type(a).__name__} {getattr(a, 'dtype', '')} "
-                                 f"{getattr(a, 'shape', '')}. Use numpy.ascontiguousarray(a, dtype=float) or "
-                                 f"the checked K.{op}.")
+        def refuse(a):
+            raise InputError(f"unchecked {op} on {label}: expects one float64 C-contiguous numpy array of "
+                             f"shape {shape}; got {type(a).__name__} {getattr(a, 'dtype', '')} "
+                             f"{getattr(a, 'shape', '')}. Use numpy.ascontiguousarray(a, dtype=float) or "
+                             f"the checked K.{op}.")
+
+        def kernel_call(a):
             out = fn(a.reshape(1, dim))
             if type(out) is tuple:
                 out = out[0]
             return out.reshape(shape) if points else out[0]
+
+        if entry is None:
+            def call(a):
+                if type(a) is not np.ndarray or a.dtype != _F64 or a.shape != shape or not a.flags.c_contiguous:
+                    refuse(a)
+                return kernel_call(a)
+        else:
+            def f(a):                             # binds the compiled entry without the finiteness check on first use
+                nonlocal f
+                f = bind_point(entry[1])
+                return f(a)
+
+            def call(a):
+                if type(a) is _ND and a.dtype is _F64 and a.shape == shape and a.flags.carray:
+                    try:
+                        return f(a) if points else f(a)[0]
+                    except TakeGeneralPath:       # a point the entry leaves to the batch kernel (e.g. far budget points)
+                        return kernel_call(a)
+                if type(a) is not np.ndarray or a.dtype != _F64 or a.shape != shape or not a.flags.c_contiguous:
+                    refuse(a)
+                return kernel_call(a)             # read-only or unaligned: the kernel's own typing
         call.__name__ = op
         call.__doc__ = f"{op} of one trusted point (no finiteness check)."
         return call

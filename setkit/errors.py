@@ -26,6 +26,11 @@ class EmptySetError(DescriptionError):
     """The described set has no point (for example unbalanced supplies)."""
 
 
+class TakeGeneralPath(SetkitError):
+    """Internal signal, never raised to callers: a compiled single-point kernel
+    (:mod:`setkit.kernels.point`) leaves this point to the general path of the operator."""
+
+
 class InputError(SetkitError, ValueError):
     """A point, direction or argument passed to an operator is invalid."""
 

@@ -178,6 +178,9 @@ class Plan:
     direct: Mapping[str, Callable]
     unchecked: Mapping[str, Callable] = field(default_factory=lambda: MappingProxyType({}))
     """the raw native kernels of routes whose ``direct`` entry runs the contract's check (K.unchecked)"""
+    point: Mapping[str, tuple] = field(default_factory=lambda: MappingProxyType({}))
+    """operator -> (checked, unchecked) single-point entries ``(function, leading arguments)`` of native
+    routes (the family's ``point_kernels`` hook); bind them with :func:`bind_point`"""
 
     def run(self, op: str, X, tol=None):
         fn = self.calls[op]
@@ -429,8 +432,55 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
                                      "(one LMO per row; SolveError above 1e-6 x scale x sqrt(n))", r.source,
                                      r.category, r.forced)
     unchecked = _bind_contract(node, routes, calls, direct, run, context)
+    point = _point_entries(node, routes, unchecked) if not has_parts else {}
     return Plan(node, MappingProxyType(routes), MappingProxyType(calls), MappingProxyType(direct),
-                MappingProxyType(unchecked))
+                MappingProxyType(unchecked), MappingProxyType(point))
+
+
+def _declaring_class(cls, attr):
+    for klass in cls.__mro__:
+        if attr in vars(klass):
+            return klass
+    return None
+
+
+POINT_OPERATORS = ("project", "lmo", "distance", "support")
+"""the operators a family's ``point_kernels`` may serve (points for the first two, (1,) values for the others)"""
+
+
+def _point_entries(node, routes, contract_checked):
+    """The family's single-point entries of its native routes of POINT_OPERATORS (see Family.point_kernels).
+
+    Only for a native route without the contract's check whose kernel method is declared by the
+    class that declares the hook (a subclass that overrides a kernel does not inherit the entry)."""
+    cls = type(node)
+    from .families import Family
+    owner = _declaring_class(cls, "point_kernels")
+    if owner is None or owner is Family:
+        return {}
+    ops = [op for op in POINT_OPERATORS if routes[op].category == "native" and op not in contract_checked
+           and _declaring_class(cls, node.kernels[op]) is owner]
+    if not ops:
+        return {}
+    checked, trusted = node.point_kernels(True), node.point_kernels(False)
+    return {op: (checked[op], trusted[op]) for op in ops if op in checked and op in trusted}
+
+
+def bind_point(entry):
+    """``f(y)`` for a single-point entry ``(function, leading arguments)``: a numba dispatcher is
+    called through the compiled entry point of the signature (leading arguments, float64 1-d C
+    array), which skips the dispatcher's type resolution. The caller checks the point's type,
+    dtype (float64 in native byte order), shape and flags (``carray``: C-contiguous, aligned,
+    writeable) first: the entry point trusts them."""
+    from functools import partial
+    fn, args = entry
+    if hasattr(fn, "overloads") and hasattr(fn, "compile"):
+        from numba import typeof, types
+        try:
+            fn = fn.compile(tuple(typeof(a) for a in args) + (types.Array(types.float64, 1, "C"),))
+        except Exception:  # noqa: BLE001 - the dispatcher itself still serves (slower type resolution)
+            pass
+    return partial(fn, *args)
 
 
 def _bind_contract(node, routes, calls, direct, run, context):

@@ -1,8 +1,9 @@
 """explain() tells the truth: for every catalog entry, each operator's reported route is the code
 path that actually ran.
 
-Every candidate implementation of the top node is instrumented (the family's native kernels, the
-combinator strategies of its kind, every backend's operator methods, the linear form's violation);
+Every candidate implementation of the top node is instrumented (the family's native kernels and
+their compiled single-point entries, the combinator strategies of its kind, every backend's operator
+methods, the linear form's violation);
 a call records (provider, operator) when it serves the top node itself. Then each public operator is
 called once and the record must show the route's provider serving that operator (for a derived
 route: the provider of its source operator serving the source operator) and no other provider
@@ -31,6 +32,8 @@ class Recorder:
         cls = type(node)
         for op, attr in cls.kernels.items():
             self._wrap(monkeypatch, cls, attr, "native", op, lambda obj: obj)
+        if "point_kernels" in vars(cls):      # the single-point fast path of the native project / lmo
+            self._wrap_points(monkeypatch, cls)
         for strat in strategies_for(node.kind):
             for op in strat.operators:
                 self._wrap(monkeypatch, strat, op, strat.name, op, lambda obj: obj.node)
@@ -63,6 +66,22 @@ class Recorder:
                 rec.calls.append(("screen", "contains"))
             return v
         monkeypatch.setattr(cls, "membership_screen", node_screen)
+
+    def _wrap_points(self, monkeypatch, cls):
+        orig = cls.point_kernels
+        rec = self
+
+        def point_kernels(obj, check=True):
+            entries = orig(obj, check)
+            out = {}
+            for op, (fn, args) in entries.items():
+                def recorded(*a, _fn=fn, _op=op):
+                    if obj is rec.node:      # bound at compile time, before the test names its node
+                        rec.calls.append(("native", _op))
+                    return _fn(*a)
+                out[op] = (recorded, args)
+            return out
+        monkeypatch.setattr(cls, "point_kernels", point_kernels)
 
     def _wrap(self, monkeypatch, owner, attr, provider, op, node_of):
         orig = getattr(owner, attr)

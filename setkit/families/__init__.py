@@ -169,6 +169,20 @@ class Family:
         """Operator -> numba function of one point with this set's data bound (for K.jit_kernels()); {} if none."""
         return {}
 
+    def point_kernels(self, check: bool = True) -> dict:
+        """Operator -> (compiled function, leading arguments) serving one point on the single-point fast path.
+
+        Operators: project, lmo (answer: a point), distance, support (answer: a (1,) array).
+        ``f(*args, y)`` takes one float64 C-contiguous 1-d point and returns the answer the
+        family's batch kernel gives for it, bit for bit, or raises
+        :class:`setkit.errors.TakeGeneralPath` to leave the point to the general path (always
+        for a non-finite point when ``check`` is true; ``check=False`` serves ``K.unchecked``).
+        A numba dispatcher is called through the compiled entry point of its signature.
+        Routing uses an entry only for a native route whose kernel method is declared by the
+        same class as this hook (a subclass overriding the kernel does not inherit it). {} if none.
+        """
+        return {}
+
     def orthant_violation(self):
         """Whether the set lies in the nonnegative orthant (the domain of the KL geometry).
 

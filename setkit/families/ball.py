@@ -150,6 +150,14 @@ class Ball(Family):
         from ..kernels.bound import ball_kernels
         return ball_kernels(self.center, self.radius, self._p, self._lo, self._hi)
 
+    def point_kernels(self, check=True):
+        """Compiled single-point entries (setkit.kernels.point), bit-identical to the batch kernels."""
+        from ..kernels import point
+        D = point.pack([self.center, self._lo, self._hi],
+                       [float(self.radius), float(self._p), float(check), float(self._l1_center.size == 0)])
+        return {"project": (point.ball_project_point, (D,)), "lmo": (point.ball_lmo_point, (D,)),
+                "distance": (point.ball_distance_point, (D,))}
+
     @kernel("project")
     def project(self, Y):
         """Radial scaling (p=2), clipping (p=inf), or the simplex projection of |y - c| with signs restored (p=1), O(n).

@@ -114,6 +114,16 @@ class Box(Family):
         from ..kernels.bound import box_kernels
         return box_kernels(self.lower, self.upper, self._tie, self._all_finite)
 
+    def point_kernels(self, check=True):
+        """Compiled single-point entries (setkit.kernels.point), bit-identical to the batch kernels."""
+        from ..kernels import point
+        D = point.pack([self.lower, self.upper, self._tie], [float(check), float(self._all_finite)])
+        out = {"project": (point.box_project_point, (D,)), "lmo": (point.box_lmo_point, (D,)),
+               "distance": (point.box_distance_point, (D,))}
+        if self._all_finite:
+            out["support"] = (point.box_support_point, (D,))
+        return out
+
     @kernel("project")
     def project(self, Y):
         """Clipping to the bounds, O(n).

@@ -161,6 +161,19 @@ class Budget(Family):
         return budget_kernels(self.lower, self.upper, self.weights, self.total, self.mode == "at_most",
                               self._caps, self._room, self._data_scale)
 
+    def point_kernels(self, check=True):
+        """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels.
+
+        Points of LONG_ROW coordinates and more are not served (the long-vector route runs on the
+        general path)."""
+        from ..kernels import point
+        from ..kernels.simplex import LONG_ROW
+        if self.dim >= LONG_ROW:
+            return {}
+        D = point.pack([self.lower, self.upper, self.weights, self._caps],
+                       [self.total, float(self.mode == "at_most"), float(check), 1e4 * self._data_scale, self._room])
+        return {"project": (point.budget_project_point, (D,)), "lmo": (point.budget_lmo_point, (D,))}
+
     @kernel("project")
     def project(self, Y):
         """Clip to the bounds and shift by the multiplier of the weighted sum, found by randomized breakpoint search, expected O(n)."""

@@ -164,7 +164,7 @@ class NuclearBall(Family):
 
     @kernel("lmo")
     def lmo(self, C):
-        """-radius u1 v1^T for the top singular pair of C: dense SVD up to 120 per side, else Lanczos (value within 1e-9 relative)."""
+        """-radius u1 v1^T for the top singular pair of C: dense SVD up to 120 per side, else block Lanczos (value within 1e-9 relative)."""
         b = C.shape[0]
         us, vs, nonzero, methods, _ = self._top_pairs(C)
         out = -self.radius * np.einsum("bi,bj->bij", us, vs).reshape(b, self.rows * self.cols)
@@ -173,7 +173,7 @@ class NuclearBall(Family):
 
     @kernel("support")
     def support(self, C):
-        """radius ||C||_2 (the dual norm): dense singular values up to 120 per side, else Lanczos (within 1e-9 relative)."""
+        """radius ||C||_2 (the dual norm): dense singular values up to 120 per side, else block Lanczos (within 1e-9 relative)."""
         b = C.shape[0]
         if b == 0:
             return np.zeros(0)

@@ -114,6 +114,22 @@ class Permutahedron(Family):
         from ..kernels.bound import permutahedron_kernels
         return permutahedron_kernels(self._wdesc)
 
+    def point_kernels(self, check=True):
+        """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels.
+
+        Not for 50,000 coordinates and more (the projection sorts those another way)."""
+        from ..kernels import point
+        from ..kernels.isotonic import order_bits
+        n = self.dim
+        if n >= 50_000:
+            return {}
+        if n > point.SORT_IN_NUMPY:
+            wd = np.ascontiguousarray(self._wdesc, dtype=float)
+            f = point.permutahedron_point_sorted
+            return {"project": (f, (wd, order_bits(n), check, True)), "lmo": (f, (wd, order_bits(n), check, False))}
+        D = point.pack([self._wdesc], [float(check)])
+        return {"project": (point.permutahedron_project_point, (D,)), "lmo": (point.permutahedron_lmo_point, (D,))}
+
     @kernel("project")
     def project(self, Y):
         """Sort, then pool-adjacent-violators on y_sorted - w_sorted, O(n log n)."""

@@ -83,6 +83,13 @@ class Simplex(Family):
         from ..kernels.bound import simplex_kernels
         return simplex_kernels(self.total, self.mode == "at_most")
 
+    def point_kernels(self, check=True):
+        """Compiled single-point entries (setkit.kernels.point), bit-identical to the batch kernels."""
+        from ..kernels import point
+        D = point.pack([], [self.total, float(self.mode == "at_most"), float(check)])
+        return {"project": (point.simplex_project_point, (D,)), "lmo": (point.simplex_lmo_point, (D,)),
+                "distance": (point.simplex_distance_point, (D,)), "support": (point.simplex_support_point, (D,))}
+
     @kernel("project")
     def project(self, Y):
         """Sorted-threshold projection (pivot search for long single vectors), O(n log n)."""

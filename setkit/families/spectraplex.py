@@ -163,7 +163,7 @@ class Spectraplex(Family):
 
     @kernel("lmo")
     def lmo(self, C):
-        """t v v^T for the smallest eigenpair of sym(C) (at_most: 0 if it is >= 0): dense eigh up to n = 120, else Lanczos."""
+        """t v v^T for the smallest eigenpair of sym(C) (at_most: 0 if it is >= 0): dense eigh up to n = 120, else block Lanczos."""
         b = C.shape[0]
         out = np.zeros_like(C)
         if b == 0:
@@ -176,7 +176,7 @@ class Spectraplex(Family):
 
     @kernel("support")
     def support(self, C):
-        """t lambda_max(sym C) (at_most: its positive part), O(n^3) dense or Lanczos above n = 120."""
+        """t lambda_max(sym C) (at_most: its positive part), O(n^3) dense or block Lanczos above n = 120."""
         if C.shape[0] == 0:
             return np.zeros(0)
         lam, _, _ = self._extreme(C, largest=True)

@@ -19,6 +19,7 @@ affine minimization (normal equations on the Gram matrix), for k corral vertices
 from __future__ import annotations
 
 import numpy as np
+from numba import njit
 
 from ..errors import SolveError
 
@@ -27,6 +28,7 @@ from ..errors import SolveError
 GAP_RTOL = 1e-15         # stop when g <= GAP_RTOL * R^2 (||p - p*|| <= 4.5e-8 R)
 ACCEPT_RTOL = 1e-12      # a stalled run is accepted when g <= ACCEPT_RTOL * R^2 (||p - p*|| <= 1.5e-6 R)
 STALL_CYCLES = 20        # stop after 2 d + STALL_CYCLES major cycles without a smaller gap
+COMPILED_MAX_DIM = 1000  # the compiled coverage loop keeps O(d^2) buffers (16 MB at d = 1000): up to this dimension
 
 
 def _affine_minimizer(G, Vy):
@@ -53,7 +55,349 @@ def _affine_minimizer(G, Vy):
     return np.concatenate([[1.0 - beta.sum()], beta])
 
 
-def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
+@njit(cache=True)
+def _chol_append(L, k, m, mkk):
+    """Extend the lower Cholesky factor L[:k, :k] of M by a row/column (m, mkk); False when the new
+    pivot is not positive beyond rounding (an affinely dependent vertex). O(k^2), one thread."""
+    for i in range(k):
+        s = m[i]
+        for j in range(i):
+            s -= L[i, j] * L[k, j]
+        L[k, i] = s / L[i, i]
+    d = mkk
+    for j in range(k):
+        d -= L[k, j] * L[k, j]
+    if not d > 1e-13 * abs(mkk):
+        for j in range(k):
+            L[k, j] = 0.0
+        return False
+    L[k, k] = np.sqrt(d)
+    return True
+
+
+@njit(cache=True)
+def _chol_delete(L, k, i):
+    """Remove row/column i from the factor L[:k, :k] (rows shifted up, Givens rotations on the
+    columns to restore the triangle). O((k - i) k), one thread."""
+    for r in range(i, k - 1):
+        for c in range(r + 2):
+            L[r, c] = L[r + 1, c]
+    for r in range(i, k - 1):
+        a = L[r, r]
+        b = L[r, r + 1]
+        h = np.hypot(a, b)
+        if h == 0.0:
+            continue
+        c = a / h
+        s = b / h
+        for rr in range(r, k - 1):
+            x = L[rr, r]
+            z = L[rr, r + 1]
+            L[rr, r] = c * x + s * z
+            L[rr, r + 1] = -s * x + c * z
+        L[r, r + 1] = 0.0
+    for c in range(k):
+        L[k - 1, c] = 0.0
+        L[c, k - 1] = 0.0
+
+
+@njit(cache=True)
+def _chol_solve(L, k, r):
+    """M^{-1} r with M = L L^T (k x k): two triangular solves, O(k^2)."""
+    w = np.empty(k)
+    for i in range(k):
+        s = r[i]
+        for j in range(i):
+            s -= L[i, j] * w[j]
+        w[i] = s / L[i, i]
+    for i in range(k - 1, -1, -1):
+        s = w[i]
+        for j in range(i + 1, k):
+            s -= L[j, i] * w[j]
+        w[i] = s / L[i, i]
+    return w
+
+
+@njit(cache=True)
+def _chol_build(L, G):
+    """Factor M = D D^T (D = corral differences from vertex 0, formed from the Gram matrix G) into L
+    row by row; the number of rows factored (k - 1 when every pivot is positive). O(k^3), one thread."""
+    k = G.shape[0]
+    m = np.empty(k)
+    for a in range(1, k):
+        for b in range(1, a):
+            m[b - 1] = G[a, b] - G[a, 0] - G[b, 0] + G[0, 0]
+        if not _chol_append(L, a - 1, m, G[a, a] - 2.0 * G[a, 0] + G[0, 0]):
+            return a - 1
+    return k - 1
+
+
+@njit(cache=True)
+def _mnp_cycle(q, y, Vbuf, rows, Gbuf, Vy, lam, L, st, p):
+    """One major cycle of Wolfe's method after the LMO answered q, compiled (no array temporaries
+    per minor cycle, no multithreaded BLAS call).
+
+    State: the corral is rows[:k] of Vbuf (k = st[0]; st[1] the next free buffer row), its Gram
+    matrix Gbuf[:k, :k], Vy[:k] = V y, weights lam[:k]; L[:k-1, :k-1] the Cholesky factor of the
+    affine minimizer's normal matrix M = D D^T (D = the differences from vertex 0, see
+    :func:`_affine_minimizer`) when st[2] == 1. A new vertex appends a row to L (O(k^2)); a dropped
+    vertex other than vertex 0 deletes one (Givens rotations, O(k^2)); a dropped vertex 0 or a
+    nearly dependent new vertex marks L stale and the next solve refactors it (O(k^3)) or, when a
+    pivot still vanishes, solves by least squares. The caller guarantees room for one more vertex.
+    Writes the new iterate into p; returns 1 when q is already in the corral (a stall), else 0.
+    """
+    k = st[0]
+    d = y.size
+    qq = 0.0
+    for t in range(d):
+        qq += q[t] * q[t]
+    Vq = np.empty(k)
+    for i in range(k):
+        r = rows[i]
+        acc = 0.0
+        for t in range(d):
+            acc += Vbuf[r, t] * q[t]
+        Vq[i] = acc
+    for i in range(k):
+        if abs(Gbuf[i, i] - 2.0 * Vq[i] + qq) <= 1e-9 * (qq + Gbuf[i, i]):
+            same = True
+            r = rows[i]
+            for t in range(d):
+                if Vbuf[r, t] != q[t]:
+                    same = False
+                    break
+            if same:
+                return 1
+    # append q
+    for i in range(k):
+        Gbuf[k, i] = Vq[i]
+        Gbuf[i, k] = Vq[i]
+    Gbuf[k, k] = qq
+    qy = 0.0
+    for t in range(d):
+        qy += q[t] * y[t]
+    Vy[k] = qy
+    top = st[1]
+    for t in range(d):
+        Vbuf[top, t] = q[t]
+    rows[k] = top
+    st[1] = top + 1
+    lam[k] = 0.0
+    k += 1
+    if st[2] == 1 and k >= 2:
+        m = np.empty(k - 2)
+        kk = k - 1
+        for j in range(1, kk):
+            m[j - 1] = Gbuf[kk, j] - Gbuf[kk, 0] - Gbuf[j, 0] + Gbuf[0, 0]
+        if not _chol_append(L, kk - 1, m, Gbuf[kk, kk] - 2.0 * Gbuf[kk, 0] + Gbuf[0, 0]):
+            st[2] = 0
+    a = np.empty(k + 1)
+    ratio = np.empty(k + 1)
+    for _minor in range(k + 1):
+        # the affine minimizer of the corral (weights a summing to 1)
+        if k == 1:
+            a[0] = 1.0
+        else:
+            g0 = Gbuf[0, 0]
+            rhs = np.empty(k - 1)
+            for j in range(1, k):
+                rhs[j - 1] = (Vy[j] - Vy[0]) - (Gbuf[j, 0] - g0)
+            if st[2] == 0:
+                for i in range(k):
+                    for j in range(k):
+                        L[i, j] = 0.0
+                G = np.ascontiguousarray(Gbuf[:k, :k])
+                st[2] = 1 if _chol_build(L, G) == k - 1 else 0
+            ok = st[2] == 1
+            if ok:
+                beta = _chol_solve(L, k - 1, rhs)
+                for j in range(k - 1):
+                    if not np.isfinite(beta[j]):
+                        ok = False
+            if not ok:
+                M = np.empty((k - 1, k - 1))
+                for i in range(1, k):
+                    for j in range(1, k):
+                        M[i - 1, j - 1] = Gbuf[i, j] - Gbuf[i, 0] - Gbuf[j, 0] + g0
+                beta = np.linalg.lstsq(M, rhs)[0]
+            s = 0.0
+            for j in range(k - 1):
+                a[j + 1] = beta[j]
+                s += beta[j]
+            a[0] = 1.0 - s
+        amin = a[0]
+        for j in range(k):
+            amin = min(amin, a[j])
+        if amin > 0.0:
+            for j in range(k):
+                lam[j] = a[j]
+            break
+        # line search toward a; drop the vertices whose weight reaches 0
+        theta = 1.0
+        jmin = 0
+        for j in range(k):
+            if a[j] <= 0.0:
+                den = lam[j] - a[j]
+                ratio[j] = lam[j] / den if den > 0.0 else 0.0
+            else:
+                ratio[j] = np.inf
+            if ratio[j] < ratio[jmin]:
+                jmin = j
+        theta = min(max(ratio[jmin], 0.0), 1.0)
+        lmax = 0.0
+        for j in range(k):
+            lam[j] = lam[j] + theta * (a[j] - lam[j])
+            lmax = max(lmax, lam[j])
+        keep = np.empty(k, np.bool_)
+        nkeep = 0
+        for j in range(k):
+            keep[j] = not (lam[j] <= 1e-15 * lmax)
+            nkeep += keep[j]
+        if nkeep == k:
+            keep[jmin] = False
+            nkeep -= 1
+        if nkeep == 0:
+            jbest = 0
+            for j in range(k):
+                if lam[j] > lam[jbest]:
+                    jbest = j
+            keep[jbest] = True
+            nkeep = 1
+        # the factor: a dropped vertex 0 makes it stale, others are deleted (from the last)
+        if st[2] == 1:
+            if not keep[0]:
+                st[2] = 0
+            else:
+                kf = k - 1
+                for j in range(k - 1, 0, -1):
+                    if not keep[j]:
+                        _chol_delete(L, kf, j - 1)
+                        kf -= 1
+        # compact the corral in place (order kept)
+        w = 0
+        for j in range(k):
+            if keep[j]:
+                rows[w] = rows[j]
+                lam[w] = max(lam[j], 0.0)
+                Vy[w] = Vy[j]
+                w += 1
+        w = 0
+        for i in range(k):
+            if keep[i]:
+                c = 0
+                for j in range(k):
+                    if keep[j]:
+                        Gbuf[w, c] = Gbuf[i, j]
+                        c += 1
+                w += 1
+        k = nkeep
+        s = 0.0
+        for j in range(k):
+            s += lam[j]
+        for j in range(k):
+            lam[j] /= s
+    st[0] = k
+    for t in range(d):
+        p[t] = 0.0
+    for i in range(k):
+        r = rows[i]
+        li = lam[i]
+        if li != 0.0:
+            for t in range(d):
+                p[t] += li * Vbuf[r, t]
+    return 0
+
+
+@njit(cache=True)
+def coverage_greedy(c, indptr, items, iw, covered, out):
+    """Edmonds' greedy for a coverage function F(S) = sum of w_u over the items u covered by S: the
+    elements in increasing c (stable order), each gaining the weights of the items it is the first
+    to cover. ``indptr``/``items``: element -> items (CSR); ``covered``: a scratch flag per item.
+    O(n log n + nnz)."""
+    covered[:] = False
+    order = np.argsort(c, kind="mergesort")
+    for j in range(c.size):
+        i = order[j]
+        acc = 0.0
+        for t in range(indptr[i], indptr[i + 1]):
+            u = items[t]
+            if not covered[u]:
+                covered[u] = True
+                acc += iw[u]
+        out[i] = acc
+
+
+@njit(cache=True)
+def _mnp_coverage_loop(y, Rm, tol, cap, stall, indptr, items, iw):
+    """Wolfe's method with the coverage greedy as its LMO, every cycle compiled (the loop of
+    :func:`project_by_min_norm_point`, same stopping rules: gap <= tol, no smaller gap for ``stall``
+    cycles, or q already in the corral). Returns (status 0 solved / 1 stalled / 2 cap, cycles,
+    last gap, best gap, best point, corral size); gaps in units of Rm^2."""
+    d = y.size
+    covered = np.zeros(iw.size, np.bool_)
+    nb = 2 * (d + 2)
+    nk = d + 3
+    Vbuf = np.empty((nb, d))
+    rows = np.zeros(nk, np.int64)
+    Gbuf = np.zeros((nk, nk))
+    Vy = np.zeros(nk)
+    lam = np.zeros(nk)
+    L = np.zeros((nk, nk))
+    st = np.array([1, 1, 1], np.int64)
+    q = np.empty(d)
+    z = -y
+    coverage_greedy(z, indptr, items, iw, covered, q)
+    Vbuf[0] = q
+    g00 = 0.0
+    vy0 = 0.0
+    for t in range(d):
+        g00 += q[t] * q[t]
+        vy0 += q[t] * y[t]
+    Gbuf[0, 0] = g00
+    Vy[0] = vy0
+    lam[0] = 1.0
+    p = q.copy()
+    pn = np.empty(d)
+    best_gap = np.inf
+    best_p = p.copy()
+    best_it = 0
+    gap = np.inf
+    status = 2
+    it = 0
+    for it in range(1, cap + 1):
+        for t in range(d):
+            z[t] = p[t] - y[t]
+        coverage_greedy(z, indptr, items, iw, covered, q)
+        gap = 0.0
+        for t in range(d):
+            gap += (z[t] / Rm) * ((p[t] - q[t]) / Rm)
+        if gap < best_gap:
+            best_gap = gap
+            best_p[:] = p
+            best_it = it
+        if gap <= tol:
+            status = 0
+            break
+        if it - best_it > stall:
+            status = 1
+            break
+        k = st[0]
+        if st[1] == nb:                      # no free buffer row: the live rows to the front
+            for i in range(k):
+                Vbuf[i] = Vbuf[rows[i]]
+                rows[i] = i
+            st[1] = k
+        if k + 2 > nk or st[1] == nb:        # no room (a numerically dependent corral): stop
+            status = 1
+            break
+        if _mnp_cycle(q, y, Vbuf, rows, Gbuf, Vy, lam, L, st, pn):
+            status = 1
+            break
+        p, pn = pn, p
+    return status, it, gap, best_gap, best_p, st[0]
+
+
+def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set", coverage=None):
     """Project ``y`` onto conv(vertices) with Wolfe's minimum-norm-point algorithm.
 
     Parameters
@@ -62,6 +406,9 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     lmo : callable, (d,) direction -> (d,) vertex minimizing <c, v>
     scale : a magnitude of the vertices (R^2 = d max(1, scale, |y|_inf)^2 sets the relative tolerances)
     max_iter : cap on major cycles (default 50 d + 500)
+    coverage : optional (indptr, items, item_weights) when ``lmo`` is the greedy of a coverage
+        function (element -> items in CSR form) and d <= COMPILED_MAX_DIM: the whole loop then runs
+        compiled (:func:`_mnp_coverage_loop`), with the same stopping rules and the same answer
 
     Returns
     -------
@@ -86,11 +433,30 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     tol = GAP_RTOL * d
     accept = ACCEPT_RTOL * d
     cap = (50 * d + 500) if max_iter is None else int(max_iter)
-    V = np.asarray(lmo(-y), dtype=float)[None, :]
-    G = V @ V.T                      # Gram matrix of the corral
-    Vy = V @ y
-    lam = np.ones(1)
-    p = V[0].copy()
+    if coverage is not None and 0 < d <= COMPILED_MAX_DIM:
+        code, it, gap, best_gap, best_p, corral = _mnp_coverage_loop(y, Rm, tol, cap, 2 * d + STALL_CYCLES, *coverage)
+        status = ("solved", "stalled", "max_iter")[code]
+        p = best_p
+        if status != "solved":
+            gap = best_gap
+            if gap <= accept:
+                status = "solved"
+        return _finish(p, gap, it, corral, status, tol, accept, Rm, label)
+    # the corral's vertices: rows `rows` of a buffer (a dropped vertex leaves its row unused until the
+    # buffer is full and compacted: no O(k d) copy per minor cycle); see _mnp_cycle for the state
+    c0 = min(d + 2, 16)
+    Vbuf = np.empty((c0, d))
+    Vbuf[0] = np.asarray(lmo(-y), dtype=float)
+    rows = np.zeros(c0, dtype=np.int64)
+    Gbuf = np.zeros((c0, c0))
+    Gbuf[0, 0] = float(Vbuf[0] @ Vbuf[0])
+    Vy = np.zeros(c0)
+    Vy[0] = float(Vbuf[0] @ y)
+    lam = np.zeros(c0)
+    lam[0] = 1.0
+    L = np.zeros((c0, c0))
+    st = np.array([1, 1, 1], dtype=np.int64)         # corral size, next free buffer row, factor valid
+    p = Vbuf[0].copy()
     gap = np.inf
     status = "max_iter"
     it = 0
@@ -98,7 +464,7 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
     best_it = 0
     for it in range(1, cap + 1):
         z = p - y
-        q = np.asarray(lmo(z), dtype=float)
+        q = np.ascontiguousarray(lmo(z), dtype=float)
         gap = float((z / Rm) @ ((p - q) / Rm))          # g / Rm^2
         if gap < best[0]:
             best = (gap, p)
@@ -109,42 +475,38 @@ def project_by_min_norm_point(y, lmo, *, scale=1.0, max_iter=None, label="set"):
         if it - best_it > 2 * d + STALL_CYCLES:
             status = "stalled"       # no smaller gap for many cycles: rounding stops the progress
             break
-        if np.any(np.all(V == q, axis=1)):
+        k = int(st[0])
+        if st[1] == Vbuf.shape[0]:                   # no free buffer row: compact or grow
+            if k < Vbuf.shape[0] // 2:
+                Vbuf[:k] = Vbuf[rows[:k]]
+                rows[:k] = np.arange(k)
+                st[1] = k
+            else:
+                Vbuf = np.concatenate([Vbuf, np.empty((Vbuf.shape[0], d))])
+        if k + 2 > rows.size:                        # room for one more vertex in the small arrays
+            c = 2 * (k + 2)
+            rows, Vy, lam = (np.concatenate([a, np.zeros(c - a.size, a.dtype)]) for a in (rows, Vy, lam))
+            G2, L2 = np.zeros((c, c)), np.zeros((c, c))
+            G2[:k, :k], L2[:k, :k] = Gbuf[:k, :k], L[:k, :k]
+            Gbuf, L = G2, L2
+        p = np.empty(d)
+        if _mnp_cycle(q, y, Vbuf, rows, Gbuf, Vy, lam, L, st, p):
             status = "stalled"       # q already in the corral: rounding stops the progress
+            p = best[1]
             break
-        Vq = V @ q
-        G = np.block([[G, Vq[:, None]], [Vq[None, :], np.array([[q @ q]])]])
-        Vy = np.append(Vy, q @ y)
-        V = np.vstack([V, q])
-        lam = np.append(lam, 0.0)
-        for _minor in range(V.shape[0] + 1):
-            a = _affine_minimizer(G, Vy)
-            if a.min() > 0.0:
-                lam = a
-                break
-            neg = a <= 0.0
-            with np.errstate(divide="ignore", invalid="ignore"):
-                ratio = np.where(neg, lam / (lam - a), np.inf)
-            theta = float(np.clip(ratio.min(), 0.0, 1.0))
-            lam = lam + theta * (a - lam)
-            drop = lam <= 1e-15 * lam.max()
-            if not drop.any():
-                drop[int(np.argmin(ratio))] = True
-            keep = ~drop
-            if not keep.any():
-                keep[int(np.argmax(lam))] = True
-            V, lam, G, Vy = V[keep], lam[keep], G[np.ix_(keep, keep)], Vy[keep]
-            lam = np.maximum(lam, 0.0)
-            lam /= lam.sum()
-        p = lam @ V
     else:
         it = cap
     if status != "solved":
         gap, p = best
         if gap <= accept:
             status = "solved"
+    return _finish(p, gap, it, int(st[0]), status, tol, accept, Rm, label)
+
+
+def _finish(p, gap, it, corral, status, tol, accept, Rm, label):
+    """The answer and its record, or SolveError when the gap is above the accepted one."""
     gap *= Rm * Rm
-    info = {"iterations": it, "gap": gap, "corral": int(V.shape[0]), "status": status,
+    info = {"iterations": it, "gap": gap, "corral": int(corral), "status": status,
             "tolerance": tol * Rm * Rm}
     if status != "solved":
         raise SolveError(
@@ -239,12 +601,12 @@ def project_far_point(y, lmo, *, scale=1.0, max_iter=None, label="set", tol_rel=
     return p, info
 
 
-def project_rows(Y, lmo, *, scale=1.0, max_iter=None, label="set"):
+def project_rows(Y, lmo, *, scale=1.0, max_iter=None, label="set", coverage=None):
     """Row-wise :func:`project_by_min_norm_point`; returns ``(P, info)`` with per-row lists."""
     P = np.empty_like(Y)
     iters, texts = [], []
     for i, y in enumerate(Y):
-        P[i], inf = project_by_min_norm_point(y, lmo, scale=scale, max_iter=max_iter, label=label)
+        P[i], inf = project_by_min_norm_point(y, lmo, scale=scale, max_iter=max_iter, label=label, coverage=coverage)
         iters.append(inf["iterations"])
         texts.append(f"min-norm-point: gap {inf['gap']:.3g} after {inf['iterations']} major cycles")
     return P, {"status": ["solved"] * len(iters), "iterations": iters, "backend_status": texts}

@@ -231,3 +231,67 @@ def test_located_errors():
         setkit.compile({"kind": "spanning_trees", "edges": nx.DiGraph([(0, 1)])})
     with pytest.raises(DescriptionError, match="unknown parameter 'weights'"):
         setkit.compile({"kind": "spanning_trees", "edges": [[0, 1]], "weights": [1]})
+
+
+def test_corral_factor_updates_match_dense_algebra():
+    # the incremental Cholesky pieces of the min-norm point against numpy.linalg.cholesky / solve:
+    # appends, Givens deletions of inner rows, and a rebuild from a Gram matrix
+    from setkit.kernels import minnorm
+    rng = np.random.default_rng(5)
+    A = rng.standard_normal((9, 12))
+    M = A @ A.T
+    L = np.zeros((10, 10))
+    for k in range(9):
+        assert minnorm._chol_append(L, k, np.ascontiguousarray(M[k, :k]), M[k, k])
+    np.testing.assert_allclose(L[:9, :9], np.linalg.cholesky(M), atol=1e-12)
+    live = list(range(9))
+    for i in (3, 0, 5):
+        minnorm._chol_delete(L, len(live), i)
+        del live[i]
+        Ms = M[np.ix_(live, live)]
+        k = len(live)
+        np.testing.assert_allclose(L[:k, :k] @ L[:k, :k].T, Ms, atol=1e-10)
+        assert np.allclose(np.triu(L[:k, :k], 1), 0.0) and (np.diag(L[:k, :k]) > 0).all()
+        r = rng.standard_normal(k)
+        np.testing.assert_allclose(minnorm._chol_solve(L, k, r), np.linalg.solve(Ms, r), rtol=1e-9, atol=1e-10)
+    # a dependent row is refused (its pivot vanishes) and leaves the factor as it was
+    L2 = np.zeros((4, 4))
+    B = np.vstack([A[:2], A[0] + A[1]])
+    Mb = B @ B.T
+    assert minnorm._chol_append(L2, 0, np.zeros(0), Mb[0, 0]) and minnorm._chol_append(L2, 1, Mb[1, :1].copy(), Mb[1, 1])
+    assert not minnorm._chol_append(L2, 2, Mb[2, :2].copy(), Mb[2, 2])
+    # rebuild from a corral's Gram matrix: M = D D^T with D the differences from vertex 0
+    G = A[:6] @ A[:6].T
+    L3 = np.zeros((6, 6))
+    assert minnorm._chol_build(L3, G) == 5
+    D = A[1:6] - A[0]
+    np.testing.assert_allclose(L3[:5, :5] @ L3[:5, :5].T, D @ D.T, atol=1e-10)
+
+
+@pytest.mark.parametrize("m", [60, 200])
+def test_kl_projection_larger_graph_against_its_certificate_and_networkx(m):
+    # a larger random graph: the KL answer is a point of the polytope (sum n - 1, subset constraints
+    # by minimum cuts), its certificate is the stated one, and every networkx minimum spanning tree
+    # (networkx.minimum_spanning_tree) of the Kruskal direction is an LMO answer of the same value
+    rng = np.random.default_rng(m)
+    nodes = m // 4
+    order = rng.permutation(nodes)
+    edges = [[int(order[k]), int(order[int(rng.integers(0, k))])] for k in range(1, nodes)]
+    while len(edges) < m:
+        a, b = (int(v) for v in rng.integers(0, nodes, 2))
+        if a != b:
+            edges.append([a, b])
+    K = setkit.compile({"kind": "spanning_trees", "nodes": nodes, "edges": edges})
+    t = rng.uniform(-3, 3, m)
+    d = K.project(t, geometry="kl", log_input=True, details=True)
+    x = d.point
+    assert abs(x.sum() - (nodes - 1)) <= 1e-9 * nodes and x.min() >= 0.0
+    assert float(K.violation(x)) <= 1e-9
+    assert float(d.certificate) <= 1e-9 * (nodes - 1) + 1e-12
+    c = np.log(np.maximum(x, 1e-300)) - t
+    G = nx.MultiGraph()
+    for e, (a, b) in enumerate(edges):
+        G.add_edge(a, b, key=e, weight=float(c[e]))
+    T = nx.minimum_spanning_tree(G, algorithm="kruskal")
+    val_nx = sum(w for _, _, w in T.edges(data="weight"))
+    np.testing.assert_allclose(float(c @ K.lmo(c)), val_nx, rtol=1e-12, atol=1e-12)
