@@ -43,7 +43,7 @@ from the duals of the LP max <y, x>. Measured on the seeded corpus of
 1e100; at 1e160..1e300 all birkhoff points, all but one Gaussian transport point, and all flow
 points except some whose entries mix exponents. A point that does not reach tolerance is reported
 as not converged (a SolveError for the caller), never returned. Under ``setkit.time_limit``,
-networks of 20,000 edges or more check the deadline every 10 Newton steps and between rounds.
+networks of 20,000 edges or more check the deadline every 5 Newton steps and between rounds.
 """
 from __future__ import annotations
 
@@ -715,7 +715,7 @@ class NetworkProjector:
     # chunk_steps must be at least 4: the kernel accepts a far point's rounding floor after 3 steps
     # without progress, counted within one call (measured: with chunks of 2, far rows never finish)
     chunk_edges = 20_000
-    chunk_steps = 10
+    chunk_steps = 5
 
     def _tolerances(self, Y):
         """Per row: (scale, balance tolerance, gap tolerance)."""
