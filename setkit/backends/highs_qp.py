@@ -83,6 +83,12 @@ class HighsQPBackend(Backend):
         return self.form.residual(z)
 
     def project(self, Y):
+        """Project the rows of Y; coordinates far beyond their bounds are pulled in first (checked on the
+        answer, exact when the check passes: :mod:`setkit.backends._far`)."""
+        from ._far import project_pulled_in
+        return project_pulled_in(self._project_rows, self.form, np.asarray(Y, float), self.node.scale())
+
+    def _project_rows(self, Y):
         f = self.form
         out = np.empty_like(Y)
         stat, iters, bstat = [], [], []
