@@ -205,3 +205,19 @@ def test_every_operator_takes_an_empty_batch(spec):
             assert "nonnegative orthant" in str(e)
         else:
             assert out.shape == (0,) + K.shape
+
+
+@pytest.mark.parametrize("spec, y, expect", [
+    # a ray {x0 = x1 >= 0}: the projection of (-a, 3a) is (a, a) (orthogonal projection onto the line
+    # x0 = x1, by hand); the reference stopped "optimal" at (1.006, 1.006) for a = 1e10
+    ({"kind": "polyhedron", "C": [[1, -1]], "d": [0], "lower": [0, -np.inf]}, [-1e10, 3e10], [1e10, 1e10]),
+    # a point inside a halfspace is its own projection; the reference moved it by 2e5 at magnitude 1e8
+    ({"kind": "polyhedron", "A": [[1, 2, -1]], "b": [5]}, [1e8, -3e8, 2e8], [1e8, -3e8, 2e8]),
+])
+def test_reference_projection_of_far_points_is_right_or_refused(spec, y, expect):
+    R = setkit.compile(spec).with_backends(project="reference")
+    try:
+        p = R.project(np.array(y, dtype=float))
+    except SolveError:
+        return
+    np.testing.assert_allclose(p, expect, rtol=1e-7)
