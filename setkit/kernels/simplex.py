@@ -91,26 +91,58 @@ def simplex_tau_shifted(y, top, floor, total, z):
     ``z`` may be ``y`` itself (top = 0, floor = -inf: the values as they are) or a separate
     buffer of the same size (then y is only read, and z holds no copy of the shifted values:
     one pass less)."""
+    return simplex_tau_scan(y, top, floor, total, z, False)
+
+
+# rows at least this long skip blocks of SCAN_BLOCK values that Condat's first pass would pass over
+SCAN_BLOCK_MIN = 4096
+SCAN_BLOCK = 32
+
+
+@njit(cache=True, nogil=True)
+def simplex_tau_scan(y, top, floor, total, z, absolute):
+    """:func:`simplex_tau_shifted` of the values max(y - top, floor), or of max(|y| - top, floor)
+    when ``absolute`` (the l1 ball's threshold, computed on the fly).
+
+    Condat's first pass only acts on a value above its running threshold rho; once rho is near
+    the answer almost no value is, so on rows of at least SCAN_BLOCK_MIN values a branch-free
+    (vectorizable) count of the values above rho in each block of SCAN_BLOCK skips the blocks
+    where it is zero. The values read, the lists and the arithmetic are those of the plain
+    pass: the same threshold bit for bit, fewer branches."""
     n = y.size
     m = 1
     mt = 0
-    v0 = y[0] - top
+    v0 = (abs(y[0]) if absolute else y[0]) - top
     v0 = v0 if v0 > floor else floor
     z[0] = v0
     rho = v0 - total
-    for i in range(1, n):
-        yi = y[i] - top
-        yi = yi if yi > floor else floor
-        if yi > rho:
-            rho += (yi - rho) / (m + 1)
-            if rho > yi - total:
-                z[mt + m] = yi
-                m += 1
-            else:
-                mt += m                         # v retires in place: it becomes the tail of vt
-                z[mt] = yi
-                m = 1
-                rho = yi - total
+    i = 1
+    while i < n:
+        end = n
+        if n >= SCAN_BLOCK_MIN and i + SCAN_BLOCK <= n:
+            end = i + SCAN_BLOCK
+            cnt = 0
+            for j in range(i, end):
+                v = (abs(y[j]) if absolute else y[j]) - top
+                v = v if v > floor else floor
+                cnt += np.int64(v > rho)
+            if cnt == 0:
+                i = end
+                continue
+        for j in range(i, end):
+            yi = (abs(y[j]) if absolute else y[j]) - top
+            yi = yi if yi > floor else floor
+            if yi > rho:
+                rho += (yi - rho) / (m + 1)
+                if rho > yi - total:
+                    z[mt + m] = yi
+                    m += 1
+                else:
+                    mt += m                         # v retires in place: it becomes the tail of vt
+                    z[mt] = yi
+                    m = 1
+                    rho = yi - total
+        i = end
     return _condat_finish(z, m, mt, rho, total)
 
 
@@ -1145,6 +1177,96 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
 @njit(cache=True, nogil=True)
 def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
     """Rows of argmin <c, x> over {lo <= x <= cap, <w, x> = lo.w + room} (<= when ``at_most``).
+
+    The continuous-knapsack greedy fills coordinates by increasing ratio c_i / w_i (only the
+    negative ratios when at_most); a randomized selection finds the ratio where the budget runs
+    out (see :func:`knapsack_lmo_rows_reference`, the same steps with branches and an index
+    list). Here the candidates' ratios, weighted rooms w_i (cap_i - lo_i) and indices sit in
+    compact arrays, and every pass is branch-free (selects, and compaction by advancing the
+    write position by the comparison), so the random comparisons cost no mispredicted
+    branches; one pass fills the cheaper side and keeps the dearer one. The same pivots, the
+    same sums in the same order and the same fill order of ties: bit-identical to the
+    reference. Expected O(n) per row. ``cap`` must be finite.
+    """
+    b, n = C.shape
+    ii = np.empty(n, np.int64)
+    rr = np.empty(n)
+    ww = np.empty(n)
+    wroom = np.empty(n)
+    live = np.empty(n, np.bool_)
+    for i in range(n):
+        wroom[i] = w[i] * (cap[i] - lo[i])
+        live[i] = cap[i] > lo[i]
+    p3 = np.empty(3)
+    for row in range(b):
+        seed = np.int64(2862933555777941757)    # per row: a row's answer never depends on its batch
+        crow = C[row]
+        orow = out[row]
+        m = 0
+        for i in range(n):
+            orow[i] = lo[i]
+            ri = crow[i] / w[i]
+            ii[m] = i
+            rr[m] = ri
+            ww[m] = wroom[i]
+            m += np.int64(live[i] and (not at_most or ri < 0.0))
+        R = room
+        while m > 0 and R > 0.0:
+            for t in range(3):
+                seed = seed * 6364136223846793005 + 1442695040888963407
+                p3[t] = rr[((seed >> 20) & 0x7FFFFFFFFFF) % m]
+            p = max(min(p3[0], p3[1]), min(max(p3[0], p3[1]), p3[2]))
+            s_less = 0.0
+            s_eq = 0.0
+            for k in range(m):
+                v = rr[k]
+                x = ww[k]
+                s_less += x if v < p else 0.0
+                s_eq += x if v == p else 0.0
+            if s_less >= R:
+                m2 = 0
+                for k in range(m):
+                    v = rr[k]
+                    rr[m2] = v
+                    ww[m2] = ww[k]
+                    ii[m2] = ii[k]
+                    m2 += np.int64(v < p)
+                m = m2
+                continue
+            R -= s_less
+            if s_eq >= R:
+                # the budget runs out among the ties at p: the cheaper side full, the ties in index order
+                for k in range(m):
+                    j = ii[k]
+                    orow[j] = cap[j] if rr[k] < p else orow[j]
+                for k in range(m):
+                    if rr[k] == p and R > 0.0:
+                        j = ii[k]
+                        if ww[k] <= R:
+                            orow[j] = cap[j]
+                            R -= ww[k]
+                        else:
+                            orow[j] = lo[j] + R / w[j]
+                            R = 0.0
+                break
+            R -= s_eq
+            m2 = 0
+            for k in range(m):          # fill the cheaper side and the ties, keep the dearer side
+                v = rr[k]
+                j = ii[k]
+                orow[j] = cap[j] if v <= p else orow[j]
+                rr[m2] = v
+                ww[m2] = ww[k]
+                ii[m2] = j
+                m2 += np.int64(v > p)
+            m = m2
+
+
+@njit(cache=True, nogil=True)
+def knapsack_lmo_rows_reference(C, lo, cap, w, room, at_most, out):
+    """The previous LMO kernel (branches, an index list), kept as a reference for the tests.
+
+    Rows of argmin <c, x> over {lo <= x <= cap, <w, x> = lo.w + room} (<= when ``at_most``).
 
     The continuous-knapsack greedy fills coordinates by increasing ratio c_i / w_i
     (only the negative ratios when at_most); instead of sorting, a randomized
