@@ -166,22 +166,55 @@ def l1_ball_project_rows(Y, c, radius):
 @njit(cache=True, nogil=True)
 def _l1_sum_top(y, c, zc):
     """(sum |v|, max |v| as TwoSum parts) of v = y - c (c not read when ``zc``)."""
-    s = 0.0
+    # four partial sums (the sum only decides inside / outside; the same order for both paths)
+    s0 = 0.0
+    s1 = 0.0
+    s2 = 0.0
+    s3 = 0.0
     top = 0.0
     top_l = 0.0
+    n = y.size
+    k4 = n - n % 4
     if zc:
-        for j in range(y.size):
-            vh = abs(y[j])
-            s += vh
-            top = vh if vh > top else top
-        return s, top, top_l
-    for j in range(y.size):
+        t1 = 0.0
+        t2 = 0.0
+        t3 = 0.0
+        for k in range(0, k4, 4):
+            a = abs(y[k])
+            b = abs(y[k + 1])
+            cc = abs(y[k + 2])
+            d = abs(y[k + 3])
+            s0 += a
+            s1 += b
+            s2 += cc
+            s3 += d
+            top = a if a > top else top
+            t1 = b if b > t1 else t1
+            t2 = cc if cc > t2 else t2
+            t3 = d if d > t3 else t3
+        for j in range(k4, n):
+            a = abs(y[j])
+            s0 += a
+            top = a if a > top else top
+        top = t1 if t1 > top else top
+        top = t2 if t2 > top else top
+        top = t3 if t3 > top else top
+        return (s0 + s1) + (s2 + s3), top, top_l
+    for j in range(n):
         vh, vl = _abs_diff2(y[j], c[j])
-        s += vh
+        q = j % 4 if j < k4 else 0
+        if q == 0:
+            s0 += vh
+        elif q == 1:
+            s1 += vh
+        elif q == 2:
+            s2 += vh
+        else:
+            s3 += vh
         if vh > top or (vh == top and vl > top_l):
             top = vh
             top_l = vl
-    return s, top, top_l
+    return (s0 + s1) + (s2 + s3), top, top_l
 
 
 @njit(cache=True, nogil=True)

@@ -59,7 +59,7 @@ def test_simplex_in_place_equals_buffered(n):
             assert np.array_equal(a, b)            # the same threshold: the list order does not matter here
 
 
-@pytest.mark.parametrize("n", [1, 2, 5, 100, 3000])
+@pytest.mark.parametrize("n", [1, 2, 5, 100, 3000, 5003])
 def test_l1_ball_in_place_equals_buffered(n):
     rng = np.random.default_rng(100 + n)
     for scale in SCALES:
