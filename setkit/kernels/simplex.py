@@ -7,7 +7,72 @@ breakpoint search.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from numba import njit, types
+from numba.extending import overload
+
+
+
+def at(a, j):
+    """a[j] for an array, a itself for a number: one kernel source serves per-coordinate data and
+    data equal at every coordinate (passed as a number: a separate compiled specialization that
+    reads one array less per pass)."""
+    return a[j]
+
+
+@overload(at, inline="always")
+def _at_overload(a, j):
+    if isinstance(a, types.Array):
+        return lambda a, j: a[j]
+    return lambda a, j: a
+
+
+def _move(a, i, k):
+    """a[i] = a[k] for an array; nothing for a number (see :func:`at`)."""
+    a[i] = a[k]
+
+
+@overload(_move, inline="always")
+def _move_overload(a, i, k):
+    if isinstance(a, types.Array):
+        def impl(a, i, k):
+            a[i] = a[k]
+        return impl
+    return lambda a, i, k: None
+
+
+def _put(a, buf, i, j):
+    """buf[i] = a[j] for an array ``a``; nothing for a number."""
+    buf[i] = a[j]
+
+
+@overload(_put, inline="always")
+def _put_overload(a, buf, i, j):
+    if isinstance(a, types.Array):
+        def impl(a, buf, i, j):
+            buf[i] = a[j]
+        return impl
+    return lambda a, buf, i, j: None
+
+
+def _part(a, buf):
+    """``buf`` (the compact copy) for an array ``a``; ``a`` itself for a number."""
+    return buf
+
+
+@overload(_part, inline="always")
+def _part_overload(a, buf):
+    if isinstance(a, types.Array):
+        return lambda a, buf: buf
+    return lambda a, buf: a
+
+
+def uniform_or_array(v):
+    """float(v[0]) when every entry of the float vector v is the same (then kernels take it as a number), else v."""
+    v = np.ascontiguousarray(v, dtype=float)
+    if v.size and np.all(v == v[0]):
+        return float(v[0])
+    return v
+
 
 # clean-up passes allowed before falling back to the sort-based threshold
 _MAX_PASSES = 64
@@ -459,9 +524,9 @@ def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
         r = (seed[0] >> 20) & 0x7FFFFFFFFFF
         j = idx[r % m]
         if (seed[0] >> 63) & 1:
-            bp = (y[j] - hi[j]) / w[j]
+            bp = (y[j] - at(hi, j)) / at(w, j)
         else:
-            bp = (y[j] - lo[j]) / w[j]
+            bp = (y[j] - at(lo, j)) / at(w, j)
         if bp > L and bp < U:
             samp[cnt] = bp
             cnt += 1
@@ -470,10 +535,10 @@ def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
     if cnt == 0:
         for k in range(m):
             j = idx[k]
-            bp = (y[j] - hi[j]) / w[j]
+            bp = (y[j] - at(hi, j)) / at(w, j)
             if bp > L and bp < U:
                 return bp
-            bp = (y[j] - lo[j]) / w[j]
+            bp = (y[j] - at(lo, j)) / at(w, j)
             if bp > L and bp < U:
                 return bp
         return np.nan
@@ -512,9 +577,9 @@ def _capped_lambda(y, lo, hi, w, total, idx):
             seed = seed * 6364136223846793005 + 1442695040888963407
             j = ((seed >> 20) & 0x7FFFFFFFFFF) % n
             ys[t] = y[j]
-            los[t] = lo[j]
-            his[t] = hi[j]
-            ws[t] = w[j]
+            los[t] = at(lo, j)
+            his[t] = at(hi, j)
+            ws[t] = at(w, j)
             smin += ws[t] * los[t]
             smax += ws[t] * his[t]
         ts = total * k / n
@@ -565,14 +630,14 @@ def _capped_rounds(y, lo, hi, w, total, idx, m, fixed, free_c, free_s, L, U, gL,
             # nothing can be settled yet: evaluate only (a cheaper loop)
             for k in range(m):
                 j = idx[k]
-                gk += w[j] * min(max(y[j] - piv * w[j], lo[j]), hi[j])
+                gk += at(w, j) * min(max(y[j] - piv * at(w, j), at(lo, j)), at(hi, j))
             m2 = m
         for k in range(m if m2 == 0 else 0):
             j = idx[k]
             yj = y[j]
-            hj = hi[j]
-            lj = lo[j]
-            wj = w[j]
+            hj = at(hi, j)
+            lj = at(lo, j)
+            wj = at(w, j)
             # branch-free (integer flags, selects): data-dependent branches cost more than the arithmetic
             a = yj - hj
             b = yj - lj
@@ -639,14 +704,14 @@ def _capped_rounds(y, lo, hi, w, total, idx, m, fixed, free_c, free_s, L, U, gL,
             mid = 0.0
         for k in range(m):
             j = idx[k]
-            x = y[j] - mid * w[j]
-            if x >= hi[j]:
-                fixed += w[j] * hi[j]
-            elif x <= lo[j]:
-                fixed += w[j] * lo[j]
+            x = y[j] - mid * at(w, j)
+            if x >= at(hi, j):
+                fixed += at(w, j) * at(hi, j)
+            elif x <= at(lo, j):
+                fixed += at(w, j) * at(lo, j)
             else:
-                free_c += w[j] * y[j]
-                free_s += w[j] * w[j]
+                free_c += at(w, j) * y[j]
+                free_s += at(w, j) * at(w, j)
     if free_s == 0.0:
         # g is flat (= total) on the bracket: any point of it is a root
         if L > -np.inf:
@@ -662,12 +727,12 @@ LONG_ROW = 32768
 
 
 @njit(cache=True, nogil=True)
-def _capped_sample_bracket(y, lo, hi, w, total):
+def _capped_sample_bracket(y, lo, hi, w, total, margin=3.0):
     """A bracket (L, U) for the multiplier of a long capped weighted simplex, from a sample.
 
     4096 coordinates in 256 random blocks of 16 consecutive ones (cache friendly), the same
     problem solved on them with the total scaled by k/n (:func:`_capped_search`), and the
-    sample breakpoints 3 sqrt(K) + 8 ranks either side of the sample's root (K finite sample
+    sample breakpoints ``margin`` sqrt(K) + 8 ranks either side of the sample's root (K finite sample
     breakpoints) as the ends. Infinite ends where the sample runs out. Returns (L, U, ok);
     ok is False when the sample problem is infeasible or degenerate (the caller then searches
     without a bracket). The bracket is only a guess: the caller verifies it exactly.
@@ -688,9 +753,9 @@ def _capped_sample_bracket(y, lo, hi, w, total):
         j0 = ((seed >> 20) & 0x7FFFFFFFFFF) % (n - 15)
         for j in range(j0, j0 + 16):
             ys[t] = y[j]
-            ls[t] = lo[j]
-            hs[t] = hi[j]
-            ws[t] = w[j]
+            ls[t] = at(lo, j)
+            hs[t] = at(hi, j)
+            ws[t] = at(w, j)
             smin += ws[t] * ls[t]
             smax += ws[t] * hs[t]
             t += 1
@@ -713,7 +778,7 @@ def _capped_sample_bracket(y, lo, hi, w, total):
         return -np.inf, np.inf, False
     sbp = np.sort(bp[:K])
     p = np.searchsorted(sbp, lam_s)
-    r = int(3.0 * np.sqrt(K)) + 8
+    r = int(margin * np.sqrt(K)) + 8
     L = sbp[p - r - 1] if p - r - 1 >= 0 else -np.inf
     U = sbp[p + r] if p + r < K else np.inf
     if not (L < U):
@@ -737,7 +802,7 @@ def _capped_narrow(ys, ls, hs, ws, m, fixed, free_c, free_s, L, U, gL, gU, total
         seed[0] = seed[0] * 6364136223846793005 + 1442695040888963407
         j = ((seed[0] >> 20) & 0x7FFFFFFFFFF) % m
         for side in range(2):
-            bp = (ys[j] - (hs[j] if side == 0 else ls[j])) / ws[j]
+            bp = (ys[j] - (at(hs, j) if side == 0 else at(ls, j))) / at(ws, j)
             if bp > L and bp < U and P < piv.size:
                 piv[P] = bp
                 P += 1
@@ -764,25 +829,25 @@ def _capped_narrow(ys, ls, hs, ws, m, fixed, free_c, free_s, L, U, gL, gU, total
             break
     m2 = 0
     for k in range(m):
+        # branch-free (selects, and the write position advanced by the flag): the statuses are
+        # random, branches on them would mostly be mispredicted; the same sums in the same order
         yk = ys[k]
-        lk = ls[k]
-        hk = hs[k]
-        wk = ws[k]
+        lk = at(ls, k)
+        hk = at(hs, k)
+        wk = at(ws, k)
         a = yk - hk
         b = yk - lk
-        if a >= nU * wk:
-            fixed += wk * hk
-        elif b <= nL * wk:
-            fixed += wk * lk
-        elif a <= nL * wk and b >= nU * wk:
-            free_c += wk * yk
-            free_s += wk * wk
-        else:
-            ys[m2] = yk
-            ls[m2] = lk
-            hs[m2] = hk
-            ws[m2] = wk
-            m2 += 1
+        f_hi = a >= nU * wk
+        f_lo = (b <= nL * wk) & ~f_hi
+        f_free = (a <= nL * wk) & (b >= nU * wk) & ~f_hi & ~f_lo
+        fixed += (wk * hk if f_hi else wk * lk) if (f_hi | f_lo) else 0.0
+        free_c += wk * yk if f_free else 0.0
+        free_s += wk * wk if f_free else 0.0
+        ys[m2] = yk
+        _move(ls, m2, k)
+        _move(hs, m2, k)
+        _move(ws, m2, k)
+        m2 += np.int64(~(f_hi | f_lo | f_free))
     return m2, fixed, free_c, free_s, nL, nU, ngL, ngU
 
 
@@ -800,9 +865,9 @@ def _settle_chunk(y, lo, hi, w, j0, j1, L, U, keep):
     cnt = 0
     for j in range(j0, j1):
         yj = y[j]
-        lj = lo[j]
-        hj = hi[j]
-        wj = w[j]
+        lj = at(lo, j)
+        hj = at(hi, j)
+        wj = at(w, j)
         a = yj - hj
         b = yj - lj
         Uw = U * wj
@@ -825,10 +890,10 @@ def _g_sum(ys, ls, hs, ws, m, lam):
     """sum_k w_k clip(y_k - lam w_k, l_k, h_k) over k < m (vectorizable; only the order of the sum is free)."""
     s = 0.0
     for k in range(m):
-        x = ys[k] - lam * ws[k]
-        x = x if x > ls[k] else ls[k]
-        x = x if x < hs[k] else hs[k]
-        s += ws[k] * x
+        x = ys[k] - lam * at(ws, k)
+        x = x if x > at(ls, k) else at(ls, k)
+        x = x if x < at(hs, k) else at(hs, k)
+        s += at(ws, k) * x
     return s
 
 
@@ -836,9 +901,65 @@ def _g_sum(ys, ls, hs, ws, m, lam):
 def _write_clipped(y, lo, hi, w, lam, out):
     """out = clip(y - lam w, lo, hi) (selects instead of min/max, so the loop vectorizes)."""
     for j in range(y.size):
-        x = y[j] - lam * w[j]
-        x = x if x > lo[j] else lo[j]
-        out[j] = x if x < hi[j] else hi[j]
+        x = y[j] - lam * at(w, j)
+        x = x if x > at(lo, j) else at(lo, j)
+        out[j] = x if x < at(hi, j) else at(hi, j)
+
+
+@njit(cache=True, nogil=True)
+def _capped_bracketed(y, lo, hi, w, total, out, L, U):
+    """The multiplier given a guessed bracket (L, U) (see :func:`capped_project_long`), NaN when the
+    guess fails its exact check or leaves more than n/4 coordinates undecided."""
+    n = y.size
+    q = n // 4
+    m = 0
+    fixed = 0.0
+    free_c = 0.0
+    free_s = 0.0
+    keep = np.empty(1024, np.bool_)
+    for j0 in range(0, n, 1024):
+        j1 = min(j0 + 1024, n)
+        f1, f2, f3, cnt = _settle_chunk(y, lo, hi, w, j0, j1, L, U, keep)
+        fixed += f1
+        free_c += f2
+        free_s += f3
+        if m + cnt >= q:              # (< q: the branch-free writes below stay inside each quarter)
+            return np.nan
+        if cnt == 0:
+            continue
+        for j in range(j0, j1):
+            # branch-free compaction: written always, kept when the flag says so
+            out[m] = y[j]
+            _put(lo, out, q + m, j)              # data given as numbers are not copied
+            _put(hi, out, 2 * q + m, j)
+            _put(w, out, 3 * q + m, j)
+            m += np.int64(keep[j - j0])
+    ys = out[0:m]
+    ls = _part(lo, out[q:q + m])
+    hs = _part(hi, out[2 * q:2 * q + m])
+    ws = _part(w, out[3 * q:3 * q + m])
+    base = fixed + free_c
+    gL = base - L * free_s + _g_sum(ys, ls, hs, ws, m, L) if L > -np.inf else np.inf
+    gU = base - U * free_s + _g_sum(ys, ls, hs, ws, m, U) if U < np.inf else -np.inf
+    if not (gL >= total and gU <= total):
+        return np.nan
+    piv = np.empty(128)
+    vals = np.empty(15)
+    seed = np.full(1, 88172645463325252, np.int64)
+    while m > 256:
+        m2, fixed, free_c, free_s, L, U, gL, gU = _capped_narrow(ys, ls, hs, ws, m, fixed, free_c,
+                                                                 free_s, L, U, gL, gU, total, piv,
+                                                                 vals, seed)
+        if m2 == m:
+            break
+        m = m2
+    first = np.nan
+    if L > -np.inf and U < np.inf and gL > gU:
+        t = L + (gL - total) * ((U - L) / (gL - gU))
+        if t > L and t < U:
+            first = t
+    return _capped_rounds(ys, ls, hs, ws, total, np.arange(m), m, fixed, free_c, free_s, L, U, gL, gU,
+                          first, np.empty(0))
 
 
 @njit(cache=True, nogil=True)
@@ -852,61 +973,26 @@ def capped_project_long(y, lo, hi, w, total, out):
     undecided coordinates' data into ``out`` (a quarter each for y, lo, hi, w); g(L) and
     g(U) evaluated exactly on that compact set, which checks the guess; narrowing rounds
     (:func:`_capped_narrow`, about 4x fewer undecided each) and the search rounds
-    (:func:`_capped_rounds`) on it; one pass writing x. If the guess is wrong (g(L) < total,
-    g(U) > total, or more than n/4 undecided), the full search runs instead, with ``out`` as
-    its index buffer. Memory: ``out``, 1024 flags and O(sqrt n)-sized
+    (:func:`_capped_rounds`) on it; one pass writing x. The first guess is narrow (the sample's
+    breakpoints sqrt(K) + 8 ranks either side of its root); if it is wrong (g(L) < total,
+    g(U) > total, or n/4 or more undecided) a wide one (6 sqrt(K) + 8 ranks) is tried, then the full
+    search runs instead, with ``out`` as its index buffer. Data equal at every coordinate may be
+    passed as numbers (:func:`at`). Memory: ``out``, 1024 flags and O(sqrt n)-sized
     samples. Expected O(n).
     Requires finite lo, w > 0, sum w lo <= total <= sum w hi, n >= LONG_ROW.
     """
     n = y.size
-    L, U, ok = _capped_sample_bracket(y, lo, hi, w, total)
     lam = np.nan
-    if ok:
-        q = n // 4
-        m = 0
-        fixed = 0.0
-        free_c = 0.0
-        free_s = 0.0
-        keep = np.empty(1024, np.bool_)
-        for j0 in range(0, n, 1024):
-            j1 = min(j0 + 1024, n)
-            f1, f2, f3, cnt = _settle_chunk(y, lo, hi, w, j0, j1, L, U, keep)
-            fixed += f1
-            free_c += f2
-            free_s += f3
-            if m + cnt > q:
-                m = q + 1
-                break
-            for j in range(j0, j1):
-                if keep[j - j0]:
-                    out[m] = y[j]
-                    out[q + m] = lo[j]
-                    out[2 * q + m] = hi[j]
-                    out[3 * q + m] = w[j]
-                    m += 1
-        if m <= q:
-            ys, ls, hs, ws = out[0:m], out[q:q + m], out[2 * q:2 * q + m], out[3 * q:3 * q + m]
-            base = fixed + free_c
-            gL = base - L * free_s + _g_sum(ys, ls, hs, ws, m, L) if L > -np.inf else np.inf
-            gU = base - U * free_s + _g_sum(ys, ls, hs, ws, m, U) if U < np.inf else -np.inf
-            if gL >= total and gU <= total:
-                piv = np.empty(128)
-                vals = np.empty(15)
-                seed = np.full(1, 88172645463325252, np.int64)
-                while m > 256:
-                    m2, fixed, free_c, free_s, L, U, gL, gU = _capped_narrow(ys, ls, hs, ws, m, fixed, free_c,
-                                                                             free_s, L, U, gL, gU, total, piv,
-                                                                             vals, seed)
-                    if m2 == m:
-                        break
-                    m = m2
-                first = np.nan
-                if L > -np.inf and U < np.inf and gL > gU:
-                    t = L + (gL - total) * ((U - L) / (gL - gU))
-                    if t > L and t < U:
-                        first = t
-                lam = _capped_rounds(ys, ls, hs, ws, total, np.arange(m), m, fixed, free_c, free_s, L, U, gL, gU,
-                                     first, np.empty(0))
+    for margin in (1.0, 6.0):
+        # a narrow guess first (about 5% of the coordinates undecided on random data); when the
+        # check fails, a wide one (the sample's root may sit several sqrt(K) ranks off, e.g. on
+        # sorted data), then the full search
+        L, U, ok = _capped_sample_bracket(y, lo, hi, w, total, margin)
+        if not ok:
+            break
+        lam = _capped_bracketed(y, lo, hi, w, total, out, L, U)
+        if not np.isnan(lam):
+            break
     if np.isnan(lam):
         # no usable bracket: the full search, with ``out`` as its index buffer
         lam = _capped_lambda(y, lo, hi, w, total, out.view(np.int64))
@@ -1143,7 +1229,7 @@ def _root_breakpoint(y, lo, hi, w, total):
     return _key_float(ka)
 
 
-def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
+def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None, long_data=None):
     """Project rows of Y onto {lo <= x <= hi, <w, x> = total} (mode "equal") or <= total ("at_most").
 
     The multiplier of the weighted sum comes from the compiled randomized
@@ -1156,6 +1242,10 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
     the same projection since the set is unchanged and only lam moves by lam0),
     where the free coordinates are small and exact. Exact up to a few ulps of
     the data for finite |y| <= 1e300 (data within the float range).
+
+    ``long_data``: (lo, hi, w) for rows of at least LONG_ROW coordinates, each the vector or,
+    when all its entries are equal, that number (:func:`uniform_or_array`; the caller computes
+    it once per set); the long-row kernel then reads fewer arrays. The same answer bit for bit.
     """
     Y = np.ascontiguousarray(Y, dtype=float)
     lo, hi, w = (_vector(v, Y.shape[1:]) for v in (lo, hi, w))
@@ -1171,8 +1261,9 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
         return X
     lams = np.zeros(Y.shape[0])
     if Y.shape[1] >= LONG_ROW:
+        ld = (lo, hi, w) if long_data is None else long_data
         for r in rows:
-            lams[r] = capped_project_long(Y[r], lo, hi, w, float(total), X[r])
+            lams[r] = capped_project_long(Y[r], ld[0], ld[1], ld[2], float(total), X[r])
     else:
         _capped_rows_nb(Y, lo, hi, w, float(total), rows, X, lams)
     if data_scale is None:

@@ -26,9 +26,10 @@ import setkit
 from setkit.agreement import reference
 from setkit.kernels.isotonic import (permutahedron_lmo, permutahedron_lmo_rows, permutahedron_rows_packed,
                                      permutahedron_rows_sorted_inside, project_permutahedron)
-from setkit.kernels.simplex import (LONG_ROW, NEWTON_ROW, _capped_lambda, _capped_rows_nb, _simplex_rows_nb,
-                                    capped_newton, capped_project_long, capped_threshold_rows, project_capped,
-                                    simplex_rows_buffered)
+from setkit.kernels.simplex import (LONG_ROW, NEWTON_ROW, SCAN_BLOCK_MIN, _capped_lambda, _capped_rows_nb,
+                                    _simplex_rows_nb, capped_newton, capped_project_long, capped_threshold_rows,
+                                    knapsack_lmo_rows, knapsack_lmo_rows_reference, project_capped,
+                                    simplex_rows_buffered, uniform_or_array)
 from setkit.kernels.vector_ops import l1_ball_project, l1_ball_project_buffered
 
 SCALES = (1e-300, 1e-150, 1e-3, 1.0, 1e6, 1e17, 1e150, 1e300)
@@ -47,7 +48,7 @@ def _rows(n, scale, rng):
     return Y
 
 
-@pytest.mark.parametrize("n", [1, 2, 3, 17, 200, 5000])
+@pytest.mark.parametrize("n", [1, 2, 3, 17, 200, 5000, SCAN_BLOCK_MIN + 31])
 def test_simplex_in_place_equals_buffered(n):
     rng = np.random.default_rng(n)
     for scale in SCALES:
@@ -237,3 +238,88 @@ def test_budget_jit_kernel_bit_identical_on_a_long_vector():
     K = setkit.compile({"kind": "budget", "dim": n, "upper": rng.uniform(0.5, 2.0, n), "total": 0.3 * n})
     y = rng.standard_normal(n)
     assert np.array_equal(K.jit_kernels().project(y), K.project(y))
+
+
+def test_long_budget_with_uniform_data_as_numbers():
+    """Bounds or weights equal at every coordinate, passed as numbers (a separate compiled
+    specialization reading fewer arrays), give the same x as the arrays up to rounding;
+    also on sorted input, where the narrow sampled bracket fails and the wide one (or the full
+    search) takes over, and on a constant vector; x meets the exact KKT budget condition."""
+    rng = np.random.default_rng(21)
+    n = LONG_ROW + 777
+    cases = [(np.zeros(n), rng.uniform(0.5, 2.0, n), np.ones(n)),            # caps, unit weights
+             (np.zeros(n), np.full(n, np.inf), rng.uniform(0.5, 2.0, n)),    # weights, no caps
+             (np.full(n, -0.5), np.full(n, 1.5), np.full(n, 2.0))]           # everything uniform
+    for lo, hi, w in cases:
+        fin = np.where(np.isfinite(hi), hi, lo + 3.0)
+        total = float(w @ lo + 0.3 * (w @ fin - w @ lo))
+        nums = tuple(uniform_or_array(v) for v in (lo, hi, w))
+        assert any(isinstance(v, float) for v in nums)
+        for y in (rng.standard_normal(n), np.sort(rng.standard_normal(n)), np.round(rng.standard_normal(n)),
+                  np.full(n, 0.25), rng.standard_normal(n) * 1e6):
+            a, b = np.empty(n), np.empty(n)
+            lam_a = capped_project_long(y, lo, hi, w, total, a)
+            lam_b = capped_project_long(y, *nums, total, b)
+            # the compiler may order the vectorized sums differently in the two specializations:
+            # equal up to rounding, each exactly of the form clip(y - lam w) and on the budget
+            np.testing.assert_allclose(a, b, rtol=0, atol=1e-12 * max(1.0, np.abs(y).max()))
+            for lam, x in ((lam_a, a), (lam_b, b)):
+                np.testing.assert_array_equal(x, np.clip(y - lam * w, lo, hi))
+                assert _kkt_exact(w, total, x) <= 1e-9 * max(1.0, abs(total))
+            lam_s = _capped_lambda(y, lo, hi, w, total, np.empty(n, np.int64))
+            np.testing.assert_allclose(a, np.clip(y - lam_s * w, lo, hi), rtol=0,
+                                       atol=1e-12 * max(1.0, np.abs(y).max()))
+
+
+def _knapsack_case(n, rng, trial):
+    lo = rng.uniform(-1.0, 1.0, n) * (trial % 2)
+    cap = lo + rng.uniform(0.0, 2.0, n) * (rng.random(n) > 0.1)      # some coordinates fixed (cap == lo)
+    w = rng.uniform(0.5, 2.0, n) if trial % 3 else np.ones(n)
+    room = float(rng.uniform(0.0, 1.2) * (w * (cap - lo)).sum())      # sometimes more room than caps
+    return lo, cap, w, room
+
+
+def test_budget_lmo_branch_free_kernel_equals_reference():
+    """The branch-free knapsack LMO against the kernel it replaced, bit for bit (the same pivots,
+    sums and tie order), on random rows, integer rows (ties), magnitudes 1e-300..1e300, both modes,
+    empty batches and n = 1; and against the sorted greedy (NumPy's stable argsort) in objective."""
+    rng = np.random.default_rng(31)
+    for trial in range(120):
+        n = int(rng.integers(1, 90))
+        lo, cap, w, room = _knapsack_case(n, rng, trial)
+        C = rng.standard_normal((int(rng.integers(0, 12)), n))
+        if trial % 4 == 0:
+            C = np.round(C)
+        if trial % 5 == 0:
+            C = C * 10.0 ** float(rng.integers(-300, 301))
+        for at_most in (False, True):
+            a, b = np.empty_like(C), np.empty_like(C)
+            knapsack_lmo_rows(C, lo, cap, w, room, at_most, a)
+            knapsack_lmo_rows_reference(C, lo, cap, w, room, at_most, b)
+            assert np.array_equal(a, b)
+            if C.shape[0] and not at_most and trial % 5:
+                order = np.argsort(C / w, axis=1, kind="stable")
+                ref = np.broadcast_to(lo, C.shape).copy()
+                for r in range(C.shape[0]):
+                    left = room
+                    for j in order[r]:
+                        if cap[j] <= lo[j] or left <= 0.0:
+                            continue
+                        step = min(w[j] * (cap[j] - lo[j]), left)
+                        ref[r, j] = lo[j] + step / w[j]
+                        left -= step
+                sc = np.abs(C).sum(axis=1) * max(1.0, np.abs(cap).max(), np.abs(lo).max())
+                assert np.all(np.abs(np.einsum("ij,ij->i", C, a - ref)) <= 1e-12 * sc)
+
+
+def test_budget_lmo_batch_rows_equal_single_calls():
+    """A batch through K.lmo (split over threads when large) equals row-by-row single calls bit for bit."""
+    rng = np.random.default_rng(41)
+    n = 100
+    K = setkit.compile({"kind": "budget", "dim": n, "weights": rng.uniform(0.5, 2.0, n).tolist(), "upper": 1.0,
+                        "total": 20.0})
+    C = rng.standard_normal((3000, n))
+    C[::7] = np.round(C[::7])
+    X = K.lmo(C)
+    for r in range(0, 3000, 97):
+        assert np.array_equal(X[r], K.lmo(C[r]))
