@@ -981,7 +981,6 @@ def capped_project_long(y, lo, hi, w, total, out):
     samples. Expected O(n).
     Requires finite lo, w > 0, sum w lo <= total <= sum w hi, n >= LONG_ROW.
     """
-    n = y.size
     lam = np.nan
     for margin in (1.0, 6.0):
         # a narrow guess first (about 5% of the coordinates undecided on random data); when the
