@@ -898,42 +898,67 @@ def _g_sum(ys, ls, hs, ws, m, lam):
 
 
 @njit(cache=True, nogil=True)
-def _write_clipped(y, lo, hi, w, lam, out):
-    """out = clip(y - lam w, lo, hi) (selects instead of min/max, so the loop vectorizes)."""
-    for j in range(y.size):
-        x = y[j] - lam * at(w, j)
-        x = x if x > at(lo, j) else at(lo, j)
-        out[j] = x if x < at(hi, j) else at(hi, j)
-
-
-@njit(cache=True, nogil=True)
-def _capped_bracketed(y, lo, hi, w, total, out, L, U):
-    """The multiplier given a guessed bracket (L, U) (see :func:`capped_project_long`), NaN when the
-    guess fails its exact check or leaves more than n/4 coordinates undecided."""
+def _settle_part(y, lo, hi, w, L, U, c0, c1, sums, out, base, cap):
+    """Chunks c0 <= c < c1 of 1024 coordinates: the sums of the coordinates settled on (L, U) into
+    sums[c] (fixed, free_c, free_s), the undecided ones' data compacted, in index order, to
+    positions base, base + 1, ... of each quarter of ``out`` (y; lo, hi, w when arrays). Returns the
+    count kept, or -1 when it would reach ``cap``. Parts of the chunk range may run in threads."""
     n = y.size
     q = n // 4
     m = 0
-    fixed = 0.0
-    free_c = 0.0
-    free_s = 0.0
     keep = np.empty(1024, np.bool_)
-    for j0 in range(0, n, 1024):
+    for c in range(c0, c1):
+        j0 = c * 1024
         j1 = min(j0 + 1024, n)
         f1, f2, f3, cnt = _settle_chunk(y, lo, hi, w, j0, j1, L, U, keep)
-        fixed += f1
-        free_c += f2
-        free_s += f3
-        if m + cnt >= q:              # (< q: the branch-free writes below stay inside each quarter)
-            return np.nan
+        sums[c, 0] = f1
+        sums[c, 1] = f2
+        sums[c, 2] = f3
+        if m + cnt >= cap:            # (< cap: the branch-free writes below stay inside the region)
+            return -1
         if cnt == 0:
+            continue
+        if 16 * cnt < j1 - j0:
+            # few kept (a narrow bracket): a branch per coordinate, rarely taken
+            for j in range(j0, j1):
+                if keep[j - j0]:
+                    out[base + m] = y[j]
+                    _put(lo, out, q + base + m, j)          # data given as numbers are not copied
+                    _put(hi, out, 2 * q + base + m, j)
+                    _put(w, out, 3 * q + base + m, j)
+                    m += 1
             continue
         for j in range(j0, j1):
             # branch-free compaction: written always, kept when the flag says so
-            out[m] = y[j]
-            _put(lo, out, q + m, j)              # data given as numbers are not copied
-            _put(hi, out, 2 * q + m, j)
-            _put(w, out, 3 * q + m, j)
+            out[base + m] = y[j]
+            _put(lo, out, q + base + m, j)
+            _put(hi, out, 2 * q + base + m, j)
+            _put(w, out, 3 * q + base + m, j)
             m += np.int64(keep[j - j0])
+    return m
+
+
+@njit(cache=True, nogil=True)
+def _settled_sums(sums):
+    """The per-chunk sums added in chunk order (the same bits however the chunks were split)."""
+    fixed = 0.0
+    free_c = 0.0
+    free_s = 0.0
+    for c in range(sums.shape[0]):
+        fixed += sums[c, 0]
+        free_c += sums[c, 1]
+        free_s += sums[c, 2]
+    return fixed, free_c, free_s
+
+
+@njit(cache=True, nogil=True)
+def _capped_finish(y, lo, hi, w, total, out, m, sums, L, U):
+    """The multiplier from the settled sums and the m compacted undecided coordinates (in the
+    quarters of ``out``): g(L), g(U) checked exactly, narrowing rounds, the search rounds; NaN when
+    the guessed bracket fails its check."""
+    n = y.size
+    q = n // 4
+    fixed, free_c, free_s = _settled_sums(sums)
     ys = out[0:m]
     ls = _part(lo, out[q:q + m])
     hs = _part(hi, out[2 * q:2 * q + m])
@@ -960,6 +985,82 @@ def _capped_bracketed(y, lo, hi, w, total, out, L, U):
             first = t
     return _capped_rounds(ys, ls, hs, ws, total, np.arange(m), m, fixed, free_c, free_s, L, U, gL, gU,
                           first, np.empty(0))
+
+
+@njit(cache=True, nogil=True)
+def _capped_bracketed(y, lo, hi, w, total, out, L, U):
+    """The multiplier given a guessed bracket (L, U) (see :func:`capped_project_long`), NaN when the
+    guess fails its exact check or leaves n/4 or more coordinates undecided."""
+    n = y.size
+    nch = (n + 1023) // 1024
+    sums = np.empty((nch, 3))
+    m = _settle_part(y, lo, hi, w, L, U, 0, nch, sums, out, 0, n // 4)
+    if m < 0:
+        return np.nan
+    return _capped_finish(y, lo, hi, w, total, out, m, sums, L, U)
+
+
+@njit(cache=True, nogil=True)
+def _write_clipped_range(y, lo, hi, w, lam, out, j0, j1):
+    """out[j] = clip(y_j - lam w_j, lo_j, hi_j) for j0 <= j < j1 (selects, so the loop vectorizes;
+    parts may run in threads)."""
+    for j in range(j0, j1):
+        x = y[j] - lam * at(w, j)
+        x = x if x > at(lo, j) else at(lo, j)
+        out[j] = x if x < at(hi, j) else at(hi, j)
+
+
+# single vectors at least this long split the settling and writing passes of the budget projection
+# over threads (capped_project_threads)
+THREAD_ROW = 1 << 19
+
+
+def capped_project_threads(y, lo, hi, w, total, out, k, pool):
+    """:func:`capped_project_long` with its two passes over the data split over ``k`` threads of
+    ``pool``: the same steps, the settled sums added in chunk order and the undecided coordinates
+    gathered in index order, so the same multiplier and x bit for bit (whatever k)."""
+    n = y.size
+    q = n // 4
+    nch = (n + 1023) // 1024
+    cuts = [nch * i // k for i in range(k + 1)]
+    lam = np.nan
+    for margin in (1.0, 6.0):
+        L, U, ok = _capped_sample_bracket(y, lo, hi, w, total, margin)
+        if not ok:
+            break
+        sums = np.empty((nch, 3))
+        region = q // k
+        futs = [pool.submit(_settle_part, y, lo, hi, w, L, U, cuts[i], cuts[i + 1], sums, out, i * region, region)
+                for i in range(1, k)]
+        counts = [_settle_part(y, lo, hi, w, L, U, cuts[0], cuts[1], sums, out, 0, region)]
+        counts += [f.result() for f in futs]
+        if min(counts) < 0:
+            # a part ran out of its share of the quarters (undecided coordinates bunched together):
+            # the serial pass, whose only limit is the whole quarter, decides as capped_project_long does
+            lam = _capped_bracketed(y, lo, hi, w, total, out, L, U)
+            if not np.isnan(lam):
+                break
+            continue
+        # gather the parts' undecided coordinates behind each other (index order), in every quarter used
+        quarters = [0] + [qq for qq, v in ((1, lo), (2, hi), (3, w)) if isinstance(v, np.ndarray)]
+        m = counts[0]
+        for i in range(1, k):
+            c = counts[i]
+            for qq in quarters:
+                src = qq * q + i * region
+                out[qq * q + m:qq * q + m + c] = out[src:src + c]
+            m += c
+        lam = _capped_finish(y, lo, hi, w, total, out, m, sums, L, U)
+        if not np.isnan(lam):
+            break
+    if np.isnan(lam):
+        lam = _capped_lambda(y, lo, hi, w, total, out.view(np.int64))
+    cw = [n * i // k for i in range(k + 1)]
+    futs = [pool.submit(_write_clipped_range, y, lo, hi, w, lam, out, cw[i], cw[i + 1]) for i in range(1, k)]
+    _write_clipped_range(y, lo, hi, w, lam, out, cw[0], cw[1])
+    for f in futs:
+        f.result()
+    return lam
 
 
 @njit(cache=True, nogil=True)
@@ -995,7 +1096,7 @@ def capped_project_long(y, lo, hi, w, total, out):
     if np.isnan(lam):
         # no usable bracket: the full search, with ``out`` as its index buffer
         lam = _capped_lambda(y, lo, hi, w, total, out.view(np.int64))
-    _write_clipped(y, lo, hi, w, lam, out)
+    _write_clipped_range(y, lo, hi, w, lam, out, 0, y.size)
     return lam
 
 
@@ -1123,12 +1224,30 @@ def rows_max_abs(Y, rows):
     """max_j |Y[r, j]| for each listed row r (0 for empty rows), without a temporary array."""
     out = np.zeros(rows.size)
     for k in range(rows.size):
-        m = 0.0
-        for v in Y[rows[k]]:
-            a = abs(v)
-            if a > m:
-                m = a
-        out[k] = m
+        y = Y[rows[k]]
+        n = y.size
+        # four running maxima (independent selects; the maximum is exact in any order)
+        m0 = 0.0
+        m1 = 0.0
+        m2 = 0.0
+        m3 = 0.0
+        j = 0
+        while j + 4 <= n:
+            a = abs(y[j])
+            b = abs(y[j + 1])
+            c = abs(y[j + 2])
+            d = abs(y[j + 3])
+            m0 = a if a > m0 else m0
+            m1 = b if b > m1 else m1
+            m2 = c if c > m2 else m2
+            m3 = d if d > m3 else m3
+            j += 4
+        for i in range(j, n):
+            a = abs(y[i])
+            m0 = a if a > m0 else m0
+        m0 = m1 if m1 > m0 else m0
+        m0 = m2 if m2 > m0 else m0
+        out[k] = m3 if m3 > m0 else m0
     return out
 
 
@@ -1261,18 +1380,26 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None, long_data
     lams = np.zeros(Y.shape[0])
     if Y.shape[1] >= LONG_ROW:
         ld = (lo, hi, w) if long_data is None else long_data
-        for r in rows:
-            lams[r] = capped_project_long(Y[r], ld[0], ld[1], ld[2], float(total), X[r])
+        from .. import parallel
+        k = parallel.thread_count()
+        k = min(k, 8)
+        if Y.shape[1] >= THREAD_ROW and k >= 2 and not parallel._in_worker():
+            pool = parallel._executor(k)
+            for r in rows:
+                lams[r] = capped_project_threads(Y[r], ld[0], ld[1], ld[2], float(total), X[r], k, pool)
+        else:
+            for r in rows:
+                lams[r] = capped_project_long(Y[r], ld[0], ld[1], ld[2], float(total), X[r])
     else:
         _capped_rows_nb(Y, lo, hi, w, float(total), rows, X, lams)
     if data_scale is None:
         fin = np.concatenate([lo, hi[np.isfinite(hi)], [total]])
         data_scale = float(max(1.0, np.abs(fin).max()))
-    wmax = float(w.max(initial=1.0))
     # rows far from the data: the multiplier cannot be represented finely enough next to |y| (its
     # float grid is ulp(|y|)), so solve again on y - c w with c the breakpoint next to the root
     big = rows[rows_max_abs(Y, rows) > 1e4 * data_scale]
     if big.size:
+        wmax = float(w.max(initial=1.0))
         # each shift leaves the free coordinates at about one ulp of the old multiplier, i.e. 2^-52 times
         # smaller: repeat until the multiplier is at the data's scale (at most ~20 rounds from 1e300)
         Z = Y[big].copy()

@@ -27,7 +27,8 @@ from setkit.agreement import reference
 from setkit.kernels.isotonic import (permutahedron_lmo, permutahedron_lmo_rows, permutahedron_rows_packed,
                                      permutahedron_rows_sorted_inside, project_permutahedron)
 from setkit.kernels.simplex import (LONG_ROW, NEWTON_ROW, SCAN_BLOCK_MIN, _capped_lambda, _capped_rows_nb,
-                                    _simplex_rows_nb, capped_newton, capped_project_long, capped_threshold_rows,
+                                    _simplex_rows_nb, capped_newton, capped_project_long, capped_project_threads,
+                                    capped_threshold_rows,
                                     knapsack_lmo_rows, knapsack_lmo_rows_reference, project_capped,
                                     simplex_rows_buffered, uniform_or_array)
 from setkit.kernels.vector_ops import l1_ball_project, l1_ball_project_buffered
@@ -323,3 +324,31 @@ def test_budget_lmo_batch_rows_equal_single_calls():
     X = K.lmo(C)
     for r in range(0, 3000, 97):
         assert np.array_equal(X[r], K.lmo(C[r]))
+
+
+def test_long_budget_threaded_passes_bit_identical():
+    """The settling and writing passes split over 2..4 threads give the serial kernel's multiplier and
+    x bit for bit (sums added in chunk order, undecided coordinates gathered in index order), with
+    arrays and with numbers, on random, sorted (the wide bracket), tied and constant (the full
+    search) inputs."""
+    from setkit import parallel
+    pool = parallel._executor(4)
+    rng = np.random.default_rng(51)
+    n = 3 * LONG_ROW + 1001
+    for lo, hi, w in ((np.zeros(n), rng.uniform(0.5, 2.0, n), np.ones(n)),
+                      (-rng.uniform(0, 1, n), np.full(n, np.inf), rng.uniform(0.5, 2.0, n))):
+        fin = np.where(np.isfinite(hi), hi, lo + 3.0)
+        total = float(w @ lo + 0.3 * (w @ fin - w @ lo))
+        nums = tuple(uniform_or_array(v) for v in (lo, hi, w))
+        bunched = rng.standard_normal(n)
+        bunched[: n // 5] = np.sort(bunched[: n // 5])        # undecided coordinates bunched in one thread's part
+        for y in (rng.standard_normal(n), np.sort(rng.standard_normal(n)), np.round(3 * rng.standard_normal(n)),
+                  np.full(n, 0.25), bunched):
+            for data in ((lo, hi, w), nums):
+                a = np.empty(n)
+                lam = capped_project_long(y, *data, total, a)
+                for k in (2, 3, 4):
+                    b = np.empty(n)
+                    assert capped_project_threads(y, *data, total, b, k, pool) == lam
+                    assert np.array_equal(a, b)
+                assert _kkt_exact(w, total, a) <= 1e-9 * max(1.0, abs(total))
