@@ -906,7 +906,8 @@ def _settle_part(y, lo, hi, w, L, U, c0, c1, sums, out, base, cap):
     n = y.size
     q = n // 4
     m = 0
-    keep = np.empty(1024, np.bool_)
+    keep = np.zeros(1024, np.bool_)
+    words = keep.view(np.uint64)                 # eight flags per word: zero words are skipped
     for c in range(c0, c1):
         j0 = c * 1024
         j1 = min(j0 + 1024, n)
@@ -919,14 +920,19 @@ def _settle_part(y, lo, hi, w, L, U, c0, c1, sums, out, base, cap):
         if cnt == 0:
             continue
         if 16 * cnt < j1 - j0:
-            # few kept (a narrow bracket): a branch per coordinate, rarely taken
-            for j in range(j0, j1):
-                if keep[j - j0]:
-                    out[base + m] = y[j]
-                    _put(lo, out, q + base + m, j)          # data given as numbers are not copied
-                    _put(hi, out, 2 * q + base + m, j)
-                    _put(w, out, 3 * q + base + m, j)
-                    m += 1
+            # few kept (a narrow bracket): words of eight flags, most of them zero, then a branch
+            # per coordinate of the others
+            nw = (j1 - j0 + 7) // 8
+            for t in range(nw):
+                if words[t] == 0:
+                    continue
+                for j in range(j0 + 8 * t, min(j0 + 8 * t + 8, j1)):
+                    if keep[j - j0]:
+                        out[base + m] = y[j]
+                        _put(lo, out, q + base + m, j)          # data given as numbers are not copied
+                        _put(hi, out, 2 * q + base + m, j)
+                        _put(w, out, 3 * q + base + m, j)
+                        m += 1
             continue
         for j in range(j0, j1):
             # branch-free compaction: written always, kept when the flag says so
