@@ -19,7 +19,7 @@ def all_finite(a: np.ndarray) -> bool:
     flat = a.reshape(-1)
     if flat.size < 64:
         return bool(np.isfinite(flat).all())
-    if flat.size >= (1 << 20):
+    if flat.size >= (1 << 19):
         # large batches: the halves (or more parts) checked in setkit.parallel's threads
         from .. import parallel
         k = parallel.thread_count()
