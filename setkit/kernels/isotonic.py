@@ -109,12 +109,17 @@ def _pav_row(y, order, wdesc, out, ys, refs, sums, cnts):
     sums[nb] = ts
     cnts[nb] = tc
     nb += 1
-    k = 0
+    # block means in place of the sums, block ends (as floats, exact) in place of the counts; then
+    # one branch-free walk: the block index advances when k reaches the block's end
+    end = 0.0
     for blk in range(nb):
-        v = sums[blk] / cnts[blk]
-        for _ in range(int(cnts[blk])):
-            out[order[k]] = (ys[k] - refs[k]) - v
-            k += 1
+        sums[blk] = sums[blk] / cnts[blk]
+        end += cnts[blk]
+        cnts[blk] = end
+    blk = 0
+    for k in range(n):
+        blk += np.int64(k >= cnts[blk])
+        out[order[k]] = (ys[k] - refs[k]) - sums[blk]
 
 
 @njit(cache=True, nogil=True)
