@@ -389,3 +389,19 @@ def test_large_batch_finiteness_check_split_over_threads(monkeypatch):
         assert not all_finite(Z)
         with pytest.raises(InputError, match="finite"):
             K.project(Z)
+
+
+def test_budget_jit_kernel_bit_identical_past_the_thread_split(monkeypatch):
+    """Past THREAD_ROW, K.project splits the long-row passes over threads; the jitted kernel (serial)
+    gives the same bits (per-coordinate weights: an array; lower and upper bounds: numbers). One set
+    only: each jitted kernel is a closure compiled afresh (tens of seconds)."""
+    from setkit.kernels.simplex import THREAD_ROW
+    monkeypatch.setenv("SETKIT_THREADS", "2")
+    n = THREAD_ROW + 5
+    rng = np.random.default_rng(71)
+    for spec in ({"kind": "budget", "dim": n, "weights": rng.uniform(0.5, 2.0, n), "lower": -0.5, "total": 0.3 * n},):
+        K = setkit.compile(spec)
+        y = rng.standard_normal(n)
+        x = K.project(y)
+        assert np.array_equal(K.jit_kernels().project(y), x)
+        assert abs(float(np.sum(K.node.weights * x)) - K.node.total) <= 1e-9 * n
