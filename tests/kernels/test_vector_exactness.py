@@ -283,7 +283,9 @@ def _knapsack_case(n, rng, trial):
 def test_budget_lmo_branch_free_kernel_equals_reference():
     """The branch-free knapsack LMO against the kernel it replaced, bit for bit (the same pivots,
     sums and tie order), on random rows, integer rows (ties), magnitudes 1e-300..1e300, both modes,
-    empty batches and n = 1; and against the sorted greedy (NumPy's stable argsort) in objective."""
+    empty batches and n = 1; and against the sorted greedy of the continuous knapsack (Dantzig 1957,
+    "Discrete-variable extremum problems"; from memory), written here with NumPy's stable argsort, in
+    objective."""
     rng = np.random.default_rng(31)
     for trial in range(120):
         n = int(rng.integers(1, 90))
@@ -405,3 +407,28 @@ def test_budget_jit_kernel_bit_identical_past_the_thread_split(monkeypatch):
         x = K.project(y)
         assert np.array_equal(K.jit_kernels().project(y), x)
         assert abs(float(np.sum(K.node.weights * x)) - K.node.total) <= 1e-9 * n
+
+
+@pytest.mark.parametrize("mode", ["equal", "at_most"])
+def test_budget_lmo_against_linprog_and_cvxpy(mode):
+    """The budget LMO's optimal value against scipy.optimize.linprog (HiGHS) and the cvxpy reference
+    on small sets with caps hit, ties and a fractional coordinate."""
+    from scipy.optimize import linprog
+    rng = np.random.default_rng(81)
+    for trial in range(6):
+        n = int(rng.integers(2, 9))
+        w = rng.uniform(0.5, 2.0, n).round(2)
+        hi = rng.uniform(0.3, 1.5, n).round(2)
+        total = float(np.round(0.45 * w @ hi, 3))
+        K = setkit.compile({"kind": "budget", "dim": n, "weights": w.tolist(), "upper": hi.tolist(), "total": total,
+                            "mode": mode})
+        R = reference(K)
+        for c in (rng.standard_normal(n), np.round(rng.standard_normal(n)), -w * 1.5):
+            x = K.lmo(c)
+            kw = {"A_eq": w[None], "b_eq": [total]} if mode == "equal" else {"A_ub": w[None], "b_ub": [total]}
+            lp = linprog(c, bounds=list(zip(np.zeros(n), hi)), method="highs", **kw)
+            assert lp.status == 0
+            sc = max(1.0, np.abs(c).sum())
+            assert abs(c @ x - lp.fun) <= 1e-9 * sc
+            assert abs(c @ x - c @ R.lmo(c)) <= 1e-6 * sc
+            assert K.violation(x) <= 1e-12 * n
