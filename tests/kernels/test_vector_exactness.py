@@ -368,11 +368,9 @@ def test_pav_row_equals_reference(n):
         Y = _rows(n, scale, rng)
         for y in Y:
             order = np.argsort(-y, kind="stable")
-            outs = []
-            for f in (_pav_row, _pav_row_reference):
-                out = np.empty(n)
-                f(y, order, wd, out, np.empty(n), np.empty(n), np.empty(n), np.empty(n))
-                outs.append(out)
+            outs = [np.empty(n), np.empty(n)]
+            _pav_row(y, order, wd, outs[0], np.empty(n), np.empty(n), np.empty(n), np.empty(n), np.empty(n, np.int64))
+            _pav_row_reference(y, order, wd, outs[1], np.empty(n), np.empty(n), np.empty(n), np.empty(n))
             assert np.array_equal(outs[0], outs[1])
 
 
