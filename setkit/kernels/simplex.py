@@ -11,7 +11,6 @@ from numba import njit, types
 from numba.extending import overload
 
 
-
 def at(a, j):
     """a[j] for an array, a itself for a number: one kernel source serves per-coordinate data and
     data equal at every coordinate (passed as a number: a separate compiled specialization that
@@ -67,10 +66,13 @@ def _part_overload(a, buf):
 
 
 def uniform_or_array(v):
-    """float(v[0]) when every entry of the float vector v is the same (then kernels take it as a number), else v."""
+    """float(v[0]) when every entry of the float vector v has the same bits (then kernels take it as a
+    number; -0.0 and +0.0 count as different), else v."""
     v = np.ascontiguousarray(v, dtype=float)
-    if v.size and np.all(v == v[0]):
-        return float(v[0])
+    if v.size:
+        bits = v.view(np.int64)
+        if np.all(bits == bits[0]):
+            return float(v[0])
     return v
 
 
