@@ -778,11 +778,23 @@ def _capped_sample_bracket(y, lo, hi, w, total, margin=3.0):
             K += 1
     if K < 64:
         return -np.inf, np.inf, False
-    sbp = np.sort(bp[:K])
-    p = np.searchsorted(sbp, lam_s)
+    # the sample breakpoints r ranks either side of lam_s by selection (np.partition, O(K)) instead of
+    # a sort: the same order statistics, several times faster than numba's sort
     r = int(margin * np.sqrt(K)) + 8
-    L = sbp[p - r - 1] if p - r - 1 >= 0 else -np.inf
-    U = sbp[p + r] if p + r < K else np.inf
+    below = np.empty(K)
+    above = np.empty(K)
+    p = 0
+    a = 0
+    for t in range(K):
+        v = bp[t]
+        if v < lam_s:
+            below[p] = v
+            p += 1
+        else:
+            above[a] = v
+            a += 1
+    L = np.partition(below[:p], p - r - 1)[p - r - 1] if p - r - 1 >= 0 else -np.inf
+    U = np.partition(above[:a], r)[r] if r < a else np.inf
     if not (L < U):
         return -np.inf, np.inf, False
     return L, U, True
