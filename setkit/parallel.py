@@ -52,8 +52,16 @@ def _in_worker():
     return threading.current_thread().name.startswith("setkit")
 
 
+def _fits(o, rows):
+    return type(o) is np.ndarray and o.ndim >= 1 and o.shape[0] == rows
+
+
 def split_rows(raw, op):
-    """``raw`` (a bound native kernel of flat batches) run over row chunks in threads for large batches."""
+    """``raw`` (a bound native kernel of flat batches) run over row chunks in threads for large batches.
+
+    Each thread also copies its chunk's answer into the result (NumPy's copy releases the GIL), so
+    no serial concatenation follows the parallel part: the main thread computes the first chunk,
+    allocates the result from its shape and dtype and lets the others write into it."""
     if op not in SPLIT_OPERATORS:
         return raw
 
@@ -65,17 +73,48 @@ def split_rows(raw, op):
         k = min(k, b)
         cuts = np.linspace(0, b, k + 1).astype(np.int64)
         pieces = [(X[cuts[i]:cuts[i + 1]],) + tuple(r[cuts[i]:cuts[i + 1]] for r in rest) for i in range(k)]
+        ready = threading.Event()
+        slot = []                       # the result, once the main thread has allocated it
+
+        def job(i):
+            o = raw(*pieces[i])
+            ready.wait()
+            n = cuts[i + 1] - cuts[i]
+            if slot and _fits(o, n) and o.shape[1:] == slot[0].shape[1:] and o.dtype == slot[0].dtype:
+                slot[0][cuts[i]:cuts[i + 1]] = o
+                return None
+            return o                    # not an array of rows like the first chunk's: served serially below
+
         pool = _executor(k)
-        futures = [pool.submit(raw, *p) for p in pieces[1:]]
+        futures = [pool.submit(job, i) for i in range(1, k)]
         try:
-            outs = [raw(*pieces[0])] + [f.result() for f in futures]
+            o0 = raw(*pieces[0])
+            if _fits(o0, cuts[1]):
+                slot.append(np.empty((b,) + o0.shape[1:], dtype=o0.dtype))
         except Exception:          # noqa: BLE001 - run serially so that the error names the right row
             for f in futures:
                 f.cancel()
+            ready.set()
+            for f in futures:
+                try:
+                    f.result()
+                except Exception:  # noqa: BLE001, S110 - the serial call below raises the error
+                    pass
             return raw(X, *rest)
-        if not all(type(o) is np.ndarray and o.ndim >= 1 and o.shape[0] == (cuts[i + 1] - cuts[i])
-                   for i, o in enumerate(outs)):
+        finally:
+            ready.set()
+        if not slot:
+            for f in futures:
+                f.result()
             return raw(X, *rest)      # a kernel returning (out, info) or a scalar: serve it serially
-        return np.concatenate(outs, axis=0)
+        out = slot[0]
+        out[:cuts[1]] = o0
+        try:
+            leftovers = [f.result() for f in futures]
+        except Exception:          # noqa: BLE001 - run serially so that the error names the right row
+            return raw(X, *rest)
+        if any(o is not None for o in leftovers):
+            return raw(X, *rest)
+        return out
     call.__wrapped__ = raw
     return call

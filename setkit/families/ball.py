@@ -9,7 +9,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..forms import LinearForm
-from ..kernels.vector_ops import (ball_lmo, ball_screen, ball_violation, l1_ball_project, l2_ball_project, l2_dist_rows,
+from ..kernels.vector_ops import (ball_lmo, ball_screen, ball_violation, l1_ball_project_rows, l2_ball_project, l2_dist_rows,
                                   norm_rows)
 from . import Family, kernel, register
 from ._screen import screened_contains
@@ -169,7 +169,7 @@ class Ball(Family):
         if self.norm == 2:
             return l2_ball_project(Y, c, r)
         if self.norm == 1:
-            return l1_ball_project(Y, self._l1_center, r)
+            return l1_ball_project_rows(Y, self._l1_center, r)
         # p = inf: clip to the box [c - r, c + r] (points inside come back unchanged)
         return np.clip(Y, self._lo, self._hi)
 

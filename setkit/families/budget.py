@@ -15,7 +15,7 @@ import numpy as np
 from ..forms import LinearForm
 from ..kernels.bregman import budget_kl, budget_structure, outside_orthant_error
 from ..kernels.face import capped_face_rows
-from ..kernels.simplex import knapsack_lmo_rows, project_capped
+from ..kernels.simplex import knapsack_lmo_rows, project_capped, uniform_or_array
 from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation
 from . import Family, kernel, register
 from ._screen import screened_contains
@@ -136,6 +136,8 @@ class Budget(Family):
         with np.errstate(divide="ignore", invalid="ignore"):   # the KL projection's breakpoints use the logs of the bounds
             object.__setattr__(self, "_log_bounds", (np.log(self.lower), np.log(self.upper)))
         object.__setattr__(self, "_kl_structure", budget_structure(self.lower, self.upper, self.weights))
+        # for long vectors: bounds and weights equal at every coordinate are passed as numbers
+        object.__setattr__(self, "_long_data", tuple(uniform_or_array(v) for v in (self.lower, self.upper, self.weights)))
 
     def cvxpy_constraints(self, x):
         cons = [x >= self.lower]
@@ -159,7 +161,7 @@ class Budget(Family):
         """project and lmo with this set's data bound, as numba functions of one point (K.jit_kernels())."""
         from ..kernels.bound import budget_kernels
         return budget_kernels(self.lower, self.upper, self.weights, self.total, self.mode == "at_most",
-                              self._caps, self._room, self._data_scale)
+                              self._caps, self._room, self._data_scale, self._long_data)
 
     def point_kernels(self, check=True):
         """Compiled single-point project / lmo (setkit.kernels.point), bit-identical to the batch kernels.
@@ -177,7 +179,8 @@ class Budget(Family):
     @kernel("project")
     def project(self, Y):
         """Clip to the bounds and shift by the multiplier of the weighted sum, found by randomized breakpoint search, expected O(n)."""
-        return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode, self._data_scale)
+        return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode, self._data_scale,
+                              self._long_data)
 
     @kernel("project_jvp")
     def project_jvp(self, Y, V):

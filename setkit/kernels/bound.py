@@ -121,7 +121,7 @@ def ball_kernels(center, radius, p, lo, hi):
     return {"project": project, "lmo": lmo}
 
 
-def budget_kernels(lower, upper, weights, total, at_most, caps, room, data_scale):
+def budget_kernels(lower, upper, weights, total, at_most, caps, room, data_scale, long_data=None):
     """project and lmo of {lower <= x <= upper, <w, x> = total} (or <= total when ``at_most``).
 
     The projection serves points with max |y| <= 1e4 * data_scale (the range where the Python-level
@@ -131,6 +131,8 @@ def budget_kernels(lower, upper, weights, total, at_most, caps, room, data_scale
     lo, hi, w, cap = (np.ascontiguousarray(v, dtype=float) for v in (lower, upper, weights, caps))
     total, room, at_most = float(total), float(room), bool(at_most)
     far = 1e4 * float(data_scale)
+    # long vectors: the same specialization as the Python-level operator (numbers for uniform data)
+    llo, lhi, lw = (lo, hi, w) if long_data is None else long_data
 
     @njit(nogil=True)
     def project(y):
@@ -146,7 +148,7 @@ def budget_kernels(lower, upper, weights, total, at_most, caps, room, data_scale
         else:
             X = np.empty_like(Y)
         if y.size >= LONG_ROW:
-            capped_project_long(y, lo, hi, w, total, X[0])
+            capped_project_long(y, llo, lhi, lw, total, X[0])
         else:
             _capped_rows_nb(Y, lo, hi, w, total, rows, X, np.zeros(1))
         return X[0]

@@ -5,7 +5,7 @@ import numpy as np
 from numba import njit
 
 
-@njit(cache=True, fastmath={"reassoc"})
+@njit(cache=True, nogil=True, fastmath={"reassoc"})
 def _all_finite(a):
     # v * 0 is 0 for finite v and NaN for NaN and +-inf; reassociation lets the sum vectorize
     acc = 0.0
@@ -19,6 +19,15 @@ def all_finite(a: np.ndarray) -> bool:
     flat = a.reshape(-1)
     if flat.size < 64:
         return bool(np.isfinite(flat).all())
+    if flat.size >= (1 << 19):
+        # large batches: the halves (or more parts) checked in setkit.parallel's threads
+        from .. import parallel
+        k = parallel.thread_count()
+        if k >= 2 and not parallel._in_worker():
+            cuts = np.linspace(0, flat.size, k + 1).astype(np.int64)
+            futs = [parallel._executor(k).submit(_all_finite, flat[cuts[i]:cuts[i + 1]]) for i in range(1, k)]
+            ok = bool(_all_finite(flat[:cuts[1]]))
+            return all([bool(f.result()) for f in futs]) and ok
     return bool(_all_finite(flat))
 
 

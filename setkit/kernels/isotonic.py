@@ -68,13 +68,65 @@ def _permutahedron_rows(Y, order, wdesc, out):
     refs = np.empty(n)
     sums = np.empty(n)
     cnts = np.empty(n)
+    starts = np.empty(n, np.int64)
     for r in range(b):
-        _pav_row(Y[r], order[r], wdesc, out[r], ys, refs, sums, cnts)
+        _pav_row(Y[r], order[r], wdesc, out[r], ys, refs, sums, cnts, starts)
 
 
 @njit(cache=True, nogil=True)
-def _pav_row(y, order, wdesc, out, ys, refs, sums, cnts):
-    """One row of :func:`_permutahedron_rows` with its work buffers given (counts as floats: exact)."""
+def _pav_row(y, order, wdesc, out, ys, refs, sums, cnts, starts):
+    """One row of :func:`_permutahedron_rows` with its work buffers given (counts as floats: exact).
+
+    Pool-adjacent-violators with the top block of the stack held in locals (ts, tc) and the blocks
+    below it in ``sums``/``cnts`` (a merge reads one stored block instead of a value it has just
+    written); each block keeps the reference value of its cluster in ``refs`` (blocks never cross
+    a cluster's edge). The answer is written by one walk whose block index advances by the 0/1
+    flags of ``starts`` (an integer chain, no branch). The same comparisons and the same sums
+    (a + b = b + a) as :func:`_pav_row_reference`: the same bits."""
+    n = y.size
+    if n == 0:
+        return
+    spread = wdesc[0] - wdesc[n - 1]
+    for i in range(n):
+        ys[i] = y[order[i]]
+        starts[i] = 0
+    nb = 0
+    floor = 0
+    ref = ys[0]
+    ts = (ys[0] - ref) - wdesc[0]
+    tc = 1.0
+    for i in range(1, n):
+        sums[nb] = ts             # the top goes below; the new value is the new top
+        cnts[nb] = tc
+        refs[nb] = ref
+        nb += 1
+        if ys[i - 1] - ys[i] > 2.0 * spread:
+            floor = nb            # a new cluster: no pool crosses this gap
+            ref = ys[i]
+        ts = (ys[i] - ref) - wdesc[i]
+        tc = 1.0
+        while nb > floor and sums[nb - 1] * tc < ts * cnts[nb - 1]:
+            nb -= 1
+            ts += sums[nb]
+            tc += cnts[nb]
+    sums[nb] = ts
+    cnts[nb] = tc
+    refs[nb] = ref
+    nb += 1
+    pos = 0
+    for blk in range(nb):
+        sums[blk] = sums[blk] / cnts[blk]          # block means
+        starts[pos] = 1
+        pos += int(cnts[blk])
+    blk = -1
+    for k in range(n):
+        blk += starts[k]
+        out[order[k]] = (ys[k] - refs[blk]) - sums[blk]
+
+
+@njit(cache=True, nogil=True)
+def _pav_row_reference(y, order, wdesc, out, ys, refs, sums, cnts):
+    """The previous :func:`_pav_row` (the stack top kept in the arrays), kept as a reference for the tests."""
     n = y.size
     spread = wdesc[0] - wdesc[n - 1] if n > 0 else 0.0
     for i in range(n):
@@ -198,8 +250,13 @@ def keys_to_order(packed, y, nbits, decreasing, order):
     n = packed.size
     sh = np.uint64(nbits)
     mask = (np.uint64(1) << sh) - np.uint64(1)
+    ties = 0
     for i in range(n):
         order[i] = np.int64(packed[i] & mask)
+    for i in range(n - 1):        # branch-free count of adjacent keys equal in their high bits
+        ties += np.int64((packed[i] >> sh) == (packed[i + 1] >> sh))
+    if ties == 0:
+        return
     i = 0
     while i < n:
         key = packed[i] >> sh
@@ -237,9 +294,10 @@ def permutahedron_rows_keys(Y, keys, nbits, wdesc):
     refs = np.empty(n)
     sums = np.empty(n)
     cnts = np.empty(n)
+    starts = np.empty(n, np.int64)
     for r in range(b):
         keys_to_order(keys[r], Y[r], nbits, True, order)
-        _pav_row(Y[r], order, wdesc, out[r], ys, refs, sums, cnts)
+        _pav_row(Y[r], order, wdesc, out[r], ys, refs, sums, cnts, starts)
     return out
 
 

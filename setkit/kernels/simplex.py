@@ -7,7 +7,74 @@ breakpoint search.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from numba import njit, types
+from numba.extending import overload
+
+
+def at(a, j):
+    """a[j] for an array, a itself for a number: one kernel source serves per-coordinate data and
+    data equal at every coordinate (passed as a number: a separate compiled specialization that
+    reads one array less per pass)."""
+    return a[j]
+
+
+@overload(at, inline="always")
+def _at_overload(a, j):
+    if isinstance(a, types.Array):
+        return lambda a, j: a[j]
+    return lambda a, j: a
+
+
+def _move(a, i, k):
+    """a[i] = a[k] for an array; nothing for a number (see :func:`at`)."""
+    a[i] = a[k]
+
+
+@overload(_move, inline="always")
+def _move_overload(a, i, k):
+    if isinstance(a, types.Array):
+        def impl(a, i, k):
+            a[i] = a[k]
+        return impl
+    return lambda a, i, k: None
+
+
+def _put(a, buf, i, j):
+    """buf[i] = a[j] for an array ``a``; nothing for a number."""
+    buf[i] = a[j]
+
+
+@overload(_put, inline="always")
+def _put_overload(a, buf, i, j):
+    if isinstance(a, types.Array):
+        def impl(a, buf, i, j):
+            buf[i] = a[j]
+        return impl
+    return lambda a, buf, i, j: None
+
+
+def _part(a, buf):
+    """``buf`` (the compact copy) for an array ``a``; ``a`` itself for a number."""
+    return buf
+
+
+@overload(_part, inline="always")
+def _part_overload(a, buf):
+    if isinstance(a, types.Array):
+        return lambda a, buf: buf
+    return lambda a, buf: a
+
+
+def uniform_or_array(v):
+    """float(v[0]) when every entry of the float vector v has the same bits (then kernels take it as a
+    number; -0.0 and +0.0 count as different), else v."""
+    v = np.ascontiguousarray(v, dtype=float)
+    if v.size:
+        bits = v.view(np.int64)
+        if np.all(bits == bits[0]):
+            return float(v[0])
+    return v
+
 
 # clean-up passes allowed before falling back to the sort-based threshold
 _MAX_PASSES = 64
@@ -91,26 +158,58 @@ def simplex_tau_shifted(y, top, floor, total, z):
     ``z`` may be ``y`` itself (top = 0, floor = -inf: the values as they are) or a separate
     buffer of the same size (then y is only read, and z holds no copy of the shifted values:
     one pass less)."""
+    return simplex_tau_scan(y, top, floor, total, z, False)
+
+
+# rows at least this long skip blocks of SCAN_BLOCK values that Condat's first pass would pass over
+SCAN_BLOCK_MIN = 4096
+SCAN_BLOCK = 32
+
+
+@njit(cache=True, nogil=True)
+def simplex_tau_scan(y, top, floor, total, z, absolute):
+    """:func:`simplex_tau_shifted` of the values max(y - top, floor), or of max(|y| - top, floor)
+    when ``absolute`` (the l1 ball's threshold, computed on the fly).
+
+    Condat's first pass only acts on a value above its running threshold rho; once rho is near
+    the answer almost no value is, so on rows of at least SCAN_BLOCK_MIN values a branch-free
+    (vectorizable) count of the values above rho in each block of SCAN_BLOCK skips the blocks
+    where it is zero. The values read, the lists and the arithmetic are those of the plain
+    pass: the same threshold bit for bit, fewer branches."""
     n = y.size
     m = 1
     mt = 0
-    v0 = y[0] - top
+    v0 = (abs(y[0]) if absolute else y[0]) - top
     v0 = v0 if v0 > floor else floor
     z[0] = v0
     rho = v0 - total
-    for i in range(1, n):
-        yi = y[i] - top
-        yi = yi if yi > floor else floor
-        if yi > rho:
-            rho += (yi - rho) / (m + 1)
-            if rho > yi - total:
-                z[mt + m] = yi
-                m += 1
-            else:
-                mt += m                         # v retires in place: it becomes the tail of vt
-                z[mt] = yi
-                m = 1
-                rho = yi - total
+    i = 1
+    while i < n:
+        end = n
+        if n >= SCAN_BLOCK_MIN and i + SCAN_BLOCK <= n:
+            end = i + SCAN_BLOCK
+            cnt = 0
+            for j in range(i, end):
+                v = (abs(y[j]) if absolute else y[j]) - top
+                v = v if v > floor else floor
+                cnt += np.int64(v > rho)
+            if cnt == 0:
+                i = end
+                continue
+        for j in range(i, end):
+            yi = (abs(y[j]) if absolute else y[j]) - top
+            yi = yi if yi > floor else floor
+            if yi > rho:
+                rho += (yi - rho) / (m + 1)
+                if rho > yi - total:
+                    z[mt + m] = yi
+                    m += 1
+                else:
+                    mt += m                         # v retires in place: it becomes the tail of vt
+                    z[mt] = yi
+                    m = 1
+                    rho = yi - total
+        i = end
     return _condat_finish(z, m, mt, rho, total)
 
 
@@ -151,6 +250,33 @@ def _condat_finish(z, m, mt, rho, total):
 
 
 @njit(cache=True, nogil=True)
+def row_max(y):
+    """max(y) of a non-empty row with four running maxima (independent selects: several times faster
+    than one chain on long rows; the maximum is exact, so the same value)."""
+    n = y.size
+    t0 = y[0]
+    t1 = t0
+    t2 = t0
+    t3 = t0
+    k = 0
+    while k + 4 <= n:
+        a = y[k]
+        b = y[k + 1]
+        c = y[k + 2]
+        d = y[k + 3]
+        t0 = a if a > t0 else t0
+        t1 = b if b > t1 else t1
+        t2 = c if c > t2 else t2
+        t3 = d if d > t3 else t3
+        k += 4
+    for j in range(k, n):
+        t0 = y[j] if y[j] > t0 else t0
+    t0 = t1 if t1 > t0 else t0
+    t0 = t2 if t2 > t0 else t0
+    return t3 if t3 > t0 else t0
+
+
+@njit(cache=True, nogil=True)
 def _simplex_rows_nb(Y, total, out):
     """Rows shifted by their maximum and floored at -2 total (see :func:`shift_to_top`), then Condat.
 
@@ -163,10 +289,7 @@ def _simplex_rows_nb(Y, total, out):
     bad = 0
     floor = -2.0 * total
     for r in range(b):
-        top = Y[r, 0]
-        for j in range(1, n):
-            if Y[r, j] > top:
-                top = Y[r, j]
+        top = row_max(Y[r])
         tau = simplex_tau_shifted(Y[r], top, floor, total, out[r])
         if np.isnan(tau):
             bad += 1
@@ -403,9 +526,9 @@ def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
         r = (seed[0] >> 20) & 0x7FFFFFFFFFF
         j = idx[r % m]
         if (seed[0] >> 63) & 1:
-            bp = (y[j] - hi[j]) / w[j]
+            bp = (y[j] - at(hi, j)) / at(w, j)
         else:
-            bp = (y[j] - lo[j]) / w[j]
+            bp = (y[j] - at(lo, j)) / at(w, j)
         if bp > L and bp < U:
             samp[cnt] = bp
             cnt += 1
@@ -414,10 +537,10 @@ def _pick_pivot(y, lo, hi, w, idx, m, L, U, seed, samp):
     if cnt == 0:
         for k in range(m):
             j = idx[k]
-            bp = (y[j] - hi[j]) / w[j]
+            bp = (y[j] - at(hi, j)) / at(w, j)
             if bp > L and bp < U:
                 return bp
-            bp = (y[j] - lo[j]) / w[j]
+            bp = (y[j] - at(lo, j)) / at(w, j)
             if bp > L and bp < U:
                 return bp
         return np.nan
@@ -456,9 +579,9 @@ def _capped_lambda(y, lo, hi, w, total, idx):
             seed = seed * 6364136223846793005 + 1442695040888963407
             j = ((seed >> 20) & 0x7FFFFFFFFFF) % n
             ys[t] = y[j]
-            los[t] = lo[j]
-            his[t] = hi[j]
-            ws[t] = w[j]
+            los[t] = at(lo, j)
+            his[t] = at(hi, j)
+            ws[t] = at(w, j)
             smin += ws[t] * los[t]
             smax += ws[t] * his[t]
         ts = total * k / n
@@ -509,14 +632,14 @@ def _capped_rounds(y, lo, hi, w, total, idx, m, fixed, free_c, free_s, L, U, gL,
             # nothing can be settled yet: evaluate only (a cheaper loop)
             for k in range(m):
                 j = idx[k]
-                gk += w[j] * min(max(y[j] - piv * w[j], lo[j]), hi[j])
+                gk += at(w, j) * min(max(y[j] - piv * at(w, j), at(lo, j)), at(hi, j))
             m2 = m
         for k in range(m if m2 == 0 else 0):
             j = idx[k]
             yj = y[j]
-            hj = hi[j]
-            lj = lo[j]
-            wj = w[j]
+            hj = at(hi, j)
+            lj = at(lo, j)
+            wj = at(w, j)
             # branch-free (integer flags, selects): data-dependent branches cost more than the arithmetic
             a = yj - hj
             b = yj - lj
@@ -583,14 +706,14 @@ def _capped_rounds(y, lo, hi, w, total, idx, m, fixed, free_c, free_s, L, U, gL,
             mid = 0.0
         for k in range(m):
             j = idx[k]
-            x = y[j] - mid * w[j]
-            if x >= hi[j]:
-                fixed += w[j] * hi[j]
-            elif x <= lo[j]:
-                fixed += w[j] * lo[j]
+            x = y[j] - mid * at(w, j)
+            if x >= at(hi, j):
+                fixed += at(w, j) * at(hi, j)
+            elif x <= at(lo, j):
+                fixed += at(w, j) * at(lo, j)
             else:
-                free_c += w[j] * y[j]
-                free_s += w[j] * w[j]
+                free_c += at(w, j) * y[j]
+                free_s += at(w, j) * at(w, j)
     if free_s == 0.0:
         # g is flat (= total) on the bracket: any point of it is a root
         if L > -np.inf:
@@ -606,12 +729,12 @@ LONG_ROW = 32768
 
 
 @njit(cache=True, nogil=True)
-def _capped_sample_bracket(y, lo, hi, w, total):
+def _capped_sample_bracket(y, lo, hi, w, total, margin=3.0):
     """A bracket (L, U) for the multiplier of a long capped weighted simplex, from a sample.
 
     4096 coordinates in 256 random blocks of 16 consecutive ones (cache friendly), the same
     problem solved on them with the total scaled by k/n (:func:`_capped_search`), and the
-    sample breakpoints 3 sqrt(K) + 8 ranks either side of the sample's root (K finite sample
+    sample breakpoints ``margin`` sqrt(K) + 8 ranks either side of the sample's root (K finite sample
     breakpoints) as the ends. Infinite ends where the sample runs out. Returns (L, U, ok);
     ok is False when the sample problem is infeasible or degenerate (the caller then searches
     without a bracket). The bracket is only a guess: the caller verifies it exactly.
@@ -632,9 +755,9 @@ def _capped_sample_bracket(y, lo, hi, w, total):
         j0 = ((seed >> 20) & 0x7FFFFFFFFFF) % (n - 15)
         for j in range(j0, j0 + 16):
             ys[t] = y[j]
-            ls[t] = lo[j]
-            hs[t] = hi[j]
-            ws[t] = w[j]
+            ls[t] = at(lo, j)
+            hs[t] = at(hi, j)
+            ws[t] = at(w, j)
             smin += ws[t] * ls[t]
             smax += ws[t] * hs[t]
             t += 1
@@ -655,11 +778,23 @@ def _capped_sample_bracket(y, lo, hi, w, total):
             K += 1
     if K < 64:
         return -np.inf, np.inf, False
-    sbp = np.sort(bp[:K])
-    p = np.searchsorted(sbp, lam_s)
-    r = int(3.0 * np.sqrt(K)) + 8
-    L = sbp[p - r - 1] if p - r - 1 >= 0 else -np.inf
-    U = sbp[p + r] if p + r < K else np.inf
+    # the sample breakpoints r ranks either side of lam_s by selection (np.partition, O(K)) instead of
+    # a sort: the same order statistics, several times faster than numba's sort
+    r = int(margin * np.sqrt(K)) + 8
+    below = np.empty(K)
+    above = np.empty(K)
+    p = 0
+    a = 0
+    for t in range(K):
+        v = bp[t]
+        if v < lam_s:
+            below[p] = v
+            p += 1
+        else:
+            above[a] = v
+            a += 1
+    L = np.partition(below[:p], p - r - 1)[p - r - 1] if p - r - 1 >= 0 else -np.inf
+    U = np.partition(above[:a], r)[r] if r < a else np.inf
     if not (L < U):
         return -np.inf, np.inf, False
     return L, U, True
@@ -681,7 +816,7 @@ def _capped_narrow(ys, ls, hs, ws, m, fixed, free_c, free_s, L, U, gL, gU, total
         seed[0] = seed[0] * 6364136223846793005 + 1442695040888963407
         j = ((seed[0] >> 20) & 0x7FFFFFFFFFF) % m
         for side in range(2):
-            bp = (ys[j] - (hs[j] if side == 0 else ls[j])) / ws[j]
+            bp = (ys[j] - (at(hs, j) if side == 0 else at(ls, j))) / at(ws, j)
             if bp > L and bp < U and P < piv.size:
                 piv[P] = bp
                 P += 1
@@ -708,25 +843,25 @@ def _capped_narrow(ys, ls, hs, ws, m, fixed, free_c, free_s, L, U, gL, gU, total
             break
     m2 = 0
     for k in range(m):
+        # branch-free (selects, and the write position advanced by the flag): the statuses are
+        # random, branches on them would mostly be mispredicted; the same sums in the same order
         yk = ys[k]
-        lk = ls[k]
-        hk = hs[k]
-        wk = ws[k]
+        lk = at(ls, k)
+        hk = at(hs, k)
+        wk = at(ws, k)
         a = yk - hk
         b = yk - lk
-        if a >= nU * wk:
-            fixed += wk * hk
-        elif b <= nL * wk:
-            fixed += wk * lk
-        elif a <= nL * wk and b >= nU * wk:
-            free_c += wk * yk
-            free_s += wk * wk
-        else:
-            ys[m2] = yk
-            ls[m2] = lk
-            hs[m2] = hk
-            ws[m2] = wk
-            m2 += 1
+        f_hi = a >= nU * wk
+        f_lo = (b <= nL * wk) & ~f_hi
+        f_free = (a <= nL * wk) & (b >= nU * wk) & ~f_hi & ~f_lo
+        fixed += (wk * hk if f_hi else wk * lk) if (f_hi | f_lo) else 0.0
+        free_c += wk * yk if f_free else 0.0
+        free_s += wk * wk if f_free else 0.0
+        ys[m2] = yk
+        _move(ls, m2, k)
+        _move(hs, m2, k)
+        _move(ws, m2, k)
+        m2 += np.int64(~(f_hi | f_lo | f_free))
     return m2, fixed, free_c, free_s, nL, nU, ngL, ngU
 
 
@@ -744,9 +879,9 @@ def _settle_chunk(y, lo, hi, w, j0, j1, L, U, keep):
     cnt = 0
     for j in range(j0, j1):
         yj = y[j]
-        lj = lo[j]
-        hj = hi[j]
-        wj = w[j]
+        lj = at(lo, j)
+        hj = at(hi, j)
+        wj = at(w, j)
         a = yj - hj
         b = yj - lj
         Uw = U * wj
@@ -769,20 +904,183 @@ def _g_sum(ys, ls, hs, ws, m, lam):
     """sum_k w_k clip(y_k - lam w_k, l_k, h_k) over k < m (vectorizable; only the order of the sum is free)."""
     s = 0.0
     for k in range(m):
-        x = ys[k] - lam * ws[k]
-        x = x if x > ls[k] else ls[k]
-        x = x if x < hs[k] else hs[k]
-        s += ws[k] * x
+        x = ys[k] - lam * at(ws, k)
+        x = x if x > at(ls, k) else at(ls, k)
+        x = x if x < at(hs, k) else at(hs, k)
+        s += at(ws, k) * x
     return s
 
 
 @njit(cache=True, nogil=True)
-def _write_clipped(y, lo, hi, w, lam, out):
-    """out = clip(y - lam w, lo, hi) (selects instead of min/max, so the loop vectorizes)."""
-    for j in range(y.size):
-        x = y[j] - lam * w[j]
-        x = x if x > lo[j] else lo[j]
-        out[j] = x if x < hi[j] else hi[j]
+def _settle_part(y, lo, hi, w, L, U, c0, c1, sums, out, base, cap):
+    """Chunks c0 <= c < c1 of 1024 coordinates: the sums of the coordinates settled on (L, U) into
+    sums[c] (fixed, free_c, free_s), the undecided ones' data compacted, in index order, to
+    positions base, base + 1, ... of each quarter of ``out`` (y; lo, hi, w when arrays). Returns the
+    count kept, or -1 when it would reach ``cap``. Parts of the chunk range may run in threads."""
+    n = y.size
+    q = n // 4
+    m = 0
+    keep = np.zeros(1024, np.bool_)
+    words = keep.view(np.uint64)                 # eight flags per word: zero words are skipped
+    for c in range(c0, c1):
+        j0 = c * 1024
+        j1 = min(j0 + 1024, n)
+        f1, f2, f3, cnt = _settle_chunk(y, lo, hi, w, j0, j1, L, U, keep)
+        sums[c, 0] = f1
+        sums[c, 1] = f2
+        sums[c, 2] = f3
+        if m + cnt >= cap:            # (< cap: the branch-free writes below stay inside the region)
+            return -1
+        if cnt == 0:
+            continue
+        if 16 * cnt < j1 - j0:
+            # few kept (a narrow bracket): words of eight flags, most of them zero, then a branch
+            # per coordinate of the others
+            nw = (j1 - j0 + 7) // 8
+            for t in range(nw):
+                if words[t] == 0:
+                    continue
+                for j in range(j0 + 8 * t, min(j0 + 8 * t + 8, j1)):
+                    if keep[j - j0]:
+                        out[base + m] = y[j]
+                        _put(lo, out, q + base + m, j)          # data given as numbers are not copied
+                        _put(hi, out, 2 * q + base + m, j)
+                        _put(w, out, 3 * q + base + m, j)
+                        m += 1
+            continue
+        for j in range(j0, j1):
+            # branch-free compaction: written always, kept when the flag says so
+            out[base + m] = y[j]
+            _put(lo, out, q + base + m, j)
+            _put(hi, out, 2 * q + base + m, j)
+            _put(w, out, 3 * q + base + m, j)
+            m += np.int64(keep[j - j0])
+    return m
+
+
+@njit(cache=True, nogil=True)
+def _settled_sums(sums):
+    """The per-chunk sums added in chunk order (the same bits however the chunks were split)."""
+    fixed = 0.0
+    free_c = 0.0
+    free_s = 0.0
+    for c in range(sums.shape[0]):
+        fixed += sums[c, 0]
+        free_c += sums[c, 1]
+        free_s += sums[c, 2]
+    return fixed, free_c, free_s
+
+
+@njit(cache=True, nogil=True)
+def _capped_finish(y, lo, hi, w, total, out, m, sums, L, U):
+    """The multiplier from the settled sums and the m compacted undecided coordinates (in the
+    quarters of ``out``): g(L), g(U) checked exactly, narrowing rounds, the search rounds; NaN when
+    the guessed bracket fails its check."""
+    n = y.size
+    q = n // 4
+    fixed, free_c, free_s = _settled_sums(sums)
+    ys = out[0:m]
+    ls = _part(lo, out[q:q + m])
+    hs = _part(hi, out[2 * q:2 * q + m])
+    ws = _part(w, out[3 * q:3 * q + m])
+    base = fixed + free_c
+    gL = base - L * free_s + _g_sum(ys, ls, hs, ws, m, L) if L > -np.inf else np.inf
+    gU = base - U * free_s + _g_sum(ys, ls, hs, ws, m, U) if U < np.inf else -np.inf
+    if not (gL >= total and gU <= total):
+        return np.nan
+    piv = np.empty(128)
+    vals = np.empty(15)
+    seed = np.full(1, 88172645463325252, np.int64)
+    while m > 256:
+        m2, fixed, free_c, free_s, L, U, gL, gU = _capped_narrow(ys, ls, hs, ws, m, fixed, free_c,
+                                                                 free_s, L, U, gL, gU, total, piv,
+                                                                 vals, seed)
+        if m2 == m:
+            break
+        m = m2
+    first = np.nan
+    if L > -np.inf and U < np.inf and gL > gU:
+        t = L + (gL - total) * ((U - L) / (gL - gU))
+        if t > L and t < U:
+            first = t
+    return _capped_rounds(ys, ls, hs, ws, total, np.arange(m), m, fixed, free_c, free_s, L, U, gL, gU,
+                          first, np.empty(0))
+
+
+@njit(cache=True, nogil=True)
+def _capped_bracketed(y, lo, hi, w, total, out, L, U):
+    """The multiplier given a guessed bracket (L, U) (see :func:`capped_project_long`), NaN when the
+    guess fails its exact check or leaves n/4 or more coordinates undecided."""
+    n = y.size
+    nch = (n + 1023) // 1024
+    sums = np.empty((nch, 3))
+    m = _settle_part(y, lo, hi, w, L, U, 0, nch, sums, out, 0, n // 4)
+    if m < 0:
+        return np.nan
+    return _capped_finish(y, lo, hi, w, total, out, m, sums, L, U)
+
+
+@njit(cache=True, nogil=True)
+def _write_clipped_range(y, lo, hi, w, lam, out, j0, j1):
+    """out[j] = clip(y_j - lam w_j, lo_j, hi_j) for j0 <= j < j1 (selects, so the loop vectorizes;
+    parts may run in threads)."""
+    for j in range(j0, j1):
+        x = y[j] - lam * at(w, j)
+        x = x if x > at(lo, j) else at(lo, j)
+        out[j] = x if x < at(hi, j) else at(hi, j)
+
+
+# single vectors at least this long split the settling and writing passes of the budget projection
+# over threads (capped_project_threads)
+THREAD_ROW = 1 << 19
+
+
+def capped_project_threads(y, lo, hi, w, total, out, k, pool):
+    """:func:`capped_project_long` with its two passes over the data split over ``k`` threads of
+    ``pool``: the same steps, the settled sums added in chunk order and the undecided coordinates
+    gathered in index order, so the same multiplier and x bit for bit (whatever k)."""
+    n = y.size
+    q = n // 4
+    nch = (n + 1023) // 1024
+    cuts = [nch * i // k for i in range(k + 1)]
+    lam = np.nan
+    for margin in (1.0, 6.0):
+        L, U, ok = _capped_sample_bracket(y, lo, hi, w, total, margin)
+        if not ok:
+            break
+        sums = np.empty((nch, 3))
+        region = q // k
+        futs = [pool.submit(_settle_part, y, lo, hi, w, L, U, cuts[i], cuts[i + 1], sums, out, i * region, region)
+                for i in range(1, k)]
+        counts = [_settle_part(y, lo, hi, w, L, U, cuts[0], cuts[1], sums, out, 0, region)]
+        counts += [f.result() for f in futs]
+        if min(counts) < 0:
+            # a part ran out of its share of the quarters (undecided coordinates bunched together):
+            # the serial pass, whose only limit is the whole quarter, decides as capped_project_long does
+            lam = _capped_bracketed(y, lo, hi, w, total, out, L, U)
+            if not np.isnan(lam):
+                break
+            continue
+        # gather the parts' undecided coordinates behind each other (index order), in every quarter used
+        quarters = [0] + [qq for qq, v in ((1, lo), (2, hi), (3, w)) if isinstance(v, np.ndarray)]
+        m = counts[0]
+        for i in range(1, k):
+            c = counts[i]
+            for qq in quarters:
+                src = qq * q + i * region
+                out[qq * q + m:qq * q + m + c] = out[src:src + c]
+            m += c
+        lam = _capped_finish(y, lo, hi, w, total, out, m, sums, L, U)
+        if not np.isnan(lam):
+            break
+    if np.isnan(lam):
+        lam = _capped_lambda(y, lo, hi, w, total, out.view(np.int64))
+    cw = [n * i // k for i in range(k + 1)]
+    futs = [pool.submit(_write_clipped_range, y, lo, hi, w, lam, out, cw[i], cw[i + 1]) for i in range(1, k)]
+    _write_clipped_range(y, lo, hi, w, lam, out, cw[0], cw[1])
+    for f in futs:
+        f.result()
+    return lam
 
 
 @njit(cache=True, nogil=True)
@@ -796,65 +1094,29 @@ def capped_project_long(y, lo, hi, w, total, out):
     undecided coordinates' data into ``out`` (a quarter each for y, lo, hi, w); g(L) and
     g(U) evaluated exactly on that compact set, which checks the guess; narrowing rounds
     (:func:`_capped_narrow`, about 4x fewer undecided each) and the search rounds
-    (:func:`_capped_rounds`) on it; one pass writing x. If the guess is wrong (g(L) < total,
-    g(U) > total, or more than n/4 undecided), the full search runs instead, with ``out`` as
-    its index buffer. Memory: ``out``, 1024 flags and O(sqrt n)-sized
+    (:func:`_capped_rounds`) on it; one pass writing x. The first guess is narrow (the sample's
+    breakpoints sqrt(K) + 8 ranks either side of its root); if it is wrong (g(L) < total,
+    g(U) > total, or n/4 or more undecided) a wide one (6 sqrt(K) + 8 ranks) is tried, then the full
+    search runs instead, with ``out`` as its index buffer. Data equal at every coordinate may be
+    passed as numbers (:func:`at`). Memory: ``out``, 1024 flags and O(sqrt n)-sized
     samples. Expected O(n).
     Requires finite lo, w > 0, sum w lo <= total <= sum w hi, n >= LONG_ROW.
     """
-    n = y.size
-    L, U, ok = _capped_sample_bracket(y, lo, hi, w, total)
     lam = np.nan
-    if ok:
-        q = n // 4
-        m = 0
-        fixed = 0.0
-        free_c = 0.0
-        free_s = 0.0
-        keep = np.empty(1024, np.bool_)
-        for j0 in range(0, n, 1024):
-            j1 = min(j0 + 1024, n)
-            f1, f2, f3, cnt = _settle_chunk(y, lo, hi, w, j0, j1, L, U, keep)
-            fixed += f1
-            free_c += f2
-            free_s += f3
-            if m + cnt > q:
-                m = q + 1
-                break
-            for j in range(j0, j1):
-                if keep[j - j0]:
-                    out[m] = y[j]
-                    out[q + m] = lo[j]
-                    out[2 * q + m] = hi[j]
-                    out[3 * q + m] = w[j]
-                    m += 1
-        if m <= q:
-            ys, ls, hs, ws = out[0:m], out[q:q + m], out[2 * q:2 * q + m], out[3 * q:3 * q + m]
-            base = fixed + free_c
-            gL = base - L * free_s + _g_sum(ys, ls, hs, ws, m, L) if L > -np.inf else np.inf
-            gU = base - U * free_s + _g_sum(ys, ls, hs, ws, m, U) if U < np.inf else -np.inf
-            if gL >= total and gU <= total:
-                piv = np.empty(128)
-                vals = np.empty(15)
-                seed = np.full(1, 88172645463325252, np.int64)
-                while m > 256:
-                    m2, fixed, free_c, free_s, L, U, gL, gU = _capped_narrow(ys, ls, hs, ws, m, fixed, free_c,
-                                                                             free_s, L, U, gL, gU, total, piv,
-                                                                             vals, seed)
-                    if m2 == m:
-                        break
-                    m = m2
-                first = np.nan
-                if L > -np.inf and U < np.inf and gL > gU:
-                    t = L + (gL - total) * ((U - L) / (gL - gU))
-                    if t > L and t < U:
-                        first = t
-                lam = _capped_rounds(ys, ls, hs, ws, total, np.arange(m), m, fixed, free_c, free_s, L, U, gL, gU,
-                                     first, np.empty(0))
+    for margin in (1.0, 6.0):
+        # a narrow guess first (about 5% of the coordinates undecided on random data); when the
+        # check fails, a wide one (the sample's root may sit several sqrt(K) ranks off, e.g. on
+        # sorted data), then the full search
+        L, U, ok = _capped_sample_bracket(y, lo, hi, w, total, margin)
+        if not ok:
+            break
+        lam = _capped_bracketed(y, lo, hi, w, total, out, L, U)
+        if not np.isnan(lam):
+            break
     if np.isnan(lam):
         # no usable bracket: the full search, with ``out`` as its index buffer
         lam = _capped_lambda(y, lo, hi, w, total, out.view(np.int64))
-    _write_clipped(y, lo, hi, w, lam, out)
+    _write_clipped_range(y, lo, hi, w, lam, out, 0, y.size)
     return lam
 
 
@@ -982,12 +1244,30 @@ def rows_max_abs(Y, rows):
     """max_j |Y[r, j]| for each listed row r (0 for empty rows), without a temporary array."""
     out = np.zeros(rows.size)
     for k in range(rows.size):
-        m = 0.0
-        for v in Y[rows[k]]:
-            a = abs(v)
-            if a > m:
-                m = a
-        out[k] = m
+        y = Y[rows[k]]
+        n = y.size
+        # four running maxima (independent selects; the maximum is exact in any order)
+        m0 = 0.0
+        m1 = 0.0
+        m2 = 0.0
+        m3 = 0.0
+        j = 0
+        while j + 4 <= n:
+            a = abs(y[j])
+            b = abs(y[j + 1])
+            c = abs(y[j + 2])
+            d = abs(y[j + 3])
+            m0 = a if a > m0 else m0
+            m1 = b if b > m1 else m1
+            m2 = c if c > m2 else m2
+            m3 = d if d > m3 else m3
+            j += 4
+        for i in range(j, n):
+            a = abs(y[i])
+            m0 = a if a > m0 else m0
+        m0 = m1 if m1 > m0 else m0
+        m0 = m2 if m2 > m0 else m0
+        out[k] = m3 if m3 > m0 else m0
     return out
 
 
@@ -1087,7 +1367,7 @@ def _root_breakpoint(y, lo, hi, w, total):
     return _key_float(ka)
 
 
-def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
+def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None, long_data=None):
     """Project rows of Y onto {lo <= x <= hi, <w, x> = total} (mode "equal") or <= total ("at_most").
 
     The multiplier of the weighted sum comes from the compiled randomized
@@ -1100,6 +1380,10 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
     the same projection since the set is unchanged and only lam moves by lam0),
     where the free coordinates are small and exact. Exact up to a few ulps of
     the data for finite |y| <= 1e300 (data within the float range).
+
+    ``long_data``: (lo, hi, w) for rows of at least LONG_ROW coordinates, each the vector or,
+    when all its entries are equal, that number (:func:`uniform_or_array`; the caller computes
+    it once per set); the long-row kernel then reads fewer arrays. The same answer bit for bit.
     """
     Y = np.ascontiguousarray(Y, dtype=float)
     lo, hi, w = (_vector(v, Y.shape[1:]) for v in (lo, hi, w))
@@ -1115,18 +1399,27 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
         return X
     lams = np.zeros(Y.shape[0])
     if Y.shape[1] >= LONG_ROW:
-        for r in rows:
-            lams[r] = capped_project_long(Y[r], lo, hi, w, float(total), X[r])
+        ld = (lo, hi, w) if long_data is None else long_data
+        from .. import parallel
+        k = parallel.thread_count()
+        k = min(k, 8)
+        if Y.shape[1] >= THREAD_ROW and k >= 2 and not parallel._in_worker():
+            pool = parallel._executor(k)
+            for r in rows:
+                lams[r] = capped_project_threads(Y[r], ld[0], ld[1], ld[2], float(total), X[r], k, pool)
+        else:
+            for r in rows:
+                lams[r] = capped_project_long(Y[r], ld[0], ld[1], ld[2], float(total), X[r])
     else:
         _capped_rows_nb(Y, lo, hi, w, float(total), rows, X, lams)
     if data_scale is None:
         fin = np.concatenate([lo, hi[np.isfinite(hi)], [total]])
         data_scale = float(max(1.0, np.abs(fin).max()))
-    wmax = float(w.max(initial=1.0))
     # rows far from the data: the multiplier cannot be represented finely enough next to |y| (its
     # float grid is ulp(|y|)), so solve again on y - c w with c the breakpoint next to the root
     big = rows[rows_max_abs(Y, rows) > 1e4 * data_scale]
     if big.size:
+        wmax = float(w.max(initial=1.0))
         # each shift leaves the free coordinates at about one ulp of the old multiplier, i.e. 2^-52 times
         # smaller: repeat until the multiplier is at the data's scale (at most ~20 rounds from 1e300)
         Z = Y[big].copy()
@@ -1145,6 +1438,96 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None):
 @njit(cache=True, nogil=True)
 def knapsack_lmo_rows(C, lo, cap, w, room, at_most, out):
     """Rows of argmin <c, x> over {lo <= x <= cap, <w, x> = lo.w + room} (<= when ``at_most``).
+
+    The continuous-knapsack greedy fills coordinates by increasing ratio c_i / w_i (only the
+    negative ratios when at_most); a randomized selection finds the ratio where the budget runs
+    out (see :func:`knapsack_lmo_rows_reference`, the same steps with branches and an index
+    list). Here the candidates' ratios, weighted rooms w_i (cap_i - lo_i) and indices sit in
+    compact arrays, and every pass is branch-free (selects, and compaction by advancing the
+    write position by the comparison), so the random comparisons cost no mispredicted
+    branches; one pass fills the cheaper side and keeps the dearer one. The same pivots, the
+    same sums in the same order and the same fill order of ties: bit-identical to the
+    reference. Expected O(n) per row. ``cap`` must be finite.
+    """
+    b, n = C.shape
+    ii = np.empty(n, np.int64)
+    rr = np.empty(n)
+    ww = np.empty(n)
+    wroom = np.empty(n)
+    live = np.empty(n, np.bool_)
+    for i in range(n):
+        wroom[i] = w[i] * (cap[i] - lo[i])
+        live[i] = cap[i] > lo[i]
+    p3 = np.empty(3)
+    for row in range(b):
+        seed = np.int64(2862933555777941757)    # per row: a row's answer never depends on its batch
+        crow = C[row]
+        orow = out[row]
+        m = 0
+        for i in range(n):
+            orow[i] = lo[i]
+            ri = crow[i] / w[i]
+            ii[m] = i
+            rr[m] = ri
+            ww[m] = wroom[i]
+            m += np.int64(live[i] and (not at_most or ri < 0.0))
+        R = room
+        while m > 0 and R > 0.0:
+            for t in range(3):
+                seed = seed * 6364136223846793005 + 1442695040888963407
+                p3[t] = rr[((seed >> 20) & 0x7FFFFFFFFFF) % m]
+            p = max(min(p3[0], p3[1]), min(max(p3[0], p3[1]), p3[2]))
+            s_less = 0.0
+            s_eq = 0.0
+            for k in range(m):
+                v = rr[k]
+                x = ww[k]
+                s_less += x if v < p else 0.0
+                s_eq += x if v == p else 0.0
+            if s_less >= R:
+                m2 = 0
+                for k in range(m):
+                    v = rr[k]
+                    rr[m2] = v
+                    ww[m2] = ww[k]
+                    ii[m2] = ii[k]
+                    m2 += np.int64(v < p)
+                m = m2
+                continue
+            R -= s_less
+            if s_eq >= R:
+                # the budget runs out among the ties at p: the cheaper side full, the ties in index order
+                for k in range(m):
+                    j = ii[k]
+                    orow[j] = cap[j] if rr[k] < p else orow[j]
+                for k in range(m):
+                    if rr[k] == p and R > 0.0:
+                        j = ii[k]
+                        if ww[k] <= R:
+                            orow[j] = cap[j]
+                            R -= ww[k]
+                        else:
+                            orow[j] = lo[j] + R / w[j]
+                            R = 0.0
+                break
+            R -= s_eq
+            m2 = 0
+            for k in range(m):          # fill the cheaper side and the ties, keep the dearer side
+                v = rr[k]
+                j = ii[k]
+                orow[j] = cap[j] if v <= p else orow[j]
+                rr[m2] = v
+                ww[m2] = ww[k]
+                ii[m2] = j
+                m2 += np.int64(v > p)
+            m = m2
+
+
+@njit(cache=True, nogil=True)
+def knapsack_lmo_rows_reference(C, lo, cap, w, room, at_most, out):
+    """The previous LMO kernel (branches, an index list), kept as a reference for the tests.
+
+    Rows of argmin <c, x> over {lo <= x <= cap, <w, x> = lo.w + room} (<= when ``at_most``).
 
     The continuous-knapsack greedy fills coordinates by increasing ratio c_i / w_i
     (only the negative ratios when at_most); instead of sorting, a randomized

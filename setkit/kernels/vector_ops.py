@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from .simplex import _simplex_tau, scaled_norm, simplex_tau_inplace
+from .simplex import _simplex_tau, scaled_norm, simplex_tau_inplace, simplex_tau_scan
 
 
 @njit(cache=True, nogil=True)
@@ -145,40 +145,130 @@ def l1_ball_project(Y, c, radius):
 
     No work buffer: |v| (as TwoSum parts) is recomputed in each of three passes, the shifted
     values are written into the output row and Condat's lists live there
-    (``simplex_tau_inplace``). Memory: the output only. An empty ``c`` means the origin as
-    center (then |v| = |y| needs no TwoSum and c is not read).
+    (``simplex_tau_inplace``); at the origin the threshold pass reads |y| itself
+    (``simplex_tau_scan``), so the shifted values are never written. Memory: the output only.
+    An empty ``c`` means the origin as center (then |v| = |y| needs no TwoSum and c is not
+    read). The passes are separate compiled functions of one row (each a simple loop).
     """
+    out = np.empty_like(Y)
+    l1_ball_rows_into(Y, c, radius, out)
+    return out
+
+
+def l1_ball_project_rows(Y, c, radius):
+    """:func:`l1_ball_project` with the output allocated by NumPy (for long rows numba's allocator
+    costs about one more pass over memory)."""
+    out = np.empty_like(Y)
+    l1_ball_rows_into(Y, c, radius, out)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def _l1_sum_top(y, c, zc):
+    """(sum |v|, max |v| as TwoSum parts) of v = y - c (c not read when ``zc``)."""
+    # four partial sums (the sum only decides inside / outside; the same order for both paths)
+    s0 = 0.0
+    s1 = 0.0
+    s2 = 0.0
+    s3 = 0.0
+    top = 0.0
+    top_l = 0.0
+    n = y.size
+    k4 = n - n % 4
+    if zc:
+        t1 = 0.0
+        t2 = 0.0
+        t3 = 0.0
+        for k in range(0, k4, 4):
+            a = abs(y[k])
+            b = abs(y[k + 1])
+            cc = abs(y[k + 2])
+            d = abs(y[k + 3])
+            s0 += a
+            s1 += b
+            s2 += cc
+            s3 += d
+            top = a if a > top else top
+            t1 = b if b > t1 else t1
+            t2 = cc if cc > t2 else t2
+            t3 = d if d > t3 else t3
+        for j in range(k4, n):
+            a = abs(y[j])
+            s0 += a
+            top = a if a > top else top
+        top = t1 if t1 > top else top
+        top = t2 if t2 > top else top
+        top = t3 if t3 > top else top
+        return (s0 + s1) + (s2 + s3), top, top_l
+    for j in range(n):
+        vh, vl = _abs_diff2(y[j], c[j])
+        q = j % 4 if j < k4 else 0
+        if q == 0:
+            s0 += vh
+        elif q == 1:
+            s1 += vh
+        elif q == 2:
+            s2 += vh
+        else:
+            s3 += vh
+        if vh > top or (vh == top and vl > top_l):
+            top = vh
+            top_l = vl
+    return (s0 + s1) + (s2 + s3), top, top_l
+
+
+@njit(cache=True, nogil=True)
+def _l1_write(y, c, zc, top, top_l, floor, tau, out):
+    """out = c + sign(y - c) max(|v| - max|v| (floored) - tau, 0)."""
+    if zc:
+        for j in range(y.size):
+            yj = y[j]
+            m = max((abs(yj) - top) + (0.0 - top_l), floor) - tau
+            v = (m if yj > 0 else -m) if m > 0.0 else 0.0
+            out[j] = 0.0 + v
+        return
+    for j in range(y.size):
+        yj = y[j]
+        cj = c[j]
+        vh, vl = _abs_diff2(yj, cj)
+        d = yj - cj
+        m = max((vh - top) + (vl - top_l), floor) - tau
+        if m > 0.0:
+            out[j] = cj + (m if (d > 0 or (d == 0 and yj > cj)) else -m)
+        else:
+            out[j] = cj
+
+
+@njit(cache=True, nogil=True)
+def l1_ball_rows_into(Y, c, radius, out):
+    """The rows of :func:`l1_ball_project`, written into ``out``."""
     b, n = Y.shape
     zc = c.size == 0
-    out = np.empty_like(Y)
     floor = -2.0 * radius
     for r in range(b):
-        s = 0.0
-        top = 0.0
-        top_l = 0.0
-        for j in range(n):
-            vh, vl = (abs(Y[r, j]), 0.0) if zc else _abs_diff2(Y[r, j], c[j])
-            s += vh
-            if vh > top or (vh == top and vl > top_l):
-                top = vh
-                top_l = vl
+        y = Y[r]
+        z = out[r]
+        s, top, top_l = _l1_sum_top(y, c, zc)
         if s <= radius:
             for j in range(n):
-                out[r, j] = Y[r, j]
+                z[j] = y[j]
             continue
         if radius == 0.0:
             for j in range(n):
-                out[r, j] = 0.0 if zc else c[j]
+                z[j] = 0.0 if zc else c[j]
             continue
-        z = out[r]
-        for j in range(n):
-            vh, vl = (abs(Y[r, j]), 0.0) if zc else _abs_diff2(Y[r, j], c[j])
-            # |v_j| - max|v| (exact where it matters: Sterbenz on the high parts)
-            z[j] = max((vh - top) + (vl - top_l), floor)
-        tau = simplex_tau_inplace(z, radius)
+        if zc:
+            # |y_j| - max|y| floored, computed on the fly by the threshold pass (one pass less)
+            tau = simplex_tau_scan(y, top, floor, radius, z, True)
+        else:
+            for j in range(n):
+                vh, vl = _abs_diff2(y[j], c[j])
+                # |v_j| - max|v| (exact where it matters: Sterbenz on the high parts)
+                z[j] = max((vh - top) + (vl - top_l), floor)
+            tau = simplex_tau_inplace(z, radius)
         if np.isnan(tau):          # clean-up did not settle: the sorted threshold
             for j in range(n):
-                vh, vl = (abs(Y[r, j]), 0.0) if zc else _abs_diff2(Y[r, j], c[j])
+                vh, vl = (abs(y[j]), 0.0) if zc else _abs_diff2(y[j], c[j])
                 z[j] = max((vh - top) + (vl - top_l), floor)
             u = -np.sort(-z)
             cs = 0.0
@@ -188,17 +278,7 @@ def l1_ball_project(Y, c, radius):
                 t = (cs - radius) / (k + 1)
                 if u[k] > t:
                     tau = t
-        for j in range(n):
-            yj = Y[r, j]
-            cj = 0.0 if zc else c[j]
-            vh, vl = (abs(yj), 0.0) if zc else _abs_diff2(yj, cj)
-            d = yj - cj
-            m = max((vh - top) + (vl - top_l), floor) - tau
-            if m > 0.0:
-                out[r, j] = cj + (m if (d > 0 or (d == 0 and yj > cj)) else -m)
-            else:
-                out[r, j] = cj
-    return out
+        _l1_write(y, c, zc, top, top_l, floor, tau, z)
 
 
 @njit(cache=True, nogil=True)

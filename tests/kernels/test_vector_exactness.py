@@ -26,9 +26,11 @@ import setkit
 from setkit.agreement import reference
 from setkit.kernels.isotonic import (permutahedron_lmo, permutahedron_lmo_rows, permutahedron_rows_packed,
                                      permutahedron_rows_sorted_inside, project_permutahedron)
-from setkit.kernels.simplex import (LONG_ROW, NEWTON_ROW, _capped_lambda, _capped_rows_nb, _simplex_rows_nb,
-                                    capped_newton, capped_project_long, capped_threshold_rows, project_capped,
-                                    simplex_rows_buffered)
+from setkit.kernels.simplex import (LONG_ROW, NEWTON_ROW, SCAN_BLOCK_MIN, _capped_lambda, _capped_rows_nb,
+                                    _simplex_rows_nb, capped_newton, capped_project_long, capped_project_threads,
+                                    capped_threshold_rows,
+                                    knapsack_lmo_rows, knapsack_lmo_rows_reference, project_capped,
+                                    simplex_rows_buffered, uniform_or_array)
 from setkit.kernels.vector_ops import l1_ball_project, l1_ball_project_buffered
 
 SCALES = (1e-300, 1e-150, 1e-3, 1.0, 1e6, 1e17, 1e150, 1e300)
@@ -47,7 +49,7 @@ def _rows(n, scale, rng):
     return Y
 
 
-@pytest.mark.parametrize("n", [1, 2, 3, 17, 200, 5000])
+@pytest.mark.parametrize("n", [1, 2, 3, 17, 200, 5000, SCAN_BLOCK_MIN + 31])
 def test_simplex_in_place_equals_buffered(n):
     rng = np.random.default_rng(n)
     for scale in SCALES:
@@ -59,7 +61,7 @@ def test_simplex_in_place_equals_buffered(n):
             assert np.array_equal(a, b)            # the same threshold: the list order does not matter here
 
 
-@pytest.mark.parametrize("n", [1, 2, 5, 100, 3000])
+@pytest.mark.parametrize("n", [1, 2, 5, 100, 3000, 5003])
 def test_l1_ball_in_place_equals_buffered(n):
     rng = np.random.default_rng(100 + n)
     for scale in SCALES:
@@ -237,3 +239,194 @@ def test_budget_jit_kernel_bit_identical_on_a_long_vector():
     K = setkit.compile({"kind": "budget", "dim": n, "upper": rng.uniform(0.5, 2.0, n), "total": 0.3 * n})
     y = rng.standard_normal(n)
     assert np.array_equal(K.jit_kernels().project(y), K.project(y))
+
+
+def test_long_budget_with_uniform_data_as_numbers():
+    """Bounds or weights equal at every coordinate, passed as numbers (a separate compiled
+    specialization reading fewer arrays), give the same x as the arrays up to rounding;
+    also on sorted input, where the narrow sampled bracket fails and the wide one (or the full
+    search) takes over, and on a constant vector; x meets the exact KKT budget condition."""
+    rng = np.random.default_rng(21)
+    n = LONG_ROW + 777
+    cases = [(np.zeros(n), rng.uniform(0.5, 2.0, n), np.ones(n)),            # caps, unit weights
+             (np.zeros(n), np.full(n, np.inf), rng.uniform(0.5, 2.0, n)),    # weights, no caps
+             (np.full(n, -0.5), np.full(n, 1.5), np.full(n, 2.0))]           # everything uniform
+    for lo, hi, w in cases:
+        fin = np.where(np.isfinite(hi), hi, lo + 3.0)
+        total = float(w @ lo + 0.3 * (w @ fin - w @ lo))
+        nums = tuple(uniform_or_array(v) for v in (lo, hi, w))
+        assert any(isinstance(v, float) for v in nums)
+        for y in (rng.standard_normal(n), np.sort(rng.standard_normal(n)), np.round(rng.standard_normal(n)),
+                  np.full(n, 0.25), rng.standard_normal(n) * 1e6):
+            a, b = np.empty(n), np.empty(n)
+            lam_a = capped_project_long(y, lo, hi, w, total, a)
+            lam_b = capped_project_long(y, *nums, total, b)
+            # the compiler may order the vectorized sums differently in the two specializations:
+            # equal up to rounding, each exactly of the form clip(y - lam w) and on the budget
+            np.testing.assert_allclose(a, b, rtol=0, atol=1e-12 * max(1.0, np.abs(y).max()))
+            for lam, x in ((lam_a, a), (lam_b, b)):
+                np.testing.assert_array_equal(x, np.clip(y - lam * w, lo, hi))
+                assert _kkt_exact(w, total, x) <= 1e-9 * max(1.0, abs(total))
+            lam_s = _capped_lambda(y, lo, hi, w, total, np.empty(n, np.int64))
+            np.testing.assert_allclose(a, np.clip(y - lam_s * w, lo, hi), rtol=0,
+                                       atol=1e-12 * max(1.0, np.abs(y).max()))
+
+
+def _knapsack_case(n, rng, trial):
+    lo = rng.uniform(-1.0, 1.0, n) * (trial % 2)
+    cap = lo + rng.uniform(0.0, 2.0, n) * (rng.random(n) > 0.1)      # some coordinates fixed (cap == lo)
+    w = rng.uniform(0.5, 2.0, n) if trial % 3 else np.ones(n)
+    room = float(rng.uniform(0.0, 1.2) * (w * (cap - lo)).sum())      # sometimes more room than caps
+    return lo, cap, w, room
+
+
+def test_budget_lmo_branch_free_kernel_equals_reference():
+    """The branch-free knapsack LMO against the kernel it replaced, bit for bit (the same pivots,
+    sums and tie order), on random rows, integer rows (ties), magnitudes 1e-300..1e300, both modes,
+    empty batches and n = 1; and against the sorted greedy of the continuous knapsack (Dantzig 1957,
+    "Discrete-variable extremum problems"; from memory), written here with NumPy's stable argsort, in
+    objective."""
+    rng = np.random.default_rng(31)
+    for trial in range(120):
+        n = int(rng.integers(1, 90))
+        lo, cap, w, room = _knapsack_case(n, rng, trial)
+        C = rng.standard_normal((int(rng.integers(0, 12)), n))
+        if trial % 4 == 0:
+            C = np.round(C)
+        if trial % 5 == 0:
+            C = C * 10.0 ** float(rng.integers(-300, 301))
+        for at_most in (False, True):
+            a, b = np.empty_like(C), np.empty_like(C)
+            knapsack_lmo_rows(C, lo, cap, w, room, at_most, a)
+            knapsack_lmo_rows_reference(C, lo, cap, w, room, at_most, b)
+            assert np.array_equal(a, b)
+            if C.shape[0] and not at_most and trial % 5:
+                order = np.argsort(C / w, axis=1, kind="stable")
+                ref = np.broadcast_to(lo, C.shape).copy()
+                for r in range(C.shape[0]):
+                    left = room
+                    for j in order[r]:
+                        if cap[j] <= lo[j] or left <= 0.0:
+                            continue
+                        step = min(w[j] * (cap[j] - lo[j]), left)
+                        ref[r, j] = lo[j] + step / w[j]
+                        left -= step
+                sc = np.abs(C).sum(axis=1) * max(1.0, np.abs(cap).max(), np.abs(lo).max())
+                assert np.all(np.abs(np.einsum("ij,ij->i", C, a - ref)) <= 1e-12 * sc)
+
+
+def test_budget_lmo_batch_rows_equal_single_calls():
+    """A batch through K.lmo (split over threads when large) equals row-by-row single calls bit for bit."""
+    rng = np.random.default_rng(41)
+    n = 100
+    K = setkit.compile({"kind": "budget", "dim": n, "weights": rng.uniform(0.5, 2.0, n).tolist(), "upper": 1.0,
+                        "total": 20.0})
+    C = rng.standard_normal((3000, n))
+    C[::7] = np.round(C[::7])
+    X = K.lmo(C)
+    for r in range(0, 3000, 97):
+        assert np.array_equal(X[r], K.lmo(C[r]))
+
+
+def test_long_budget_threaded_passes_bit_identical():
+    """The settling and writing passes split over 2..4 threads give the serial kernel's multiplier and
+    x bit for bit (sums added in chunk order, undecided coordinates gathered in index order), with
+    arrays and with numbers, on random, sorted (the wide bracket), tied and constant (the full
+    search) inputs."""
+    from setkit import parallel
+    pool = parallel._executor(4)
+    rng = np.random.default_rng(51)
+    n = 2 * LONG_ROW + 1001
+    for lo, hi, w in ((np.zeros(n), rng.uniform(0.5, 2.0, n), np.ones(n)),
+                      (-rng.uniform(0, 1, n), np.full(n, np.inf), rng.uniform(0.5, 2.0, n))):
+        fin = np.where(np.isfinite(hi), hi, lo + 3.0)
+        total = float(w @ lo + 0.3 * (w @ fin - w @ lo))
+        nums = tuple(uniform_or_array(v) for v in (lo, hi, w))
+        bunched = rng.standard_normal(n)
+        bunched[: n // 5] = np.sort(bunched[: n // 5])        # undecided coordinates bunched in one thread's part
+        for y in (rng.standard_normal(n), np.sort(rng.standard_normal(n)), np.round(3 * rng.standard_normal(n)),
+                  np.full(n, 0.25), bunched):
+            for data in ((lo, hi, w), nums):
+                a = np.empty(n)
+                lam = capped_project_long(y, *data, total, a)
+                for k in (2, 3, 4):
+                    b = np.empty(n)
+                    assert capped_project_threads(y, *data, total, b, k, pool) == lam
+                    assert np.array_equal(a, b)
+            np.testing.assert_array_equal(a, np.clip(y - lam * w, lo, hi))
+            assert abs(float(np.sum(w * a)) - total) <= 1e-9 * max(1.0, abs(total))
+
+
+@pytest.mark.parametrize("n", [1, 2, 5, 100, 1000])
+def test_pav_row_equals_reference(n):
+    """Pool-adjacent-violators with the stack top in locals against the kernel it replaced, bit for
+    bit, on the rows of every scale (ties, clusters split at gaps wider than the weights' spread)."""
+    from setkit.kernels.isotonic import _pav_row, _pav_row_reference
+    rng = np.random.default_rng(400 + n)
+    for scale in SCALES:
+        wd = np.sort(rng.standard_normal(n))[::-1].copy()
+        Y = _rows(n, scale, rng)
+        for y in Y:
+            order = np.argsort(-y, kind="stable")
+            outs = [np.empty(n), np.empty(n)]
+            _pav_row(y, order, wd, outs[0], np.empty(n), np.empty(n), np.empty(n), np.empty(n), np.empty(n, np.int64))
+            _pav_row_reference(y, order, wd, outs[1], np.empty(n), np.empty(n), np.empty(n), np.empty(n))
+            assert np.array_equal(outs[0], outs[1])
+
+
+def test_large_batch_finiteness_check_split_over_threads(monkeypatch):
+    """The finiteness check of a large batch (2^19+ entries) runs in parts over threads; a NaN or inf in any part,
+    including the last entry, is still rejected with setkit's error."""
+    from setkit.errors import InputError
+    from setkit.kernels.checks import all_finite
+    monkeypatch.setenv("SETKIT_THREADS", "3")
+    K = setkit.compile({"kind": "simplex", "dim": 100})
+    Y = np.random.default_rng(61).normal(size=(6000, 100))
+    assert all_finite(Y)
+    for pos, bad in (((0, 0), np.nan), ((3000, 50), np.inf), ((5999, 99), -np.inf)):
+        Z = Y.copy()
+        Z[pos] = bad
+        assert not all_finite(Z)
+        with pytest.raises(InputError, match="finite"):
+            K.project(Z)
+
+
+def test_budget_jit_kernel_bit_identical_past_the_thread_split(monkeypatch):
+    """Past THREAD_ROW, K.project splits the long-row passes over threads; the jitted kernel (serial)
+    gives the same bits (per-coordinate weights: an array; lower and upper bounds: numbers). One set
+    only: each jitted kernel is a closure compiled afresh (tens of seconds)."""
+    from setkit.kernels.simplex import THREAD_ROW
+    monkeypatch.setenv("SETKIT_THREADS", "2")
+    n = THREAD_ROW + 5
+    rng = np.random.default_rng(71)
+    for spec in ({"kind": "budget", "dim": n, "weights": rng.uniform(0.5, 2.0, n), "lower": -0.5, "total": 0.3 * n},):
+        K = setkit.compile(spec)
+        y = rng.standard_normal(n)
+        x = K.project(y)
+        assert np.array_equal(K.jit_kernels().project(y), x)
+        assert abs(float(np.sum(K.node.weights * x)) - K.node.total) <= 1e-9 * n
+
+
+@pytest.mark.parametrize("mode", ["equal", "at_most"])
+def test_budget_lmo_against_linprog_and_cvxpy(mode):
+    """The budget LMO's optimal value against scipy.optimize.linprog (HiGHS) and the cvxpy reference
+    on small sets with caps hit, ties and a fractional coordinate."""
+    from scipy.optimize import linprog
+    rng = np.random.default_rng(81)
+    for trial in range(6):
+        n = int(rng.integers(2, 9))
+        w = rng.uniform(0.5, 2.0, n).round(2)
+        hi = rng.uniform(0.3, 1.5, n).round(2)
+        total = float(np.round(0.45 * w @ hi, 3))
+        K = setkit.compile({"kind": "budget", "dim": n, "weights": w.tolist(), "upper": hi.tolist(), "total": total,
+                            "mode": mode})
+        R = reference(K)
+        for c in (rng.standard_normal(n), np.round(rng.standard_normal(n)), -w * 1.5):
+            x = K.lmo(c)
+            kw = {"A_eq": w[None], "b_eq": [total]} if mode == "equal" else {"A_ub": w[None], "b_ub": [total]}
+            lp = linprog(c, bounds=list(zip(np.zeros(n), hi)), method="highs", **kw)
+            assert lp.status == 0
+            sc = max(1.0, np.abs(c).sum())
+            assert abs(c @ x - lp.fun) <= 1e-9 * sc
+            assert abs(c @ x - c @ R.lmo(c)) <= 1e-6 * sc
+            assert K.violation(x) <= 1e-12 * n
