@@ -445,6 +445,8 @@ def _declaring_class(cls, attr):
 
 
 POINT_OPERATORS = ("project", "lmo", "distance", "support")
+POINT_MAX_DIM = 1 << 16
+"""sets of more coordinates get no single-point entries (their per-call overhead does not matter)"""
 """the operators a family's ``point_kernels`` may serve (points for the first two, (1,) values for the others)"""
 
 
@@ -453,6 +455,8 @@ def _point_entries(node, routes, contract_checked):
 
     Only for a native route without the contract's check whose kernel method is declared by the
     class that declares the hook (a subclass that overrides a kernel does not inherit the entry)."""
+    if node.dim > POINT_MAX_DIM:
+        return {}             # long vectors: the family path (threads, NumPy-allocated outputs) is the faster one
     cls = type(node)
     from .families import Family
     owner = _declaring_class(cls, "point_kernels")
