@@ -445,9 +445,9 @@ def _declaring_class(cls, attr):
 
 
 POINT_OPERATORS = ("project", "lmo", "distance", "support")
+"""the operators a family's ``point_kernels`` may serve (points for the first two, (1,) values for the others)"""
 POINT_MAX_DIM = 1 << 16
 """sets of more coordinates get no single-point entries (their per-call overhead does not matter)"""
-"""the operators a family's ``point_kernels`` may serve (points for the first two, (1,) values for the others)"""
 
 
 def _point_entries(node, routes, contract_checked):
