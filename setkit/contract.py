@@ -124,6 +124,7 @@ def checked_kl_projection(call, node, lmo, provider, loose=False):
     "optimal" on an intersection with a permutahedron at a gap of 1.3e-4). Costs one LMO per row,
     small beside a conic solve. With ``loose``: an AccuracyWarning and status "inaccurate" instead.
     """
+    from .kernels.bregman import kl_gap_rows
     scale = max(1.0, float(node.scale()))
 
     def run(T):
@@ -132,12 +133,7 @@ def checked_kl_projection(call, node, lmo, provider, loose=False):
         if b == 0:
             return X, info
         X = np.asarray(X, dtype=float)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            G = np.where(X > 0, np.log(np.where(X > 0, X, 1.0)), -745.0) - T
-        gm = np.abs(G).max(axis=1, keepdims=True)
-        gm = np.where((gm > 0) & np.isfinite(gm), gm, 1.0)
-        V = np.asarray(lmo(G / gm), dtype=float)              # the LMO is unchanged by a positive row factor
-        gap = np.einsum("ij,ij->i", G, X - V)
+        gap, V = kl_gap_rows(T, X, lmo)          # the same gap as the certificate of details=True records
         allowed = KL_RTOL * np.maximum(np.maximum(np.abs(X).max(axis=1), np.abs(V).max(axis=1)), scale) \
             * max(1.0, float(np.sqrt(T.shape[1])))
         bad = np.flatnonzero(~np.isfinite(gap) | (gap > allowed))

@@ -186,11 +186,10 @@ class ReferenceBackend(Backend):
     def _fw_gap(self, y, p):
         """support(y - p) - <y - p, p> >= (1/2)||p - p*||^2 (inf when y - p is a recession direction)."""
         c = y - p
-        m = float(np.abs(c).max(initial=0.0))
-        if m == 0.0:
+        if not c.any():
             return 0.0
         try:
-            v, _, _ = self._solve("lmo", -c / m)
+            v = self._unit_lmo(-c[None, :])[0]
         except UnboundedDirectionError:
             return np.inf
         return float(c @ (v - p))
@@ -394,13 +393,17 @@ class ReferenceBackend(Backend):
             if float(form.violation_x(z[None, :])[0]) > 1e-9 * max(1.0, self._set_scale, float(np.abs(z).max())):
                 return x
 
+        from ..kernels.bregman import kl_gap_rows
+
         def gap(p):
-            with np.errstate(divide="ignore"):
-                g = np.where(p > 0, np.log(np.where(p > 0, p, 1.0)), -745.0) - t
-            m = float(np.abs(g).max(initial=0.0))
-            v, _, _ = self._solve("lmo", g / m if m > 0 else g)
-            return float(g @ (p - v))
+            return float(kl_gap_rows(t[None, :], p[None, :], self._unit_lmo)[0][0])
         return z if gap(z) < gap(x) else x
+
+    def _unit_lmo(self, G):
+        """This backend's LMO of one direction (1, n), solved on the direction scaled to max |entry| 1."""
+        m = float(np.abs(G).max(initial=0.0))
+        v, _, _ = self._solve("lmo", G[0] / m if m > 0 else G[0])
+        return v[None, :]
 
     def lmo(self, C):
         return self._loop("lmo", C)

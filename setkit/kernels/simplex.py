@@ -10,6 +10,8 @@ import numpy as np
 from numba import njit, types
 from numba.extending import overload
 
+from .checks import _max_abs
+
 
 def at(a, j):
     """a[j] for an array, a itself for a number: one kernel source serves per-coordinate data and
@@ -1241,33 +1243,10 @@ def _capped_rows_nb(Y, lo, hi, w, total, rows, out, lams):
 
 @njit(cache=True, nogil=True)
 def rows_max_abs(Y, rows):
-    """max_j |Y[r, j]| for each listed row r (0 for empty rows), without a temporary array."""
+    """max_j |Y[r, j]| for each listed row r (0 for empty rows), without a temporary array (finite Y)."""
     out = np.zeros(rows.size)
     for k in range(rows.size):
-        y = Y[rows[k]]
-        n = y.size
-        # four running maxima (independent selects; the maximum is exact in any order)
-        m0 = 0.0
-        m1 = 0.0
-        m2 = 0.0
-        m3 = 0.0
-        j = 0
-        while j + 4 <= n:
-            a = abs(y[j])
-            b = abs(y[j + 1])
-            c = abs(y[j + 2])
-            d = abs(y[j + 3])
-            m0 = a if a > m0 else m0
-            m1 = b if b > m1 else m1
-            m2 = c if c > m2 else m2
-            m3 = d if d > m3 else m3
-            j += 4
-        for i in range(j, n):
-            a = abs(y[i])
-            m0 = a if a > m0 else m0
-        m0 = m1 if m1 > m0 else m0
-        m0 = m2 if m2 > m0 else m0
-        out[k] = m3 if m3 > m0 else m0
+        out[k] = _max_abs(Y[rows[k]])
     return out
 
 
