@@ -309,10 +309,10 @@ def choose(node, overrides: dict | None = None) -> dict:
             else:
                 routes[op] = _backend_route(op, node, want, True)
             continue
-        if op == "project_kl" and _outside_orthant(node):
+        if op == "project_kl" and (why := _outside_orthant(node)):
             # the family knows its set leaves x >= 0: no route can serve it (a native kernel would only refuse)
             routes[op] = Route(op, "none", "the KL (relative entropy) projection needs a set inside the nonnegative "
-                               f"orthant x >= 0, but {_outside_orthant(node)}", category="none")
+                               f"orthant x >= 0, but {why}", category="none")
             continue
         if op in node.kernels:
             routes[op] = _native_route(node, op, False)
@@ -407,9 +407,9 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
             calls[op] = _backend_chain(op, chain, context, node)
         else:
             def unsupported(*a, _op=op, _why=r.reason):
-                if _op == "project_kl" and _outside_orthant(node):
+                if _op == "project_kl" and (why := _outside_orthant(node)):
                     from .kernels.bregman import outside_orthant_error
-                    raise outside_orthant_error(node.label, _outside_orthant(node))
+                    raise outside_orthant_error(node.label, why)
                 raise UnsupportedOperationError(f"{_op} on {node.label}: {_why}.")
             calls[op] = unsupported
     # scale guards (found by benchmarks/fuzz_operators.py): the LMO is unchanged when a row of c is multiplied by

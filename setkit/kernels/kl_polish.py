@@ -23,8 +23,9 @@ def polish_kl_on_face(t, x, form, scale, tight_rtol=1e-6, max_steps=60):
         return None
     tol = tight_rtol * max(1.0, scale, float(np.abs(x).max(initial=0.0)))
     lo, hi = form.lo, form.hi
-    fixed = (np.isfinite(hi) & (x >= hi - tol)) | (np.isfinite(lo) & (lo > 0) & (x <= lo + tol))
-    xf = np.where(np.isfinite(hi) & (x >= hi - tol), hi, lo)
+    at_hi = np.isfinite(hi) & (x >= hi - tol)
+    fixed = at_hi | (np.isfinite(lo) & (lo > 0) & (x <= lo + tol))
+    xf = np.where(at_hi, hi, lo)
     A_eq = form.A_eq.toarray() if form.A_eq.shape[0] else np.zeros((0, n))
     A_ub = form.A_ub.toarray() if form.A_ub.shape[0] else np.zeros((0, n))
     tight = np.abs(A_ub @ x - form.b_ub) <= tol * np.maximum(1.0, np.abs(A_ub).sum(axis=1)) if A_ub.size else \
