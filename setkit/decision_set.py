@@ -13,7 +13,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import AccuracyWarning, InputError, SetkitError, SolveError, TakeGeneralPath
+from .errors import AccuracyWarning, InputError, NonFiniteRows, SetkitError, SolveError, TakeGeneralPath
+from .parallel import MIN_ENTRIES as MIN_SPLIT_ENTRIES
 from .routing import bind_point, build_plan, check_nonempty
 
 
@@ -378,6 +379,27 @@ class DecisionSet:
     def _run(self, op, X, tol=None):
         return self._plan.run(op, X, tol)
 
+    def _batch_run(self, op, arr, argname):
+        """``_batch`` then ``_run``: returns (flat batch, leading shape, answer, info).
+
+        A large float64 C-contiguous batch served by a native kernel that splits over threads skips
+        the finiteness pass here: each thread checks its own rows before its kernel runs (the check
+        then runs on every core, with no extra hand-off); a non-finite entry anywhere makes the
+        ordinary validation run, which names the first bad index."""
+        shape = self._shape
+        k = len(shape)
+        if (op in self._plan.self_checking and type(arr) is _ND and arr.dtype is _F64 and arr.ndim > k
+                and arr.size >= MIN_SPLIT_ENTRIES and arr.flags.c_contiguous and arr.shape[arr.ndim - k:] == shape):
+            X = arr.reshape(-1, self._dim)
+            try:
+                out, info = self._plan.run(op, X, check_finite=True)
+                return X, arr.shape[:arr.ndim - k], out, info
+            except NonFiniteRows:
+                pass                # the validation below raises the InputError naming the first bad index
+        X, lead = self._batch(arr, argname, op)
+        out, info = self._run(op, X)
+        return X, lead, out, info
+
     def _default_tol(self, X):
         if self._scale is None:
             self._scale = max(1.0, float(self.node.scale()))   # nodes are immutable: computed once
@@ -466,9 +488,8 @@ class DecisionSet:
                 return P.reshape(self._shape)
         if _is_dask(y):
             return self._lazy("project", [(y, "y")], details)
-        Y, lead = self._batch(y, "y", "project")
         t0 = time.perf_counter()
-        P, info = self._run("project", Y)
+        Y, lead, P, info = self._batch_run("project", y, "y")
         secs = time.perf_counter() - t0
         if not details:
             return self._out_points(P, lead)
@@ -505,8 +526,7 @@ class DecisionSet:
             return d[0] if type(d) is np.ndarray and d.shape == (1,) else self._out_values(d, ())
         if _is_dask(y):
             return self._lazy("distance", [(y, "y")], out_kind="values")
-        Y, lead = self._batch(y, "y", "distance")
-        d, _ = self._run("distance", Y)
+        _, lead, d, _ = self._batch_run("distance", y, "y")
         return self._out_values(d, lead)
 
     def _jacobian_product(self, op, y, w, wname, geometry, log_input):
@@ -629,9 +649,8 @@ class DecisionSet:
                 return L.reshape(self._shape)
         if _is_dask(c):
             return self._lazy("lmo", [(c, "c")], details)
-        C, lead = self._batch(c, "c", "lmo")
         t0 = time.perf_counter()
-        L, info = self._run("lmo", C)
+        C, lead, L, info = self._batch_run("lmo", c, "c")
         secs = time.perf_counter() - t0
         if not details:
             return self._out_points(L, lead)
@@ -662,9 +681,7 @@ class DecisionSet:
             return v[0] if type(v) is np.ndarray and v.shape == (1,) else self._out_values(v, ())
         if _is_dask(c):
             return self._lazy("support", [(c, "c")], out_kind="values")
-        C, lead = self._batch(c, "c", "support")
-        # sigma(c) = -min <-c, x>
-        v, _ = self._run("support", C)
+        _, lead, v, _ = self._batch_run("support", c, "c")
         return self._out_values(v, lead)
 
     def contains(self, x, tol=None):

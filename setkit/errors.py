@@ -35,6 +35,13 @@ class InputError(SetkitError, ValueError):
     """A point, direction or argument passed to an operator is invalid."""
 
 
+class NonFiniteRows(InputError):
+    """Internal signal: a native kernel split over threads (or one that checks its own input) found an
+    entry that is not finite; the DecisionSet then validates the batch itself, which raises the
+    InputError naming the first bad index. Kept an InputError so that, were it ever to escape, it
+    still says what was wrong."""
+
+
 class UnboundedDirectionError(SetkitError, ValueError):
     """The linear minimization has no minimizer: the set is unbounded along the direction."""
 

@@ -182,8 +182,14 @@ class Plan:
     """operator -> (checked, unchecked) single-point entries ``(function, leading arguments)`` of native
     routes (the family's ``point_kernels`` hook); bind them with :func:`bind_point`"""
 
-    def run(self, op: str, X, tol=None):
+    self_checking: frozenset = frozenset()
+    """operators whose call validates its own rows when given ``check_finite=True`` (native kernels split
+    over threads: each thread checks its chunk, so the finiteness pass runs on every core)"""
+
+    def run(self, op: str, X, tol=None, check_finite=False):
         fn = self.calls[op]
+        if check_finite:
+            return fn(X, tol, check_finite=True) if op in TAKES_TOL else fn(X, check_finite=True)
         return fn(X, tol) if op in TAKES_TOL else fn(X)
 
     def route(self, op: str) -> Route:
@@ -365,13 +371,14 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
         if r.category == "native":
             fn = getattr(node, node.kernels[op])
             if getattr(fn, "_setkit_workspace", False):
-                raw = (lambda f: (lambda *a: f(*a, context.workspace("native"))))(fn)
+                raw = (lambda f: (lambda *a, **k: f(*a, context.workspace("native"), **k)))(fn)
             elif has_parts:
-                raw = (lambda f: (lambda *a: f(*a, context.parts)))(fn)
+                raw = (lambda f: (lambda *a, **k: f(*a, context.parts, **k)))(fn)
             else:
                 raw = fn
             direct[op] = raw
-            calls[op] = (lambda f: (lambda *a: _as_pair(f(*a))))(split_rows(raw, op))   # large batches: all cores
+            calls[op] = _split_call(raw, op, bool(getattr(fn, "_setkit_into", False)),   # large batches: all cores
+                                    bool(getattr(fn, "_setkit_checks", False)))
         elif r.category == "strategy":
             if r.provider not in strategies:
                 strategies[r.provider] = strategy(r.provider)(node)
@@ -433,8 +440,22 @@ def build_plan(node, overrides: dict | None, context) -> Plan:
                                      r.category, r.forced)
     unchecked = _bind_contract(node, routes, calls, direct, run, context)
     point = _point_entries(node, routes, unchecked) if not has_parts else {}
+    checking = frozenset(op for op, c in calls.items() if getattr(c, "_setkit_checks_rows", False))
     return Plan(node, MappingProxyType(routes), MappingProxyType(calls), MappingProxyType(direct),
-                MappingProxyType(unchecked), MappingProxyType(point))
+                MappingProxyType(unchecked), MappingProxyType(point), checking)
+
+
+def _split_call(raw, op, into, checks):
+    """The plan's call of a native route: ``split_rows`` over threads, returning ``(out, info)``; for
+    the operators it splits, the call takes ``check_finite=`` (each thread validates its rows)."""
+    f = split_rows(raw, op, into, checks)
+    if f is raw:
+        return lambda *a: _as_pair(raw(*a))
+
+    def call(*a, check_finite=False):
+        return _as_pair(f(*a, check_finite=check_finite))
+    call._setkit_checks_rows = True
+    return call
 
 
 def _declaring_class(cls, attr):

@@ -49,7 +49,7 @@ _loaded = False
 _lock = threading.Lock()
 
 
-def kernel(operator: str, *, workspace: bool = False):
+def kernel(operator: str, *, workspace: bool = False, into: bool = False, checks: bool = False):
     """Mark a method of a family as its native implementation of ``operator``.
 
     Kernels work on flat batches: a ``(b, dim)`` float64 array in, ``(b, dim)``
@@ -61,6 +61,13 @@ def kernel(operator: str, *, workspace: bool = False):
     as its last argument, this thread's workspace of the set, built by the
     family's ``new_workspace()`` hook and owned by the DecisionSet (per thread,
     rebuilt after pickling).
+
+    With ``into=True`` (``project`` and ``lmo`` kernels) the kernel also accepts ``out=``, a
+    float64 array of the input's shape, writes its answer there and returns it: a large batch
+    split over threads is then written in place, without a copy of each thread's rows. With
+    ``checks=True`` the kernel also accepts ``check=``: when true it verifies that every entry of its
+    input is finite, in the same pass where it can, and raises ``errors.NonFiniteRows`` if one is not
+    (otherwise the threads run a separate finiteness pass first).
     """
     if operator not in OPERATORS:
         raise ValueError(f"kernel: operator must be one of {', '.join(OPERATORS)}; got {operator!r}.")
@@ -68,6 +75,8 @@ def kernel(operator: str, *, workspace: bool = False):
     def mark(fn):
         fn._setkit_operator = operator
         fn._setkit_workspace = bool(workspace)
+        fn._setkit_into = bool(into) and operator in ("project", "lmo")
+        fn._setkit_checks = bool(checks)
         return fn
     return mark
 

@@ -8,9 +8,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import NonFiniteRows
 from ..forms import LinearForm
-from ..kernels.vector_ops import (ball_lmo, ball_screen, ball_violation, l1_ball_project_rows, l2_ball_project, l2_dist_rows,
-                                  norm_rows)
+from ..kernels.checks import _all_finite
+from ..kernels.vector_ops import (ball_lmo_into, ball_screen, ball_violation, l1_ball_rows_into, l2_ball_project_into,
+                                  l2_dist_rows, norm_rows, rows_dot)
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -158,20 +160,26 @@ class Ball(Family):
         return {"project": (point.ball_project_point, (D,)), "lmo": (point.ball_lmo_point, (D,)),
                 "distance": (point.ball_distance_point, (D,))}
 
-    @kernel("project")
-    def project(self, Y):
+    @kernel("project", into=True, checks=True)
+    def project(self, Y, out=None, check=False):
         """Radial scaling (p=2), clipping (p=inf), or the simplex projection of |y - c| with signs restored (p=1), O(n).
 
         Range: p=inf is exact for every finite input; p=2 and p=1 are exact up to rounding for
         finite |y - c| <= 1e300 and radius in [1e-300, 1e300] (rescaled norms; for p=1, y - c is
         kept as an unevaluated sum and the threshold is found on |y - c| - max|y - c|)."""
         c, r = self.center, self.radius
+        out = np.empty_like(Y) if out is None else out
         if self.norm == 2:
-            return l2_ball_project(Y, c, r)
+            if not l2_ball_project_into(Y, c, r, out) and check:
+                raise NonFiniteRows(f"project on {self.label}: y must be finite")
+            return out
+        if check and not _all_finite(Y.reshape(-1)):
+            raise NonFiniteRows(f"project on {self.label}: y must be finite")
         if self.norm == 1:
-            return l1_ball_project_rows(Y, self._l1_center, r)
+            l1_ball_rows_into(Y, self._l1_center, r, out)
+            return out
         # p = inf: clip to the box [c - r, c + r] (points inside come back unchanged)
-        return np.clip(Y, self._lo, self._hi)
+        return np.clip(Y, self._lo, self._hi, out=out)
 
     @kernel("project_jvp")
     def project_jvp(self, Y, V):
@@ -225,15 +233,15 @@ class Ball(Family):
             return norm_rows(Y - np.minimum(np.maximum(Y, self._lo), self._hi))
         return norm_rows(Y - self.project(Y))
 
-    @kernel("lmo")
-    def lmo(self, C):
+    @kernel("lmo", into=True)
+    def lmo(self, C, out=None):
         """c0 - r c/||c||_2 (p=2), c0 - r sign(c) (p=inf), c0 - r sign(c_j) e_j at the largest |c_j| (p=1), O(n)."""
-        return ball_lmo(C, self.center, self.radius, self._p)
+        return ball_lmo_into(C, self.center, self.radius, self._p, np.empty_like(C) if out is None else out)
 
     @kernel("support")
     def support(self, C):
         """<c, center> + r ||c||_q with q the dual exponent, O(n)."""
-        return C @ self.center + self.radius * self._dual_norm(C)
+        return rows_dot(C, self.center) + self.radius * self._dual_norm(C)
 
     @kernel("contains")
     def contains(self, X, tol):

@@ -5,10 +5,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import UnboundedDirectionError
+from ..errors import NonFiniteRows, UnboundedDirectionError
 from ..kernels.bregman import box_kl, outside_orthant_error
 from ..forms import LinearForm
-from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation, box_lmo_bounded, box_ops, box_values
+from ..kernels.vector_ops import (bounds_sum_screen, bounds_sum_violation, box_lmo_bounded_into, box_ops, box_ops_into,
+                                  box_values, clip_rows_into)
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -124,13 +125,16 @@ class Box(Family):
             out["support"] = (point.box_support_point, (D,))
         return out
 
-    @kernel("project")
-    def project(self, Y):
+    @kernel("project", into=True, checks=True)
+    def project(self, Y, out=None, check=False):
         """Clipping to the bounds, O(n).
 
         Exact for every finite input (clipping does no arithmetic); the distance rescales its
         norm when squares would overflow or underflow (exact up to rounding for |y| <= 1e300)."""
-        return box_ops(Y, self.lower, self.upper, self._tie, 0)[0]
+        out = np.empty_like(Y) if out is None else out
+        if not clip_rows_into(Y, self.lower, self.upper, out) and check:
+            raise NonFiniteRows(f"project on {self.label}: y must be finite")
+        return out
 
     @kernel("project_jvp")
     def project_jvp(self, Y, V):
@@ -146,12 +150,13 @@ class Box(Family):
         """Norm of the clipped-off part, O(n)."""
         return box_values(Y, self.lower, self.upper, 0)
 
-    @kernel("lmo")
-    def lmo(self, C):
+    @kernel("lmo", into=True)
+    def lmo(self, C, out=None):
         """Lower bound where c > 0, upper bound where c < 0 (lower, else upper, where c = 0), O(n)."""
+        X = np.empty_like(C) if out is None else out
         if self._all_finite:
-            return box_lmo_bounded(C, self.lower, self.upper, self._tie)
-        X, bad = box_ops(C, self.lower, self.upper, self._tie, 1)
+            return box_lmo_bounded_into(C, self.lower, self.upper, self._tie, X)
+        bad = box_ops_into(C, self.lower, self.upper, self._tie, 1, X)
         if bad >= 0:
             i, j = divmod(int(bad), C.shape[1])
             raise UnboundedDirectionError(

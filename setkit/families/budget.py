@@ -176,11 +176,11 @@ class Budget(Family):
                        [self.total, float(self.mode == "at_most"), float(check), 1e4 * self._data_scale, self._room])
         return {"project": (point.budget_project_point, (D,)), "lmo": (point.budget_lmo_point, (D,))}
 
-    @kernel("project")
-    def project(self, Y):
+    @kernel("project", into=True)
+    def project(self, Y, out=None):
         """Clip to the bounds and shift by the multiplier of the weighted sum, found by randomized breakpoint search, expected O(n)."""
         return project_capped(Y, self.lower, self.upper, self.weights, self.total, self.mode, self._data_scale,
-                              self._long_data)
+                              self._long_data, out)
 
     @kernel("project_jvp")
     def project_jvp(self, Y, V):
@@ -200,10 +200,10 @@ class Budget(Family):
         return capped_face_rows(P, np.ascontiguousarray(V, dtype=float), self.lower, self.upper, self.weights,
                                 active, np.empty_like(P))
 
-    @kernel("lmo")
-    def lmo(self, C):
+    @kernel("lmo", into=True)
+    def lmo(self, C, out=None):
         """Continuous-knapsack greedy by increasing c_i / w_i, with randomized selection instead of a sort, expected O(n)."""
-        X = np.empty_like(C)
+        X = np.empty_like(C) if out is None else out
         knapsack_lmo_rows(C, self.lower, self._caps, self.weights, self._room, self.mode == "at_most", X)
         return X
 

@@ -12,6 +12,7 @@ import numpy as np
 from ..kernels.bregman import outside_orthant_error, permutahedron_kl, permutahedron_kl_jvp
 from ..kernels.face import permutahedron_face
 from ..kernels.isotonic import permutahedron_lmo, project_permutahedron
+from ..kernels.vector_ops import rows_dot
 from . import Family, kernel, register
 
 
@@ -130,10 +131,10 @@ class Permutahedron(Family):
         D = point.pack([self._wdesc], [float(check)])
         return {"project": (point.permutahedron_project_point, (D,)), "lmo": (point.permutahedron_lmo_point, (D,))}
 
-    @kernel("project")
-    def project(self, Y):
+    @kernel("project", into=True)
+    def project(self, Y, out=None):
         """Sort, then pool-adjacent-violators on y_sorted - w_sorted, O(n log n)."""
-        return project_permutahedron(Y, self._wdesc)
+        return project_permutahedron(Y, self._wdesc, out)
 
     @kernel("project_jvp")
     def project_jvp(self, Y, V):
@@ -147,15 +148,15 @@ class Permutahedron(Family):
         """
         return permutahedron_face(Y, self._wdesc, V, mode=0)
 
-    @kernel("lmo")
-    def lmo(self, C):
+    @kernel("lmo", into=True)
+    def lmo(self, C, out=None):
         """Rearrangement: the k-th largest weight at the k-th smallest c (ties by index), O(n log n)."""
-        return permutahedron_lmo(C, self._wdesc)
+        return permutahedron_lmo(C, self._wdesc, out)
 
     @kernel("support")
     def support(self, C):
         """Sorted c against sorted w (both increasing), O(n log n)."""
-        return np.sort(C, axis=1) @ self._wa
+        return rows_dot(np.sort(C, axis=1), self._wa)
 
     def orthant_violation(self):
         """None when every weight is >= 0 (the vertices are then nonnegative), else the smallest weight."""

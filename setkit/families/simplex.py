@@ -9,7 +9,8 @@ from ..forms import LinearForm
 from ..kernels.bregman import simplex_kl
 from ..kernels.face import simplex_face_rows
 from ..kernels.simplex import project_simplex_rows, simplex_distance_rows
-from ..kernels.vector_ops import bounds_sum_screen, bounds_sum_violation, simplex_lmo_rows, simplex_support_rows
+from ..kernels.vector_ops import (bounds_sum_screen, bounds_sum_violation, simplex_lmo_into,
+                                  simplex_support_rows)
 from . import Family, kernel, register
 from ._screen import screened_contains
 
@@ -90,11 +91,11 @@ class Simplex(Family):
         return {"project": (point.simplex_project_point, (D,)), "lmo": (point.simplex_lmo_point, (D,)),
                 "distance": (point.simplex_distance_point, (D,)), "support": (point.simplex_support_point, (D,))}
 
-    @kernel("project")
-    def project(self, Y):
+    @kernel("project", into=True)
+    def project(self, Y, out=None):
         """Sorted-threshold projection (pivot search for long single vectors), O(n log n)."""
         if self.mode == "equal":
-            return project_simplex_rows(Y, self.total)
+            return project_simplex_rows(Y, self.total, out)
         X = np.maximum(Y, 0.0)
         over = X.sum(axis=1) > self.total
         if over.any():
@@ -124,10 +125,12 @@ class Simplex(Family):
         """||y - max(y - tau, 0)|| with the threshold of the projection, without forming it, O(n)."""
         return simplex_distance_rows(Y, self.total, self.mode == "at_most")
 
-    @kernel("lmo")
-    def lmo(self, C):
+    @kernel("lmo", into=True)
+    def lmo(self, C, out=None):
         """The vertex total * e_i at the smallest c_i (the origin when at_most and min c >= 0), O(n)."""
-        return simplex_lmo_rows(C, float(self.total), self.mode == "at_most")
+        if out is None:        # allocated by NumPy: a large output allocated inside numba is often fresh pages
+            return simplex_lmo_into(C, float(self.total), self.mode == "at_most", np.zeros(C.shape), False)
+        return simplex_lmo_into(C, float(self.total), self.mode == "at_most", out)
 
     @kernel("contains")
     def contains(self, X, tol):

@@ -77,38 +77,53 @@ def _permutahedron_rows(Y, order, wdesc, out):
 def _pav_row(y, order, wdesc, out, ys, refs, sums, cnts, starts):
     """One row of :func:`_permutahedron_rows` with its work buffers given (counts as floats: exact).
 
-    Pool-adjacent-violators with the top block of the stack held in locals (ts, tc) and the blocks
-    below it in ``sums``/``cnts`` (a merge reads one stored block instead of a value it has just
-    written); each block keeps the reference value of its cluster in ``refs`` (blocks never cross
-    a cluster's edge). The answer is written by one walk whose block index advances by the 0/1
-    flags of ``starts`` (an integer chain, no branch). The same comparisons and the same sums
-    (a + b = b + a) as :func:`_pav_row_reference`: the same bits."""
+    Pool-adjacent-violators with the top block of the stack held in locals (ts, tc): each new value
+    z is compared with the top first, in registers, and either pooled into it (then the top is
+    compared with the stored blocks below, ``sums``/``cnts``) or the top is stored and z becomes the
+    top, so the common step stores nothing it reads back at once. Each block keeps the reference
+    value of its cluster in ``refs`` (blocks never cross a cluster's edge). The answer is written by
+    one walk whose block index advances by the 0/1 flags of ``starts`` (an integer chain, no
+    branch). The same comparisons and the same sums (a + b = b + a) as
+    :func:`_pav_row_reference`: the same bits."""
     n = y.size
     if n == 0:
         return
-    spread = wdesc[0] - wdesc[n - 1]
+    spread2 = 2.0 * (wdesc[0] - wdesc[n - 1])
     for i in range(n):
         ys[i] = y[order[i]]
         starts[i] = 0
-    nb = 0
+    nb = 0                        # blocks stored below the top
     floor = 0
     ref = ys[0]
     ts = (ys[0] - ref) - wdesc[0]
     tc = 1.0
     for i in range(1, n):
-        sums[nb] = ts             # the top goes below; the new value is the new top
-        cnts[nb] = tc
-        refs[nb] = ref
-        nb += 1
-        if ys[i - 1] - ys[i] > 2.0 * spread:
-            floor = nb            # a new cluster: no pool crosses this gap
-            ref = ys[i]
-        ts = (ys[i] - ref) - wdesc[i]
-        tc = 1.0
-        while nb > floor and sums[nb - 1] * tc < ts * cnts[nb - 1]:
-            nb -= 1
-            ts += sums[nb]
-            tc += cnts[nb]
+        yi = ys[i]
+        if ys[i - 1] - yi > spread2:
+            sums[nb] = ts         # a new cluster: no pool crosses this gap
+            cnts[nb] = tc
+            refs[nb] = ref
+            nb += 1
+            floor = nb
+            ref = yi
+            ts = (yi - ref) - wdesc[i]
+            tc = 1.0
+            continue
+        z = (yi - ref) - wdesc[i]
+        if ts < z * tc:           # the top's mean is below z: pool z into the top
+            ts = z + ts
+            tc = 1.0 + tc
+            while nb > floor and sums[nb - 1] * tc < ts * cnts[nb - 1]:
+                nb -= 1
+                ts += sums[nb]
+                tc += cnts[nb]
+        else:
+            sums[nb] = ts
+            cnts[nb] = tc
+            refs[nb] = ref
+            nb += 1
+            ts = z
+            tc = 1.0
     sums[nb] = ts
     cnts[nb] = tc
     refs[nb] = ref
@@ -223,8 +238,15 @@ def pack_rows(Y, nbits, decreasing):
     """Packed sort keys per row: an order-preserving 64-bit image of y (reversed when ``decreasing``)
     in the high bits, the index in the low ``nbits``. Sorting the keys of a row as unsigned integers
     sorts its values up to the dropped low bits, ties by index (:func:`keys_to_order` finishes)."""
+    out = np.empty(Y.shape, np.uint64)
+    pack_rows_into(Y, nbits, decreasing, out)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def pack_rows_into(Y, nbits, decreasing, out):
+    """:func:`pack_rows` written into ``out`` (uint64, the shape of Y)."""
     b, n = Y.shape
-    out = np.empty((b, n), np.uint64)
     sign = np.uint64(1) << np.uint64(63)
     sh = np.uint64(nbits)
     for r in range(b):
@@ -235,7 +257,6 @@ def pack_rows(Y, nbits, decreasing):
             if decreasing:
                 k = ~k
             out[r, i] = ((k >> sh) << sh) | np.uint64(i)
-    return out
 
 
 @njit(cache=True, nogil=True)
@@ -287,8 +308,14 @@ def keys_to_order(packed, y, nbits, decreasing, order):
 @njit(cache=True, nogil=True)
 def permutahedron_rows_keys(Y, keys, nbits, wdesc):
     """Rows of Y onto P(w) given each row's sorted packed keys (decreasing): exact order, then pooling."""
-    b, n = Y.shape
     out = np.empty_like(Y)
+    return permutahedron_rows_keys_into(Y, keys, nbits, wdesc, out)
+
+
+@njit(cache=True, nogil=True)
+def permutahedron_rows_keys_into(Y, keys, nbits, wdesc, out):
+    """:func:`permutahedron_rows_keys` written into ``out`` (returned)."""
+    b, n = Y.shape
     order = np.empty(n, np.int64)
     ys = np.empty(n)
     refs = np.empty(n)
@@ -320,8 +347,14 @@ def permutahedron_rows_packed(Y, wdesc):
 def permutahedron_lmo_keys(C, keys, nbits, wdesc):
     """Rearrangement per row from sorted packed keys (increasing): the k-th largest weight at the
     k-th smallest c, ties by index."""
-    b, n = C.shape
     out = np.empty_like(C)
+    return permutahedron_lmo_keys_into(C, keys, nbits, wdesc, out)
+
+
+@njit(cache=True, nogil=True)
+def permutahedron_lmo_keys_into(C, keys, nbits, wdesc, out):
+    """:func:`permutahedron_lmo_keys` written into ``out`` (returned)."""
+    b, n = C.shape
     order = np.empty(n, np.int64)
     for r in range(b):
         keys_to_order(keys[r], C[r], nbits, False, order)
@@ -347,23 +380,49 @@ def permutahedron_lmo_packed(C, wdesc):
 NUMPY_SORT_ROWS = 64
 
 
-def permutahedron_lmo(C, wdesc):
+def permutahedron_lmo(C, wdesc, out=None):
     """Rows of argmin <c, x> over P(w): the k-th largest weight at the k-th smallest c_i.
 
     Ties in c go by index (the stable order; -0.0 counts as below +0.0). Keys packed from c
     and its indices are sorted as unsigned integers (NumPy's sort for batches, numba's for
     small ones; the same unique order), runs equal in the packed bits finished exactly.
-    O(n log n) per row.
+    O(n log n) per row. ``out``: where to write the answer (allocated when None).
     """
     C = np.ascontiguousarray(C, dtype=float)
     b, n = C.shape
     wdesc = np.ascontiguousarray(wdesc, dtype=float)
     if b < NUMPY_SORT_ROWS or n == 0 or n > 2 ** 40:
-        return permutahedron_lmo_packed(C, wdesc) if n <= 2 ** 40 else permutahedron_lmo_rows(C, wdesc)
+        X = permutahedron_lmo_packed(C, wdesc) if n <= 2 ** 40 else permutahedron_lmo_rows(C, wdesc)
+        return _into(X, out)
     nbits = order_bits(n)
-    keys = pack_rows(C, nbits, False)
-    keys.sort(axis=1)
-    return permutahedron_lmo_keys(C, keys, nbits, wdesc)
+    out = np.empty_like(C) if out is None else out
+    for s, e, keys in _key_blocks(b, n):
+        pack_rows_into(C[s:e], nbits, False, keys)
+        keys.sort(axis=1)
+        permutahedron_lmo_keys_into(C[s:e], keys, nbits, wdesc, out[s:e])
+    return out
+
+
+# rows of a batch whose packed keys are sorted together: about this many keys (1 MB), so the keys'
+# buffer stays in cache and is reused (one buffer of the whole batch's keys would be a fresh large
+# allocation per call, each page of it faulted in)
+KEY_BLOCK = 1 << 17
+
+
+def _key_blocks(b, n):
+    """(start, stop, keys buffer) over the rows of a (b, n) batch in blocks of about KEY_BLOCK keys."""
+    rows = max(1, min(b, KEY_BLOCK // max(n, 1)))
+    buf = np.empty((rows, n), np.uint64)
+    for s in range(0, b, rows):
+        e = min(b, s + rows)
+        yield s, e, buf[:e - s]
+
+
+def _into(X, out):
+    if out is None:
+        return X
+    out[...] = X
+    return out
 
 
 def decreasing_order(y: np.ndarray) -> np.ndarray:
@@ -384,29 +443,33 @@ def decreasing_order(y: np.ndarray) -> np.ndarray:
     return _unpack_fix(packed, y, nbits)
 
 
-def project_permutahedron(Y: np.ndarray, wdesc: np.ndarray) -> np.ndarray:
+def project_permutahedron(Y: np.ndarray, wdesc: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
     """Project the rows of Y onto the permutahedron of w (``wdesc``: w sorted decreasingly).
 
     Sort each row, then pool-adjacent-violators; O(n log n) per row. Rows shorter than
     50,000 sort packed keys (value bits and index, see :func:`pack_rows`): the order is the
     stable decreasing order of y (ties by index; +0.0 before -0.0), unique, so batches
-    (NumPy's sort) and single points (numba's) give the same answer bit for bit.
+    (NumPy's sort) and single points (numba's) give the same answer bit for bit. ``out``: where to
+    write the answer (allocated when None).
     """
     Y = np.ascontiguousarray(Y, dtype=float)
     b, n = Y.shape
     if n < 50_000:
         wdesc = np.ascontiguousarray(wdesc, dtype=float)
         if b < NUMPY_SORT_ROWS or n == 0:
-            return permutahedron_rows_packed(Y, wdesc)
+            return _into(permutahedron_rows_packed(Y, wdesc), out)
         nbits = order_bits(n)
-        keys = pack_rows(Y, nbits, True)
-        keys.sort(axis=1)                    # NumPy's vectorized sort (releases the GIL)
-        return permutahedron_rows_keys(Y, keys, nbits, wdesc)
+        out = np.empty_like(Y) if out is None else out
+        for s, e, keys in _key_blocks(b, n):
+            pack_rows_into(Y[s:e], nbits, True, keys)
+            keys.sort(axis=1)                    # NumPy's vectorized sort (releases the GIL)
+            permutahedron_rows_keys_into(Y[s:e], keys, nbits, wdesc, out[s:e])
+        return out
     if b == 1:
         order = decreasing_order(Y[0])[None, :]
     else:
         order = np.argsort(-Y, axis=1, kind="stable")
-    out = np.empty_like(Y)
+    out = np.empty_like(Y) if out is None else out
     _permutahedron_rows(Y, np.ascontiguousarray(order), np.ascontiguousarray(wdesc, dtype=float), out)
     return out
 

@@ -350,7 +350,7 @@ def shift_to_top(Y: np.ndarray, total: float) -> np.ndarray:
     return np.maximum(Z, -2.0 * total)
 
 
-def project_simplex_rows(Y: np.ndarray, total: float) -> np.ndarray:
+def project_simplex_rows(Y: np.ndarray, total: float, out: np.ndarray | None = None) -> np.ndarray:
     """Project each row of Y onto {x >= 0, sum x = total}.
 
     x = max(y - tau, 0) with the threshold tau of the KKT conditions found by
@@ -359,15 +359,17 @@ def project_simplex_rows(Y: np.ndarray, total: float) -> np.ndarray:
     (Held, Wolfe and Crowder 1974), O(n log n). Rows are first shifted by their
     maximum (:func:`shift_to_top`), so the answer is exact up to a few ulps of
     ``total`` for every finite y with |y| <= 1e300 and total in [1e-300, 1e300]
-    (n * total below the float range).
+    (n * total below the float range). ``out``: where to write the answer (allocated when None).
     """
     Y = np.ascontiguousarray(Y, dtype=float)
     b, n = Y.shape
+    if out is None:
+        out = np.empty_like(Y)
     if total == 0.0:
-        return np.zeros_like(Y)
+        out[...] = 0.0
+        return out
     if b == 0:
-        return np.empty_like(Y)
-    out = np.empty_like(Y)
+        return out
     bad = _simplex_rows_nb(Y, float(total), out)
     if bad:
         rows = np.flatnonzero(np.isnan(out[:, 0]))
@@ -1346,7 +1348,7 @@ def _root_breakpoint(y, lo, hi, w, total):
     return _key_float(ka)
 
 
-def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None, long_data=None):
+def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None, long_data=None, out=None):
     """Project rows of Y onto {lo <= x <= hi, <w, x> = total} (mode "equal") or <= total ("at_most").
 
     The multiplier of the weighted sum comes from the compiled randomized
@@ -1363,16 +1365,17 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None, long_data
     ``long_data``: (lo, hi, w) for rows of at least LONG_ROW coordinates, each the vector or,
     when all its entries are equal, that number (:func:`uniform_or_array`; the caller computes
     it once per set); the long-row kernel then reads fewer arrays. The same answer bit for bit.
+    ``out``: where to write the answer (allocated when None).
     """
     Y = np.ascontiguousarray(Y, dtype=float)
     lo, hi, w = (_vector(v, Y.shape[1:]) for v in (lo, hi, w))
     if mode == "at_most":
-        X = np.clip(Y, lo, hi)
+        X = np.clip(Y, lo, hi, out=out)
         rows = np.flatnonzero(X @ w > total)
         if rows.size == 0:
             return X
     else:
-        X = np.empty_like(Y)
+        X = np.empty_like(Y) if out is None else out
         rows = np.arange(Y.shape[0])
     if rows.size == 0:
         return X

@@ -38,12 +38,23 @@ def l2_ball_project(Y, c, radius):
     The norm is rescaled when the plain sum of squares would overflow or underflow,
     so the answer is exact up to rounding for finite |y - c| <= 1e300.
     """
-    b, n = Y.shape
     out = np.empty_like(Y)
+    l2_ball_project_into(Y, c, radius, out)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def l2_ball_project_into(Y, c, radius, out):
+    """:func:`l2_ball_project` written into ``out``; returns whether every entry of Y is finite (read in the
+    same pass; the answer is meaningful only when it is)."""
+    b, n = Y.shape
     dv = np.empty(n)
+    nf = 0
     for r in range(b):
         for j in range(n):
-            dv[j] = Y[r, j] - c[j]
+            a = Y[r, j]
+            nf += a - a != 0.0          # an integer count (no float reduction): 1 for inf and NaN
+            dv[j] = a - c[j]
         nv = scaled_norm(dv, n)       # no overflow above 1e154, no underflow below 1e-154
         if nv <= radius:
             for j in range(n):
@@ -52,14 +63,20 @@ def l2_ball_project(Y, c, radius):
             f = radius / nv
             for j in range(n):
                 out[r, j] = c[j] + (Y[r, j] - c[j]) * f
-    return out
+    return nf == 0
 
 
 @njit(cache=True, nogil=True)
 def ball_lmo(C, c, radius, p):
     """center - r u with u the unit-norm maximizer of <c, u>; p = 1, 2 or 0 (meaning inf)."""
-    b, n = C.shape
     out = np.empty_like(C)
+    return ball_lmo_into(C, c, radius, p, out)
+
+
+@njit(cache=True, nogil=True)
+def ball_lmo_into(C, c, radius, p, out):
+    """:func:`ball_lmo` written into ``out`` (returned)."""
+    b, n = C.shape
     for r in range(b):
         for j in range(n):
             out[r, j] = c[j]
@@ -109,6 +126,31 @@ def ball_violation(X, c, radius, p):
         if p == 2:
             s = scaled_norm(dv, n)
         out[r] = max(s - radius, 0.0)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def rows_dot(A, v):
+    """<a_i, v> per row of A, summed in one fixed order (four running sums over j mod 4, then
+    ((s0 + s1) + (s2 + s3)) + the tail), O(n). A row's value does not depend on its batch (BLAS's
+    matrix-vector product may sum a row differently by its place in the batch)."""
+    b, n = A.shape
+    out = np.empty(b)
+    k4 = n - n % 4
+    for r in range(b):
+        s0 = 0.0
+        s1 = 0.0
+        s2 = 0.0
+        s3 = 0.0
+        for j in range(0, k4, 4):
+            s0 += A[r, j] * v[j]
+            s1 += A[r, j + 1] * v[j + 1]
+            s2 += A[r, j + 2] * v[j + 2]
+            s3 += A[r, j + 3] * v[j + 3]
+        s = (s0 + s1) + (s2 + s3)
+        for j in range(k4, n):
+            s += A[r, j] * v[j]
+        out[r] = s
     return out
 
 
@@ -353,8 +395,14 @@ def l1_ball_project_buffered(Y, c, radius):
 def box_ops(X, lo, hi, tie, op):
     """Box kernels in one pass per row. op 0: projection (clip); 1: LMO (lower where c > 0, upper
     where c < 0, ``tie`` where c = 0); returns (points, index of an unbounded coordinate or -1)."""
-    b, n = X.shape
     out = np.empty_like(X)
+    return out, box_ops_into(X, lo, hi, tie, op, out)
+
+
+@njit(cache=True, nogil=True)
+def box_ops_into(X, lo, hi, tie, op, out):
+    """:func:`box_ops` written into ``out``; returns the index of an unbounded coordinate or -1."""
+    b, n = X.shape
     bad = -1
     for r in range(b):
         for j in range(n):
@@ -366,7 +414,21 @@ def box_ops(X, lo, hi, tie, op):
                 if bad < 0 and not (x - x == 0.0):
                     bad = r * n + j
                 out[r, j] = x
-    return out, bad
+    return bad
+
+
+@njit(cache=True, nogil=True)
+def clip_rows_into(X, lo, hi, out):
+    """:func:`box_ops`'s projection (op 0) written into ``out``; returns whether every entry of X is finite
+    (read in the same pass)."""
+    b, n = X.shape
+    nf = 0
+    for r in range(b):
+        for j in range(n):
+            v = X[r, j]
+            nf += v - v != 0.0          # an integer count (no float reduction): 1 for inf and NaN
+            out[r, j] = min(max(v, lo[j]), hi[j])
+    return nf == 0
 
 
 @njit(cache=True, nogil=True)
@@ -465,8 +527,14 @@ def l2_dist_rows(X, c):
 @njit(cache=True, nogil=True)
 def box_lmo_bounded(C, lo, hi, tie):
     """box_ops(C, lo, hi, tie, 1)[0] for finite bounds (no unboundedness check, one return value)."""
-    b, n = C.shape
     out = np.empty_like(C)
+    return box_lmo_bounded_into(C, lo, hi, tie, out)
+
+
+@njit(cache=True, nogil=True)
+def box_lmo_bounded_into(C, lo, hi, tie, out):
+    """:func:`box_lmo_bounded` written into ``out`` (returned)."""
+    b, n = C.shape
     for r in range(b):
         for j in range(n):
             v = C[r, j]
@@ -477,9 +545,17 @@ def box_lmo_bounded(C, lo, hi, tie):
 @njit(cache=True, nogil=True)
 def simplex_lmo_rows(C, total, at_most):
     """Simplex LMO per row: total e_j at the first smallest c_j (the origin when at_most and c_j >= 0)."""
+    out = np.zeros(C.shape)
+    return simplex_lmo_into(C, total, at_most, out, False)
+
+
+@njit(cache=True, nogil=True)
+def simplex_lmo_into(C, total, at_most, out, clear=True):
+    """:func:`simplex_lmo_rows` written into ``out`` (returned); ``clear=False`` when out is already zero."""
     b, n = C.shape
-    out = np.zeros((b, n))
     for r in range(b):
+        if clear:
+            out[r, :] = 0.0
         j = 0
         m = C[r, 0]
         for k in range(1, n):
