@@ -16,7 +16,6 @@ from __future__ import annotations
 import os
 import threading
 import time
-from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
@@ -25,8 +24,6 @@ from .errors import NonFiniteRows
 MIN_ENTRIES = 200_000
 SPLIT_OPERATORS = frozenset({"project", "lmo", "distance", "support", "violation", "contains"})
 
-_pool = None
-_pool_lock = threading.Lock()
 
 
 def thread_count() -> int:
@@ -51,14 +48,6 @@ def _cpus():
         except AttributeError:      # not on Linux
             _CPUS.append(max(1, os.cpu_count() or 1))
     return _CPUS[0]
-
-
-def _executor(k):
-    global _pool
-    with _pool_lock:
-        if _pool is None or _pool._max_workers < k:
-            _pool = ThreadPoolExecutor(max_workers=k, thread_name_prefix="setkit")
-        return _pool
 
 
 class _Hand:
@@ -129,6 +118,40 @@ def _forget_crew():           # a forked child has none of the parent's threads
 
 if hasattr(os, "register_at_fork"):
     os.register_at_fork(after_in_child=_forget_crew)
+
+
+class CrewPool:
+    """``submit(fn, *args)`` / ``result()`` over held hands, in turn (for code written against an
+    executor that submits at most len(hands) jobs and collects them all before submitting again)."""
+
+    def __init__(self, hands):
+        self.hands = hands
+        self.turn = 0
+
+    def submit(self, fn, *args):
+        h = self.hands[self.turn % len(self.hands)]
+        self.turn += 1
+        return h.submit(fn, *args)
+
+
+def held_crew(k):
+    """Context manager: a CrewPool of k - 1 hands, or None when another batch holds the crew."""
+    return _Held(k)
+
+
+class _Held:
+    def __init__(self, k):
+        self.k = k
+        self.hands = None
+
+    def __enter__(self):
+        self.hands = _take_crew(self.k)
+        return CrewPool(self.hands) if self.hands is not None else None
+
+    def __exit__(self, kind, value, tb):
+        if self.hands is not None:
+            _give_crew(kind is None)
+        return False
 
 
 def _gather(hands):

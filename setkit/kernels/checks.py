@@ -24,10 +24,12 @@ def all_finite(a: np.ndarray) -> bool:
         from .. import parallel
         k = parallel.thread_count()
         if k >= 2 and not parallel._in_worker():
-            cuts = np.linspace(0, flat.size, k + 1).astype(np.int64)
-            futs = [parallel._executor(k).submit(_all_finite, flat[cuts[i]:cuts[i + 1]]) for i in range(1, k)]
-            ok = bool(_all_finite(flat[:cuts[1]]))
-            return all([bool(f.result()) for f in futs]) and ok
+            with parallel.held_crew(k) as pool:
+                if pool is not None:
+                    cuts = [flat.size * i // k for i in range(k + 1)]
+                    futs = [pool.submit(_all_finite, flat[cuts[i]:cuts[i + 1]]) for i in range(1, k)]
+                    ok = bool(_all_finite(flat[:cuts[1]]))
+                    return all([bool(f.result()) for f in futs]) and ok
     return bool(_all_finite(flat))
 
 

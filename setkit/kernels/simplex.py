@@ -1386,9 +1386,12 @@ def project_capped(Y, lo, hi, w, total, mode="equal", data_scale=None, long_data
         k = parallel.thread_count()
         k = min(k, 8)
         if Y.shape[1] >= THREAD_ROW and k >= 2 and not parallel._in_worker():
-            pool = parallel._executor(k)
-            for r in rows:
-                lams[r] = capped_project_threads(Y[r], ld[0], ld[1], ld[2], float(total), X[r], k, pool)
+            with parallel.held_crew(k) as pool:
+                for r in rows:
+                    if pool is None:       # another batch holds the crew: this one in its own thread
+                        lams[r] = capped_project_long(Y[r], ld[0], ld[1], ld[2], float(total), X[r])
+                    else:
+                        lams[r] = capped_project_threads(Y[r], ld[0], ld[1], ld[2], float(total), X[r], k, pool)
         else:
             for r in rows:
                 lams[r] = capped_project_long(Y[r], ld[0], ld[1], ld[2], float(total), X[r])

@@ -334,7 +334,12 @@ def test_long_budget_threaded_passes_bit_identical():
     arrays and with numbers, on random, sorted (the wide bracket), tied and constant (the full
     search) inputs."""
     from setkit import parallel
-    pool = parallel._executor(4)
+    with parallel.held_crew(4) as pool:
+        assert pool is not None
+        _long_budget_threaded_cases(pool)
+
+
+def _long_budget_threaded_cases(pool):
     rng = np.random.default_rng(51)
     n = 2 * LONG_ROW + 1001
     for lo, hi, w in ((np.zeros(n), rng.uniform(0.5, 2.0, n), np.ones(n)),
