@@ -59,6 +59,10 @@ def test_misspelled_required_key_is_named_with_the_closest_valid_key():
     ({"kind": "polyhedron", "A": [[]], "b": [1]}, "at least one column"),
     ({"kind": "box", "lower": [1 + 2j, 0.0], "upper": 3}, "real numbers"),
     ({"kind": "flow", "edges": [["a", "b", 10 ** 400]], "supply": {"a": 1, "b": -1}}, "float range"),
+    # found by fuzz_descriptions (seed 21): 2^31 counted nodes were listed one by one until the
+    # process ran out of memory (killed, not an error)
+    ({"kind": "spanning_trees", "nodes": 2 ** 31, "edges": [[0, 1], [1, 2]]}, "size limit"),
+    ({"kind": "paths", "nodes": 10 ** 9, "edges": [[0, 1]], "source": 0, "target": 1}, "size limit"),
 ])
 def test_overflow_size_and_type_cases_are_located_description_errors(spec, needle):
     msg = _refused(spec, needle)
@@ -133,3 +137,18 @@ def test_polyhedron_with_data_beyond_the_lp_range_is_a_located_error():
         setkit.compile({"kind": "polyhedron", "A": [[1, 1], [-1, 2]], "b": [-1e300, 2],
                         "lower": [-1, -1], "upper": [3, 3]})
     assert "(<dict>: " in str(info.value)
+
+
+def test_nodes_given_as_a_count_are_named_by_their_integers():
+    """A node count stands for the names 0 .. n-1 (matched as text, as listed names are): "2" and 2
+    name the same node, "02", 2.0 and n do not; 10^6 counted nodes cost no list of names."""
+    K = setkit.compile({"kind": "spanning_trees", "nodes": 3, "edges": [[0, "1"], ["1", 2], [2, 0]]})
+    assert K.node.node_names == range(3)
+    np.testing.assert_array_equal(K.lmo(np.array([1.0, 2.0, 3.0])), [1.0, 1.0, 0.0])  # the two cheapest edges
+    for bad in ("02", 2.0, 3, -1, "x"):
+        _refused({"kind": "spanning_trees", "nodes": 3, "edges": [[0, 1], [1, bad]]}, "not among the nodes (0, 1, ..., 2)")
+    P = setkit.compile({"kind": "paths", "nodes": 10 ** 6, "edges": [[0, 1], [1, 999_999], [0, 999_999]],
+                        "source": "0", "target": 999_999})
+    assert P.dim == 3 and sorted(P.lmo(np.array([1.0, 1.0, 3.0])).tolist()) == [0.0, 1.0, 1.0]
+    _refused({"kind": "paths", "nodes": 3, "edges": [[0, 1], [1, 2]], "source": 0, "target": "5"},
+             "target names the node")

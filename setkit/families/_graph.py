@@ -20,6 +20,7 @@ from typing import Mapping
 
 import numpy as np
 
+from ..description import MAX_SIZE
 from ..errors import DescriptionError
 
 
@@ -27,7 +28,7 @@ from ..errors import DescriptionError
 class EdgeList:
     """Nodes (names in index order) and edges (tail, head and extra numeric columns)."""
 
-    names: tuple
+    names: tuple          # or a range when the nodes were given as a count
     tail: np.ndarray
     head: np.ndarray
     extra: dict          # column name -> float array (NaN where not given)
@@ -102,7 +103,10 @@ def read_edges(r, *, directed: bool, key: str = "edges", extra_keys=(), what="gr
         if isinstance(v, Integral) and not isinstance(v, bool):
             if v < 1:
                 r.fail("nodes", f"nodes must be at least 1 when given as a count; got {v}.")
-            names = list(range(int(v)))
+            if v > MAX_SIZE:        # found by benchmarks/fuzz_descriptions.py (seed 21): 2^31 nodes ran out of memory
+                r.fail("nodes", f"nodes must be at most {MAX_SIZE:,} (the size limit of setkit); got "
+                                f"{v if v < 10 ** 20 else f'{float(v):.3g}'}.")
+            names = range(int(v))   # nodes 0 .. v-1, never listed one by one
         elif isinstance(v, (list, tuple)):
             names = list(v)
             if not names:
@@ -114,7 +118,8 @@ def read_edges(r, *, directed: bool, key: str = "edges", extra_keys=(), what="gr
     else:
         r.raw("nodes", None)
     index = {}
-    if names is not None:
+    counted = isinstance(names, range)
+    if names is not None and not counted:
         for i, nm in enumerate(names):
             if isinstance(nm, (list, dict)):
                 r.fail("nodes", f"node {i} must be a name (text or number); got {nm!r}.")
@@ -128,6 +133,12 @@ def read_edges(r, *, directed: bool, key: str = "edges", extra_keys=(), what="gr
 
     def node_id(path, nm, where):
         k = str(nm)
+        if counted:
+            i = _counted_node(k, len(names))
+            if i is None:
+                fail_at(r, path, f"{where} names the node {nm!r}, which is not among the nodes (0, 1, ..., "
+                                 f"{len(names) - 1}).")
+            return i
         if k not in index:
             if not infer:
                 shown = ", ".join(map(str, names[:10])) + (" ..." if len(names) > 10 else "")
@@ -186,7 +197,16 @@ def read_edges(r, *, directed: bool, key: str = "edges", extra_keys=(), what="gr
         for a in extra_keys:
             if e.get(a) is not None:
                 extra[a][k] = _number(r, path + ((a,) if len(path) > 1 else ()), e[a], f"the {a} of {where}")
-    return EdgeList(tuple(names), tail, head, extra)
+    return EdgeList(names if counted else tuple(names), tail, head, extra)
+
+
+def _counted_node(k, count):
+    """The node named by the text k among nodes given as a count (the names "0" .. "count-1"), or None."""
+    if k.isascii() and k.isdigit() and (k == "0" or k[0] != "0"):
+        i = int(k)
+        if i < count:
+            return i
+    return None
 
 
 def resolve_node(r, key, names, required=True):
@@ -194,7 +214,11 @@ def resolve_node(r, key, names, required=True):
     v = r.raw(key) if required else r.raw(key, None)
     if v is None:
         return None
-    for i, nm in enumerate(names):
+    if isinstance(names, range):
+        i = _counted_node(str(v), len(names))
+        if i is not None:
+            return i
+    for i, nm in enumerate(names if not isinstance(names, range) else ()):
         if str(nm) == str(v):
             return i
     shown = ", ".join(map(str, names[:10])) + (" ..." if len(names) > 10 else "")

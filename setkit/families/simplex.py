@@ -96,7 +96,7 @@ class Simplex(Family):
         """Sorted-threshold projection (pivot search for long single vectors), O(n log n)."""
         if self.mode == "equal":
             return project_simplex_rows(Y, self.total, out)
-        X = np.maximum(Y, 0.0)
+        X = np.maximum(Y, 0.0, out=out)
         over = X.sum(axis=1) > self.total
         if over.any():
             X[over] = project_simplex_rows(Y[over], self.total)
