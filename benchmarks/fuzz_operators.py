@@ -97,10 +97,14 @@ def _warm(K):
             for op in ("project", "distance", "lmo", "support", "contains", "violation"):
                 try:
                     getattr(K, op)(arg)
+                except CallTimeout:
+                    raise
                 except Exception:                       # noqa: BLE001, S110 - only compiling matters here
                     pass
             try:
                 K.project(np.abs(arg) + 0.5, geometry="kl")
+            except CallTimeout:
+                raise
             except Exception:                           # noqa: BLE001, S110
                 pass
 
