@@ -27,6 +27,16 @@ ARRAY_SUFFIXES = (".npy", ".npz", ".csv")
 
 # Size limits: a description that exceeds one is refused with a message naming the limit, before
 # anything of that size is allocated.
+def show_count(v: int) -> str:
+    """A whole number for a message: itself below 10^20, else its magnitude (no float overflow, and no
+    decimal conversion of a number with thousands of digits)."""
+    if -10 ** 20 < v < 10 ** 20:
+        return f"{v}"
+    if abs(v) < 10 ** 300:
+        return f"about {float(v):.3g}"
+    return f"a number of about {int(abs(v).bit_length() * 0.30103) + 1} digits"
+
+
 MAX_SIZE = 10 ** 8             # any count read by Reader.integer (dimensions, nodes, copies, ...)
 MAX_DEPTH = 100                # nesting of lists and mappings in a description
 MAX_VALUES = 10 ** 7           # entries of a description counted with YAML aliases expanded
@@ -226,9 +236,7 @@ class Reader:
         if min is not None and v < min:
             self.fail(key, f"{key} must be at least {min}; got {v}.")
         if max is not None and v > max:
-            shown = f"{v}" if v < 10 ** 20 else f"about {float(v):.3g}" if v < 10 ** 300 else "a number of " \
-                f"{len(str(v))} digits"
-            self.fail(key, f"{key} must be at most {max:,} (the size limit of setkit); got {shown}.")
+            self.fail(key, f"{key} must be at most {max:,} (the size limit of setkit); got {show_count(v)}.")
         return v
 
     def choice(self, key, choices, default=_REQUIRED):

@@ -63,6 +63,11 @@ def test_misspelled_required_key_is_named_with_the_closest_valid_key():
     # process ran out of memory (killed, not an error)
     ({"kind": "spanning_trees", "nodes": 2 ** 31, "edges": [[0, 1], [1, 2]]}, "size limit"),
     ({"kind": "paths", "nodes": 10 ** 9, "edges": [[0, 1]], "source": 0, "target": 1}, "size limit"),
+    # seed 21 too: these were refused through the last-resort conversion of an OverflowError
+    ({"kind": "spanning_trees", "nodes": 10 ** 400, "edges": [[0, 1]]}, "about 401 digits"),
+    ({"kind": "simplex", "dim": 10 ** 5000}, "about 5001 digits"),     # past Python's int-to-text limit
+    ({"kind": "matroid_bases", "form": "partition", "groups": [[0, 1], [2 ** 63, 3]], "quotas": [1, 1]},
+     "indices must be below 100,000,000"),
 ])
 def test_overflow_size_and_type_cases_are_located_description_errors(spec, needle):
     msg = _refused(spec, needle)

@@ -20,7 +20,7 @@ from typing import Mapping
 
 import numpy as np
 
-from ..description import MAX_SIZE
+from ..description import MAX_SIZE, show_count
 from ..errors import DescriptionError
 
 
@@ -56,8 +56,9 @@ def _number(r, path, v, what):
         fail_at(r, path, f"{what} must be a number; got {v!r}.")
     try:
         v = float(v)
-    except ValueError:
-        fail_at(r, path, f"{what} must be a number; got {v!r}.")
+    except (ValueError, OverflowError):
+        fail_at(r, path, f"{what} must be a number within the float range (|v| < 1.8e308); got "
+                         f"{show_count(v) if isinstance(v, int) else repr(v)}.")
     if not np.isfinite(v):
         fail_at(r, path, f"{what} must be a finite number; got {v}.")
     return v
@@ -105,7 +106,7 @@ def read_edges(r, *, directed: bool, key: str = "edges", extra_keys=(), what="gr
                 r.fail("nodes", f"nodes must be at least 1 when given as a count; got {v}.")
             if v > MAX_SIZE:        # found by benchmarks/fuzz_descriptions.py (seed 21): 2^31 nodes ran out of memory
                 r.fail("nodes", f"nodes must be at most {MAX_SIZE:,} (the size limit of setkit); got "
-                                f"{v if v < 10 ** 20 else f'{float(v):.3g}'}.")
+                                f"{show_count(v)}.")
             names = range(int(v))   # nodes 0 .. v-1, never listed one by one
         elif isinstance(v, (list, tuple)):
             names = list(v)

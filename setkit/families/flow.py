@@ -16,7 +16,7 @@ from typing import Mapping
 
 import numpy as np
 
-from ..description import MAX_SIZE, decode_text
+from ..description import MAX_SIZE, decode_text, show_count
 from ..errors import DescriptionError, EmptySetError
 from . import memo, register
 from ._network import Network, NetworkFamily, check_feasible
@@ -131,7 +131,7 @@ class Flow(NetworkFamily):
                     r.fail("nodes", f"nodes must be at least 1 when given as a count; got {v}.")
                 if v > MAX_SIZE:
                     r.fail("nodes", f"nodes must be at most {MAX_SIZE:,} (the size limit of setkit); got "
-                                    f"{v if v < 10 ** 20 else f'{float(v):.3g}'}.")
+                                    f"{show_count(v)}.")
                 names = list(range(int(v)))
             elif isinstance(v, (list, tuple)):
                 names = list(v)

@@ -26,6 +26,7 @@ from numbers import Integral
 import numpy as np
 import scipy.sparse as sp
 
+from ..description import MAX_SIZE, show_count
 from ..forms import LinearForm
 from ..kernels.base_kl import base_polytope_kl, partition_kl_jvp
 from ..kernels.bregman import budget_kl
@@ -91,6 +92,9 @@ class MatroidBases(BasePolytopeMixin, Family):
                     if isinstance(i, bool) or not isinstance(i, Integral) or i < 0:
                         fail_at(r, ("groups", j), f"groups[{j}] must hold element indices (whole numbers >= 0); "
                                                   f"got {i!r}.")
+                    if i >= MAX_SIZE:         # found by fuzz_descriptions (seed 21): 2^63 overflowed int64
+                        fail_at(r, ("groups", j), f"groups[{j}] holds the element index {show_count(int(i))}; "
+                                                  f"indices must be below {MAX_SIZE:,} (the size limit of setkit).")
                     if int(i) in seen:
                         fail_at(r, ("groups", j), f"element {i} is in groups[{seen[int(i)]}] and groups[{j}]; the "
                                                   f"groups must be disjoint.")
