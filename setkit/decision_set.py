@@ -341,7 +341,7 @@ class DecisionSet:
 
         None for anything else (the general path in :meth:`_batch` then validates and reports)."""
         if type(a) is np.ndarray and a.shape == self._shape and a.dtype == _F64 and a.flags.c_contiguous:
-            if a.ndim == 1:
+            if a.ndim == 1 and a.size < 1 << 19:       # longer points: _all_finite checks them over the threads
                 if _finite_1d(a):
                     return a.reshape(1, self._dim)
             elif _all_finite(a):

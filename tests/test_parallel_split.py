@@ -197,3 +197,19 @@ def test_a_forked_child_gets_its_own_crew(monkeypatch):
         p.kill()
         pytest.fail("the forked child hung")
     assert p.exitcode == 0 and q.get(timeout=5) is True
+
+
+@pytest.mark.parametrize("threads", ["1", "2"])
+def test_one_long_point_with_a_non_finite_entry_is_named(threads, monkeypatch):
+    """A single point of 2^19 + 1 coordinates is checked over the threads (kernels.checks.all_finite);
+    a NaN or inf at its first, middle or last coordinate is still the located InputError."""
+    monkeypatch.setenv("SETKIT_THREADS", threads)
+    n = (1 << 19) + 1
+    K = setkit.compile({"kind": "simplex", "dim": n})
+    y = np.random.default_rng(12).normal(size=n)
+    np.testing.assert_allclose(K.project(y).sum(), 1.0, rtol=1e-12)
+    for j, bad in ((0, np.nan), (n // 2, np.inf), (n - 1, -np.inf)):
+        z = y.copy()
+        z[j] = bad
+        with pytest.raises(InputError, match=rf"finite; got {bad} at index \({j},\)"):
+            K.project(z)
