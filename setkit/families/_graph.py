@@ -219,9 +219,10 @@ def resolve_node(r, key, names, required=True):
         i = _counted_node(str(v), len(names))
         if i is not None:
             return i
-    for i, nm in enumerate(names if not isinstance(names, range) else ()):
-        if str(nm) == str(v):
-            return i
+    else:
+        for i, nm in enumerate(names):
+            if str(nm) == str(v):
+                return i
     shown = ", ".join(map(str, names[:10])) + (" ..." if len(names) > 10 else "")
     r.fail(key, f"{key} names the node {v!r}, which is not among the nodes ({shown}).")
 

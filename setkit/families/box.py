@@ -156,7 +156,7 @@ class Box(Family):
         X = np.empty_like(C) if out is None else out
         if self._all_finite:
             return box_lmo_bounded_into(C, self.lower, self.upper, self._tie, X)
-        bad = box_ops_into(C, self.lower, self.upper, self._tie, 1, X)
+        bad = box_ops_into(C, self.lower, self.upper, self._tie, X)
         if bad >= 0:
             i, j = divmod(int(bad), C.shape[1])
             raise UnboundedDirectionError(
@@ -169,7 +169,7 @@ class Box(Family):
         """sum_i max(c_i lower_i, c_i upper_i), O(n); raises when unbounded along c."""
         if self._all_finite:
             return box_values(C, self.lower, self.upper, 1)
-        X, bad = box_ops(-C, self.lower, self.upper, self._tie, 1)
+        X, bad = box_ops(-C, self.lower, self.upper, self._tie)
         if bad >= 0:
             i, j = divmod(int(bad), C.shape[1])
             side = "upper" if C[i, j] > 0 else "lower"

@@ -157,9 +157,9 @@ def simplex_support_point(D, y):
 # -- box: rows (lower, upper, tie); params (check, all bounds finite) --------------------------
 @njit(cache=True, nogil=True, fastmath={"reassoc"})
 def box_project_point(D, y):
-    """box_ops (clip) of one point: min(max(y_i, lower_i), upper_i), the same expression, with the
-    finiteness check in the same pass (reassociating only its sum of y_i * 0, so the loop vectorizes;
-    min and max are comparisons, exact in any case)."""
+    """clip_rows_into (the box projection) of one point: min(max(y_i, lower_i), upper_i), the same
+    expression, with the finiteness check in the same pass (reassociating only its sum of y_i * 0, so
+    the loop vectorizes; min and max are comparisons, exact in any case)."""
     n = y.size
     x = np.empty(n)
     acc = 0.0
@@ -190,7 +190,7 @@ def box_lmo_point(D, y):
         return x
     if s[0] != 0.0 and not _finite(y):
         raise TakeGeneralPath()
-    X, bad = box_ops(y.reshape(1, n), D[0, :n], D[1, :n], D[2, :n], 1)
+    X, bad = box_ops(y.reshape(1, n), D[0, :n], D[1, :n], D[2, :n])
     if bad >= 0:
         raise TakeGeneralPath()        # the general path names the unbounded coordinate
     return X[0]

@@ -392,35 +392,33 @@ def l1_ball_project_buffered(Y, c, radius):
 
 
 @njit(cache=True, nogil=True)
-def box_ops(X, lo, hi, tie, op):
-    """Box kernels in one pass per row. op 0: projection (clip); 1: LMO (lower where c > 0, upper
-    where c < 0, ``tie`` where c = 0); returns (points, index of an unbounded coordinate or -1)."""
+def box_ops(X, lo, hi, tie):
+    """Box LMO in one pass per row (lower where c > 0, upper where c < 0, ``tie`` where c = 0), bounds
+    possibly infinite; returns (points, index of an unbounded coordinate or -1). The projection is
+    :func:`clip_rows_into`."""
     out = np.empty_like(X)
-    return out, box_ops_into(X, lo, hi, tie, op, out)
+    return out, box_ops_into(X, lo, hi, tie, out)
 
 
 @njit(cache=True, nogil=True)
-def box_ops_into(X, lo, hi, tie, op, out):
+def box_ops_into(X, lo, hi, tie, out):
     """:func:`box_ops` written into ``out``; returns the index of an unbounded coordinate or -1."""
     b, n = X.shape
     bad = -1
     for r in range(b):
         for j in range(n):
             v = X[r, j]
-            if op == 0:
-                out[r, j] = min(max(v, lo[j]), hi[j])
-            else:
-                x = lo[j] if v > 0.0 else (hi[j] if v < 0.0 else tie[j])
-                if bad < 0 and not (x - x == 0.0):
-                    bad = r * n + j
-                out[r, j] = x
+            x = lo[j] if v > 0.0 else (hi[j] if v < 0.0 else tie[j])
+            if bad < 0 and not (x - x == 0.0):
+                bad = r * n + j
+            out[r, j] = x
     return bad
 
 
 @njit(cache=True, nogil=True)
 def clip_rows_into(X, lo, hi, out):
-    """:func:`box_ops`'s projection (op 0) written into ``out``; returns whether every entry of X is finite
-    (read in the same pass)."""
+    """The box projection min(max(x, lo), hi) per entry, written into ``out``; returns whether every entry
+    of X is finite (read in the same pass)."""
     b, n = X.shape
     nf = 0
     for r in range(b):
@@ -526,7 +524,7 @@ def l2_dist_rows(X, c):
 
 @njit(cache=True, nogil=True)
 def box_lmo_bounded(C, lo, hi, tie):
-    """box_ops(C, lo, hi, tie, 1)[0] for finite bounds (no unboundedness check, one return value)."""
+    """box_ops(C, lo, hi, tie)[0] for finite bounds (no unboundedness check, one return value)."""
     out = np.empty_like(C)
     return box_lmo_bounded_into(C, lo, hi, tie, out)
 
